@@ -1,0 +1,1 @@
+"""corridor.geometry package."""

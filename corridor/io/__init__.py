@@ -1,0 +1,1 @@
+"""corridor.io package."""

@@ -1,0 +1,1 @@
+"""corridor.network package."""
