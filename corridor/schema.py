@@ -1,0 +1,177 @@
+"""Canonical field names, units, defaults and valid ranges of corridor's inputs.
+
+The config maps the user's attribute names onto these names; the readers
+validate each value against its spec. The README's Inputs section is the
+human version of this module.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class FieldSpec:
+    """One input attribute.
+
+    Parameters
+    ----------
+    name : str
+        Canonical name, with its unit as a suffix.
+    dtype : str
+        ``"float"``, ``"int"``, ``"str"`` or ``"bool"``.
+    default : object or None
+        Default used when the attribute is missing and the layer allows it;
+        ``None`` makes the field required.
+    low, high : float or None
+        Inclusive valid range for numbers.
+    choices : tuple of str or None
+        Allowed values for strings.
+    doc : str
+        Meaning, and the source of the default.
+    """
+
+    name: str
+    dtype: str
+    default: object = None
+    low: float | None = None
+    high: float | None = None
+    choices: tuple[str, ...] | None = None
+    doc: str = ""
+
+
+ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
+TERMINATIONS = ("open", "grounded", "continuing")
+
+LINE_FIELDS: tuple[FieldSpec, ...] = (
+    FieldSpec("line_id", "str", doc="Unique id of the power line."),
+    FieldSpec("voltage_kv", "float", low=1.0, high=1200.0,
+              doc="Nominal phase-to-phase voltage [kV]."),
+    FieldSpec("arrangement", "str",
+              doc="Name of the tower and conductor arrangement in the arrangements file."),
+    FieldSpec("load_current_a", "float", default=None, low=0.0, high=10000.0,
+              doc="Load current per circuit [A rms]."),
+    FieldSpec("residual_current_pct", "float", default=None, low=0.0, high=50.0,
+              doc="Residual (unbalance) current as a percentage of the load current [%]."),
+    FieldSpec("fault_current_start_ka", "float", default=None, low=0.0, high=300.0,
+              doc="Single line-to-earth fault current at the line's first vertex [kA rms]."),
+    FieldSpec("fault_current_end_ka", "float", default=None, low=0.0, high=300.0,
+              doc="Single line-to-earth fault current at the line's last vertex [kA rms];"
+                  " interpolated linearly along the line."),
+    FieldSpec("clearing_time_s", "float", default=None, low=0.01, high=10.0,
+              doc="Fault clearing time [s]."),
+    FieldSpec("high_reliability", "bool", default=False,
+              doc="True for a high-reliability line in the sense of the ITU-T Directives."),
+)
+
+COMMON_ASSET_FIELDS: tuple[FieldSpec, ...] = (
+    FieldSpec("asset_id", "str", doc="Unique id of the asset."),
+    FieldSpec("height_m", "float", low=-10.0, high=100.0,
+              doc="Height of the conductor above ground [m]; negative is depth of burial."),
+    FieldSpec("start_termination", "str", choices=TERMINATIONS,
+              doc="How the asset ends at its first vertex."),
+    FieldSpec("end_termination", "str", choices=TERMINATIONS,
+              doc="How the asset ends at its last vertex."),
+    FieldSpec("termination_resistance_ohm", "float", low=0.0, high=1e6,
+              doc="Resistance to earth of a grounded end [Ω]."),
+)
+
+KIND_FIELDS: dict[str, tuple[FieldSpec, ...]] = {
+    "pipeline": (
+        FieldSpec("diameter_m", "float", low=0.01, high=3.0, doc="Outer diameter [m]."),
+        FieldSpec("wall_thickness_m", "float", low=0.001, high=0.1, doc="Wall thickness [m]."),
+        FieldSpec("coating_resistance_ohm_m2", "float", low=1.0, high=1e9,
+                  doc="Specific coating resistance [Ω·m²]."),
+        FieldSpec("steel_relative_permeability", "float", low=1.0, high=2000.0,
+                  doc="Relative permeability of the pipe steel [-]."),
+        FieldSpec("cathodic_protection", "bool",
+                  doc="True where the pipeline is cathodically protected."),
+        FieldSpec("coating_type", "str", choices=("pe", "fbe", "bitumen"),
+                  doc="Coating family, selects the coating-stress limit."),
+    ),
+    "fence": (
+        FieldSpec("post_type", "str", choices=("metal", "wood"), doc="Post material."),
+        FieldSpec("post_spacing_m", "float", low=0.5, high=50.0, doc="Distance between posts [m]."),
+        FieldSpec("post_resistance_ohm", "float", low=0.1, high=1e6,
+                  doc="Resistance to earth of one metal post [Ω]."),
+        FieldSpec("wire_count", "int", low=1, high=20, doc="Number of longitudinal wires [-]."),
+        FieldSpec("wire_radius_m", "float", low=0.0005, high=0.02, doc="Wire radius [m]."),
+    ),
+    "rail": (
+        FieldSpec("rail_resistance_ohm_per_km", "float", low=0.001, high=5.0,
+                  doc="Series resistance of the track (rails in parallel) [Ω/km]."),
+        FieldSpec("ballast_resistance_ohm_km", "float", low=0.1, high=1000.0,
+                  doc="Track-to-earth (ballast) resistance [Ω·km]."),
+    ),
+    "telecom": (
+        FieldSpec("screening_factor", "float", low=0.01, high=1.0,
+                  doc="Sheath screening factor applied to the induced EMF [-]."),
+        FieldSpec("cable_grounding", "str", choices=("one_end", "both_ends", "isolated"),
+                  doc="Where the conductor pair is grounded."),
+        FieldSpec("conductor_radius_m", "float", low=0.0001, high=0.05,
+                  doc="Equivalent radius of the cable [m]."),
+    ),
+}
+
+SOIL_FIELDS: tuple[FieldSpec, ...] = (
+    FieldSpec("soil_resistivity_ohm_m", "float", low=0.1, high=1e5,
+              doc="Homogeneous soil resistivity [Ω·m]."),
+)
+
+GROUND_FIELDS: tuple[FieldSpec, ...] = (
+    FieldSpec("asset_id", "str", doc="Asset the item belongs to."),
+    FieldSpec("item", "str", choices=("ground", "insulating_joint", "gap"),
+              doc="Ground to earth, or a series break."),
+    FieldSpec("resistance_ohm", "float", default=10.0, low=0.01, high=1e6,
+              doc="Resistance to earth of a ground [Ω]; unused for breaks."),
+)
+
+#: Built-in defaults per asset kind. Values are typical of the trade; each
+#: carries its provenance. The config's ``[defaults.<kind>]`` overrides them.
+KIND_DEFAULTS: dict[str, dict[str, object]] = {
+    "pipeline": {
+        "height_m": -1.5,  # typical depth of cover 1-2 m (common practice)
+        "start_termination": "continuing",  # pipelines run on past the data (common practice)
+        "end_termination": "continuing",
+        "termination_resistance_ohm": 10.0,  # common practice
+        "diameter_m": 0.508,  # 20 in line pipe (common practice)
+        "wall_thickness_m": 0.0095,  # common practice
+        "coating_resistance_ohm_m2": 1.0e5,  # 3LPE/FBE 1e4-1e6 (METHODS.md §5, from memory)
+        "steel_relative_permeability": 300.0,  # METHODS.md §1 (from memory)
+        "cathodic_protection": True,  # common practice for coated steel pipelines
+        "coating_type": "pe",
+    },
+    "fence": {
+        "height_m": 1.0,  # mid-height of a farm fence (common practice)
+        "start_termination": "open",
+        "end_termination": "open",
+        "termination_resistance_ohm": 50.0,  # a driven end post (common practice)
+        "post_type": "metal",
+        "post_spacing_m": 3.0,  # common practice for farm fences
+        "post_resistance_ohm": 100.0,  # a driven steel post in 100 Ω·m soil (from memory)
+        "wire_count": 4,
+        "wire_radius_m": 0.00125,  # 2.5 mm wire (common practice)
+    },
+    "rail": {
+        "height_m": 0.0,
+        "start_termination": "continuing",
+        "end_termination": "continuing",
+        "termination_resistance_ohm": 1.0,
+        "rail_resistance_ohm_per_km": 0.03,  # two UIC60-class rails in parallel (from memory)
+        "ballast_resistance_ohm_km": 5.0,  # 2-20 Ω·km for ballasted track (from memory)
+    },
+    "telecom": {
+        "height_m": -0.8,  # direct-buried cable depth (common practice)
+        "start_termination": "grounded",
+        "end_termination": "grounded",
+        "termination_resistance_ohm": 10.0,  # exchange/cabinet earth (common practice)
+        "screening_factor": 0.8,  # plain sheath, no armour, typical (from memory)
+        "cable_grounding": "both_ends",
+        "conductor_radius_m": 0.01,
+    },
+}
+
+
+def asset_fields(kind: str) -> tuple[FieldSpec, ...]:
+    """Return every field spec of an asset of ``kind``."""
+    return COMMON_ASSET_FIELDS + KIND_FIELDS[kind]
