@@ -177,14 +177,11 @@ def _attributes(gdf, src, specs, defaults, ids, rejected, warnings, allow_defaul
         default = defaults.get(spec.name, spec.default)
         if user not in gdf.columns:
             if default is None:
-                if spec.name in src.fields or spec.dtype != "str" or True:
-                    raise InputError(f"layer {src.label}: field '{user}' (corridor field"
-                                     f" '{spec.name}') is missing and has no default")
+                raise InputError(f"layer {src.label}: field '{user}' (corridor field"
+                                 f" '{spec.name}') is missing and has no default")
             out[spec.name] = pd.Series([default] * len(gdf), index=gdf.index, dtype="object")
-            if src.role == "assets" or spec.name in ("load_current_a", "fault_current_start_ka",
-                                                      "fault_current_end_ka", "clearing_time_s"):
-                log.debug("layer %s: field '%s' absent; default %r used for all features",
-                          src.label, user, default)
+            log.debug("layer %s: field '%s' absent; default %r used for all features",
+                      src.label, user, default)
             continue
         values, bad, reasons = _coerce(gdf[user], spec)
         if bad.any():
@@ -265,17 +262,28 @@ def _clean_geometry(gdf, src, ids, rejected, warnings, keep_mask, types) -> np.n
 
 def _read_layer(src: LayerSource, specs: tuple[FieldSpec, ...], defaults: dict, id_field: str,
                 types: tuple[str, ...], crs: CRS, rejected: Rejected, warnings: list[str],
-                allow_defaults: bool, gdf: gpd.GeoDataFrame | None = None) -> gpd.GeoDataFrame:
+                allow_defaults: bool, gdf: gpd.GeoDataFrame | None = None,
+                label_field: str | None = None) -> gpd.GeoDataFrame:
     gdf = read_raw(src) if gdf is None else gdf
     if len(gdf) == 0:
         raise InputError(f"layer {src.label}: is empty")
+    if src.role == "grounds":
+        # a series break needs no resistance to earth
+        item_col = src.fields.get("item", "item")
+        r_col = src.fields.get("resistance_ohm", "resistance_ohm")
+        if item_col in gdf.columns and r_col in gdf.columns:
+            gdf = gdf.copy()
+            brk = gdf[item_col].astype("string").str.strip().str.lower() != "ground"
+            gdf.loc[brk.fillna(False).to_numpy(), r_col] = 1.0
     id_col = _id_column(gdf, src, id_field) if id_field else None
+    if label_field is not None:
+        id_col = _id_column(gdf, src, label_field) or id_col
     ids = _feature_ids(gdf, id_col)
     keep = np.ones(len(gdf), bool)
-    if id_field and id_col is None:
+    if id_field and _id_column(gdf, src, id_field) is None:
         raise InputError(f"layer {src.label}: id field '{src.fields.get(id_field, id_field)}'"
                          f" (corridor field '{id_field}') is missing")
-    if id_col is not None and id_field in ("line_id", "asset_id") and src.role != "grounds":
+    if id_col is not None and src.role in ("power_lines", "assets"):
         raw_ids = gdf[id_col].astype("string").str.strip()
         for i in np.flatnonzero((raw_ids.isna() | (raw_ids == "")).to_numpy()):
             rejected.add(src.label, ids.iloc[i], id_col, "missing id")
@@ -290,7 +298,8 @@ def _read_layer(src: LayerSource, specs: tuple[FieldSpec, ...], defaults: dict, 
     geoms = _clean_geometry(gdf, src, ids, rejected, warnings, keep, types)
     attrs.insert(0, "feature_id", ids.to_numpy())
     if id_field:
-        attrs.insert(0, id_field, ids.to_numpy())
+        key = _feature_ids(gdf, _id_column(gdf, src, id_field))
+        attrs.insert(0, id_field, key.to_numpy())
     out = gpd.GeoDataFrame(attrs, geometry=gpd.GeoSeries(geoms, index=gdf.index, crs=gdf.crs))
     out = out[keep]
     if not out.crs.equals(crs):
@@ -356,13 +365,14 @@ def read_inputs(cfg: Config) -> Inputs:
             ("soil", SOIL_FIELDS, None, ("Polygon", "MultiPolygon")),
             ("grounds", GROUND_FIELDS, "asset_id", ("Point",)),
             ("towers", (), "line_id", ("Point",))):
+        label = {"grounds": "ground_id", "towers": "tower_id"}.get(role)
         src = getattr(cfg, role)
         if src is None:
             optional[role] = None
             continue
         try:
             optional[role] = _read_layer(src, specs, {}, id_field, types, crs, rejected,
-                                         warnings, False)
+                                         warnings, False, label_field=label)
         except InputError as exc:
             problems.extend(exc.problems)
     if problems:
