@@ -1,0 +1,683 @@
+"""Response of assets to induced EMF: batched distributed-source transmission lines.
+
+Every asset (pipeline, fence, rail, telecom cable) is a chain of uniform
+segments, each a lossy earth-return transmission line with series impedance
+``z`` [Ω/m], shunt admittance ``y`` [S/m] and a longitudinal EMF (METHODS.md
+§5)::
+
+    dV/dx = -z·I + E(x),     dI/dx = -y·V
+
+Each segment is replaced by its *exact* equivalent pi and its distributed EMF
+by the exact nodal (Norton) injections, so node voltages are exact for a
+piecewise-uniform EMF whatever the segment length. All chains of a run are
+stacked into one tridiagonal nodal-admittance system and solved at once with
+LAPACK's tridiagonal LU (``zgttrf``/``zgttrs``); no dense matrix, no general
+sparse LU, no Python loop per node or per asset.
+
+Layout
+------
+Segments of all chains are concatenated; ``chain_start[c]`` is the index of
+the first segment of chain ``c`` (chains are contiguous and in order, each
+with at least one segment). A chain of ``n`` segments has ``n + 1`` nodes;
+nodes are concatenated likewise, so segment ``s`` of chain ``c`` runs from
+node ``s + c`` to node ``s + c + 1``.
+
+Sign conventions
+----------------
+The EMF of a segment and its longitudinal current are positive in the chain
+direction (from the chain's first node to its last). Node voltages are to
+remote earth.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.linalg import lapack
+
+from corridor.errors import InputError
+
+logger = logging.getLogger(__name__)
+
+__all__ = [
+    "ChainBatch",
+    "ChainSolution",
+    "ChainSystem",
+    "characteristic_impedance",
+    "matched_termination_admittance",
+    "propagation_constant",
+    "solve_chains",
+    "thevenin_at_node",
+]
+
+#: Below this |argument| the hyperbolic ratios use their Taylor series [-].
+#: Truncation error of the series used is below |u|^4/100 < 1e-18 there.
+_SERIES_LIMIT = 1e-4
+
+
+# --------------------------------------------------------------------------
+# Line constants
+# --------------------------------------------------------------------------
+def propagation_constant(z_ohm_per_m, y_s_per_m):
+    """Propagation constant of a uniform earth-return line.
+
+    Parameters
+    ----------
+    z_ohm_per_m : array_like of complex
+        Series impedance per unit length [Ω/m].
+    y_s_per_m : array_like of complex
+        Shunt admittance per unit length [S/m].
+
+    Returns
+    -------
+    ndarray of complex
+        Propagation constant γ [1/m], the root with non-negative real part.
+
+    Notes
+    -----
+    γ = √(z·y) (principal branch, Re γ ≥ 0).
+
+    References
+    ----------
+    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
+       Dover, 1968, ch. on earth-return transmission lines.
+    """
+    z = np.asarray(z_ohm_per_m, dtype=complex)
+    y = np.asarray(y_s_per_m, dtype=complex)
+    return np.sqrt(z * y)
+
+
+def characteristic_impedance(z_ohm_per_m, y_s_per_m):
+    """Characteristic impedance of a uniform earth-return line.
+
+    Parameters
+    ----------
+    z_ohm_per_m : array_like of complex
+        Series impedance per unit length [Ω/m].
+    y_s_per_m : array_like of complex
+        Shunt admittance per unit length [S/m].
+
+    Returns
+    -------
+    ndarray of complex
+        Characteristic impedance Zc [Ω]; complex infinity where ``y == 0``.
+
+    Notes
+    -----
+    Zc = √(z/y) = z/γ.
+
+    References
+    ----------
+    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
+       Dover, 1968.
+    """
+    z = np.asarray(z_ohm_per_m, dtype=complex)
+    gamma = propagation_constant(z_ohm_per_m, y_s_per_m)
+    zero = gamma == 0
+    safe = np.where(zero, 1.0, gamma)
+    return np.where(zero, complex(np.inf, 0.0), z / safe)
+
+
+def matched_termination_admittance(z_ohm_per_m, y_s_per_m):
+    """Admittance that terminates a line as if it continued without end.
+
+    Parameters
+    ----------
+    z_ohm_per_m : array_like of complex
+        Series impedance per unit length of the end segment [Ω/m].
+    y_s_per_m : array_like of complex
+        Shunt admittance per unit length of the end segment [S/m].
+
+    Returns
+    -------
+    ndarray of complex
+        1/Zc = √(y/z) [S]; 0 where ``y == 0`` (an unleaky line continuing
+        without end draws no current).
+
+    Notes
+    -----
+    The input admittance of a semi-infinite uniform line without source is
+    1/Zc = γ/z.
+
+    References
+    ----------
+    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
+       Dover, 1968.
+    """
+    z = np.asarray(z_ohm_per_m, dtype=complex)
+    return propagation_constant(z_ohm_per_m, y_s_per_m) / z
+
+
+# --------------------------------------------------------------------------
+# Stable hyperbolic ratios (Re u >= 0)
+# --------------------------------------------------------------------------
+def _split(u):
+    small = np.abs(u) < _SERIES_LIMIT
+    return small, np.where(small, 1.0, u)
+
+
+def _u_over_sinh(u):
+    """u/sinh(u), stable for small and large u (Re u >= 0)."""
+    small, us = _split(u)
+    exact = 2.0 * us * np.exp(-us) / -np.expm1(-2.0 * us)
+    u2 = u * u
+    return np.where(small, 1.0 - u2 / 6.0 + 7.0 * u2 * u2 / 360.0, exact)
+
+
+def _tanh_over(w):
+    """tanh(w)/w, stable for small and large w (Re w >= 0)."""
+    small, ws = _split(w)
+    em = np.expm1(-2.0 * ws)
+    exact = -em / (ws * (2.0 + em))
+    w2 = w * w
+    return np.where(small, 1.0 - w2 / 3.0 + 2.0 * w2 * w2 / 15.0, exact)
+
+
+def _one_minus_sech_over_w2(w):
+    """(1 − sech w)/w², stable for small and large w (Re w >= 0)."""
+    small, ws = _split(w)
+    phi_exact = np.expm1(-ws) / ws
+    phi_series = -(1.0 - w / 2.0 + w * w / 6.0 - w * w * w / 24.0)
+    phi = np.where(small, phi_series, phi_exact)
+    return phi * phi / (2.0 + np.expm1(-2.0 * np.where(small, w, ws)))
+
+
+# --------------------------------------------------------------------------
+# Batch description
+# --------------------------------------------------------------------------
+def _as_vector(value, n, dtype, name, problems, default=0):
+    if value is None:
+        return np.full(n, default, dtype=dtype)
+    arr = np.asarray(value)
+    if arr.ndim == 0:
+        return np.full(n, arr, dtype=dtype)
+    if arr.shape != (n,):
+        problems.append(f"{name}: expected shape ({n},), got {arr.shape}")
+        return np.full(n, default, dtype=dtype)
+    return arr.astype(dtype, copy=False)
+
+
+@dataclass(frozen=True)
+class ChainBatch:
+    """Many asset chains, stacked for one batched solve.
+
+    Build with :meth:`from_arrays`, which broadcasts scalars and validates.
+
+    Attributes
+    ----------
+    segment_length_m : ndarray of float, shape (n_segments,)
+        Length of each segment [m].
+    series_impedance_ohm_per_m : ndarray of complex, shape (n_segments,)
+        Series (earth-return loop) impedance per unit length z [Ω/m].
+    shunt_admittance_s_per_m : ndarray of complex, shape (n_segments,)
+        Shunt admittance to earth per unit length y [S/m].
+    chain_start : ndarray of int, shape (n_chains,)
+        Index of the first segment of each chain (strictly increasing, first 0).
+    node_shunt_admittance_s : ndarray of complex, shape (n_nodes,)
+        Extra lumped admittance to remote earth at each node (grounds: 1/R) [S].
+    segment_break : ndarray of bool, shape (n_segments,)
+        True where the conductor is broken (insulating joint, gate, gap): the
+        break sits at the segment's midpoint; each half stays connected to
+        its end node as an open-ended stub with its share of the EMF.
+    start_termination_admittance_s, end_termination_admittance_s : ndarray of complex
+        Admittance to earth at the first / last node of each chain
+        (open 0; grounded 1/R; continuing 1/Zc) [S], shape (n_chains,).
+    """
+
+    segment_length_m: np.ndarray
+    series_impedance_ohm_per_m: np.ndarray
+    shunt_admittance_s_per_m: np.ndarray
+    chain_start: np.ndarray
+    node_shunt_admittance_s: np.ndarray
+    segment_break: np.ndarray
+    start_termination_admittance_s: np.ndarray
+    end_termination_admittance_s: np.ndarray
+
+    @classmethod
+    def from_arrays(
+        cls,
+        segment_length_m,
+        series_impedance_ohm_per_m,
+        shunt_admittance_s_per_m,
+        chain_start,
+        node_shunt_admittance_s=None,
+        segment_break=None,
+        start_termination_admittance_s=None,
+        end_termination_admittance_s=None,
+    ) -> ChainBatch:
+        """Validate and broadcast the inputs (see the class attributes).
+
+        Raises
+        ------
+        corridor.errors.InputError
+            Listing every problem found.
+        """
+        problems: list[str] = []
+        length = np.atleast_1d(np.asarray(segment_length_m, dtype=float))
+        n_seg = length.shape[0]
+        if length.ndim != 1 or n_seg == 0:
+            raise InputError("segment_length_m: expected a non-empty 1-D array")
+        starts = np.atleast_1d(np.asarray(chain_start))
+        if starts.ndim != 1 or starts.size == 0 or not np.issubdtype(starts.dtype, np.integer):
+            raise InputError("chain_start: expected a non-empty 1-D integer array")
+        starts = starts.astype(np.int64)
+        if starts[0] != 0:
+            problems.append("chain_start: the first chain must start at segment 0")
+        if np.any(np.diff(starts) <= 0) or starts[-1] >= n_seg:
+            problems.append(
+                "chain_start: must be strictly increasing and below the number of segments"
+                " (every chain needs at least one segment)"
+            )
+        n_chain = starts.size
+        n_node = n_seg + n_chain
+        z = _as_vector(series_impedance_ohm_per_m, n_seg, complex,
+                       "series_impedance_ohm_per_m", problems, default=1.0)
+        y = _as_vector(shunt_admittance_s_per_m, n_seg, complex,
+                       "shunt_admittance_s_per_m", problems)
+        y_node = _as_vector(node_shunt_admittance_s, n_node, complex,
+                            "node_shunt_admittance_s", problems)
+        brk = _as_vector(segment_break, n_seg, bool, "segment_break", problems, default=False)
+        y_start = _as_vector(start_termination_admittance_s, n_chain, complex,
+                             "start_termination_admittance_s", problems)
+        y_end = _as_vector(end_termination_admittance_s, n_chain, complex,
+                           "end_termination_admittance_s", problems)
+        bad = ~np.isfinite(length) | (length <= 0)
+        if bad.any():
+            problems.append(
+                f"segment_length_m: must be finite and > 0 (segments {_ids(bad)})")
+        bad = ~np.isfinite(z) | (z == 0)
+        if bad.any():
+            problems.append(
+                f"series_impedance_ohm_per_m: must be finite and non-zero (segments {_ids(bad)})")
+        for name, arr in (("shunt_admittance_s_per_m", y),
+                          ("node_shunt_admittance_s", y_node),
+                          ("start_termination_admittance_s", y_start),
+                          ("end_termination_admittance_s", y_end)):
+            bad = ~np.isfinite(arr)
+            if bad.any():
+                problems.append(f"{name}: must be finite (indices {_ids(bad)})")
+        if problems:
+            raise InputError(problems)
+        return cls(length, z, y, starts, y_node, brk, y_start, y_end)
+
+    # ---- layout helpers ---------------------------------------------------
+    @property
+    def n_segments(self) -> int:
+        """Number of segments in the batch."""
+        return int(self.segment_length_m.shape[0])
+
+    @property
+    def n_chains(self) -> int:
+        """Number of chains in the batch."""
+        return int(self.chain_start.shape[0])
+
+    @property
+    def n_nodes(self) -> int:
+        """Number of nodes in the batch (segments + chains)."""
+        return self.n_segments + self.n_chains
+
+    @property
+    def segment_chain(self) -> np.ndarray:
+        """Chain index of every segment, shape (n_segments,)."""
+        mark = np.zeros(self.n_segments, dtype=np.int64)
+        mark[self.chain_start[1:]] = 1
+        return np.cumsum(mark)
+
+    @property
+    def segment_start_node(self) -> np.ndarray:
+        """Index of the first node of every segment, shape (n_segments,)."""
+        return np.arange(self.n_segments) + self.segment_chain
+
+    @property
+    def chain_first_node(self) -> np.ndarray:
+        """Index of the first node of every chain, shape (n_chains,)."""
+        return self.chain_start + np.arange(self.n_chains)
+
+    @property
+    def chain_last_node(self) -> np.ndarray:
+        """Index of the last node of every chain, shape (n_chains,)."""
+        return np.append(self.chain_first_node[1:] - 1, self.n_nodes - 1)
+
+    @property
+    def node_chain(self) -> np.ndarray:
+        """Chain index of every node, shape (n_nodes,)."""
+        mark = np.zeros(self.n_nodes, dtype=np.int64)
+        mark[self.chain_first_node[1:]] = 1
+        return np.cumsum(mark)
+
+
+def _ids(mask, limit=10):
+    idx = np.flatnonzero(mask)
+    text = ", ".join(str(i) for i in idx[:limit])
+    return text + (f" … ({idx.size} in all)" if idx.size > limit else "")
+
+
+# --------------------------------------------------------------------------
+# Solution
+# --------------------------------------------------------------------------
+@dataclass(frozen=True)
+class ChainSolution:
+    """Node voltages and segment currents of a batched solve.
+
+    Arrays have a trailing case axis when the EMF was given with one.
+
+    Attributes
+    ----------
+    node_voltage_v : ndarray of complex, shape (n_nodes[, n_cases])
+        Voltage of each node to remote earth [V].
+    segment_current_start_a, segment_current_end_a : ndarray of complex
+        Longitudinal current at the start / end of each segment, positive in
+        the chain direction [A], shape (n_segments[, n_cases]). For a broken
+        segment these are the currents of its two stubs at their nodes (the
+        current at the break itself is zero).
+    segment_voltage_v : ndarray of float
+        max(|V_start|, |V_end|) of each segment [V].
+    segment_current_a : ndarray of float
+        max(|I_start|, |I_end|) of each segment [A] (the magnitude of the
+        current along a uniform segment peaks at an end unless the current
+        reverses inside it, which at 50 m segments changes the peak little).
+    """
+
+    node_voltage_v: np.ndarray
+    segment_current_start_a: np.ndarray
+    segment_current_end_a: np.ndarray
+    segment_voltage_v: np.ndarray
+    segment_current_a: np.ndarray
+
+
+class ChainSystem:
+    """Assembled and factorised nodal system of a :class:`ChainBatch`.
+
+    Assemble and factorise once, then solve any number of EMF cases, and
+    Thevenin impedances, with the same factors.
+
+    Parameters
+    ----------
+    batch : ChainBatch
+        The chains.
+
+    Raises
+    ------
+    corridor.errors.InputError
+        If part of a chain has no path to earth at all (no shunt admittance,
+        no ground, no termination between two breaks or ends): its potential
+        is undefined. The caller should then add the small capacitance to
+        earth the conductor really has (about 10 pF/m above ground, from
+        memory) as ``y = jωC``.
+
+    Notes
+    -----
+    Exact equivalent pi of a uniform segment of length l, γ = √(zy), u = γl:
+
+        Y_series = 1/(Zc·sinh u) = (u/sinh u)/(z·l)
+        Y_shunt/2 = tanh(u/2)/Zc = (y·l/2)·tanh(u/2)/(u/2)
+
+    With a uniform EMF e = E_seg/l along the segment, I_p = e/z, V_p = 0 is a
+    particular solution, so the exact Norton injection is J = E_seg/(z·l)
+    out of the start node into the end node, and the longitudinal currents are
+
+        I_start = Y_shunt/2·V1 + Y_series·(V1 − V2) + J
+        I_end   = Y_series·(V1 − V2) − Y_shunt/2·V2 + J
+
+    A broken segment (break at its midpoint) has Y_series = 0; each open-ended
+    half of length l/2 presents tanh(u/2)/Zc = Y_shunt/2 and injects
+    J·(1 − sech(u/2)) = E_seg·y·l/4·(1 − sech w)/w², w = u/2. The ratios are
+    evaluated with expm1 or their Taylor series for |u| < 1e-4, so y → 0 is
+    stable.
+
+    References
+    ----------
+    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
+       Dover, 1968.
+    .. [2] LAPACK Users' Guide, 3rd ed., SIAM, 1999 (xGTTRF / xGTTRS).
+    """
+
+    def __init__(self, batch: ChainBatch):
+        self.batch = batch
+        length = batch.segment_length_m
+        z = batch.series_impedance_ohm_per_m
+        y = batch.shunt_admittance_s_per_m
+        brk = batch.segment_break
+        u = np.sqrt(z * y) * length
+        w = 0.5 * u
+        zl = z * length
+        y_series = np.where(brk, 0.0, _u_over_sinh(u) / zl)
+        y_half = 0.5 * y * length * _tanh_over(w)
+        # Norton injection per volt of segment EMF [S].
+        injection = np.where(brk, 0.25 * y * length * _one_minus_sech_over_w2(w), 1.0 / zl)
+        self.y_series_s = y_series
+        self.y_half_s = y_half
+        self.injection_s = injection
+
+        n_node = batch.n_nodes
+        first = batch.segment_start_node
+        # One decoupled dummy node (Y = 1 S) closes the system: scipy's zgttrf
+        # wrapper rejects n = 2, and a single-segment chain alone has 2 nodes.
+        diag = np.ones(n_node + 1, dtype=complex)
+        diag[:n_node] = batch.node_shunt_admittance_s
+        diag[batch.chain_first_node] += batch.start_termination_admittance_s
+        diag[batch.chain_last_node] += batch.end_termination_admittance_s
+        diag[first] += y_half
+        diag[first + 1] += y_half
+        self._check_paths_to_earth(diag[:n_node], first, brk)
+        diag[first] += y_series
+        diag[first + 1] += y_series
+        off = np.zeros(n_node, dtype=complex)
+        off[first] = -y_series
+        self._first = first
+        dl, d, du, du2, ipiv, info = lapack.zgttrf(off, diag, off.copy(),
+                                                   overwrite_dl=1, overwrite_d=1, overwrite_du=1)
+        if info != 0:
+            raise InputError(
+                f"nodal system is singular at node {info - 1}: a part of a chain has no"
+                " usable path to earth")
+        self._factors = (dl, d, du, du2, ipiv)
+
+    def _check_paths_to_earth(self, shunt_diag, first, brk):
+        batch = self.batch
+        # A cut between node n and n+1: a chain boundary or a broken segment.
+        cut = np.ones(batch.n_nodes - 1, dtype=bool)
+        cut[first] = brk
+        island = np.concatenate(([0], np.cumsum(cut)))
+        total = np.bincount(island, weights=np.abs(shunt_diag))
+        floating = np.flatnonzero(total == 0)
+        if floating.size:
+            nodes = np.flatnonzero(np.isin(island, floating))
+            chains = np.unique(batch.node_chain[nodes])
+            raise InputError(
+                f"chains {_ids(np.isin(np.arange(batch.n_chains), chains))}: a part of the chain"
+                " has no path to earth (no shunt admittance, ground or termination); add the"
+                " conductor's capacitance to earth as y = jωC")
+
+    # ---- solving ----------------------------------------------------------
+    def _new_rhs(self, n_col):
+        return np.zeros((self.batch.n_nodes + 1, n_col), dtype=complex)
+
+    def _solve_rhs(self, rhs):
+        x, info = lapack.zgttrs(*self._factors, rhs, overwrite_b=1)
+        if info != 0:  # pragma: no cover - argument errors only
+            raise RuntimeError(f"zgttrs failed with info={info}")
+        return x[:-1]
+
+    def solve(self, segment_emf_v, node_current_a=None) -> ChainSolution:
+        """Solve for one or more EMF cases.
+
+        Parameters
+        ----------
+        segment_emf_v : array_like of complex, shape (n_segments[, n_cases])
+            Total EMF of each segment along the chain direction [V], taken as
+            uniform along the segment.
+        node_current_a : array_like of complex, shape (n_nodes[, n_cases]), optional
+            Extra current injected into each node from remote earth [A].
+
+        Returns
+        -------
+        ChainSolution
+        """
+        batch = self.batch
+        emf = np.asarray(segment_emf_v, dtype=complex)
+        single = emf.ndim == 1
+        emf2 = emf.reshape(batch.n_segments, -1) if emf.ndim <= 2 else None
+        if emf2 is None or emf.shape[0] != batch.n_segments:
+            raise InputError(
+                f"segment_emf_v: expected shape ({batch.n_segments},) or"
+                f" ({batch.n_segments}, n_cases), got {emf.shape}")
+        n_case = emf2.shape[1]
+        j = emf2 * self.injection_s[:, None]
+        rhs = self._new_rhs(n_case)
+        if node_current_a is not None:
+            rhs[:-1] += np.asarray(node_current_a, dtype=complex).reshape(batch.n_nodes, -1)
+        first = self._first
+        rhs[first] -= j
+        rhs[first + 1] += j
+        v = self._solve_rhs(rhs)
+        v1 = v[first]
+        v2 = v[first + 1]
+        through = self.y_series_s[:, None] * (v1 - v2) + j
+        i_start = self.y_half_s[:, None] * v1 + through
+        i_end = through - self.y_half_s[:, None] * v2
+        seg_v = np.maximum(np.abs(v1), np.abs(v2))
+        seg_i = np.maximum(np.abs(i_start), np.abs(i_end))
+        if single:
+            v, i_start, i_end, seg_v, seg_i = (a[:, 0] for a in (v, i_start, i_end, seg_v, seg_i))
+        return ChainSolution(v, i_start, i_end, seg_v, seg_i)
+
+    def thevenin_impedance(self, node_index) -> np.ndarray:
+        """Impedance between nodes and remote earth with every EMF shorted.
+
+        Parameters
+        ----------
+        node_index : array_like of int
+            Global node indices. Nodes of different chains share one solve
+            column; k nodes of the same chain need k columns, so asking for one
+            node per chain (e.g. each chain's peak) costs a single extra solve.
+
+        Returns
+        -------
+        ndarray of complex
+            Thevenin (driving-point) impedance Z_th [Ω] at each node, same
+            shape as ``node_index``.
+
+        Notes
+        -----
+        Z_th,k = (Y⁻¹)_kk, the voltage at node k for a unit current injected at
+        k. The open-circuit voltage V_k and Z_th give the current available to
+        a person or a ground R: I = V_k/(R + Z_th), and V after grounding
+        = V_k·R/(R + Z_th).
+        """
+        nodes = np.asarray(node_index, dtype=np.int64)
+        flat = nodes.ravel()
+        if flat.size == 0:
+            return np.zeros(nodes.shape, dtype=complex)
+        if flat.min() < 0 or flat.max() >= self.batch.n_nodes:
+            raise InputError("node_index: out of range")
+        chain = self.batch.node_chain[flat]
+        order = np.argsort(chain, kind="stable")
+        sorted_chain = chain[order]
+        group_first = np.searchsorted(sorted_chain, sorted_chain, side="left")
+        rank = np.empty(flat.size, dtype=np.int64)
+        rank[order] = np.arange(flat.size) - group_first
+        rhs = self._new_rhs(int(rank.max()) + 1)
+        rhs[flat, rank] = 1.0
+        v = self._solve_rhs(rhs)
+        return v[flat, rank].reshape(nodes.shape)
+
+    def peak_node(self, node_voltage_v) -> np.ndarray:
+        """Node of largest |V| in each chain.
+
+        Parameters
+        ----------
+        node_voltage_v : array_like of complex, shape (n_nodes,)
+            Node voltages of one case [V].
+
+        Returns
+        -------
+        ndarray of int, shape (n_chains,)
+            Global index of the first node where |V| reaches its chain maximum.
+        """
+        mag = np.abs(np.asarray(node_voltage_v))
+        if mag.shape != (self.batch.n_nodes,):
+            raise InputError("node_voltage_v: expected one case, shape (n_nodes,)")
+        chain_max = np.maximum.reduceat(mag, self.batch.chain_first_node)
+        hit = np.flatnonzero(mag == chain_max[self.batch.node_chain])
+        _, first_hit = np.unique(self.batch.node_chain[hit], return_index=True)
+        return hit[first_hit]
+
+
+# --------------------------------------------------------------------------
+# Functional interface
+# --------------------------------------------------------------------------
+def solve_chains(
+    segment_length_m,
+    series_impedance_ohm_per_m,
+    shunt_admittance_s_per_m,
+    segment_emf_v,
+    chain_start,
+    node_shunt_admittance_s=None,
+    segment_break=None,
+    start_termination_admittance_s=None,
+    end_termination_admittance_s=None,
+) -> ChainSolution:
+    """Solve many asset chains driven by induced EMF in one batched system.
+
+    Parameters
+    ----------
+    segment_length_m : array_like of float, shape (n_segments,)
+        Segment lengths [m].
+    series_impedance_ohm_per_m : array_like of complex
+        Series impedance z of each segment [Ω/m] (scalar broadcasts).
+    shunt_admittance_s_per_m : array_like of complex
+        Shunt admittance y of each segment [S/m] (scalar broadcasts).
+    segment_emf_v : array_like of complex, shape (n_segments[, n_cases])
+        Total EMF of each segment in the chain direction [V].
+    chain_start : array_like of int, shape (n_chains,)
+        First segment of each chain.
+    node_shunt_admittance_s : array_like of complex, shape (n_nodes,), optional
+        Lumped admittance to earth at nodes (grounds 1/R) [S]; default 0.
+    segment_break : array_like of bool, shape (n_segments,), optional
+        Broken segments (insulating joint, gate, gap); default none.
+    start_termination_admittance_s, end_termination_admittance_s : array_like, optional
+        Admittance to earth at each chain's first / last node [S]: 0 open,
+        1/R grounded, :func:`matched_termination_admittance` continuing.
+
+    Returns
+    -------
+    ChainSolution
+        Node voltages [V], segment currents [A] and per-segment maxima.
+
+    Notes
+    -----
+    See :class:`ChainSystem` for the exact pi and Norton injections.
+
+    References
+    ----------
+    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
+       Dover, 1968.
+    """
+    batch = ChainBatch.from_arrays(
+        segment_length_m, series_impedance_ohm_per_m, shunt_admittance_s_per_m,
+        chain_start, node_shunt_admittance_s, segment_break,
+        start_termination_admittance_s, end_termination_admittance_s)
+    return ChainSystem(batch).solve(segment_emf_v)
+
+
+def thevenin_at_node(batch_or_system, node_index) -> np.ndarray:
+    """Thevenin impedance to remote earth at nodes, sources shorted [Ω].
+
+    Parameters
+    ----------
+    batch_or_system : ChainBatch or ChainSystem
+        The chains (a ready :class:`ChainSystem` reuses its factors).
+    node_index : array_like of int
+        Global node indices.
+
+    Returns
+    -------
+    ndarray of complex
+        Z_th at each node [Ω]; see :meth:`ChainSystem.thevenin_impedance`.
+    """
+    system = (batch_or_system if isinstance(batch_or_system, ChainSystem)
+              else ChainSystem(batch_or_system))
+    return system.thevenin_impedance(node_index)
