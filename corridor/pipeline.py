@@ -1,0 +1,234 @@
+"""The screening run as a script of stages.
+
+read -> segment -> expose -> couple -> respond -> assess -> ground -> write
+
+Each stage is a plain function of the previous stages' results; the CLI and
+the step registry call them. Nothing here does physics itself: it turns
+tables into arrays for :mod:`corridor.physics`, :mod:`corridor.network` and
+:mod:`corridor.limits`, and writes their answers back into tables.
+"""
+
+from __future__ import annotations
+
+import logging
+import platform
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+
+from corridor import __version__
+from corridor.config import Config
+from corridor.geometry.exposure import (
+    CLASSES,
+    Exposures,
+    LineEdges,
+    Pairs,
+    Sections,
+    build_exposures,
+    equivalent_separation,
+    find_pairs,
+    nearest_line,
+    split_sections,
+)
+from corridor.geometry.segments import Segments, split_lines
+from corridor.io.layers import Inputs, read_inputs
+
+log = logging.getLogger(__name__)
+
+
+@dataclass
+class Geometry:
+    """Asset segments and their exposure to the power lines."""
+
+    segments: Segments
+    edges: LineEdges
+    pairs: Pairs
+    sections: Sections
+    pair_equivalent_separation_m: np.ndarray
+    exposures: Exposures
+    nearest: np.ndarray  # per segment: index into pairs, -1 where no line in reach
+    soil_resistivity_ohm_m: np.ndarray  # per segment
+
+
+@dataclass
+class Run:
+    """Everything one screening run produced, stage by stage."""
+
+    config: Config
+    inputs: Inputs | None = None
+    geometry: Geometry | None = None
+    segment_table: gpd.GeoDataFrame | None = None
+    exposure_table: gpd.GeoDataFrame | None = None
+    extra_tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    timings_s: dict[str, float] = field(default_factory=dict)
+    counts: dict[str, int] = field(default_factory=dict)
+
+
+class _Timer:
+    def __init__(self, run: Run, name: str):
+        self.run, self.name = run, name
+
+    def __enter__(self):
+        self.t0 = time.perf_counter()
+        log.info("step %s ...", self.name)
+        return self
+
+    def __exit__(self, *exc):
+        dt = time.perf_counter() - self.t0
+        self.run.timings_s[self.name] = round(dt, 4)
+        if exc[0] is None:
+            log.info("step %s done in %.2f s", self.name, dt)
+        return False
+
+
+def soil_at(points: np.ndarray, soil: gpd.GeoDataFrame | None, default_ohm_m: float) -> np.ndarray:
+    """Soil resistivity at points: the first covering polygon, else the default [Ω·m]."""
+    out = np.full(len(points), float(default_ohm_m))
+    if soil is None or len(soil) == 0 or len(points) == 0:
+        return out
+    tree = shapely.STRtree(soil.geometry.to_numpy())
+    pi, gi = tree.query(points, predicate="intersects")
+    if len(pi):
+        order = np.lexsort((gi, pi))
+        pi, gi = pi[order], gi[order]
+        first = np.r_[True, pi[1:] != pi[:-1]]
+        out[pi[first]] = soil["soil_resistivity_ohm_m"].to_numpy(float)[gi[first]]
+    return out
+
+
+def stage_geometry(cfg: Config, inputs: Inputs) -> Geometry:
+    """Segment the assets and find their exposures to the power lines."""
+    s = cfg.run
+    segments = split_lines(inputs.assets.geometry.to_numpy(), s["segment_length_m"])
+    edges = LineEdges.from_geometries(inputs.lines.geometry.to_numpy())
+    pairs = find_pairs(segments, edges, s["screening_distance_m"], s["min_separation_m"],
+                       s["parallel_angle_deg"])
+    sections = split_sections(pairs, s["min_separation_m"], s["oblique_ratio"])
+    eq = equivalent_separation(sections, len(pairs))
+    exposures = build_exposures(pairs, segments, eq)
+    mid = shapely.points(0.5 * (segments.x0_m + segments.x1_m),
+                         0.5 * (segments.y0_m + segments.y1_m))
+    soil = soil_at(mid, inputs.soil, s["default_soil_resistivity_ohm_m"])
+    return Geometry(segments, edges, pairs, sections, eq, exposures,
+                    nearest_line(pairs, len(segments)), soil)
+
+
+def segment_frame(inputs: Inputs, geo: Geometry) -> gpd.GeoDataFrame:
+    """The per-segment table with its geometry values."""
+    seg = geo.segments
+    assets = inputs.assets
+    line_ids = inputs.lines["line_id"].to_numpy(dtype=object)
+    near = geo.nearest
+    has = near >= 0
+    p = geo.pairs
+    idx = np.where(has, near, 0)
+
+    def pick(values, fill=np.nan):
+        if len(p) == 0:
+            return np.full(len(seg), fill)
+        return np.where(has, values[idx], fill)
+
+    in_reach = np.bincount(p.segment, minlength=len(seg)) if len(p) else np.zeros(len(seg), int)
+    cls = np.where(has, CLASSES[p.exposure_class[idx]] if len(p) else "", "none")
+    seg_in_asset = np.arange(len(seg)) - np.searchsorted(seg.feature, seg.feature)
+    frame = pd.DataFrame({
+        "segment_id": np.arange(len(seg), dtype=np.int64),
+        "asset_id": assets["asset_id"].to_numpy(dtype=object)[seg.feature],
+        "asset_kind": assets["asset_kind"].to_numpy(dtype=object)[seg.feature],
+        "part": seg.part,
+        "segment_index": seg_in_asset,
+        "chainage_m": seg.chainage_m,
+        "length_m": seg.length_m,
+        "line_id": np.where(has, line_ids[p.line[idx]] if len(p) else "", ""),
+        "separation_m": pick(p.separation_m),
+        "angle_deg": pick(p.angle_deg),
+        "projected_length_m": pick(np.abs(p.projected_length_m)),
+        "exposure_class": cls,
+        "lines_in_reach": in_reach.astype(np.int64),
+        "soil_resistivity_ohm_m": geo.soil_resistivity_ohm_m,
+    })
+    return gpd.GeoDataFrame(frame, geometry=seg.geometries(), crs=inputs.crs)
+
+
+def exposure_frame(inputs: Inputs, geo: Geometry) -> gpd.GeoDataFrame:
+    """One row per (asset, power line, continuous run)."""
+    ex = geo.exposures
+    assets = inputs.assets
+    lines = inputs.lines
+    frame = pd.DataFrame({
+        "exposure_id": np.arange(len(ex), dtype=np.int64),
+        "asset_id": assets["asset_id"].to_numpy(dtype=object)[ex.asset],
+        "asset_kind": assets["asset_kind"].to_numpy(dtype=object)[ex.asset],
+        "line_id": lines["line_id"].to_numpy(dtype=object)[ex.line],
+        "line_voltage_kv": lines["voltage_kv"].to_numpy(float)[ex.line],
+        "start_chainage_m": ex.start_chainage_m,
+        "end_chainage_m": ex.end_chainage_m,
+        "parallel_length_m": ex.parallel_length_m,
+        "min_separation_m": ex.min_separation_m,
+        "mean_separation_m": ex.mean_separation_m,
+        "equivalent_separation_m": ex.equivalent_separation_m,
+        "mean_angle_deg": ex.mean_angle_deg,
+        "crossings": ex.n_crossings,
+    })
+    order = np.lexsort((frame["start_chainage_m"].to_numpy(), frame["line_id"].to_numpy(),
+                        frame["asset_id"].to_numpy()))
+    frame = frame.iloc[order].reset_index(drop=True)
+    frame["exposure_id"] = np.arange(len(frame), dtype=np.int64)
+    geoms = ex.geometry[order]
+    return gpd.GeoDataFrame(frame, geometry=geoms, crs=inputs.crs)
+
+
+def versions() -> dict[str, str]:
+    """Versions of corridor and the libraries whose behaviour shapes its results."""
+    import geopandas
+    import pyogrio
+    import pyproj
+    import scipy
+
+    return {
+        "corridor": __version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "scipy": scipy.__version__,
+        "geopandas": geopandas.__version__,
+        "shapely": shapely.__version__,
+        "pyproj": pyproj.__version__,
+        "pyogrio": pyogrio.__version__,
+        "gdal": pyogrio.__gdal_version_string__,
+        "geos": shapely.geos_version_string,
+        "proj": pyproj.proj_version_str,
+    }
+
+
+def run_screening(cfg: Config, stages: dict | None = None) -> Run:
+    """Run every computing stage in order (no writing)."""
+    run = Run(cfg)
+    with _Timer(run, "read"):
+        run.inputs = read_inputs(cfg)
+    with _Timer(run, "expose"):
+        run.geometry = stage_geometry(cfg, run.inputs)
+        run.segment_table = segment_frame(run.inputs, run.geometry)
+        run.exposure_table = exposure_frame(run.inputs, run.geometry)
+    for name, fn in (stages or {}).items():
+        with _Timer(run, name):
+            fn(run)
+    run.counts.update(run.inputs.counts)
+    run.counts["segments"] = len(run.geometry.segments)
+    run.counts["pairs"] = len(run.geometry.pairs)
+    run.counts["sections"] = len(run.geometry.sections)
+    run.counts["exposures"] = len(run.geometry.exposures)
+    return run
+
+
+def output_paths(out_dir: Path) -> dict[str, Path]:
+    return {
+        "gpkg": out_dir / "screening.gpkg",
+        "exposures_csv": out_dir / "exposures.csv",
+        "rejected_csv": out_dir / "rejected.csv",
+        "run_json": out_dir / "run.json",
+    }
