@@ -207,9 +207,11 @@ def interpolate_vs_duration(duration_s, table_duration_s, table_value):
 
     Notes
     -----
-    Linear interpolation in (log t, log U):
+    Linear interpolation in (log t, log U), i.e. on [t_i, t_{i+1}]
 
-        log U = log U_i + (log t - log t_i)·(log U_{i+1} - log U_i)/(log t_{i+1} - log t_i)
+        U = U_i·(t/t_i)^s_i,  s_i = ln(U_{i+1}/U_i) / ln(t_{i+1}/t_i),
+
+    which returns the table's own points exactly.
 
     The body-current and touch-voltage curves these tables sample
     (IEC 60479-1, EN 50522 Figure 4, EN 50122-1) are drawn on log-log axes,
@@ -238,9 +240,18 @@ def interpolate_vs_duration(duration_s, table_duration_s, table_value):
     """
     xp, fp = _check_table(table_duration_s, table_value)
     t = np.asarray(duration_s, dtype=float)
+    if xp.size == 1:
+        return np.where(np.isnan(t), np.nan, fp[0])
+    # U = U_i·(t/t_i)^s_i on [t_i, t_{i+1}], s_i the log-log slope; written this
+    # way the table's own points come back exactly (1.0**s == 1.0).
+    slope = np.log(fp[1:] / fp[:-1]) / np.log(xp[1:] / xp[:-1])
+    inside = (t > xp[0]) & (t < xp[-1])
+    t_in = np.where(inside, t, xp[0])
+    i = np.clip(np.searchsorted(xp, t_in, side="right") - 1, 0, xp.size - 2)
+    u = fp[i] * (t_in / xp[i]) ** slope[i]
     # Zero and negative durations read as the first point; NaN stays NaN.
-    t_pos = np.where(t <= xp[0], xp[0], t)
-    return np.exp(np.interp(np.log(t_pos), np.log(xp), np.log(fp)))
+    u = np.where(t <= xp[0], fp[0], np.where(t >= xp[-1], fp[-1], u))
+    return np.where(np.isnan(t), np.nan, u)
 
 
 def itu_telecom_fault_limit_v(clearing_time_s, high_reliability, *,

@@ -1,0 +1,724 @@
+"""Limit sets: loading, validation and evaluation of the criteria.
+
+A limit set is a TOML file in ``config/limits/`` (schema in the header of each
+shipped file and in :data:`METHODS`). :func:`load_limit_set` reads one into an
+immutable, validated :class:`LimitSet`; :func:`evaluate` judges per-segment
+quantities against every criterion of the set at once, vectorised over
+segments.
+
+Schema
+------
+``[meta]``
+    ``name`` (str), ``description`` (str), ``editions`` (list of str: the
+    editions of the standards the set follows).
+``[settings]`` (optional)
+    ``review_threshold`` (float, 0 < x < 1, default 0.5): utilization from
+    which a segment is classed ``"review"`` rather than ``"clear"``.
+``[criteria.<name>]``, one table per criterion
+    ``applies_to`` (list of asset kinds: pipeline, fence, rail, telecom),
+    ``case`` (``"normal"``, ``"fault"``, ``"capacitive"`` or
+    ``"conductive"``), ``quantity`` (name of the per-segment quantity judged,
+    e.g. ``v_normal_v``), ``method`` (a key of :data:`METHODS`), optional
+    ``description`` and ``source`` (str), and the method's parameters.
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+import tomllib
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from corridor.errors import ConfigError
+from corridor.limits import criteria as crit
+
+logger = logging.getLogger(__name__)
+
+#: Asset kinds a criterion may apply to.
+ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
+#: Coupling cases a criterion may belong to.
+CASES = ("normal", "fault", "capacitive", "conductive")
+#: Hazard classes, from least to most severe.
+HAZARD_CLASSES = ("clear", "review", "exceeds")
+#: Default review threshold (common practice: look again at anything above
+#: half its limit, since screening inputs are uncertain).
+DEFAULT_REVIEW_THRESHOLD = 0.5
+
+#: Directory of the shipped limit sets, relative to the repository.
+DEFAULT_SEARCH_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
+
+_NAME_RE = re.compile(r"^[a-z][a-z0-9_]*$")
+
+
+class LimitSetError(ConfigError):
+    """A limit-set file or its overrides are invalid.
+
+    Parameters
+    ----------
+    problems : list of str
+        Every problem found, each naming the file and the key.
+    """
+
+
+# --------------------------------------------------------------------------
+# Parameter specs
+# --------------------------------------------------------------------------
+
+_REQUIRED = object()
+
+
+@dataclass(frozen=True)
+class ParamSpec:
+    """One parameter of a criterion method.
+
+    Parameters
+    ----------
+    check : callable
+        ``check(value) -> (converted, problem_or_None)``.
+    default : object
+        Default value; a private sentinel makes the parameter required.
+    doc : str
+        Type, unit and meaning.
+    """
+
+    check: Callable[[Any], tuple[Any, str | None]]
+    default: Any = _REQUIRED
+    doc: str = ""
+
+
+def _is_number(x):
+    return isinstance(x, int | float) and not isinstance(x, bool)
+
+
+def _positive(x):
+    if not _is_number(x) or not np.isfinite(x) or x <= 0:
+        return None, f"expected a positive number, got {x!r}"
+    return float(x), None
+
+
+def _non_negative(x):
+    if not _is_number(x) or not np.isfinite(x) or x < 0:
+        return None, f"expected a number >= 0, got {x!r}"
+    return float(x), None
+
+
+def _bool(x):
+    if not isinstance(x, bool):
+        return None, f"expected true or false, got {x!r}"
+    return x, None
+
+
+def _string(x):
+    if not isinstance(x, str):
+        return None, f"expected a string, got {x!r}"
+    return x, None
+
+
+def _identifier(x):
+    if not isinstance(x, str) or not _NAME_RE.match(x):
+        return None, f"expected a lower-case name such as 'v_normal_v', got {x!r}"
+    return x, None
+
+
+def _body_weight(x):
+    if not _is_number(x) or x not in (50, 70):
+        return None, f"expected 50 or 70 (IEEE Std 80 body weights), got {x!r}"
+    return int(x), None
+
+
+def _positive_list(x):
+    if not isinstance(x, list) or not x:
+        return None, f"expected a non-empty list of positive numbers, got {x!r}"
+    out = []
+    for v in x:
+        f, problem = _positive(v)
+        if problem:
+            return None, f"expected a non-empty list of positive numbers, got {x!r}"
+        out.append(f)
+    return tuple(out), None
+
+
+def _increasing_list(x):
+    out, problem = _positive_list(x)
+    if problem:
+        return out, problem
+    if any(b <= a for a, b in zip(out, out[1:], strict=False)):
+        return None, f"durations must be strictly increasing, got {x!r}"
+    return out, None
+
+
+def _value_by_category(x):
+    if not isinstance(x, dict) or not x:
+        return None, f"expected a table of category = positive number, got {x!r}"
+    out = []
+    for k, v in x.items():
+        f, problem = _positive(v)
+        if problem:
+            return None, f"category {k!r}: {problem}"
+        out.append((k, f))
+    return tuple(sorted(out)), None
+
+
+def _choice(options):
+    def check(x):
+        if x not in options:
+            return None, f"expected one of {list(options)}, got {x!r}"
+        return x, None
+    return check
+
+
+def _asset_kinds(x):
+    if (not isinstance(x, list) or not x
+            or any(not isinstance(k, str) or k not in ASSET_KINDS for k in x)):
+        return None, f"expected a non-empty list drawn from {list(ASSET_KINDS)}, got {x!r}"
+    return tuple(x), None
+
+
+# --------------------------------------------------------------------------
+# Methods: how each criterion computes its permitted value per segment
+# --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Context:
+    """Per-segment data a method may need, each an ndarray of shape (n,).
+
+    Parameters
+    ----------
+    clearing_time_s : ndarray of float
+        Fault clearing time of the inducing line [s].
+    soil_resistivity_ohm_m : ndarray of float
+        Soil resistivity at the segment [Ω·m].
+    high_reliability : ndarray of bool
+        High-reliability power line (ITU-T Directives sense).
+    categories : Mapping[str, ndarray of str]
+        Named per-segment labels, e.g. ``coating_type``.
+    n : int
+        Number of segments.
+    """
+
+    clearing_time_s: np.ndarray
+    soil_resistivity_ohm_m: np.ndarray
+    high_reliability: np.ndarray
+    categories: Mapping[str, np.ndarray]
+    n: int
+
+
+def _permitted_constant(p, ctx):
+    return np.full(ctx.n, p["value"])
+
+
+def _permitted_table(p, ctx):
+    return crit.interpolate_vs_duration(ctx.clearing_time_s, p["table_duration_s"],
+                                        p["table_value"])
+
+
+def _ieee80_surface(p, ctx):
+    rho = ctx.soil_resistivity_ohm_m
+    if p["surface_layer"]:
+        rho_s = np.full(ctx.n, p["surface_resistivity_ohm_m"])
+        cs = crit.surface_layer_derating(rho, rho_s, p["surface_thickness_m"])
+    else:
+        rho_s, cs = rho, np.ones(ctx.n)
+    return rho_s, cs
+
+
+def _permitted_ieee80_touch(p, ctx):
+    rho_s, cs = _ieee80_surface(p, ctx)
+    return crit.ieee80_touch_voltage_v(ctx.clearing_time_s, p["body_weight_kg"], rho_s, cs)
+
+
+def _permitted_ieee80_step(p, ctx):
+    rho_s, cs = _ieee80_surface(p, ctx)
+    return crit.ieee80_step_voltage_v(ctx.clearing_time_s, p["body_weight_kg"], rho_s, cs)
+
+
+def _permitted_itu(p, ctx):
+    return crit.itu_telecom_fault_limit_v(
+        ctx.clearing_time_s, ctx.high_reliability,
+        normal_limit_v=p["normal_limit_v"],
+        high_reliability_limit_v=p["high_reliability_limit_v"],
+        high_reliability_max_clearing_s=p["high_reliability_max_clearing_s"])
+
+
+def _permitted_by_category(p, ctx):
+    table = dict(p["value_by_category"])
+    fallback = min(table.values())  # unknown or missing label: the strictest value
+    labels = ctx.categories.get(p["category"])
+    out = np.full(ctx.n, fallback)
+    if labels is not None:
+        labels = np.broadcast_to(np.asarray(labels).astype(str), (ctx.n,))
+        for label, value in table.items():
+            out[labels == label] = value
+    return out
+
+
+@dataclass(frozen=True)
+class MethodSpec:
+    """A criterion method: its parameters and its permitted-value function."""
+
+    params: Mapping[str, ParamSpec]
+    permitted: Callable[[Mapping[str, Any], Context], np.ndarray]
+    doc: str = ""
+
+
+_IEEE80_PARAMS = {
+    "body_weight_kg": ParamSpec(_body_weight, 50,
+                                "50 or 70 [kg]; 50 kg is the conservative choice."),
+    "surface_layer": ParamSpec(_bool, False,
+                               "true: stand on a surface layer of the given resistivity and "
+                               "thickness; false: on native soil (ρs = soil ρ, Cs = 1)."),
+    "surface_resistivity_ohm_m": ParamSpec(_positive, 3000.0,
+                                           "Surface-layer resistivity ρs [Ω·m]."),
+    "surface_thickness_m": ParamSpec(_non_negative, 0.1, "Surface-layer thickness hs [m]."),
+}
+
+#: Registry of criterion methods, keyed by the ``method`` value in the TOML.
+METHODS: Mapping[str, MethodSpec] = {
+    "constant": MethodSpec(
+        {"value": ParamSpec(_positive, doc="Permitted value, in the quantity's unit.")},
+        _permitted_constant, "One permitted value everywhere."),
+    "table_vs_time": MethodSpec(
+        {"table_duration_s": ParamSpec(_increasing_list,
+                                       doc="Durations [s], strictly increasing."),
+         "table_value": ParamSpec(_positive_list,
+                                  doc="Permitted values at those durations, quantity's unit.")},
+        _permitted_table,
+        "Published value-vs-duration table read at the clearing time, log-log interpolated."),
+    "ieee80_touch": MethodSpec(_IEEE80_PARAMS, _permitted_ieee80_touch,
+                               "IEEE Std 80 tolerable touch voltage at the clearing time."),
+    "ieee80_step": MethodSpec(_IEEE80_PARAMS, _permitted_ieee80_step,
+                              "IEEE Std 80 tolerable step voltage at the clearing time."),
+    "itu_telecom_fault": MethodSpec(
+        {"normal_limit_v": ParamSpec(_positive, 430.0, "Ordinary lines [V]."),
+         "high_reliability_limit_v": ParamSpec(_positive, 650.0,
+                                               "High-reliability lines cleared fast [V]."),
+         "high_reliability_max_clearing_s": ParamSpec(_positive, 0.2,
+                                                      "Longest clearing time for the higher "
+                                                      "limit [s], inclusive.")},
+        _permitted_itu, "ITU-T Directives fault EMF limit."),
+    "constant_by_category": MethodSpec(
+        {"category": ParamSpec(_identifier,
+                               doc="Name of the per-segment label, e.g. 'coating_type'."),
+         "value_by_category": ParamSpec(_value_by_category,
+                                        doc="Table label = permitted value; an unknown or "
+                                            "missing label takes the smallest value.")},
+        _permitted_by_category, "Permitted value chosen by a per-segment label."),
+}
+
+_COMMON_KEYS = {
+    "applies_to": ParamSpec(_asset_kinds),
+    "case": ParamSpec(_choice(CASES)),
+    "quantity": ParamSpec(_identifier),
+    "method": ParamSpec(_choice(tuple(METHODS))),
+    "description": ParamSpec(_string, ""),
+    "source": ParamSpec(_string, ""),
+}
+
+
+# --------------------------------------------------------------------------
+# The validated objects
+# --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Criterion:
+    """One validated criterion of a limit set.
+
+    Parameters
+    ----------
+    name : str
+        Key of the criterion in the file, e.g. ``"touch_fault"``.
+    applies_to : tuple of str
+        Asset kinds judged.
+    case : str
+        Coupling case, one of :data:`CASES`.
+    quantity : str
+        Name of the per-segment quantity judged.
+    method : str
+        Key of :data:`METHODS`.
+    parameters : tuple of (str, object)
+        The method's parameters, defaults filled in, sorted by name.
+    description, source : str
+        Free text from the file.
+    """
+
+    name: str
+    applies_to: tuple[str, ...]
+    case: str
+    quantity: str
+    method: str
+    parameters: tuple[tuple[str, Any], ...]
+    description: str = ""
+    source: str = ""
+
+    @property
+    def params(self) -> dict[str, Any]:
+        """The parameters as a fresh dict."""
+        return dict(self.parameters)
+
+    @property
+    def label(self) -> str:
+        """``"<name>:<case>"``, as reported in ``governing``."""
+        return f"{self.name}:{self.case}"
+
+    def permitted(self, ctx: Context) -> np.ndarray:
+        """Permitted value of the quantity per segment, shape (ctx.n,)."""
+        return np.asarray(METHODS[self.method].permitted(self.params, ctx), dtype=float)
+
+
+@dataclass(frozen=True)
+class LimitSet:
+    """A validated, immutable limit set.
+
+    Parameters
+    ----------
+    name : str
+        ``meta.name``.
+    description : str
+        ``meta.description``.
+    editions : tuple of str
+        ``meta.editions``.
+    review_threshold : float
+        Utilization from which a segment is classed ``"review"`` [-].
+    criteria : tuple of Criterion
+        In file order.
+    source_path : str
+        The file it was read from.
+    """
+
+    name: str
+    description: str
+    editions: tuple[str, ...]
+    review_threshold: float
+    criteria: tuple[Criterion, ...]
+    source_path: str = ""
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        """Names of the criteria, in file order."""
+        return tuple(c.name for c in self.criteria)
+
+    def __getitem__(self, name: str) -> Criterion:
+        for c in self.criteria:
+            if c.name == name:
+                return c
+        raise KeyError(name)
+
+
+# --------------------------------------------------------------------------
+# Loading
+# --------------------------------------------------------------------------
+
+
+def available_limit_sets(search_dir: str | Path | None = None) -> tuple[str, ...]:
+    """Names of the limit sets in ``search_dir`` (default: the shipped ones)."""
+    d = Path(search_dir) if search_dir is not None else DEFAULT_SEARCH_DIR
+    return tuple(sorted(p.stem for p in d.glob("*.toml")))
+
+
+def load_limit_set(name_or_path: str | Path, overrides: Mapping | None = None, *,
+                   search_dir: str | Path | None = None) -> LimitSet:
+    """Read, merge and validate a limit set.
+
+    Parameters
+    ----------
+    name_or_path : str or Path
+        A set name (``"iec_en"``), resolved to ``<search_dir>/<name>.toml``,
+        or a path to a TOML file (anything with a ``.toml`` suffix or a
+        directory separator).
+    overrides : mapping, optional
+        Nested dict deep-merged over the file before validation, e.g.
+        ``{"criteria": {"touch_fault": {"body_weight_kg": 70}}}``. Tables
+        merge key by key; any other value replaces the file's.
+    search_dir : str or Path, optional
+        Directory holding named sets. Default: ``config/limits`` of the
+        repository.
+
+    Returns
+    -------
+    LimitSet
+
+    Raises
+    ------
+    LimitSetError
+        Missing or unreadable file, TOML syntax error, unknown keys, wrong
+        types or values; every problem is reported at once, each naming the
+        file (or its overrides) and the key.
+    """
+    path = _resolve(name_or_path, search_dir)
+    try:
+        with path.open("rb") as fh:
+            raw = tomllib.load(fh)
+    except FileNotFoundError:
+        raise LimitSetError([f"{path}: limit-set file not found"]) from None
+    except OSError as exc:
+        raise LimitSetError([f"{path}: cannot read limit-set file: {exc}"]) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise LimitSetError([f"{path}: invalid TOML: {exc}"]) from None
+
+    override_paths: set[tuple[str, ...]] = set()
+    if overrides is not None:
+        if not isinstance(overrides, Mapping):
+            raise LimitSetError([f"overrides to {path}: expected a mapping, got "
+                                 f"{type(overrides).__name__}"])
+        raw = _deep_merge(raw, overrides, (), override_paths)
+    return _validate(raw, path, override_paths)
+
+
+def _resolve(name_or_path, search_dir):
+    s = str(name_or_path)
+    if isinstance(name_or_path, Path) or s.endswith(".toml") or "/" in s or "\\" in s:
+        return Path(name_or_path)
+    d = Path(search_dir) if search_dir is not None else DEFAULT_SEARCH_DIR
+    path = d / f"{s}.toml"
+    if not path.is_file():
+        names = ", ".join(available_limit_sets(d)) or "none"
+        raise LimitSetError([f"{path}: no limit set named {s!r} (available: {names})"])
+    return path
+
+
+def _deep_merge(base, over, prefix, paths):
+    out = dict(base)
+    for k, v in over.items():
+        key = (*prefix, str(k))
+        if isinstance(v, Mapping) and isinstance(out.get(k), dict):
+            out[k] = _deep_merge(out[k], v, key, paths)
+        else:
+            out[k] = _plain(v)
+            paths.add(key)
+    return out
+
+
+def _plain(v):
+    if isinstance(v, Mapping):
+        return {str(k): _plain(x) for k, x in v.items()}
+    if isinstance(v, tuple | list):
+        return [_plain(x) for x in v]
+    if isinstance(v, np.generic):
+        return v.item()
+    return v
+
+
+def _validate(raw, path, override_paths):
+    problems: list[str] = []
+
+    def where(*key):
+        origin = str(path)
+        if any(key[:i] in override_paths for i in range(1, len(key) + 1)):
+            origin = f"overrides to {path}"
+        return f"{origin}: {'.'.join(key)}"
+
+    def check_table(obj, key, specs, allowed_extra=()):
+        """Validate one table; returns dict of converted values."""
+        out = {}
+        if not isinstance(obj, dict):
+            problems.append(f"{where(*key)}: expected a table, got {obj!r}")
+            return None
+        for k in obj:
+            if k not in specs and k not in allowed_extra:
+                known = ", ".join(sorted([*specs, *allowed_extra]))
+                problems.append(f"{where(*key, k)}: unknown key (known keys: {known})")
+        for k, spec in specs.items():
+            if k not in obj:
+                if spec.default is _REQUIRED:
+                    problems.append(f"{where(*key, k)}: missing required key")
+                else:
+                    out[k] = spec.default
+                continue
+            value, problem = spec.check(obj[k])
+            if problem:
+                problems.append(f"{where(*key, k)}: {problem}")
+            else:
+                out[k] = value
+        return out
+
+    for k in raw:
+        if k not in ("meta", "settings", "criteria"):
+            problems.append(f"{where(k)}: unknown key (known keys: criteria, meta, settings)")
+
+    meta_specs = {"name": ParamSpec(_string), "description": ParamSpec(_string),
+                  "editions": ParamSpec(_string_list)}
+    meta = None
+    if "meta" in raw:
+        meta = check_table(raw["meta"], ("meta",), meta_specs)
+    else:
+        problems.append(f"{where('meta')}: missing required table")
+
+    settings_specs = {"review_threshold": ParamSpec(_fraction, DEFAULT_REVIEW_THRESHOLD)}
+    settings = check_table(raw.get("settings", {}), ("settings",), settings_specs)
+
+    criteria: list[Criterion] = []
+    raw_criteria = raw.get("criteria")
+    if raw_criteria is None:
+        problems.append(f"{where('criteria')}: missing required table")
+    elif not isinstance(raw_criteria, dict) or not raw_criteria:
+        problems.append(f"{where('criteria')}: expected a non-empty table of criteria")
+    else:
+        for cname, ctable in raw_criteria.items():
+            key = ("criteria", cname)
+            if not _NAME_RE.match(cname):
+                problems.append(f"{where(*key)}: criterion names must be lower-case "
+                                "identifiers")
+            if not isinstance(ctable, dict):
+                problems.append(f"{where(*key)}: expected a table, got {ctable!r}")
+                continue
+            method = ctable.get("method")
+            mspec = METHODS.get(method) if isinstance(method, str) else None
+            pspecs = mspec.params if mspec is not None else {}
+            # Without a valid method the parameters cannot be checked; the
+            # method problem itself is reported by the common-key check.
+            extra = () if mspec is not None else tuple(ctable)
+            common = check_table(ctable, key, _COMMON_KEYS, allowed_extra=tuple(pspecs) + extra)
+            params = check_table(ctable, key, pspecs,
+                                 allowed_extra=tuple(_COMMON_KEYS) + extra) if mspec else None
+            if params is not None and method == "table_vs_time":
+                d, v = params.get("table_duration_s"), params.get("table_value")
+                if d is not None and v is not None and len(d) != len(v):
+                    problems.append(f"{where(*key, 'table_value')}: has {len(v)} values for "
+                                    f"{len(d)} durations")
+            if common is None or params is None or len(common) < len(_COMMON_KEYS):
+                continue
+            criteria.append(Criterion(
+                name=cname, applies_to=common["applies_to"], case=common["case"],
+                quantity=common["quantity"], method=common["method"],
+                parameters=tuple(sorted(params.items())),
+                description=common["description"], source=common["source"]))
+
+    # Unknown keys were reported twice (once per spec pass) when both passes saw
+    # them; keep each message once, in order.
+    problems = list(dict.fromkeys(problems))
+    if problems:
+        raise LimitSetError(problems)
+    logger.debug("loaded limit set %s from %s (%d criteria)", meta["name"], path,
+                 len(criteria))
+    return LimitSet(name=meta["name"], description=meta["description"],
+                    editions=meta["editions"], review_threshold=settings["review_threshold"],
+                    criteria=tuple(criteria), source_path=str(path))
+
+
+def _string_list(x):
+    if not isinstance(x, list) or any(not isinstance(s, str) for s in x):
+        return None, f"expected a list of strings, got {x!r}"
+    return tuple(x), None
+
+
+def _fraction(x):
+    if not _is_number(x) or not 0 < x < 1:
+        return None, f"expected a number between 0 and 1 (exclusive), got {x!r}"
+    return float(x), None
+
+
+# --------------------------------------------------------------------------
+# Evaluation
+# --------------------------------------------------------------------------
+
+
+def evaluate(limit_set: LimitSet, asset_kind, quantities: Mapping[str, Any], clearing_time_s,
+             soil_resistivity_ohm_m, high_reliability, categories: Mapping | None = None
+             ) -> dict[str, Any]:
+    """Judge per-segment quantities against every criterion of a limit set.
+
+    Parameters
+    ----------
+    limit_set : LimitSet
+        From :func:`load_limit_set`.
+    asset_kind : array_like of str, shape (n,)
+        Kind of the asset each segment belongs to (pipeline, fence, rail,
+        telecom).
+    quantities : mapping of str to array_like, each shape (n,) or scalar
+        Per-segment quantities by canonical name and unit, e.g.
+        ``v_normal_v`` [V], ``v_touch_fault_v`` [V], ``emf_fault_v`` [V],
+        ``ac_density_a_per_m2`` [A/m²], ``i_capacitive_short_ma`` [mA].
+        Magnitudes are taken (complex phasors allowed). NaN means "not
+        computed here". A missing name leaves its criteria unassessed.
+    clearing_time_s : array_like, shape (n,) or scalar
+        Fault clearing time of the inducing line [s].
+    soil_resistivity_ohm_m : array_like, shape (n,) or scalar
+        Soil resistivity at the segment [Ω·m].
+    high_reliability : array_like of bool, shape (n,) or scalar
+        High-reliability inducing line (ITU-T Directives sense).
+    categories : mapping of str to array_like of str, optional
+        Per-segment labels used by ``constant_by_category`` criteria, e.g.
+        ``{"coating_type": [...]}``; a missing mapping or label takes the
+        criterion's strictest value.
+
+    Returns
+    -------
+    dict
+        ``ratios``: {criterion name: ndarray (n,) of quantity/permitted, NaN
+        where the criterion does not apply to the asset kind or the quantity
+        is missing or NaN, or the permitted value cannot be computed (e.g. NaN
+        clearing time)};
+        ``permitted``: {criterion name: ndarray (n,) of permitted values in
+        the quantity's unit, NaN where the criterion does not apply};
+        ``utilization``: ndarray (n,), the largest ratio, 0 where none
+        applies; ``governing``: ndarray (n,) of str, ``"<name>:<case>"`` of
+        the criterion giving the utilization, ``""`` where none applies;
+        ``hazard_class``: ndarray (n,) of str, ``"clear"`` (u < review
+        threshold, including "nothing assessed"), ``"review"``
+        (threshold <= u < 1) or ``"exceeds"`` (u >= 1).
+
+    Notes
+    -----
+    ratio = |quantity| / permitted. Criteria that a standard offers as
+    alternatives (e.g. ISO 18086's J_ac limit or J_ac/J_dc ratio) are each
+    judged on their own and the largest ratio governs, which is the
+    conservative reading for a screen.
+    """
+    kind = np.asarray(asset_kind).astype(str).ravel()
+    n = kind.shape[0]
+    ctx = Context(
+        clearing_time_s=_per_segment(clearing_time_s, n, float),
+        soil_resistivity_ohm_m=_per_segment(soil_resistivity_ohm_m, n, float),
+        high_reliability=_per_segment(high_reliability, n, bool),
+        categories=dict(categories or {}),
+        n=n)
+
+    ratios: dict[str, np.ndarray] = {}
+    permitted_out: dict[str, np.ndarray] = {}
+    for c in limit_set.criteria:
+        applies = np.isin(kind, c.applies_to)
+        permitted = c.permitted(ctx)
+        permitted_out[c.name] = np.where(applies, permitted, np.nan)
+        ratio = np.full(n, np.nan)
+        q = quantities.get(c.quantity)
+        if q is not None:
+            q_abs = np.abs(_per_segment(q, n, None))
+            ok = applies & ~np.isnan(q_abs) & np.isfinite(permitted) & (permitted > 0)
+            np.divide(q_abs, permitted, out=ratio, where=ok)
+        ratios[c.name] = ratio
+
+    if ratios:
+        stack = np.stack(list(ratios.values()))
+        filled = np.where(np.isnan(stack), -np.inf, stack)
+        idx = np.argmax(filled, axis=0)
+        best = np.take_along_axis(filled, idx[None, :], axis=0)[0]
+        none = np.all(np.isnan(stack), axis=0)
+        utilization = np.where(none, 0.0, best)
+        labels = np.array([c.label for c in limit_set.criteria])
+        governing = np.where(none, "", labels[idx])
+    else:
+        utilization = np.zeros(n)
+        governing = np.full(n, "", dtype="<U1")
+
+    hazard = np.where(utilization >= 1.0, HAZARD_CLASSES[2],
+                      np.where(utilization >= limit_set.review_threshold,
+                               HAZARD_CLASSES[1], HAZARD_CLASSES[0]))
+    return {"ratios": ratios, "permitted": permitted_out, "utilization": utilization,
+            "governing": governing, "hazard_class": hazard}
+
+
+def _per_segment(x, n, dtype):
+    a = np.asarray(x) if dtype is None else np.asarray(x, dtype=dtype)
+    if a.ndim == 0:
+        return np.full(n, a[()], dtype=a.dtype)
+    a = a.ravel()
+    if a.shape[0] != n:
+        raise ValueError(f"expected {n} values (one per segment), got {a.shape[0]}")
+    return a
