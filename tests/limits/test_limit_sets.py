@@ -5,6 +5,7 @@ import math
 import re
 import shutil
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 import pytest
@@ -382,3 +383,10 @@ def test_overrides_deep_merge_and_do_not_touch_the_file(tmp_path):
     assert ls["c"].params["value"] == 15.0 and ls["c"].quantity == "v_normal_v"
     assert load_limit_set(path)["c"].params["value"] == 60.0
     assert path.read_text(encoding="utf-8") == MINIMAL
+
+
+def test_overrides_accept_read_only_mappings(tmp_path):
+    # The run config hands its [limits] table over as a read-only mapping.
+    path = _write(tmp_path, MINIMAL, "m.toml")
+    ls = load_limit_set(path, MappingProxyType({"criteria": {"c": {"value": 30.0}}}))
+    assert ls["c"].params["value"] == 30.0
