@@ -34,6 +34,7 @@ from corridor.geometry.exposure import (
     find_pairs,
     nearest_line,
     split_sections,
+    value_at_midpoints,
 )
 from corridor.geometry.segments import Segments, split_lines
 from corridor.io.layers import Inputs, read_inputs
@@ -86,21 +87,6 @@ class _Timer:
         return False
 
 
-def soil_at(points: np.ndarray, soil: gpd.GeoDataFrame | None, default_ohm_m: float) -> np.ndarray:
-    """Soil resistivity at points: the first covering polygon, else the default [Ω·m]."""
-    out = np.full(len(points), float(default_ohm_m))
-    if soil is None or len(soil) == 0 or len(points) == 0:
-        return out
-    tree = shapely.STRtree(soil.geometry.to_numpy())
-    pi, gi = tree.query(points, predicate="intersects")
-    if len(pi):
-        order = np.lexsort((gi, pi))
-        pi, gi = pi[order], gi[order]
-        first = np.r_[True, pi[1:] != pi[:-1]]
-        out[pi[first]] = soil["soil_resistivity_ohm_m"].to_numpy(float)[gi[first]]
-    return out
-
-
 def stage_geometry(cfg: Config, inputs: Inputs) -> Geometry:
     """Segment the assets and find their exposures to the power lines."""
     s = cfg.run
@@ -111,9 +97,12 @@ def stage_geometry(cfg: Config, inputs: Inputs) -> Geometry:
     sections = split_sections(pairs, s["min_separation_m"], s["oblique_ratio"])
     eq = equivalent_separation(sections, len(pairs))
     exposures = build_exposures(pairs, segments, eq)
-    mid = shapely.points(0.5 * (segments.x0_m + segments.x1_m),
-                         0.5 * (segments.y0_m + segments.y1_m))
-    soil = soil_at(mid, inputs.soil, s["default_soil_resistivity_ohm_m"])
+    if inputs.soil is not None:
+        soil = value_at_midpoints(segments, inputs.soil.geometry.to_numpy(),
+                                  inputs.soil["soil_resistivity_ohm_m"].to_numpy(float),
+                                  s["default_soil_resistivity_ohm_m"])
+    else:
+        soil = np.full(len(segments), s["default_soil_resistivity_ohm_m"])
     return Geometry(segments, edges, pairs, sections, eq, exposures,
                     nearest_line(pairs, len(segments)), soil)
 

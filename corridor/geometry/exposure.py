@@ -132,44 +132,120 @@ def segment_distance(s: Segments, i: np.ndarray, e: Segments, j: np.ndarray) -> 
     return np.where(crossing, 0.0, d)
 
 
-def candidate_pairs(segments: Segments, edges: LineEdges, distance_m: float,
-                    chunk: int = 500_000) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """All (segment, edge) pairs closer than ``distance_m``, with their distance."""
+def segment_blocks(segments: Segments, block: int = 16) -> tuple[np.ndarray, np.ndarray]:
+    """Group consecutive segments of one feature into blocks of at most ``block``.
+
+    Returns the first segment of each block and each block's size.
+    """
+    n = len(segments)
+    if n == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    f = segments.feature
+    new_feature = np.r_[True, f[1:] != f[:-1]]
+    pos = np.arange(n) - np.maximum.accumulate(np.where(new_feature, np.arange(n), 0))
+    starts = np.flatnonzero(new_feature | (pos % block == 0))
+    sizes = np.diff(np.r_[starts, n])
+    return starts, sizes
+
+
+def _envelopes(segments: Segments, starts: np.ndarray):
+    xmin = np.minimum.reduceat(np.minimum(segments.x0_m, segments.x1_m), starts)
+    ymin = np.minimum.reduceat(np.minimum(segments.y0_m, segments.y1_m), starts)
+    xmax = np.maximum.reduceat(np.maximum(segments.x0_m, segments.x1_m), starts)
+    ymax = np.maximum.reduceat(np.maximum(segments.y0_m, segments.y1_m), starts)
+    return xmin, ymin, xmax, ymax
+
+
+def _edge_tree(edges: LineEdges, distance_m: float):
     e = edges.segments
-    boxes = shapely.box(np.minimum(e.x0_m, e.x1_m) - distance_m,
-                        np.minimum(e.y0_m, e.y1_m) - distance_m,
-                        np.maximum(e.x0_m, e.x1_m) + distance_m,
-                        np.maximum(e.y0_m, e.y1_m) + distance_m)
-    tree = shapely.STRtree(boxes)
-    out_i, out_j, out_d = [], [], []
-    for lo in range(0, len(segments), chunk):
-        hi = min(lo + chunk, len(segments))
-        sl = slice(lo, hi)
-        seg_boxes = shapely.box(np.minimum(segments.x0_m[sl], segments.x1_m[sl]),
-                                np.minimum(segments.y0_m[sl], segments.y1_m[sl]),
-                                np.maximum(segments.x0_m[sl], segments.x1_m[sl]),
-                                np.maximum(segments.y0_m[sl], segments.y1_m[sl]))
-        qi, qj = tree.query(seg_boxes)
-        qi = qi + lo
-        d = segment_distance(segments, qi, e, qj)
-        ok = d <= distance_m
-        out_i.append(qi[ok])
-        out_j.append(qj[ok])
-        out_d.append(d[ok])
-    if not out_i:
-        return (np.zeros(0, np.int64),) * 2 + (np.zeros(0),)
-    return np.concatenate(out_i), np.concatenate(out_j), np.concatenate(out_d)
+    exmin = np.minimum(e.x0_m, e.x1_m) - distance_m
+    eymin = np.minimum(e.y0_m, e.y1_m) - distance_m
+    exmax = np.maximum(e.x0_m, e.x1_m) + distance_m
+    eymax = np.maximum(e.y0_m, e.y1_m) + distance_m
+    tree = shapely.STRtree(shapely.box(exmin, eymin, exmax, eymax))
+    return tree, (exmin, eymin, exmax, eymax)
+
+
+def candidate_pairs(segments: Segments, edges: LineEdges, distance_m: float,
+                    block: int = 16, tree=None, lo: int = 0, hi: int | None = None):
+    """(segment, edge) pairs within ``distance_m`` for segments ``lo:hi``.
+
+    The STRtree holds the line edges' envelopes grown by ``distance_m`` and is
+    queried with the envelopes of blocks of consecutive asset segments (fewer
+    GEOS calls); block hits are expanded to segments, pre-filtered on
+    envelopes and then measured in numpy. The exact segment-to-edge distance
+    is only computed where the midpoint distance leaves the answer open.
+
+    Returns
+    -------
+    si, ej : ndarray of int
+        Segment and edge indices.
+    mid_distance_m : ndarray
+        Distance from the segment's midpoint to the edge [m].
+    touches : ndarray of bool
+        The segment crosses or touches the edge.
+    """
+    e = edges.segments
+    hi = len(segments) if hi is None else hi
+    if hi <= lo or len(e) == 0:
+        z = np.zeros(0, np.int64)
+        return z, z, np.zeros(0), np.zeros(0, bool)
+    if tree is None:
+        tree = _edge_tree(edges, distance_m)
+    tree, (exmin, eymin, exmax, eymax) = tree
+    part = segments.take(np.arange(lo, hi))
+    starts, sizes = segment_blocks(part, block)
+    bx0, by0, bx1, by1 = _envelopes(part, starts)
+    bi, ej = tree.query(shapely.box(bx0, by0, bx1, by1))
+    counts = sizes[bi]
+    rep = np.repeat(np.arange(len(bi)), counts)
+    si = starts[bi][rep] + (np.arange(len(rep)) - np.repeat(np.cumsum(counts) - counts, counts))
+    ej = ej[rep]
+    ax, ay, bx, by = part.x0_m[si], part.y0_m[si], part.x1_m[si], part.y1_m[si]
+    ok = ((np.maximum(ax, bx) >= exmin[ej]) & (np.minimum(ax, bx) <= exmax[ej]) &
+          (np.maximum(ay, by) >= eymin[ej]) & (np.minimum(ay, by) <= eymax[ej]))
+    si, ej = si[ok], ej[ok]
+    ax, ay, bx, by = ax[ok], ay[ok], bx[ok], by[ok]
+    dmid, _ = _point_edge(0.5 * (ax + bx), 0.5 * (ay + by), e.x0_m[ej], e.y0_m[ej],
+                          e.x1_m[ej], e.y1_m[ej])
+    half = 0.5 * part.length_m[si]
+    # the exact distance lies within dmid +- half the segment length
+    sure_in = dmid + half <= distance_m
+    open_ = ~sure_in & (dmid - half <= distance_m) | (dmid <= half)
+    exact = np.full(len(si), np.inf)
+    idx = np.flatnonzero(open_)
+    exact[idx] = segment_distance(part, si[idx], e, ej[idx])
+    keep = sure_in | (exact <= distance_m)
+    touches = exact <= 0.0
+    return si[keep] + lo, ej[keep], dmid[keep], touches[keep]
+
+
+def _pairs_chunk(segments, edges, distance_m, min_separation_m, parallel_angle_deg, tree,
+                 lo, hi):
+    si, ej, dist, touches = candidate_pairs(segments, edges, distance_m, tree=tree, lo=lo, hi=hi)
+    e = edges.segments
+    line = e.feature[ej]
+    # nearest edge per (segment, line); deterministic: distance, then edge index
+    order = np.lexsort((ej, dist, line, si))
+    si, ej, line, touches = si[order], ej[order], line[order], touches[order]
+    first = np.r_[True, (si[1:] != si[:-1]) | (line[1:] != line[:-1])] if len(si) else \
+        np.zeros(0, bool)
+    si, ej, line, touches = si[first], ej[first], line[first], touches[first]
+    return si, ej, line, touches
 
 
 def find_pairs(segments: Segments, edges: LineEdges, distance_m: float,
-               min_separation_m: float, parallel_angle_deg: float) -> Pairs:
+               min_separation_m: float, parallel_angle_deg: float,
+               chunk: int = 200_000, workers: int | None = None) -> Pairs:
     """Pair every asset segment with every power line within ``distance_m``.
 
-    For each (segment, line) the nearest edge of the line is kept. Separation
-    is the perpendicular distance from the segment's midpoint to that edge,
-    floored at ``min_separation_m``; the angle is between the segment and the
-    edge (0-90°); the projected length is the segment's signed projection on
-    the edge, clipped at the line's ends.
+    For each (segment, line) the nearest edge of the line (by midpoint
+    distance) is kept. Separation is the perpendicular distance from the
+    segment's midpoint to that edge, floored at ``min_separation_m``; the
+    angle is between the segment and the edge (0-90°); the projected length
+    is the segment's signed projection on the edge, clipped at the line's
+    ends. Chunks of segments run on a thread pool (numpy and GEOS release the
+    GIL); the result does not depend on the number of threads.
 
     Parameters
     ----------
@@ -183,34 +259,46 @@ def find_pairs(segments: Segments, edges: LineEdges, distance_m: float,
         Separation floor at crossings [m].
     parallel_angle_deg : float
         Largest angle still classed parallel [deg].
+    chunk : int
+        Segments per work item.
+    workers : int or None
+        Threads; default the number of CPUs, at most 4.
     """
-    si, ej, dist = candidate_pairs(segments, edges, distance_m)
-    e = edges.segments
-    line = e.feature[ej]
-    # nearest edge per (segment, line); deterministic: distance, then edge index
-    order = np.lexsort((ej, dist, line, si))
-    si, ej, line, dist = si[order], ej[order], line[order], dist[order]
-    first = np.r_[True, (si[1:] != si[:-1]) | (line[1:] != line[:-1])] if len(si) else \
-        np.zeros(0, bool)
-    si, ej, line = si[first], ej[first], line[first]
+    import os
+    from concurrent.futures import ThreadPoolExecutor
 
+    tree = _edge_tree(edges, distance_m) if len(edges.segments) else None
+    bounds = [(lo, min(lo + chunk, len(segments))) for lo in range(0, len(segments), chunk)]
+    workers = workers or min(4, os.cpu_count() or 1)
+    args = (segments, edges, distance_m, min_separation_m, parallel_angle_deg, tree)
+    if workers > 1 and len(bounds) > 1:
+        with ThreadPoolExecutor(workers) as pool:
+            parts = list(pool.map(lambda b: _pairs_chunk(*args, *b), bounds))
+    else:
+        parts = [_pairs_chunk(*args, *b) for b in bounds]
+    if parts:
+        si, ej, line, touches = (np.concatenate([p[k] for p in parts]) for k in range(4))
+    else:
+        z = np.zeros(0, np.int64)
+        si, ej, line, touches = z, z, z, np.zeros(0, bool)
+    e = edges.segments
     ax, ay = segments.x0_m[si], segments.y0_m[si]
     bx, by = segments.x1_m[si], segments.y1_m[si]
     px, py = e.x0_m[ej], e.y0_m[ej]
+    qx, qy = e.x1_m[ej], e.y1_m[ej]
     elen = e.length_m[ej]
-    tx = (e.x1_m[ej] - px) / elen
-    ty = (e.y1_m[ej] - py) / elen
+    tx = (qx - px) / elen
+    ty = (qy - py) / elen
     nx, ny = -ty, tx
 
-    def offset(qx, qy):
-        side = np.where((qx - px) * nx + (qy - py) * ny >= 0.0, 1.0, -1.0)
-        d, _ = _point_edge(qx, qy, px, py, e.x1_m[ej], e.y1_m[ej])
+    def offset(x, y):
+        side = np.where((x - px) * nx + (y - py) * ny >= 0.0, 1.0, -1.0)
+        d, _ = _point_edge(x, y, px, py, qx, qy)
         return side * d
 
-    mx, my = 0.5 * (ax + bx), 0.5 * (ay + by)
     off_a = offset(ax, ay)
     off_b = offset(bx, by)
-    off_m = offset(mx, my)
+    off_m = offset(0.5 * (ax + bx), 0.5 * (ay + by))
     sa = (ax - px) * tx + (ay - py) * ty
     sb = (bx - px) * tx + (by - py) * ty
     lo = np.where(edges.is_first[ej], 0.0, -np.inf)
@@ -221,17 +309,11 @@ def find_pairs(segments: Segments, edges: LineEdges, distance_m: float,
     angle = np.degrees(np.arccos(np.clip(cos, 0.0, 1.0)))
     smid = np.clip(0.5 * (sa + sb), 0.0, elen)
     line_pos = e.chainage_m[ej] + smid
-    crossing = (np.sign(off_a) != np.sign(off_b)) & (np.abs(off_a) + np.abs(off_b) > 0) & (
-        shapely.intersects(segments.take(si).geometries(), _edge_geoms(e, ej)))
-    cls = np.where(crossing, 2, np.where(angle <= parallel_angle_deg, 0, 1)).astype(np.int8)
+    cls = np.where(touches, 2, np.where(angle <= parallel_angle_deg, 0, 1)).astype(np.int8)
     sep = np.maximum(np.abs(off_m), min_separation_m)
     closest = np.where(cls == 2, 0.0, np.minimum(np.abs(off_a), np.abs(off_b)))
     min_sep = np.maximum(closest, min_separation_m)
     return Pairs(si, line, ej, sep, min_sep, off_a, off_b, off_m, angle, proj, line_pos, cls)
-
-
-def _edge_geoms(e: Segments, j: np.ndarray) -> np.ndarray:
-    return e.take(j).geometries()
 
 
 def split_sections(pairs: Pairs, min_separation_m: float, ratio: float = 3.0) -> Sections:
@@ -399,4 +481,36 @@ def nearest_line(pairs: Pairs, n_segments: int) -> np.ndarray:
     seg = pairs.segment[order]
     first = np.r_[True, seg[1:] != seg[:-1]]
     out[seg[first]] = order[first]
+    return out
+
+
+def value_at_midpoints(segments: Segments, polygons: np.ndarray, values: np.ndarray,
+                       default: float, block: int = 16) -> np.ndarray:
+    """Per segment: the value of the first polygon covering its midpoint, else ``default``.
+
+    Blocks of segments query an STRtree of the polygons; the point-in-polygon
+    test is ``shapely.contains_xy`` on coordinates, so no point geometries
+    are built.
+    """
+    out = np.full(len(segments), float(default))
+    if len(polygons) == 0 or len(segments) == 0:
+        return out
+    tree = shapely.STRtree(polygons)
+    starts, sizes = segment_blocks(segments, block)
+    bx0, by0, bx1, by1 = _envelopes(segments, starts)
+    bi, gi = tree.query(shapely.box(bx0, by0, bx1, by1))
+    counts = sizes[bi]
+    rep = np.repeat(np.arange(len(bi)), counts)
+    si = starts[bi][rep] + (np.arange(len(rep)) - np.repeat(np.cumsum(counts) - counts, counts))
+    gi = gi[rep]
+    mx = 0.5 * (segments.x0_m[si] + segments.x1_m[si])
+    my = 0.5 * (segments.y0_m[si] + segments.y1_m[si])
+    shapely.prepare(polygons)
+    inside = shapely.intersects_xy(polygons[gi], mx, my)
+    si, gi = si[inside], gi[inside]
+    if len(si):
+        order = np.lexsort((gi, si))
+        si, gi = si[order], gi[order]
+        first = np.r_[True, si[1:] != si[:-1]]
+        out[si[first]] = np.asarray(values, float)[gi[first]]
     return out
