@@ -153,6 +153,37 @@ def matched_termination_admittance(z_ohm_per_m, y_s_per_m):
 # --------------------------------------------------------------------------
 # Stable hyperbolic ratios (Re u >= 0)
 # --------------------------------------------------------------------------
+#: Below this |u²| the even ratios use four Taylor terms in s = u²; the first
+#: omitted term is below 2.2e-16 relative there. The exact forms (expm1) are
+#: accurate everywhere except u = 0; the series is the fast path.
+_EVEN_SERIES_LIMIT = 1e-3
+
+
+def _even_ratios(s):
+    """u/sinh(u) and tanh(u/2)/(u/2) as functions of s = u² (Re u >= 0).
+
+    Series: u/sinh u = 1 − s/6 + 7s²/360 − 31s³/15120 + …,
+    tanh(w)/w = 1 − s/12 + s²/120 − 17s³/20160 + … (w = u/2).
+    Exact: with m = expm1(−u), u/sinh u = 2u·e^{−u}/(−m(2 + m)),
+    tanh(u/2)/(u/2) = −2m/(u(2 + m)).
+    """
+    r1 = ((-31.0 / 15120.0) * s + 7.0 / 360.0) * s
+    r1 -= 1.0 / 6.0
+    r1 *= s
+    r1 += 1.0
+    r2 = ((-17.0 / 20160.0) * s + 1.0 / 120.0) * s
+    r2 -= 1.0 / 12.0
+    r2 *= s
+    r2 += 1.0
+    big = np.abs(s) >= _EVEN_SERIES_LIMIT
+    if big.any():
+        u = np.sqrt(s[big])
+        m = np.expm1(-u)
+        two_m = 2.0 + m
+        r1[big] = 2.0 * u * np.exp(-u) / (-m * two_m)
+        r2[big] = -2.0 * m / (u * two_m)
+    return r1, r2
+
 def _split(u):
     small = np.abs(u) < _SERIES_LIMIT
     return small, np.where(small, 1.0, u)
@@ -440,40 +471,59 @@ class ChainSystem:
         z = batch.series_impedance_ohm_per_m
         y = batch.shunt_admittance_s_per_m
         brk = batch.segment_break
-        u = np.sqrt(z * y) * length
-        w = 0.5 * u
-        zl = z * length
-        y_series = np.where(brk, 0.0, _u_over_sinh(u) / zl)
-        y_half = 0.5 * y * length * _tanh_over(w)
-        # Norton injection per volt of segment EMF [S].
-        injection = np.where(brk, 0.25 * y * length * _one_minus_sech_over_w2(w), 1.0 / zl)
+        u_over_sinh, tanh_ratio = _even_ratios(z * y * (length * length))
+        # Norton injection per volt of segment EMF [S]: 1/(z·l), or the stub
+        # injection for broken segments.
+        injection = 1.0 / (z * length)
+        y_series = u_over_sinh * injection
+        y_half = (0.5 * length) * y * tanh_ratio
+        if brk.any():
+            y_series[brk] = 0.0
+            w = 0.5 * np.sqrt(z[brk] * y[brk]) * length[brk]
+            injection[brk] = 0.25 * y[brk] * length[brk] * _one_minus_sech_over_w2(w)
         self.y_series_s = y_series
         self.y_half_s = y_half
         self.injection_s = injection
 
         n_node = batch.n_nodes
         first = batch.segment_start_node
+        self._first = first
+        if not np.all(y != 0):
+            shunt = np.zeros(n_node + 1, dtype=complex)
+            shunt[first] = y_half
+            shunt[1:] += shunt[:-1].copy()
+            shunt = shunt[:n_node] + batch.node_shunt_admittance_s
+            shunt[batch.chain_first_node] += batch.start_termination_admittance_s
+            shunt[batch.chain_last_node] += batch.end_termination_admittance_s
+            self._check_paths_to_earth(shunt, first, brk)
         # One decoupled dummy node (Y = 1 S) closes the system: scipy's zgttrf
         # wrapper rejects n = 2, and a single-segment chain alone has 2 nodes.
+        # Each segment's admittances are scattered to its start node, then
+        # shifted by one onto its end node (a chain's last node starts no
+        # segment, so nothing leaks across chains).
+        both = np.zeros(n_node + 1, dtype=complex)
+        both[first] = y_half + y_series
         diag = np.ones(n_node + 1, dtype=complex)
         diag[:n_node] = batch.node_shunt_admittance_s
+        diag += both
+        diag[1:] += both[:-1]
         diag[batch.chain_first_node] += batch.start_termination_admittance_s
         diag[batch.chain_last_node] += batch.end_termination_admittance_s
-        diag[first] += y_half
-        diag[first + 1] += y_half
-        self._check_paths_to_earth(diag[:n_node], first, brk)
-        diag[first] += y_series
-        diag[first + 1] += y_series
         off = np.zeros(n_node, dtype=complex)
         off[first] = -y_series
-        self._first = first
-        dl, d, du, du2, ipiv, info = lapack.zgttrf(off, diag, off.copy(),
-                                                   overwrite_dl=1, overwrite_d=1, overwrite_du=1)
-        if info != 0:
-            raise InputError(
-                f"nodal system is singular at node {info - 1}: a part of a chain has no"
-                " usable path to earth")
-        self._factors = (dl, d, du, du2, ipiv)
+        self._diag = diag
+        self._off = off
+        self._factors = None
+
+    def _factorise(self):
+        if self._factors is None:
+            dl, d, du, du2, ipiv, info = lapack.zgttrf(self._off, self._diag, self._off)
+            if info != 0:
+                raise InputError(
+                    f"nodal system is singular at node {info - 1}: a part of a chain has no"
+                    " usable path to earth")
+            self._factors = (dl, d, du, du2, ipiv)
+        return self._factors
 
     def _check_paths_to_earth(self, shunt_diag, first, brk):
         batch = self.batch
@@ -493,15 +543,27 @@ class ChainSystem:
 
     # ---- solving ----------------------------------------------------------
     def _new_rhs(self, n_col):
-        return np.zeros((self.batch.n_nodes + 1, n_col), dtype=complex)
+        return np.zeros((self.batch.n_nodes + 1, n_col), dtype=complex, order="F")
 
-    def _solve_rhs(self, rhs):
-        x, info = lapack.zgttrs(*self._factors, rhs, overwrite_b=1)
-        if info != 0:  # pragma: no cover - argument errors only
-            raise RuntimeError(f"zgttrs failed with info={info}")
+    def _solve_rhs(self, rhs, keep_factors=True):
+        if keep_factors or self._factors is not None:
+            x, info = lapack.zgttrs(*self._factorise(), rhs, overwrite_b=1)
+        else:
+            # One-shot solve: LU and substitution in one LAPACK call,
+            # overwriting the assembled matrix (the system cannot be reused).
+            _, _, _, x, info = lapack.zgtsv(self._off, self._diag, self._off.copy(), rhs,
+                                            overwrite_dl=1, overwrite_d=1, overwrite_du=1,
+                                            overwrite_b=1)
+            self._diag = self._off = None
+        if info > 0:
+            raise InputError(
+                f"nodal system is singular at node {info - 1}: a part of a chain has no"
+                " usable path to earth")
+        if info < 0:  # pragma: no cover - argument errors only
+            raise RuntimeError(f"LAPACK tridiagonal solver failed with info={info}")
         return x[:-1]
 
-    def solve(self, segment_emf_v, node_current_a=None) -> ChainSolution:
+    def solve(self, segment_emf_v, node_current_a=None, _keep_factors=True) -> ChainSolution:
         """Solve for one or more EMF cases.
 
         Parameters
@@ -525,21 +587,29 @@ class ChainSystem:
                 f"segment_emf_v: expected shape ({batch.n_segments},) or"
                 f" ({batch.n_segments}, n_cases), got {emf.shape}")
         n_case = emf2.shape[1]
-        j = emf2 * self.injection_s[:, None]
-        rhs = self._new_rhs(n_case)
-        if node_current_a is not None:
-            rhs[:-1] += np.asarray(node_current_a, dtype=complex).reshape(batch.n_nodes, -1)
+        # Case-major work arrays (n_case, n_nodes + 1), C order: the transpose
+        # is the Fortran-order (n_nodes + 1, n_case) right-hand side LAPACK wants.
+        j = emf2.T * self.injection_s
         first = self._first
-        rhs[first] -= j
-        rhs[first + 1] += j
-        v = self._solve_rhs(rhs)
-        v1 = v[first]
-        v2 = v[first + 1]
-        through = self.y_series_s[:, None] * (v1 - v2) + j
-        i_start = self.y_half_s[:, None] * v1 + through
-        i_end = through - self.y_half_s[:, None] * v2
+        rhs_t = np.zeros((n_case, batch.n_nodes + 1), dtype=complex)
+        rhs_t[:, first + 1] = j
+        rhs_t[:, first] -= j
+        if node_current_a is not None:
+            rhs_t[:, :-1] += np.asarray(node_current_a, dtype=complex).reshape(
+                batch.n_nodes, -1).T
+        v_t = self._solve_rhs(rhs_t.T, keep_factors=_keep_factors).T
+        v1 = np.take(v_t, first, axis=1)
+        v2 = np.take(v_t, first + 1, axis=1)
+        through = v1 - v2
+        through *= self.y_series_s
+        through += j
+        i_start = self.y_half_s * v1
+        i_start += through
+        i_end = self.y_half_s * v2
+        np.subtract(through, i_end, out=i_end)
         seg_v = np.maximum(np.abs(v1), np.abs(v2))
         seg_i = np.maximum(np.abs(i_start), np.abs(i_end))
+        v, i_start, i_end, seg_v, seg_i = (a.T for a in (v_t, i_start, i_end, seg_v, seg_i))
         if single:
             v, i_start, i_end, seg_v, seg_i = (a[:, 0] for a in (v, i_start, i_end, seg_v, seg_i))
         return ChainSolution(v, i_start, i_end, seg_v, seg_i)
@@ -660,7 +730,7 @@ def solve_chains(
         segment_length_m, series_impedance_ohm_per_m, shunt_admittance_s_per_m,
         chain_start, node_shunt_admittance_s, segment_break,
         start_termination_admittance_s, end_termination_admittance_s)
-    return ChainSystem(batch).solve(segment_emf_v)
+    return ChainSystem(batch).solve(segment_emf_v, _keep_factors=False)
 
 
 def thevenin_at_node(batch_or_system, node_index) -> np.ndarray:
