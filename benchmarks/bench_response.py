@@ -4,10 +4,12 @@ Solves 2,000,000 nodes in 40,000 chains (49 segments of 50 m each, the
 line constants of pipelines, rails and fences mixed, a few breaks and
 grounds), and prints nodes per second, median of several repeats:
 
-- ``full``: validation, assembly of the exact pi, LU factorisation, one
-  EMF case, currents and per-segment maxima;
-- ``factor+solve``: assembly and factorisation only (ChainSystem);
-- ``extra case``: one more EMF case on a factorised system.
+- ``full``: ``solve_chains`` — validation, assembly of the exact pi, one
+  tridiagonal LU solve (zgtsv), currents and per-segment maxima;
+- ``assemble``: ``ChainSystem(batch)`` — the exact pi and the matrix only;
+- ``factorise``: LU factors kept for reuse (zgttrf);
+- ``extra case``: one more EMF case on a factorised system (zgttrs + outputs);
+- ``thevenin``: Z_th at one node of every chain (one extra solve).
 
 Run: ``python benchmarks/bench_response.py [--chains N] [--segments M] [--repeats R]``.
 Target: ≥ 5,000,000 nodes/s for ``full``.
@@ -87,12 +89,21 @@ def main(argv=None) -> None:
     solve_chains(**inputs)  # warm-up
     t_full = _median_time(lambda: solve_chains(**inputs), args.repeats)
     batch = ChainBatch.from_arrays(**batch_kw)
-    t_factor = _median_time(lambda: ChainSystem(batch), args.repeats)
+    t_assemble = _median_time(lambda: ChainSystem(batch), args.repeats)
     system = ChainSystem(batch)
+
+    def factorise():
+        system._factors = None
+        system._factorise()
+
+    t_factor = _median_time(factorise, args.repeats)
     t_case = _median_time(lambda: system.solve(emf), args.repeats)
+    peaks = system.peak_node(system.solve(emf).node_voltage_v)
+    t_th = _median_time(lambda: system.thevenin_impedance(peaks), args.repeats)
 
     print(f"{n_nodes:,} nodes in {args.chains:,} chains, median of {args.repeats} repeats")
-    for label, t in (("full", t_full), ("factor+solve", t_factor), ("extra case", t_case)):
+    for label, t in (("full", t_full), ("assemble", t_assemble), ("factorise", t_factor),
+                     ("extra case", t_case), ("thevenin", t_th)):
         print(f"  {label:13s} {t * 1e3:8.1f} ms  {n_nodes / t / 1e6:6.2f} M nodes/s")
 
 

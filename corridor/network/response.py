@@ -11,8 +11,18 @@ Each segment is replaced by its *exact* equivalent pi and its distributed EMF
 by the exact nodal (Norton) injections, so node voltages are exact for a
 piecewise-uniform EMF whatever the segment length. All chains of a run are
 stacked into one tridiagonal nodal-admittance system and solved at once with
-LAPACK's tridiagonal LU (``zgttrf``/``zgttrs``); no dense matrix, no general
-sparse LU, no Python loop per node or per asset.
+LAPACK's tridiagonal LU with partial pivoting (``zgtsv`` for a one-shot
+solve, ``zgttrf``/``zgttrs`` when the factors are reused for more EMF cases
+or Thevenin impedances); no dense matrix, no general sparse LU, no Python
+loop per node or per asset.
+
+No path to earth
+----------------
+A part of a chain with no admittance to earth at all (y = 0, no ground, no
+grounded or continuing end, between two breaks or ends) has an undefined
+potential; the solver refuses it with :class:`corridor.errors.InputError`.
+Real conductors always have some capacitance to earth: callers should give
+above-ground wires y = jωC with C ≈ 10 pF/m (from memory) rather than 0.
 
 Layout
 ------
@@ -179,31 +189,18 @@ def _even_ratios(s):
     if big.any():
         u = np.sqrt(s[big])
         m = np.expm1(-u)
+        e = 1.0 + m  # e^{-u}; recomputed where it underflows against 1
+        far = u.real > 30.0
+        if far.any():
+            e[far] = np.exp(-u[far])
         two_m = 2.0 + m
-        r1[big] = 2.0 * u * np.exp(-u) / (-m * two_m)
+        r1[big] = 2.0 * u * e / (-m * two_m)
         r2[big] = -2.0 * m / (u * two_m)
     return r1, r2
 
 def _split(u):
     small = np.abs(u) < _SERIES_LIMIT
     return small, np.where(small, 1.0, u)
-
-
-def _u_over_sinh(u):
-    """u/sinh(u), stable for small and large u (Re u >= 0)."""
-    small, us = _split(u)
-    exact = 2.0 * us * np.exp(-us) / -np.expm1(-2.0 * us)
-    u2 = u * u
-    return np.where(small, 1.0 - u2 / 6.0 + 7.0 * u2 * u2 / 360.0, exact)
-
-
-def _tanh_over(w):
-    """tanh(w)/w, stable for small and large w (Re w >= 0)."""
-    small, ws = _split(w)
-    em = np.expm1(-2.0 * ws)
-    exact = -em / (ws * (2.0 + em))
-    w2 = w * w
-    return np.where(small, 1.0 - w2 / 3.0 + 2.0 * w2 * w2 / 15.0, exact)
 
 
 def _one_minus_sech_over_w2(w):
@@ -455,8 +452,12 @@ class ChainSystem:
     A broken segment (break at its midpoint) has Y_series = 0; each open-ended
     half of length l/2 presents tanh(u/2)/Zc = Y_shunt/2 and injects
     J·(1 − sech(u/2)) = E_seg·y·l/4·(1 − sech w)/w², w = u/2. The ratios are
-    evaluated with expm1 or their Taylor series for |u| < 1e-4, so y → 0 is
-    stable.
+    even in u: they are evaluated as four-term Taylor series in u² = z·y·l²
+    where |u²| < 1e-3 (error < 3e-16; no square root needed, and y → 0 is
+    stable) and with expm1 elsewhere.
+
+    The matrix is assembled on construction and LU-factorised on first use
+    (kept for further EMF cases and Thevenin impedances).
 
     References
     ----------
@@ -591,9 +592,11 @@ class ChainSystem:
         # is the Fortran-order (n_nodes + 1, n_case) right-hand side LAPACK wants.
         j = emf2.T * self.injection_s
         first = self._first
-        rhs_t = np.zeros((n_case, batch.n_nodes + 1), dtype=complex)
-        rhs_t[:, first + 1] = j
-        rhs_t[:, first] -= j
+        push = np.zeros((n_case, batch.n_nodes + 1), dtype=complex)
+        push[:, first] = j  # out of each start node ...
+        rhs_t = np.negative(push)
+        rhs_t[:, 1:] += push[:, :-1]  # ... into the next node (chain ends start nothing)
+        del push
         if node_current_a is not None:
             rhs_t[:, :-1] += np.asarray(node_current_a, dtype=complex).reshape(
                 batch.n_nodes, -1).T
@@ -607,7 +610,8 @@ class ChainSystem:
         i_start += through
         i_end = self.y_half_s * v2
         np.subtract(through, i_end, out=i_end)
-        seg_v = np.maximum(np.abs(v1), np.abs(v2))
+        v_abs = np.abs(v_t)
+        seg_v = np.maximum(np.take(v_abs, first, axis=1), np.take(v_abs, first + 1, axis=1))
         seg_i = np.maximum(np.abs(i_start), np.abs(i_end))
         v, i_start, i_end, seg_v, seg_i = (a.T for a in (v_t, i_start, i_end, seg_v, seg_i))
         if single:

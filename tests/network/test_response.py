@@ -331,10 +331,12 @@ def test_peak_node_per_chain():
     assert peaks.tolist() == [int(np.argmax(mag[:11])), 11 + int(np.argmax(mag[11:]))]
 
 
-@pytest.mark.parametrize("u", [0.0, 1e-7, 9.99e-5, 1.001e-4, 3e-3, 0.3 + 0.2j, 2 + 1j, 40 + 3j])
+@pytest.mark.parametrize("u", [0.0, 1e-7, 9.99e-5, 1.001e-4, 3e-3, 0.0316 + 0.0002j,
+                               0.03163 + 0.001j, 0.3 + 0.2j, 2 + 1j, 40 + 3j])
 def test_hyperbolic_ratios_against_mpmath(u):
-    # Reference: mpmath at 30 digits. rtol 1e-13: both sides of the series
-    # switch at |u| = 1e-4 must be accurate to near double precision.
+    # Reference: mpmath at 30 digits. rtol 1e-13: both sides of each series
+    # switch (|u²| = 1e-3 for the pi, |u| = 1e-4 for the break stub) must be
+    # accurate to near double precision.
     u_c = complex(u)
     mp_u = mpmath.mpc(u_c)
     with mpmath.workdps(30):
@@ -345,8 +347,8 @@ def test_hyperbolic_ratios_against_mpmath(u):
             refs = (complex(mp_u / mpmath.sinh(mp_u)), complex(mpmath.tanh(w) / w),
                     complex((1 - mpmath.sech(w)) / w**2))
     arr = np.array([u_c])
-    got = (response._u_over_sinh(arr)[0], response._tanh_over(arr / 2)[0],
-           response._one_minus_sech_over_w2(arr / 2)[0])
+    u_over_sinh, tanh_ratio = response._even_ratios(arr * arr)
+    got = (u_over_sinh[0], tanh_ratio[0], response._one_minus_sech_over_w2(arr / 2)[0])
     np.testing.assert_allclose(got, refs, rtol=1e-13)
 
 
