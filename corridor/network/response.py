@@ -62,8 +62,8 @@ __all__ = [
     "thevenin_at_node",
 ]
 
-#: Below this |argument| the hyperbolic ratios use their Taylor series [-].
-#: Truncation error of the series used is below |u|^4/100 < 1e-18 there.
+#: Below this |w| the break-stub ratio (1 − sech w)/w² uses its Taylor series
+#: (first omitted term ≈ w⁴/120 < 1e-18 relative there).
 _SERIES_LIMIT = 1e-4
 
 
@@ -197,6 +197,7 @@ def _even_ratios(s):
         r1[big] = 2.0 * u * e / (-m * two_m)
         r2[big] = -2.0 * m / (u * two_m)
     return r1, r2
+
 
 def _split(u):
     small = np.abs(u) < _SERIES_LIMIT
