@@ -47,6 +47,9 @@ def _console(args) -> None:
     handler.setFormatter(logging.Formatter("corridor: %(levelname)s: %(message)s"))
     root = logging.getLogger("corridor")
     root.setLevel(logging.DEBUG)
+    for old in [h for h in root.handlers if getattr(h, "_corridor_console", False)]:
+        root.removeHandler(old)
+    handler._corridor_console = True
     root.addHandler(handler)
 
 
@@ -67,7 +70,7 @@ def main(argv: list[str] | None = None) -> int:
                             row["feature_id"], row["field"], row["reason"])
             return EXIT_OK
         from corridor.runner import publish
-        from corridor.stages import default_stages
+        from corridor.steps import default_stages
 
         run = publish(cfg, args.out, default_stages())
         out = Path(args.out or cfg.output_dir).resolve()

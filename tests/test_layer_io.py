@@ -284,10 +284,6 @@ def test_empty_asset_layer(scenario, driver):
     assert _asset_layer_label(cfg, driver) in "\n".join(info.value.problems)
 
 
-@pytest.mark.xfail(strict=True, reason="corridor/io/layers.py _read_assets: an empty asset layer"
-                   " is reported as 'no usable asset features' (GPKG) or as lacking the"
-                   " asset-kind field (GeoJSON drops the columns of an empty layer), never as"
-                   " empty; the len(gdf) == 0 check in _read_layer only sees per-kind slices")
 @pytest.mark.parametrize("driver", ["GPKG", "GeoJSON"])
 def test_empty_asset_layer_says_empty(scenario, driver):
     cfg = scenario.build(driver, assets=scenario.asset_frame().iloc[:0])
@@ -355,9 +351,6 @@ def test_shapefile_truncated_required_field_is_input_error(scenario):
     assert "power_lines.shp" in msg and "TOWER_TYPE_NAME" in msg and "arrangement" in msg
 
 
-@pytest.mark.xfail(strict=True, reason="corridor/io/layers.py _attributes: a field the config maps"
-                   " explicitly but the layer lacks (typo, or a Shapefile-truncated name) is"
-                   " silently replaced by the kind default for every feature (DEBUG log only)")
 def test_mapped_optional_field_absent_is_reported(scenario):
     assets = scenario.asset_frame().rename(columns={"POST_OHM": "POST_RESIST_OHM"})
     cfg = scenario.build("ESRI Shapefile", assets=assets)  # stored as POST_RESIS
@@ -371,9 +364,6 @@ def test_mapped_optional_field_absent_is_reported(scenario):
     assert "POST_RESIST_OHM" in reported
 
 
-@pytest.mark.xfail(strict=True, raises=UserWarning, reason="corridor/io/layers.py read_raw: with no"
-                   " 'layer' key on a multi-layer GeoPackage pyogrio warns and reads the first"
-                   " layer; it should be an InputError listing the file's layers")
 def test_multi_layer_file_without_layer_name(scenario):
     cfg = scenario.build()
     path = scenario.root / "assets.gpkg"
@@ -385,10 +375,6 @@ def test_multi_layer_file_without_layer_name(scenario):
     assert "assets" in msg and "zz_other" in msg
 
 
-@pytest.mark.xfail(strict=True, raises=ValueError, reason="corridor/io/layers.py read_inputs:"
-                   " choose_crs runs before the empty-layer check, so an empty geographic"
-                   " power-line layer with run.crs empty makes estimate_utm_crs raise a plain"
-                   " ValueError (CLI exit 3) instead of InputError 'is empty'")
 def test_empty_geographic_power_lines_without_run_crs(scenario):
     lines = scenario.line_frame(crs="EPSG:4326").iloc[:0]
     assets = scenario.asset_frame().to_crs("EPSG:4326")

@@ -65,6 +65,15 @@ class Inputs:
 
 def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
     """Read one layer with pyogrio, turning GDAL failures into :class:`InputError`."""
+    if src.layer is None:
+        try:
+            names = [str(n) for n in pyogrio.list_layers(src.path)[:, 0]]
+        except (pyogrio.errors.DataSourceError, OSError, RuntimeError) as exc:
+            raise InputError(f"layer {src.label}: file cannot be opened (corrupt, truncated,"
+                             f" locked or not a GIS format): {exc}") from None
+        if len(names) > 1:
+            raise InputError(f"layer {src.label}: the file holds several layers"
+                             f" ({', '.join(names)}); name one with 'layer = ...'")
     try:
         gdf = pyogrio.read_dataframe(src.path, layer=src.layer, use_arrow=True)
     except pyogrio.errors.DataLayerError as exc:
@@ -176,6 +185,10 @@ def _attributes(gdf, src, specs, defaults, ids, rejected, warnings, allow_defaul
         user = src.fields.get(spec.name, spec.name)
         default = defaults.get(spec.name, spec.default)
         if user not in gdf.columns:
+            if spec.name in src.fields:
+                cols = ", ".join(str(c) for c in gdf.columns if c != gdf.geometry.name)
+                raise InputError(f"layer {src.label}: field '{user}' (mapped to corridor field"
+                                 f" '{spec.name}') is not in the layer; its fields are: {cols}")
             if default is None:
                 raise InputError(f"layer {src.label}: field '{user}' (corridor field"
                                  f" '{spec.name}') is missing and has no default")
@@ -332,6 +345,9 @@ def read_inputs(cfg: Config) -> Inputs:
             raws[i] = read_raw(src)
         except InputError as exc:
             problems.extend(exc.problems)
+    for i, src in enumerate(sources):
+        if i in raws and len(raws[i]) == 0:
+            problems.append(f"layer {src.label}: is empty")
     if problems:
         raise InputError(problems)
     crs = choose_crs(cfg, list(raws.values()))
@@ -393,6 +409,8 @@ def read_inputs(cfg: Config) -> Inputs:
 
 
 def _read_assets(src, cfg, crs, rejected, warnings, allow, raw) -> gpd.GeoDataFrame:
+    if len(raw) == 0:
+        raise InputError(f"layer {src.label}: is empty")
     if src.kind is not None:
         kinds = pd.Series([src.kind] * len(raw), index=raw.index)
     else:

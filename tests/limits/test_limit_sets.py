@@ -110,7 +110,7 @@ def test_iec_en_rail_and_long_term_values():
     out = _eval(ls, ["rail", "rail", "pipeline", "telecom"],
                 {"v_touch_fault_v": np.array([785.0, np.nan, np.nan, np.nan]),
                  "v_normal_v": np.array([np.nan, 30.0, 30.0, np.nan]),
-                 "emf_normal_v": np.array([np.nan, np.nan, np.nan, 30.0])},
+                 "emf_section_normal_v": np.array([np.nan, np.nan, np.nan, 30.0])},
                 clearing_s=0.1)
     # EN 50122-1:2011 Table 4 (from memory): 785 V at 0.1 s; 60 V beyond 300 s.
     assert out["permitted"]["rail_touch_fault"][0] == pytest.approx(785.0, rel=1e-12)
@@ -220,7 +220,7 @@ def test_telecom_fault_itu_logic(name, clearing_s, expected_v):
     # within 0.2 s, else 430 V; an ordinary line is 430 V regardless.
     ls = load_limit_set(name, search_dir=CONFIG_DIR)
     kind = np.array(["telecom", "telecom"])
-    out = evaluate(ls, kind, {"emf_fault_v": np.array([500.0, 500.0])},
+    out = evaluate(ls, kind, {"emf_section_fault_v": np.array([500.0, 500.0])},
                    np.array([clearing_s] * 2), np.array([100.0] * 2), np.array([True, False]))
     np.testing.assert_array_equal(out["permitted"]["telecom_fault"], [expected_v, 430.0])
     assert out["governing"][0] == "telecom_fault:fault"

@@ -1,0 +1,119 @@
+"""Computing stages after the exposure geometry, in run order.
+
+Each stage is ``fn(run)``: it reads what earlier stages left on the
+:class:`corridor.pipeline.Run` and adds its own results and columns.
+"""
+
+from __future__ import annotations
+
+import logging
+from pathlib import Path
+
+import numpy as np
+
+log = logging.getLogger(__name__)
+
+LIMITS_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
+
+
+def stage_couple(run) -> None:
+    """Induced EMF, capacitive pickup and earth potential per segment."""
+    from corridor.steps.couple import couple
+
+    run.coupling = couple(run.config, run.inputs, run.geometry)
+
+
+def stage_respond(run) -> None:
+    """Voltages and currents along every asset."""
+    from corridor.steps.respond import respond
+
+    cp = run.coupling
+    rs = respond(run.config, run.inputs, run.geometry, cp)
+    run.response = rs
+    for fid, fld, reason in rs.rejected:
+        run.inputs.rejected.add(run.config.grounds.label, fid, fld, reason)
+    t = run.segment_table
+    length_km = t["length_m"].to_numpy(float) / 1000.0
+    emf_n = np.abs(rs.segment_emf_normal_v)
+    emf_f = np.abs(rs.fault_rhs).max(axis=1) if rs.fault_rhs.shape[1] else np.zeros(len(t))
+    lines = run.inputs.lines
+    case = rs.fault_case_of_segment
+    has = case >= 0
+    cs = np.where(has, case, 0)
+    line_ids = lines["line_id"].to_numpy(dtype=object)
+    n_case = len(cp.fault_case_line)
+
+    def by_case(values, fill):
+        if n_case == 0:
+            return np.full(len(t), fill, dtype=np.asarray(values).dtype if n_case else object)
+        return np.where(has, np.asarray(values)[cs], fill)
+
+    t["emf_normal_v_per_km"] = emf_n / length_km
+    t["emf_fault_v_per_km"] = emf_f / length_km
+    t["emf_normal_v"] = emf_n
+    t["emf_fault_v"] = emf_f
+    t["v_normal_v"] = rs.v_normal_v
+    t["i_normal_a"] = rs.i_normal_a
+    t["normal_source_impedance_ohm"] = rs.normal_source_impedance_ohm
+    t["i_normal_short_ma"] = rs.i_normal_short_ma
+    t["v_fault_v"] = rs.v_fault_v
+    t["i_fault_a"] = rs.i_fault_a
+    t["fault_line_id"] = by_case(line_ids[cp.fault_case_line] if n_case else [], "")
+    t["fault_phase"] = by_case(cp.fault_case_phase, "")
+    t["clearing_time_s"] = by_case(cp.fault_case_clearing_s, np.nan).astype(float)
+    t["high_reliability"] = by_case(cp.fault_case_high_reliability, False).astype(bool)
+    t["screening_factor"] = by_case(np.abs(cp.fault_case_screening), np.nan).astype(float)
+    t["fault_current_ka"] = cp.segment_fault_current_a / 1000.0
+    t["earth_potential_fault_v"] = cp.earth_potential_fault_v
+    above = t["asset_kind"].isin(["fence"]).to_numpy() | (
+        run.inputs.assets["height_m"].to_numpy(float)[run.geometry.segments.feature] > 0)
+    t["v_capacitive_open_v"] = np.where(above, rs.v_capacitive_open_v, 0.0)
+    t["i_capacitive_short_ma"] = np.where(above, rs.i_capacitive_short_ma, 0.0)
+    t["capacitive_source_impedance_ohm"] = np.where(above, rs.capacitive_source_impedance_ohm,
+                                                    np.nan)
+    t["emf_section_normal_v"] = np.where(t["asset_kind"] == "telecom",
+                                         rs.emf_section_normal_v, np.nan)
+    t["emf_section_fault_v"] = np.where(t["asset_kind"] == "telecom",
+                                        rs.emf_section_fault_v, np.nan)
+
+
+def stage_assess(run) -> None:
+    """Ratios to the limit set, utilization, governing criterion, class, rank."""
+    from corridor.limits.limit_sets import load_limit_set
+    from corridor.steps.assess import assess
+
+    cfg = run.config
+    limit_set = load_limit_set(cfg.run["limit_set"], dict(cfg.limit_overrides) or None,
+                               search_dir=LIMITS_DIR)
+    run.limit_set = limit_set
+    t = run.segment_table
+    cat = {}
+    if "coating_type" in run.inputs.assets:
+        cat["coating_type"] = run.inputs.assets["coating_type"].to_numpy(dtype=object)[
+            run.geometry.segments.feature].astype(str)
+    res = assess(limit_set, t, cat)
+    run.assessment = res
+    q = res["quantities"]
+    t["v_touch_fault_v"] = q["v_touch_fault_v"]
+    t["v_coating_stress_v"] = q["v_coating_stress_v"]
+    t["ac_density_a_per_m2"] = q["ac_density_a_per_m2"]
+    for name, ratio in res["ratios"].items():
+        t[f"ratio_{name}"] = ratio
+    t["utilization"] = res["utilization"]
+    t["governing"] = res["governing"]
+    t["hazard_class"] = res["hazard_class"]
+    # rank 1 = worst of the run; ties by asset id, then chainage (deterministic)
+    order = np.lexsort((t["chainage_m"].to_numpy(), t["asset_id"].to_numpy(dtype=str),
+                        -t["utilization"].to_numpy(float)))
+    rank = np.empty(len(t), np.int64)
+    rank[order] = np.arange(1, len(t) + 1)
+    t["rank"] = rank
+    run.counts["segments_exceeding"] = int((t["utilization"] >= 1.0).sum())
+
+
+def default_stages() -> dict:
+    """Stages run after ``read`` and ``expose``: name -> function(run)."""
+    from corridor.steps.report_tables import stage_tables
+
+    return {"couple": stage_couple, "respond": stage_respond, "assess": stage_assess,
+            "tables": stage_tables}

@@ -1,0 +1,324 @@
+"""Response stage: voltage and current along every asset from its EMF.
+
+Each asset part is a chain of its segments (a lossy earth-return
+transmission line, :mod:`corridor.network.response`). All chains of the run
+go into one batched tridiagonal system, factorised once and solved for:
+
+- column 0: the normal-load EMF;
+- column 1: the capacitive (electric-field) currents injected at the nodes,
+  no EMF — the voltage a high-impedance voltmeter would read;
+- columns 2..: fault cases. An asset near n lines has n fault cases (one
+  faulted line at a time); case j of every asset shares column 2 + j.
+
+Per kind (defaults in :mod:`corridor.schema`, models in
+:mod:`corridor.network.asset_models`):
+
+- pipeline: coating leakage πD/r_coat (+ jωC), steel internal impedance
+  with μr, earth-return self impedance at the surface (a pipe 1–2 m deep is
+  treated as lying on the surface, common practice);
+- fence: metal posts leak at every post (1/(R_post·spacing)); wooden posts
+  only through the fence's capacitance and at grounds from the grounds layer;
+- rail: track series impedance from the rail equivalent conductor and the
+  ballast resistance;
+- telecom: the pair against earth, EMF scaled by the sheath screening
+  factor, terminations from where the pair is grounded.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+
+import numpy as np
+
+from corridor.network import asset_models
+from corridor.network.response import ChainBatch, ChainSystem
+from corridor.physics import conductors, earth_return
+from corridor.physics.constants import EPS0_F_PER_M
+
+log = logging.getLogger(__name__)
+
+@dataclass
+class Response:
+    """Per-segment results of the asset-response solve."""
+
+    v_normal_v: np.ndarray
+    i_normal_a: np.ndarray
+    v_fault_v: np.ndarray
+    i_fault_a: np.ndarray
+    fault_case_of_segment: np.ndarray  # governing fault case per segment (-1: none)
+    v_capacitive_open_v: np.ndarray
+    i_capacitive_short_ma: np.ndarray
+    capacitive_source_impedance_ohm: np.ndarray
+    i_normal_short_ma: np.ndarray
+    normal_source_impedance_ohm: np.ndarray
+    emf_section_normal_v: np.ndarray
+    emf_section_fault_v: np.ndarray
+    node_voltage_normal_v: np.ndarray
+    node_voltage_fault_v: np.ndarray  # (n_nodes, n_fault_columns)
+    chain_start: np.ndarray
+    system: ChainSystem
+    segment_emf_normal_v: np.ndarray  # complex, screened, per segment (chain direction)
+    fault_rhs: np.ndarray  # (n_segments, n_fault_columns) complex EMF
+    fault_column_case: np.ndarray  # (n_assets, n_fault_columns) case index or -1
+    node_shunt_s: np.ndarray
+    rejected: list
+
+
+def chain_layout(seg) -> np.ndarray:
+    """First segment of each chain: one chain per (asset, part)."""
+    if len(seg) == 0:
+        return np.zeros(0, np.int64)
+    change = np.r_[True, (seg.feature[1:] != seg.feature[:-1]) | (seg.part[1:] != seg.part[:-1])]
+    return np.flatnonzero(change)
+
+
+def _col(assets, name, default):
+    if name in assets:
+        v = assets[name].to_numpy()
+        try:
+            v = v.astype(float)
+            return np.where(np.isfinite(v), v, default)
+        except (TypeError, ValueError):
+            return np.where(v == v, v, default)
+    return np.full(len(assets), default)
+
+
+def line_constants(cfg, assets, seg, soil_ohm_m):
+    """Series impedance and shunt admittance of every segment.
+
+    Returns
+    -------
+    z_ohm_per_m, y_s_per_m : ndarray of complex, per segment
+    emf_scale : ndarray, per segment (sheath screening factor for telecom, else 1)
+    """
+    f = cfg.run["frequency_hz"]
+    kind = assets["asset_kind"].to_numpy(dtype=object)[seg.feature]
+    n = len(seg)
+    z = np.zeros(n, complex)
+    y = np.zeros(n, complex)
+    scale = np.ones(n)
+    a = seg.feature
+    h = _col(assets, "height_m", 0.0)[a]
+    rho = soil_ohm_m
+    sel = kind == "pipeline"
+    if sel.any():
+        d = _col(assets, "diameter_m", 0.508)[a][sel]
+        zint = conductors.pipe_internal_impedance(
+            d, relative_permeability=_col(assets, "steel_relative_permeability", 300.0)[a][sel],
+            frequency_hz=f, wall_thickness_m=_col(assets, "wall_thickness_m", 0.0095)[a][sel])
+        zext = earth_return.self_impedance(h[sel], d / 2, 0.0, rho[sel], f)
+        lc = asset_models.pipeline_line_constants(
+            d, _col(assets, "coating_resistance_ohm_m2", 1e5)[a][sel], f,
+            earth_return_self_ohm_per_m=zext)
+        # the physics core's finite-wall internal impedance replaces the thin-skin one
+        z_thin = asset_models.pipe_internal_impedance(d, f, asset_models.STEEL_RESISTIVITY_OHM_M,
+                                                      _col(assets, "steel_relative_permeability",
+                                                           300.0)[a][sel])
+        z[sel] = lc.z_ohm_per_m - z_thin + zint
+        y[sel] = lc.y_s_per_m
+    sel = kind == "fence"
+    if sel.any():
+        hh = np.maximum(h[sel], 0.1)
+        rw = _col(assets, "wire_radius_m", 0.00125)[a][sel]
+        cap = 2 * np.pi * EPS0_F_PER_M / np.log(2 * hh / rw)
+        post_type = _col(assets, "post_type", "metal")[a][sel].astype(str)
+        lc = asset_models.fence_line_constants(
+            _col(assets, "wire_count", 4)[a][sel].astype(np.int64), rw,
+            _col(assets, "post_spacing_m", 3.0)[a][sel],
+            _col(assets, "post_resistance_ohm", 100.0)[a][sel], post_type, f,
+            soil_resistivity_ohm_m=rho[sel], capacitance_f_per_m=cap)
+        z[sel], y[sel] = lc.z_ohm_per_m, lc.y_s_per_m
+    sel = kind == "rail"
+    if sel.any():
+        rail = conductors.rail_equivalent(frequency_hz=f)
+        # two rails in parallel: internal impedance halved; the rails' DC
+        # resistance attribute raises the resistive part where it is larger
+        r_attr = _col(assets, "rail_resistance_ohm_per_km", 0.03)[a][sel] / 1000.0
+        zint = rail.internal_impedance_ohm_per_m / 2
+        zint = zint + np.maximum(r_attr - zint.real, 0.0)
+        zext = earth_return.self_impedance(0.0, rail.equivalent_radius_m * 2.0, 0.0, rho[sel], f)
+        lc = asset_models.rail_line_constants(
+            _col(assets, "ballast_resistance_ohm_km", 5.0)[a][sel],
+            track_impedance_ohm_per_km=(zint + zext) * 1000.0)
+        z[sel], y[sel] = lc.z_ohm_per_m, lc.y_s_per_m
+    sel = kind == "telecom"
+    if sel.any():
+        rc = _col(assets, "conductor_radius_m", 0.01)[a][sel]
+        zext = earth_return.self_impedance(h[sel], rc, 0.0, rho[sel], f)
+        lc = asset_models.telecom_line_constants(rc, f, earth_return_self_ohm_per_m=zext)
+        z[sel], y[sel] = lc.z_ohm_per_m, lc.y_s_per_m
+        scale[sel] = _col(assets, "screening_factor", 1.0)[a][sel]
+    return z, y, scale
+
+
+def terminations(assets, seg, chain_start, z, y):
+    """Start and end termination admittances of every chain [S]."""
+    feat = seg.feature[chain_start]
+    kind = assets["asset_kind"].to_numpy(dtype=object)[feat]
+    start = _col(assets, "start_termination", "open")[feat].astype(object)
+    end = _col(assets, "end_termination", "open")[feat].astype(object)
+    if "cable_grounding" in assets:
+        cg = assets["cable_grounding"].to_numpy(dtype=object)[feat]
+        for label, (s_lab, e_lab) in asset_models.TELECOM_GROUNDING_TERMINATIONS.items():
+            hit = (kind == "telecom") & (cg == label)
+            start[hit] = s_lab
+            end[hit] = e_lab
+    r = _col(assets, "termination_resistance_ohm", 10.0)[feat]
+    chain_end = np.r_[chain_start[1:], len(seg)] - 1
+    y_start = asset_models.termination_admittance(start.astype(str), z[chain_start],
+                                                  y[chain_start], r)
+    y_end = asset_models.termination_admittance(end.astype(str), z[chain_end], y[chain_end], r)
+    return y_start, y_end
+
+
+def place_items(inputs, seg, chain_start, tolerance_m):
+    """Snap grounds and series breaks to the asset chains.
+
+    Returns
+    -------
+    node_shunt_s : ndarray of complex, per node
+    segment_break : ndarray of bool, per segment
+    rejected : list of (feature_id, field, reason)
+    """
+    n_nodes = len(seg) + len(chain_start)
+    node_shunt = np.zeros(n_nodes, complex)
+    brk = np.zeros(len(seg), bool)
+    rejected = []
+    g = inputs.grounds
+    if g is None or len(g) == 0:
+        return node_shunt, brk, rejected
+    ids = {v: i for i, v in enumerate(inputs.assets["asset_id"])}
+    chain_of_seg = np.repeat(np.arange(len(chain_start)),
+                             np.diff(np.r_[chain_start, len(seg)]))
+    first_seg = np.searchsorted(seg.feature, np.arange(len(inputs.assets)), side="left")
+    last_seg = np.searchsorted(seg.feature, np.arange(len(inputs.assets)), side="right")
+    for row in g.itertuples(index=False):
+        a = ids.get(row.asset_id)
+        if a is None:
+            rejected.append((row.feature_id, "asset_id",
+                             f"asset {row.asset_id!r} is not among the screened assets"))
+            continue
+        lo, hi = first_seg[a], last_seg[a]
+        x0 = seg.x0_m[lo:hi]
+        y0 = seg.y0_m[lo:hi]
+        x1 = seg.x1_m[lo:hi]
+        y1 = seg.y1_m[lo:hi]
+        px, py = row.geometry.x, row.geometry.y
+        dx, dy = x1 - x0, y1 - y0
+        t = np.clip(((px - x0) * dx + (py - y0) * dy) / np.maximum(dx * dx + dy * dy, 1e-12),
+                    0, 1)
+        d = np.hypot(px - (x0 + t * dx), py - (y0 + t * dy))
+        k = int(np.argmin(d))
+        if d[k] > tolerance_m:
+            rejected.append((row.feature_id, "geometry",
+                             f"{d[k]:.0f} m from asset {row.asset_id!r} (more than"
+                             f" {tolerance_m:.0f} m)"))
+            continue
+        s = lo + k
+        if row.item == "ground":
+            node = s + chain_of_seg[s] + (1 if t[k] >= 0.5 else 0)
+            node_shunt[node] += 1.0 / float(row.resistance_ohm)
+        else:
+            brk[s] = True
+    return node_shunt, brk, rejected
+
+
+def respond(cfg, inputs, geo, coup) -> Response:
+    """Solve every asset for the normal, capacitive and fault cases."""
+    seg = geo.segments
+    n_seg = len(seg)
+    chain_start = chain_layout(seg)
+    z, y, scale = line_constants(cfg, inputs.assets, seg, geo.soil_resistivity_ohm_m)
+    y_start, y_end = terminations(inputs.assets, seg, chain_start, z, y)
+    node_shunt, brk, rejected = place_items(inputs, seg, chain_start,
+                                            max(cfg.run["segment_length_m"], 25.0))
+    batch = ChainBatch.from_arrays(seg.length_m, z, y, chain_start, node_shunt, brk,
+                                   y_start, y_end)
+    system = ChainSystem(batch)
+    n_chain = len(chain_start)
+    chain_of_seg = np.repeat(np.arange(n_chain), np.diff(np.r_[chain_start, n_seg]))
+    start_node = np.arange(n_seg) + chain_of_seg
+
+    emf_n = coup.segment_emf_normal_v * scale
+    # fault columns: case j of each asset in column j
+    n_assets = len(inputs.assets)
+    case_asset = coup.fault_case_asset
+    order = np.lexsort((coup.fault_case_line, case_asset))
+    rank = np.zeros(len(case_asset), np.int64)
+    if len(case_asset):
+        sa = case_asset[order]
+        grp_first = np.searchsorted(sa, sa, side="left")
+        rank[order] = np.arange(len(sa)) - grp_first
+    n_fcol = int(rank.max()) + 1 if len(case_asset) else 0
+    fault_rhs = np.zeros((n_seg, n_fcol), complex)
+    col_case = np.full((n_assets, n_fcol), -1, np.int64)
+    if n_fcol:
+        col_case[case_asset, rank] = np.arange(len(case_asset))
+        ent_case = coup.fault_case_of_entry
+        fault_rhs[coup.fault_seg, rank[ent_case]] = coup.fault_emf_v
+        fault_rhs *= scale[:, None]
+
+    rhs = np.zeros((n_seg, 2 + n_fcol), complex)
+    rhs[:, 0] = emf_n
+    rhs[:, 2:] = fault_rhs
+    inj = np.zeros((batch.n_nodes, 2 + n_fcol), complex)
+    half = 0.5 * coup.capacitive_current_a
+    np.add.at(inj[:, 1], start_node, half)
+    np.add.at(inj[:, 1], start_node + 1, half)
+    sol = system.solve(rhs, node_current_a=inj)
+
+    v_n = sol.segment_voltage_v[:, 0]
+    i_n = sol.segment_current_a[:, 0]
+    v_cap = sol.segment_voltage_v[:, 1]
+    if n_fcol:
+        vf_all = sol.segment_voltage_v[:, 2:]
+        best = np.argmax(vf_all, axis=1)
+        v_f = vf_all[np.arange(n_seg), best]
+        i_f = sol.segment_current_a[:, 2:][np.arange(n_seg), best]
+        case_of_seg = col_case[seg.feature, best]
+        v_f = np.where(case_of_seg >= 0, v_f, 0.0)
+        i_f = np.where(case_of_seg >= 0, i_f, 0.0)
+    else:
+        v_f = np.zeros(n_seg)
+        i_f = np.zeros(n_seg)
+        case_of_seg = np.full(n_seg, -1)
+
+    # source impedance at each chain's peak, for the available current
+    peak_n = system.peak_node(sol.node_voltage_v[:, 0])
+    peak_c = system.peak_node(sol.node_voltage_v[:, 1])
+    zth_n = np.abs(system.thevenin_impedance(peak_n))
+    zth_c = np.abs(system.thevenin_impedance(peak_c))
+    zn = zth_n[chain_of_seg]
+    zc = zth_c[chain_of_seg]
+    i_avail_n = np.where(zn > 0, v_n / np.where(zn > 0, zn, 1.0), 0.0) * 1000.0
+    i_avail_c = np.where(zc > 0, v_cap / np.where(zc > 0, zc, 1.0), 0.0) * 1000.0
+
+    # longitudinal EMF of each chain (telecom ITU-T check): |sum of segment EMF|
+    def chain_sum(values):
+        re = np.add.reduceat(values.real, chain_start) if n_seg else np.zeros(0)
+        im = np.add.reduceat(values.imag, chain_start) if n_seg else np.zeros(0)
+        return np.abs(re + 1j * im)
+
+    emf_sec_n = chain_sum(emf_n)[chain_of_seg] if n_seg else np.zeros(0)
+    if n_fcol:
+        per_col = np.stack([chain_sum(fault_rhs[:, j]) for j in range(n_fcol)], axis=1)
+        emf_sec_f = per_col.max(axis=1)[chain_of_seg]
+    else:
+        emf_sec_f = np.zeros(n_seg)
+    return Response(
+        v_normal_v=v_n, i_normal_a=i_n, v_fault_v=v_f, i_fault_a=i_f,
+        fault_case_of_segment=case_of_seg,
+        v_capacitive_open_v=v_cap, i_capacitive_short_ma=i_avail_c,
+        capacitive_source_impedance_ohm=zc, i_normal_short_ma=i_avail_n,
+        normal_source_impedance_ohm=zn,
+        emf_section_normal_v=emf_sec_n, emf_section_fault_v=emf_sec_f,
+        node_voltage_normal_v=sol.node_voltage_v[:, 0],
+        node_voltage_fault_v=sol.node_voltage_v[:, 2:],
+        chain_start=chain_start, system=system, segment_emf_normal_v=emf_n,
+        fault_rhs=fault_rhs, fault_column_case=col_case, node_shunt_s=node_shunt,
+        rejected=rejected)
+
+
+__all__ = ["Response", "respond", "chain_layout", "line_constants", "place_items",
+           "terminations"]
