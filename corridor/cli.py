@@ -70,9 +70,9 @@ def main(argv: list[str] | None = None) -> int:
                             row["feature_id"], row["field"], row["reason"])
             return EXIT_OK
         from corridor.runner import publish
-        from corridor.steps import default_stages
+        from corridor.steps import asset_stages, run_stages
 
-        run = publish(cfg, args.out, default_stages())
+        run = publish(cfg, args.out, asset_stages(), run_stages())
         out = Path(args.out or cfg.output_dir).resolve()
         log.info("outputs written to %s", out)
         exceed = int(run.counts.get("segments_exceeding", 0))

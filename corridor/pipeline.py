@@ -126,7 +126,6 @@ def segment_frame(inputs: Inputs, geo: Geometry) -> gpd.GeoDataFrame:
     cls = np.where(has, CLASSES[p.exposure_class[idx]] if len(p) else "", "none")
     seg_in_asset = np.arange(len(seg)) - np.searchsorted(seg.feature, seg.feature)
     frame = pd.DataFrame({
-        "segment_id": np.arange(len(seg), dtype=np.int64),
         "asset_id": assets["asset_id"].to_numpy(dtype=object)[seg.feature],
         "asset_kind": assets["asset_kind"].to_numpy(dtype=object)[seg.feature],
         "part": seg.part,
@@ -194,24 +193,68 @@ def versions() -> dict[str, str]:
     }
 
 
-def run_screening(cfg: Config, stages: dict | None = None) -> Run:
-    """Run every computing stage in order (no writing)."""
-    run = Run(cfg)
-    with _Timer(run, "read"):
-        run.inputs = read_inputs(cfg)
+def subset_inputs(inputs: Inputs, keep_asset: np.ndarray) -> Inputs:
+    """The same inputs with only the assets where ``keep_asset`` is true.
+
+    Per-asset results do not depend on which other assets are in the run, so
+    a subset computes exactly the rows a full run gives for those assets.
+    """
+    import copy
+
+    sub = copy.copy(inputs)
+    sub.assets = inputs.assets[np.asarray(keep_asset, bool)].reset_index(drop=True)
+    if inputs.grounds is not None:
+        sub.grounds = inputs.grounds[inputs.grounds["asset_id"].isin(
+            sub.assets["asset_id"])].reset_index(drop=True)
+    from corridor.io.layers import Rejected
+
+    sub.rejected = Rejected()
+    return sub
+
+
+def compute(cfg: Config, inputs: Inputs, stages: dict | None = None) -> Run:
+    """Exposure geometry and every per-asset stage, for any subset of the assets."""
+    run = Run(cfg, inputs=inputs)
     with _Timer(run, "expose"):
-        run.geometry = stage_geometry(cfg, run.inputs)
-        run.segment_table = segment_frame(run.inputs, run.geometry)
-        run.exposure_table = exposure_frame(run.inputs, run.geometry)
+        run.geometry = stage_geometry(cfg, inputs)
+        run.segment_table = segment_frame(inputs, run.geometry)
+        run.exposure_table = exposure_frame(inputs, run.geometry)
     for name, fn in (stages or {}).items():
         with _Timer(run, name):
             fn(run)
-    run.counts.update(run.inputs.counts)
     run.counts["segments"] = len(run.geometry.segments)
     run.counts["pairs"] = len(run.geometry.pairs)
     run.counts["sections"] = len(run.geometry.sections)
     run.counts["exposures"] = len(run.geometry.exposures)
     return run
+
+
+def finalize(run: Run, stages: dict | None = None) -> Run:
+    """Run-wide steps on the per-asset results: ids, ranks, summary layers."""
+    order = run.inputs.assets["asset_id"].reset_index(drop=True)
+    pos = {v: i for i, v in enumerate(order)}
+    t = run.segment_table
+    key = np.lexsort((t["segment_index"].to_numpy(), t["asset_id"].map(pos).to_numpy()))
+    t = t.iloc[key].reset_index(drop=True)
+    t.insert(0, "segment_id", np.arange(len(t), dtype=np.int64))
+    run.segment_table = t
+    for name, fn in (stages or {}).items():
+        with _Timer(run, name):
+            fn(run)
+    run.counts.update(run.inputs.counts)
+    run.counts["rejected"] = len(run.inputs.rejected.rows)
+    return run
+
+
+def run_screening(cfg: Config, stages: dict | None = None,
+                  final_stages: dict | None = None) -> Run:
+    """Read, compute every asset, finalize (no writing)."""
+    t0 = time.perf_counter()
+    inputs = read_inputs(cfg)
+    read_s = round(time.perf_counter() - t0, 4)
+    run = compute(cfg, inputs, stages)
+    run.timings_s = {"read": read_s, **run.timings_s}
+    return finalize(run, final_stages)
 
 
 def output_paths(out_dir: Path) -> dict[str, Path]:

@@ -72,11 +72,12 @@ def write_outputs(run: Run, out_dir: Path) -> dict[str, Path]:
     return paths
 
 
-def publish(cfg: Config, out_dir: Path | None = None, stages: dict | None = None) -> Run:
+def publish(cfg: Config, out_dir: Path | None = None, stages: dict | None = None,
+            final_stages: dict | None = None) -> Run:
     """Run a screening and swap its outputs into place atomically."""
     out_dir = Path(out_dir or cfg.output_dir).resolve()
     out_dir.parent.mkdir(parents=True, exist_ok=True)
-    run = run_screening(cfg, stages)
+    run = run_screening(cfg, stages, final_stages)
     tmp = out_dir.parent / f".{out_dir.name}.tmp-{os.getpid()}"
     if tmp.exists():
         shutil.rmtree(tmp)

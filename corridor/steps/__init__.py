@@ -32,6 +32,7 @@ def stage_respond(run) -> None:
     run.response = rs
     for fid, fld, reason in rs.rejected:
         run.inputs.rejected.add(run.config.grounds.label, fid, fld, reason)
+    run.counts["grounds_rejected"] = len(rs.rejected)
     t = run.segment_table
     length_km = t["length_m"].to_numpy(float) / 1000.0
     emf_n = np.abs(rs.segment_emf_normal_v)
@@ -102,7 +103,11 @@ def stage_assess(run) -> None:
     t["utilization"] = res["utilization"]
     t["governing"] = res["governing"]
     t["hazard_class"] = res["hazard_class"]
-    # rank 1 = worst of the run; ties by asset id, then chainage (deterministic)
+
+
+def stage_rank(run) -> None:
+    """Rank 1 is the worst segment of the run; ties by asset id, then chainage."""
+    t = run.segment_table
     order = np.lexsort((t["chainage_m"].to_numpy(), t["asset_id"].to_numpy(dtype=str),
                         -t["utilization"].to_numpy(float)))
     rank = np.empty(len(t), np.int64)
@@ -111,9 +116,13 @@ def stage_assess(run) -> None:
     run.counts["segments_exceeding"] = int((t["utilization"] >= 1.0).sum())
 
 
-def default_stages() -> dict:
-    """Stages run after ``read`` and ``expose``: name -> function(run)."""
+def asset_stages() -> dict:
+    """Per-asset stages after ``expose``: name -> function(run)."""
+    return {"couple": stage_couple, "respond": stage_respond, "assess": stage_assess}
+
+
+def run_stages() -> dict:
+    """Run-wide stages on the merged per-asset results."""
     from corridor.steps.report_tables import stage_tables
 
-    return {"couple": stage_couple, "respond": stage_respond, "assess": stage_assess,
-            "tables": stage_tables}
+    return {"rank": stage_rank, "tables": stage_tables}
