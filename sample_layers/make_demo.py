@@ -40,10 +40,10 @@ def build() -> dict[str, gpd.GeoDataFrame]:
             "NAME": ["Ashcombe - Thornvale 345 kV", "Brackenford - Millbrook 138 kV"],
             "KV": [345.0, 138.0],
             "TOWER_TYPE": ["lattice_345_double", "h_frame_138"],
-            "LOAD_A": [900.0, 450.0],        # per circuit, a heavy summer load
+            "LOAD_A": [900.0, 600.0],        # per circuit, a heavy summer load
             "UNBAL_PCT": [3.0, 6.0],
-            "IF_START_KA": [28.0, 14.0],     # single line-to-earth fault at each end
-            "IF_END_KA": [19.0, 9.0],
+            "IF_START_KA": [16.0, 8.0],      # single line-to-earth fault at each end
+            "IF_END_KA": [11.0, 5.5],
             "T_CLEAR_S": [0.1, 0.5],         # EHV primary vs. 138 kV backup-class clearing
             "HI_REL": [1, 0],
         },
@@ -77,24 +77,29 @@ def build() -> dict[str, gpd.GeoDataFrame]:
     )
     assets["fences"] = gpd.GeoDataFrame(
         {
-            "FENCE_ID": ["FN-HOLLOW-1", "FN-RIDGE-2"],
-            "FARM": ["Hollow Lane farm", "Ridgeback farm"],
-            "POSTS": ["metal", "wood"],
-            "POST_SPACING_M": [4.0, 3.0],
-            "POST_OHM": [150.0, 5000.0],      # wood: only its grounded posts leak,
-            "WIRES": [4, 3],
-            "HEIGHT_M": [1.0, 1.2],
+            "FENCE_ID": ["FN-HOLLOW-1", "FN-RIDGE-2", "FN-MILL-3"],
+            "FARM": ["Hollow Lane farm", "Ridgeback farm", "Mill End farm"],
+            "POSTS": ["metal", "wood", "wood"],
+            "POST_SPACING_M": [4.0, 3.0, 3.0],
+            "POST_OHM": [150.0, 5000.0, 5000.0],  # wood: only its grounded posts leak
+            "WIRES": [4, 3, 5],
+            "HEIGHT_M": [1.0, 1.2, 1.0],
+            # Mill End's fence is bonded to the farmyard earth at its west end
+            "END_A": ["open", "open", "grounded"],
+            "END_B": ["open", "open", "open"],
+            "END_OHM": [50.0, 50.0, 20.0],
         },
         geometry=[
             line([(13000, 25), (15000, 25), (18500, 25)]),
             line([(2000, 3015), (4400, 3015)]),
+            line([(5600, 2700), (6000, 2988), (9800, 2988)]),
         ],
         crs=CRS,
     )
     assets["telecom"] = gpd.GeoDataFrame(
         {"CABLE_ID": ["TC-VALE-3"], "NAME": ["Vale exchange feeder"], "SCREEN": [0.85],
          "GROUNDING": ["both_ends"]},
-        geometry=[line([(-1000, -900), (1000, -160), (17000, -160), (19000, -1200)])],
+        geometry=[line([(1000, -1500), (3000, -320), (11000, -320), (13000, -1500)])],
         crs=CRS,
     )
     soil = gpd.GeoDataFrame(

@@ -27,13 +27,17 @@ def stage_respond(run) -> None:
     """Voltages and currents along every asset."""
     from corridor.steps.respond import respond
 
-    cp = run.coupling
-    rs = respond(run.config, run.inputs, run.geometry, cp)
+    rs = respond(run.config, run.inputs, run.geometry, run.coupling)
     run.response = rs
     for fid, fld, reason in rs.rejected:
         run.inputs.rejected.add(run.config.grounds.label, fid, fld, reason)
     run.counts["grounds_rejected"] = len(rs.rejected)
-    t = run.segment_table
+    response_columns(run, rs, run.segment_table)
+
+
+def response_columns(run, rs, t) -> None:
+    """Write the response (and coupling) results into segment table ``t``."""
+    cp = run.coupling
     length_km = t["length_m"].to_numpy(float) / 1000.0
     emf_n = np.abs(rs.segment_emf_normal_v)
     emf_f = np.abs(rs.fault_rhs).max(axis=1) if rs.fault_rhs.shape[1] else np.zeros(len(t))
@@ -46,9 +50,10 @@ def stage_respond(run) -> None:
 
     def by_case(values, fill):
         if n_case == 0:
-            return np.full(len(t), fill, dtype=np.asarray(values).dtype if n_case else object)
+            return np.full(len(t), fill)
         return np.where(has, np.asarray(values)[cs], fill)
 
+    kind = t["asset_kind"].to_numpy(dtype=object)
     t["emf_normal_v_per_km"] = emf_n / length_km
     t["emf_fault_v_per_km"] = emf_f / length_km
     t["emf_normal_v"] = emf_n
@@ -56,26 +61,30 @@ def stage_respond(run) -> None:
     t["v_normal_v"] = rs.v_normal_v
     t["i_normal_a"] = rs.i_normal_a
     t["normal_source_impedance_ohm"] = rs.normal_source_impedance_ohm
-    t["i_normal_short_ma"] = rs.i_normal_short_ma
+    t["i_normal_body_ma"] = rs.i_normal_body_ma
     t["v_fault_v"] = rs.v_fault_v
     t["i_fault_a"] = rs.i_fault_a
+    t["fault_source_impedance_ohm"] = rs.fault_source_impedance_ohm
     t["fault_line_id"] = by_case(line_ids[cp.fault_case_line] if n_case else [], "")
     t["fault_phase"] = by_case(cp.fault_case_phase, "")
     t["clearing_time_s"] = by_case(cp.fault_case_clearing_s, np.nan).astype(float)
     t["high_reliability"] = by_case(cp.fault_case_high_reliability, False).astype(bool)
     t["screening_factor"] = by_case(np.abs(cp.fault_case_screening), np.nan).astype(float)
     t["fault_current_ka"] = cp.segment_fault_current_a / 1000.0
-    t["earth_potential_fault_v"] = cp.earth_potential_fault_v
-    above = t["asset_kind"].isin(["fence"]).to_numpy() | (
+    epr = cp.earth_potential_fault_v
+    t["earth_potential_fault_v"] = epr
+    # touch during a fault: induced voltage plus earth potential rise (conservative
+    # sum), loaded by a 1000 ohm body through the asset's source impedance
+    t["v_touch_fault_v"] = (rs.v_fault_v + epr) * rs.touch_loading
+    t["v_coating_stress_v"] = np.where(kind == "pipeline", rs.v_fault_v + epr, np.nan)
+    above = (kind == "fence") | (
         run.inputs.assets["height_m"].to_numpy(float)[run.geometry.segments.feature] > 0)
     t["v_capacitive_open_v"] = np.where(above, rs.v_capacitive_open_v, 0.0)
     t["i_capacitive_short_ma"] = np.where(above, rs.i_capacitive_short_ma, 0.0)
     t["capacitive_source_impedance_ohm"] = np.where(above, rs.capacitive_source_impedance_ohm,
                                                     np.nan)
-    t["emf_section_normal_v"] = np.where(t["asset_kind"] == "telecom",
-                                         rs.emf_section_normal_v, np.nan)
-    t["emf_section_fault_v"] = np.where(t["asset_kind"] == "telecom",
-                                        rs.emf_section_fault_v, np.nan)
+    t["emf_section_normal_v"] = np.where(kind == "telecom", rs.emf_section_normal_v, np.nan)
+    t["emf_section_fault_v"] = np.where(kind == "telecom", rs.emf_section_fault_v, np.nan)
 
 
 def stage_assess(run) -> None:
@@ -88,21 +97,24 @@ def stage_assess(run) -> None:
                                search_dir=LIMITS_DIR)
     run.limit_set = limit_set
     t = run.segment_table
-    cat = {}
-    if "coating_type" in run.inputs.assets:
-        cat["coating_type"] = run.inputs.assets["coating_type"].to_numpy(dtype=object)[
-            run.geometry.segments.feature].astype(str)
-    res = assess(limit_set, t, cat)
+    res = assess(limit_set, t, categories(run))
     run.assessment = res
     q = res["quantities"]
-    t["v_touch_fault_v"] = q["v_touch_fault_v"]
-    t["v_coating_stress_v"] = q["v_coating_stress_v"]
     t["ac_density_a_per_m2"] = q["ac_density_a_per_m2"]
     for name, ratio in res["ratios"].items():
         t[f"ratio_{name}"] = ratio
     t["utilization"] = res["utilization"]
     t["governing"] = res["governing"]
     t["hazard_class"] = res["hazard_class"]
+
+
+def categories(run) -> dict:
+    """Per-segment labels the limit set may select values by."""
+    cat = {}
+    if "coating_type" in run.inputs.assets:
+        cat["coating_type"] = run.inputs.assets["coating_type"].to_numpy(dtype=object)[
+            run.geometry.segments.feature].astype(str)
+    return cat
 
 
 def stage_rank(run) -> None:
@@ -118,7 +130,10 @@ def stage_rank(run) -> None:
 
 def asset_stages() -> dict:
     """Per-asset stages after ``expose``: name -> function(run)."""
-    return {"couple": stage_couple, "respond": stage_respond, "assess": stage_assess}
+    from corridor.steps.ground import stage_ground
+
+    return {"couple": stage_couple, "respond": stage_respond, "assess": stage_assess,
+            "ground": stage_ground}
 
 
 def run_stages() -> dict:

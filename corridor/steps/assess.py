@@ -3,15 +3,19 @@
 Quantities handed to the limit set (names as in ``config/limits/*.toml``):
 
 - ``v_normal_v``, ``v_fault_v``: |V| to remote earth from the response solve;
-- ``v_touch_fault_v``: v_fault_v + earth_potential_fault_v. A person near a
-  faulted tower stands on raised earth while the asset is driven by
-  induction; adding the magnitudes is the conservative bound (the phase
-  between the two is not known at screening level);
+- ``v_touch_fault_v``: (v_fault_v + earth_potential_fault_v) loaded by a
+  1000 Ω body through the asset's source impedance. A person near a faulted
+  tower stands on raised earth while the asset is driven by induction;
+  adding the magnitudes is the conservative bound (the phase between the two
+  is not known at screening level). The loading R_b/|R_b + Z_th| tells a
+  floating fence (high source impedance) from a pipeline (a few ohms);
 - ``v_coating_stress_v`` (pipelines): the same conservative sum, the voltage
   across the coating between the pipe and the soil around it;
 - ``ac_density_a_per_m2`` (pipelines): J = 8V/(ρπd) at a 1 cm² holiday;
-- ``i_normal_short_ma``, ``i_capacitive_short_ma``: current available behind
-  the normal-load and the capacitive voltages;
+- ``i_normal_body_ma``: steady-state current through a 1000 Ω body touching
+  the asset (NACE's 5 mA criterion), |V|/|R_b + Z_th|;
+- ``i_capacitive_short_ma``: short-circuit current available behind the
+  capacitive voltage (the NESC-style 5 mA rule), |V|/|Z_th|;
 - ``emf_section_normal_v``, ``emf_section_fault_v`` (telecom): the
   longitudinal EMF summed over the cable between its grounded ends, the
   quantity the ITU-T Directives limit.
@@ -26,7 +30,7 @@ from corridor.limits.limit_sets import evaluate
 
 QUANTITIES = (
     "v_normal_v", "v_fault_v", "v_touch_fault_v", "v_coating_stress_v", "ac_density_a_per_m2",
-    "i_normal_short_ma", "i_capacitive_short_ma", "emf_section_normal_v",
+    "i_normal_body_ma", "i_capacitive_short_ma", "emf_section_normal_v",
     "emf_section_fault_v", "emf_normal_v", "emf_fault_v",
 )
 
@@ -35,11 +39,7 @@ def derived_quantities(table) -> dict[str, np.ndarray]:
     """Quantities the limit set judges, from the segment table's columns."""
     kind = table["asset_kind"].to_numpy(dtype=object)
     pipe = kind == "pipeline"
-    v_f = table["v_fault_v"].to_numpy(float)
-    epr = table["earth_potential_fault_v"].to_numpy(float)
     out = {name: table[name].to_numpy(float) for name in QUANTITIES if name in table}
-    out["v_touch_fault_v"] = v_f + epr
-    out["v_coating_stress_v"] = np.where(pipe, v_f + epr, np.nan)
     out["ac_density_a_per_m2"] = np.where(
         pipe, ac_current_density_a_per_m2(table["v_normal_v"].to_numpy(float),
                                           table["soil_resistivity_ohm_m"].to_numpy(float)),

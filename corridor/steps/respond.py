@@ -50,7 +50,7 @@ class Response:
     v_capacitive_open_v: np.ndarray
     i_capacitive_short_ma: np.ndarray
     capacitive_source_impedance_ohm: np.ndarray
-    i_normal_short_ma: np.ndarray
+    i_normal_body_ma: np.ndarray
     normal_source_impedance_ohm: np.ndarray
     emf_section_normal_v: np.ndarray
     emf_section_fault_v: np.ndarray
@@ -63,6 +63,10 @@ class Response:
     fault_column_case: np.ndarray  # (n_assets, n_fault_columns) case index or -1
     node_shunt_s: np.ndarray
     rejected: list
+    fault_source_impedance_ohm: np.ndarray  # |Z_th| at the chain's fault peak, per segment
+    touch_loading: np.ndarray  # R_body/|R_body + Z_th|, per segment
+    node_voltage_all_v: np.ndarray  # (n_nodes, 2 + n_fault_columns): normal, capacitive, faults
+    chain_of_segment: np.ndarray
 
 
 def chain_layout(seg) -> np.ndarray:
@@ -224,8 +228,20 @@ def place_items(inputs, seg, chain_start, tolerance_m):
     return node_shunt, brk, rejected
 
 
-def respond(cfg, inputs, geo, coup) -> Response:
-    """Solve every asset for the normal, capacitive and fault cases."""
+#: Body resistance used to load a touch: IEEE Std 80-2013 clause 7.1 takes 1000 Ω
+#: (from memory). A high-impedance source (a floating fence) cannot hold its
+#: open-circuit voltage across a body; a low-impedance one (a pipeline) can.
+BODY_RESISTANCE_OHM = 1000.0
+
+
+def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
+    """Solve every asset for the normal, capacitive and fault cases.
+
+    Parameters
+    ----------
+    extra_node_shunt_s : ndarray of complex, per node, optional
+        Extra grounds [S] (the grounding design adds its sites here).
+    """
     seg = geo.segments
     n_seg = len(seg)
     chain_start = chain_layout(seg)
@@ -233,6 +249,8 @@ def respond(cfg, inputs, geo, coup) -> Response:
     y_start, y_end = terminations(inputs.assets, seg, chain_start, z, y)
     node_shunt, brk, rejected = place_items(inputs, seg, chain_start,
                                             max(cfg.run["segment_length_m"], 25.0))
+    if extra_node_shunt_s is not None:
+        node_shunt = node_shunt + extra_node_shunt_s
     batch = ChainBatch.from_arrays(seg.length_m, z, y, chain_start, node_shunt, brk,
                                    y_start, y_end)
     system = ChainSystem(batch)
@@ -291,7 +309,15 @@ def respond(cfg, inputs, geo, coup) -> Response:
     zth_c = np.abs(system.thevenin_impedance(peak_c))
     zn = zth_n[chain_of_seg]
     zc = zth_c[chain_of_seg]
-    i_avail_n = np.where(zn > 0, v_n / np.where(zn > 0, zn, 1.0), 0.0) * 1000.0
+    if n_fcol:
+        peak_f = system.peak_node(np.abs(sol.node_voltage_v[:, 2:]).max(axis=1))
+        zth_f = system.thevenin_impedance(peak_f)[chain_of_seg]
+    else:
+        zth_f = np.zeros(n_seg, complex)
+    loading = BODY_RESISTANCE_OHM / np.abs(BODY_RESISTANCE_OHM + zth_f)
+    # steady-state current through a 1000 ohm body touching the segment's node
+    i_body_n = v_n / np.abs(BODY_RESISTANCE_OHM + system.thevenin_impedance(peak_n)
+                            [chain_of_seg]) * 1000.0
     i_avail_c = np.where(zc > 0, v_cap / np.where(zc > 0, zc, 1.0), 0.0) * 1000.0
 
     # longitudinal EMF of each chain (telecom ITU-T check): |sum of segment EMF|
@@ -310,14 +336,16 @@ def respond(cfg, inputs, geo, coup) -> Response:
         v_normal_v=v_n, i_normal_a=i_n, v_fault_v=v_f, i_fault_a=i_f,
         fault_case_of_segment=case_of_seg,
         v_capacitive_open_v=v_cap, i_capacitive_short_ma=i_avail_c,
-        capacitive_source_impedance_ohm=zc, i_normal_short_ma=i_avail_n,
+        capacitive_source_impedance_ohm=zc, i_normal_body_ma=i_body_n,
         normal_source_impedance_ohm=zn,
         emf_section_normal_v=emf_sec_n, emf_section_fault_v=emf_sec_f,
         node_voltage_normal_v=sol.node_voltage_v[:, 0],
         node_voltage_fault_v=sol.node_voltage_v[:, 2:],
         chain_start=chain_start, system=system, segment_emf_normal_v=emf_n,
         fault_rhs=fault_rhs, fault_column_case=col_case, node_shunt_s=node_shunt,
-        rejected=rejected)
+        rejected=rejected, fault_source_impedance_ohm=np.abs(zth_f),
+        touch_loading=loading, node_voltage_all_v=sol.node_voltage_v,
+        chain_of_segment=chain_of_seg)
 
 
 __all__ = ["Response", "respond", "chain_layout", "line_constants", "place_items",

@@ -174,7 +174,7 @@ def test_ieee_na_nace_pipeline_shock_criteria():
     ls = load_limit_set("ieee_na", search_dir=CONFIG_DIR)
     out = _eval(ls, ["pipeline"] * 3,
                 {"v_normal_v": np.array([14.0, 15.0, 1.0]),
-                 "i_normal_short_ma": np.array([1.0, 1.0, 5.0])})
+                 "i_normal_body_ma": np.array([1.0, 1.0, 5.0])})
     assert list(out["hazard_class"]) == ["review", "exceeds", "exceeds"]
     assert out["governing"][1] in ("steady_state_voltage:normal", "ac_corrosion_voltage:normal")
     assert out["governing"][2] == "steady_state_current:normal"
