@@ -155,7 +155,7 @@ def stage_ground(run) -> None:
         nodes = np.array([n[1] for n in new_nodes])
         zth = response.system.thevenin_impedance(nodes)
         chosen = []
-        for (a, k, s, column, g, v0, u), z in zip(new_nodes, zth, strict=True):
+        for (a, k, _s, _col, _g, v0, u), z in zip(new_nodes, zth, strict=True):
             # no second site within SITE_SPACING_NODES nodes of this one on the same asset
             lo, hi = max(k - SITE_SPACING_NODES, 0), min(k + SITE_SPACING_NODES + 1, n_nodes)
             has_site[lo:hi] |= node_asset[lo:hi] == a
@@ -172,7 +172,7 @@ def stage_ground(run) -> None:
         response_columns(run, response, table)
         result = assess(run.limit_set, table, categories(run))
         _apply_assessment(table, result)
-        for (a, k, s, column, g, v0, u), r_pick in zip(new_nodes, chosen, strict=True):
+        for (a, k, s, column, g, v0, _u), r_pick in zip(new_nodes, chosen, strict=True):
             v_after = abs(response.node_voltage_all_v[k, column])
             remedy = REMEDY_DECOUPLED if (assets["asset_kind"].iat[a] == "pipeline"
                                           and cathodic[a]) else REMEDY_GROUND
