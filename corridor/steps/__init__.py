@@ -81,6 +81,7 @@ def response_columns(run, rs, t) -> None:
         run.inputs.assets["height_m"].to_numpy(float)[run.geometry.segments.feature] > 0)
     t["v_capacitive_open_v"] = np.where(above, rs.v_capacitive_open_v, 0.0)
     t["i_capacitive_short_ma"] = np.where(above, rs.i_capacitive_short_ma, 0.0)
+    t["i_capacitive_body_ma"] = np.where(above, rs.i_capacitive_body_ma, 0.0)
     t["capacitive_source_impedance_ohm"] = np.where(above, rs.capacitive_source_impedance_ohm,
                                                     np.nan)
     t["emf_section_normal_v"] = np.where(kind == "telecom", rs.emf_section_normal_v, np.nan)

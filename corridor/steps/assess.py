@@ -14,8 +14,11 @@ Quantities handed to the limit set (names as in ``config/limits/*.toml``):
 - ``ac_density_a_per_m2`` (pipelines): J = 8V/(ρπd) at a 1 cm² holiday;
 - ``i_normal_body_ma``: steady-state current through a 1000 Ω body touching
   the asset (NACE's 5 mA criterion), |V|/|R_b + Z_th|;
-- ``i_capacitive_short_ma``: short-circuit current available behind the
-  capacitive voltage (the NESC-style 5 mA rule), |V|/|Z_th|;
+- ``i_capacitive_body_ma``: current through a 1000 Ω body touching the
+  capacitively charged asset, |V|/|R_b + Z_th|. For an isolated object
+  (Z_th of hundreds of kilohms) it equals the short-circuit current of the
+  NESC-style 5 mA rule; for an asset already grounded elsewhere the ground,
+  not the person, carries the short-circuit current;
 - ``emf_section_normal_v``, ``emf_section_fault_v`` (telecom): the
   longitudinal EMF summed over the cable between its grounded ends, the
   quantity the ITU-T Directives limit.
@@ -30,7 +33,7 @@ from corridor.limits.limit_sets import evaluate
 
 QUANTITIES = (
     "v_normal_v", "v_fault_v", "v_touch_fault_v", "v_coating_stress_v", "ac_density_a_per_m2",
-    "i_normal_body_ma", "i_capacitive_short_ma", "emf_section_normal_v",
+    "i_normal_body_ma", "i_capacitive_body_ma", "emf_section_normal_v",
     "emf_section_fault_v", "emf_normal_v", "emf_fault_v",
 )
 

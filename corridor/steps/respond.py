@@ -49,6 +49,7 @@ class Response:
     fault_case_of_segment: np.ndarray  # governing fault case per segment (-1: none)
     v_capacitive_open_v: np.ndarray
     i_capacitive_short_ma: np.ndarray
+    i_capacitive_body_ma: np.ndarray
     capacitive_source_impedance_ohm: np.ndarray
     i_normal_body_ma: np.ndarray
     normal_source_impedance_ohm: np.ndarray
@@ -319,6 +320,8 @@ def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
     i_body_n = v_n / np.abs(BODY_RESISTANCE_OHM + system.thevenin_impedance(peak_n)
                             [chain_of_seg]) * 1000.0
     i_avail_c = np.where(zc > 0, v_cap / np.where(zc > 0, zc, 1.0), 0.0) * 1000.0
+    i_body_c = v_cap / np.abs(BODY_RESISTANCE_OHM + system.thevenin_impedance(peak_c)
+                              [chain_of_seg]) * 1000.0
 
     # longitudinal EMF of each chain (telecom ITU-T check): |sum of segment EMF|
     def chain_sum(values):
@@ -336,6 +339,7 @@ def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
         v_normal_v=v_n, i_normal_a=i_n, v_fault_v=v_f, i_fault_a=i_f,
         fault_case_of_segment=case_of_seg,
         v_capacitive_open_v=v_cap, i_capacitive_short_ma=i_avail_c,
+        i_capacitive_body_ma=i_body_c,
         capacitive_source_impedance_ohm=zc, i_normal_body_ma=i_body_n,
         normal_source_impedance_ohm=zn,
         emf_section_normal_v=emf_sec_n, emf_section_fault_v=emf_sec_f,

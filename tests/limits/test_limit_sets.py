@@ -189,7 +189,7 @@ def test_capacitive_criterion_judges_available_current(name):
     ls = load_limit_set(name, search_dir=CONFIG_DIR)
     out = _eval(ls, ["fence", "fence"],
                 {"v_capacitive_open_v": np.array([5000.0, 5000.0]),
-                 "i_capacitive_short_ma": np.array([0.05, 10.0])})
+                 "i_capacitive_body_ma": np.array([0.05, 10.0])})
     np.testing.assert_allclose(out["ratios"]["capacitive_current"], [0.01, 2.0], rtol=1e-12)
     assert list(out["hazard_class"]) == ["clear", "exceeds"]
     assert list(out["governing"]) == ["capacitive_current:capacitive"] * 2
