@@ -62,6 +62,12 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
                            " design may choose, easiest first.", None),
     "max_sites_per_asset": (int, "-", 6, "Largest number of grounding sites proposed on one"
                             " asset.", (1, 100)),
+    "cache_dir": (str, "path", "auto", "Cache of per-asset results for incremental reruns"
+                  " (GeoParquet + JSON index; safe to delete). 'auto': the folder"
+                  " '<output folder>.cache' beside the output folder; '': no cache; any other"
+                  " value: a folder relative to the config file.", None),
+    "change_threshold": (float, "-", 0.1, "Change of an asset's worst utilization since the"
+                         " previous run that changes.csv reports as moved.", (0.0, 100.0)),
 }
 
 LINE_DEFAULT_KEYS = {

@@ -1,12 +1,27 @@
 """Running a screening end to end and publishing its outputs atomically.
 
-Outputs are written into a temporary folder beside the output folder and
-swapped in only when the run is complete, so a failed or killed run leaves
-the previous outputs intact.
+One run at a time per output folder (:mod:`corridor.lock`). Outputs and the
+run's log (``corridor.log``) are written into a temporary folder beside the
+output folder (``.<name>.tmp-<pid>``) and swapped in only when complete:
+
+1. on Linux, ``renameat2(RENAME_EXCHANGE)`` swaps the two folders in one
+   atomic step (readers see either the old or the new outputs, never none);
+2. elsewhere, ``out -> .<name>.old-<pid>``, ``tmp -> out``, delete the old one.
+
+A crashed, killed (SIGKILL included) or failed run leaves the previous
+outputs intact. At start-up, while holding the lock, leftovers of dead runs
+are cleaned: temporary folders are deleted and, if the output folder is
+missing while an ``.old`` folder exists (a kill between the two renames of
+step 2), the old folder is put back.
+
+A failure before publishing keeps its log beside the output folder as
+``<name>.last-error.log``.
 """
 
 from __future__ import annotations
 
+import ctypes
+import errno
 import logging
 import os
 import shutil
@@ -17,10 +32,15 @@ from pathlib import Path
 import pandas as pd
 
 from corridor.config import Config
+from corridor.errors import CorridorError
 from corridor.io.outputs import SAFETY_CAUTION, sha256_file, write_csv, write_json, write_layer
-from corridor.pipeline import Run, output_paths, run_screening, versions
+from corridor.lock import OutputLock, pid_alive
+from corridor.pipeline import Run, compute, finalize, output_paths, versions
 
 log = logging.getLogger(__name__)
+
+LOG_NAME = "corridor.log"
+LOG_FORMAT = "%(asctime)s %(levelname)s %(name)s: %(message)s"
 
 
 def _input_files(cfg: Config) -> list[Path]:
@@ -34,6 +54,33 @@ def _input_files(cfg: Config) -> list[Path]:
     return seen
 
 
+def test_pause(point: str) -> None:
+    """Test hook: sleep at a named point when ``CORRIDOR_TEST_PAUSE_AT`` names it.
+
+    ``CORRIDOR_TEST_PAUSE_AT`` is a comma list of points (``compute``, ``write``,
+    ``swap``); ``CORRIDOR_TEST_PAUSE_FILE``, if set, is created on arrival so a
+    test knows the run is there; ``CORRIDOR_TEST_PAUSE_S`` is the sleep [s]
+    (default 60).
+    """
+    points = os.environ.get("CORRIDOR_TEST_PAUSE_AT", "")
+    if point not in [p.strip() for p in points.split(",") if p.strip()]:
+        return
+    marker = os.environ.get("CORRIDOR_TEST_PAUSE_FILE")
+    if marker:
+        Path(marker).write_text(point, encoding="utf-8")
+    time.sleep(float(os.environ.get("CORRIDOR_TEST_PAUSE_S", "60")))
+
+
+def cache_folder(cfg: Config, out_dir: Path) -> Path | None:
+    """The cache folder of a run (``run.cache_dir``), or None for no cache."""
+    value = str(cfg.run.get("cache_dir", "auto"))
+    if value == "":
+        return None
+    if value == "auto":
+        return out_dir.parent / f"{out_dir.name}.cache"
+    return (cfg.path.parent / value).resolve()
+
+
 def write_outputs(run: Run, out_dir: Path) -> dict[str, Path]:
     """Write every output of a finished run into ``out_dir``."""
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -42,6 +89,7 @@ def write_outputs(run: Run, out_dir: Path) -> dict[str, Path]:
     seg = run.segment_table
     write_layer(run.exposure_table, paths["gpkg"], "exposures")
     write_layer(seg, paths["gpkg"], "segments")
+    test_pause("write")
     for name, table in run.extra_tables.items():
         if hasattr(table, "geometry") and name.startswith("layer:"):
             write_layer(table, paths["gpkg"], name.split(":", 1)[1])
@@ -72,24 +120,227 @@ def write_outputs(run: Run, out_dir: Path) -> dict[str, Path]:
     return paths
 
 
+# -- swapping and recovery ----------------------------------------------------
+
+_AT_FDCWD = -100
+_RENAME_EXCHANGE = 2
+
+
+def _exchange(a: Path, b: Path) -> bool:
+    """Swap two paths atomically with Linux ``renameat2``; False where unsupported."""
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        fn = libc.renameat2
+    except (OSError, AttributeError):
+        return False
+    fn.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p,
+                   ctypes.c_uint]
+    rc = fn(_AT_FDCWD, os.fsencode(a), _AT_FDCWD, os.fsencode(b), _RENAME_EXCHANGE)
+    if rc == 0:
+        return True
+    err = ctypes.get_errno()
+    if err in (errno.ENOSYS, errno.EINVAL, errno.ENOTSUP, errno.EOPNOTSUPP):
+        return False
+    raise OSError(err, f"cannot swap {a} and {b}: {os.strerror(err)}")
+
+
+def _fsync_tree(folder: Path) -> None:
+    for p in folder.iterdir():
+        if p.is_file():
+            fd = os.open(p, os.O_RDONLY)
+            try:
+                os.fsync(fd)
+            finally:
+                os.close(fd)
+    _fsync_dir(folder)
+
+
+def _fsync_dir(folder: Path) -> None:
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def swap_in(tmp: Path, out_dir: Path) -> None:
+    """Make ``tmp`` the output folder, as atomically as the file system allows."""
+    if not out_dir.exists():
+        os.rename(tmp, out_dir)
+    elif _exchange(tmp, out_dir):
+        shutil.rmtree(tmp, ignore_errors=True)  # now holds the previous outputs
+    else:
+        old = out_dir.parent / f".{out_dir.name}.old-{os.getpid()}"
+        os.rename(out_dir, old)
+        test_pause("swap")
+        os.rename(tmp, out_dir)
+        shutil.rmtree(old, ignore_errors=True)
+    _fsync_dir(out_dir.parent)
+
+
+def _leftover_pid(path: Path) -> int:
+    try:
+        return int(path.name.rsplit("-", 1)[1])
+    except (IndexError, ValueError):
+        return -1
+
+
+def recover(out_dir: Path) -> None:
+    """Clean up after dead runs (call while holding the lock)."""
+    parent, name = out_dir.parent, out_dir.name
+    if not parent.exists():
+        return
+    olds = sorted(parent.glob(f".{name}.old-*"), key=lambda p: p.stat().st_mtime)
+    olds = [p for p in olds if not pid_alive(_leftover_pid(p)) or _leftover_pid(p) == os.getpid()]
+    if not out_dir.exists() and olds:
+        keep = olds.pop()
+        os.rename(keep, out_dir)
+        log.warning("output folder %s was missing after an interrupted swap; previous"
+                    " outputs restored from %s", out_dir, keep.name)
+    for p in olds:
+        shutil.rmtree(p, ignore_errors=True)
+        log.info("removed leftover %s of a dead run", p.name)
+    for p in parent.glob(f".{name}.tmp-*"):
+        pid = _leftover_pid(p)
+        if pid != os.getpid() and pid_alive(pid):
+            continue
+        shutil.rmtree(p, ignore_errors=True)
+        log.info("removed leftover %s of a dead run", p.name)
+
+
+def last_error_path(out_dir: Path) -> Path:
+    """Where the log of a run that failed before publishing is kept."""
+    return out_dir.parent / f"{out_dir.name}.last-error.log"
+
+
+# -- the run ------------------------------------------------------------------
+
+def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
+           final_stages: dict | None = None) -> Run:
+    """Read, compute (incrementally when a cache is configured), finalize, compare."""
+    from corridor import cache as cache_mod
+    from corridor import changes as changes_mod
+    from corridor import progress
+    from corridor.io.layers import read_inputs
+
+    total = 5
+    progress.stage("read", 1, total)
+    t0 = time.perf_counter()
+    inputs = read_inputs(cfg)
+    read_s = round(time.perf_counter() - t0, 4)
+    test_pause("compute")
+    progress.stage("compute", 2, total)
+    t1 = time.perf_counter()
+    keys = cache_mod.asset_keys(cfg, inputs)
+    hash_s = round(time.perf_counter() - t1, 4)
+    folder = cache_folder(cfg, out_dir)
+    if folder is not None:
+        with OutputLock(folder):
+            run = cache_mod.incremental_compute(cfg, inputs, stages, folder, keys)
+    else:
+        run = compute(cfg, inputs, stages)
+        run.counts["assets_recomputed"] = len(inputs.assets)
+        run.counts["assets_from_cache"] = 0
+    run.timings_s = {"read": read_s, "hash": hash_s, **run.timings_s}
+    progress.stage("finalize", 3, total)
+    finalize(run, final_stages)
+    run.counts["assets_recomputed"] = int(run.counts.get("assets_recomputed", 0))
+    progress.stage("compare", 4, total)
+    state = changes_mod.inputs_state(run, keys)
+    previous = changes_mod.read_previous(out_dir)
+    frame, summary = changes_mod.compare(run, keys, state, previous,
+                                         float(cfg.run.get("change_threshold", 0.1)))
+    run.extra_tables["csv:changes.csv"] = frame
+    extra_json = dict(run.extra_tables.get("json", {}))
+    extra_json["changes"] = summary
+    extra_json["inputs_state"] = state
+    run.extra_tables["json"] = extra_json
+    progress.stage("write", 5, total)
+    return run
+
+
+class _FileOnly(logging.Filter):
+    """Keeps records marked ``file_only`` off the console."""
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        return not getattr(record, "file_only", False)
+
+
 def publish(cfg: Config, out_dir: Path | None = None, stages: dict | None = None,
             final_stages: dict | None = None) -> Run:
-    """Run a screening and swap its outputs into place atomically."""
+    """Run a screening and swap its outputs into place atomically.
+
+    Raises
+    ------
+    corridor.lock.LockError
+        Another run holds the output folder.
+    CorridorError
+        Bad config or input (its log is kept as ``<out>.last-error.log``).
+    """
     out_dir = Path(out_dir or cfg.output_dir).resolve()
     out_dir.parent.mkdir(parents=True, exist_ok=True)
-    run = run_screening(cfg, stages, final_stages)
-    tmp = out_dir.parent / f".{out_dir.name}.tmp-{os.getpid()}"
-    if tmp.exists():
-        shutil.rmtree(tmp)
-    try:
-        write_outputs(run, tmp)
-        old = out_dir.parent / f".{out_dir.name}.old-{os.getpid()}"
-        if out_dir.exists():
-            os.rename(out_dir, old)
-        os.rename(tmp, out_dir)
-        if old.exists():
-            shutil.rmtree(old)
-    finally:
+    root = logging.getLogger("corridor")
+    with OutputLock(out_dir):
+        recover(out_dir)
+        tmp = out_dir.parent / f".{out_dir.name}.tmp-{os.getpid()}"
         if tmp.exists():
-            shutil.rmtree(tmp, ignore_errors=True)
-    return run
+            shutil.rmtree(tmp)
+        tmp.mkdir()
+        handler = logging.FileHandler(tmp / LOG_NAME, encoding="utf-8")
+        handler.setLevel(logging.DEBUG)
+        handler.setFormatter(logging.Formatter(LOG_FORMAT))
+        root.addHandler(handler)
+        if root.level == logging.NOTSET or root.level > logging.DEBUG:
+            root.setLevel(logging.DEBUG)
+        published = False
+        try:
+            log.info("corridor run of %s into %s (PID %d)", cfg.path, out_dir, os.getpid())
+            run = screen(cfg, out_dir, stages, final_stages)
+            write_outputs(run, tmp)
+            log.info("assets recomputed: %d, from cache: %d; outputs complete, publishing",
+                     run.counts.get("assets_recomputed", 0),
+                     run.counts.get("assets_from_cache", 0))
+            handler.flush()
+            _fsync_tree(tmp)
+            swap_in(tmp, out_dir)
+            published = True
+            last_error_path(out_dir).unlink(missing_ok=True)
+            log.info("outputs published to %s", out_dir)
+            return run
+        except BaseException as exc:
+            if isinstance(exc, CorridorError):
+                for line in getattr(exc, "problems", [str(exc)]):
+                    log.error("%s", line, extra={"file_only": True})
+            elif isinstance(exc, KeyboardInterrupt):
+                log.error("interrupted", extra={"file_only": True})
+            else:
+                log.error("internal error", exc_info=True, extra={"file_only": True})
+            if not published:
+                handler.flush()
+                target = last_error_path(out_dir)
+                try:
+                    shutil.copyfile(tmp / LOG_NAME, target)
+                    try:
+                        exc.corridor_log = target
+                    except AttributeError:
+                        pass
+                except OSError:
+                    pass
+            raise
+        finally:
+            root.removeHandler(handler)
+            handler.close()
+            if tmp.exists() and not published:
+                shutil.rmtree(tmp, ignore_errors=True)
+
+
+def run_and_publish(cfg: Config, out_dir: Path | None = None) -> Run:
+    """:func:`publish` with the standard stages."""
+    from corridor.steps import asset_stages, run_stages
+
+    return publish(cfg, out_dir, asset_stages(), run_stages())

@@ -1,0 +1,281 @@
+"""Unattended runs: atomic publish under kills, locking, incremental reruns, change report.
+
+The scenario is a small invented corridor (one 4 km line, four fences) built
+in ``tmp_path`` with the shared :class:`tests.conftest.Scenario` builder.
+The checks are facts of the file system and of the run contract, not our
+own numbers: a killed writer must leave the previous bytes (SHA-256) in
+place; an incremental run must give the rows a fresh full run gives (same
+code path on a subset, so exact up to rtol 1e-12: the per-asset results are
+claimed independent of the other assets, common practice for a cache
+contract); POSIX O_EXCL creation is atomic, so of two runs exactly one
+takes the lock.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import geopandas as gpd
+import pandas as pd
+import pyogrio
+import pytest
+from pandas.testing import assert_frame_equal
+from shapely.geometry import LineString
+
+from corridor.io.outputs import sha256_file
+from tests.conftest import X0_M, Y0_M, Scenario
+
+REPO = Path(__file__).resolve().parents[1]
+OFFSETS_M = {"F1": 30.0, "F2": 60.0, "F3": 120.0, "F4": 400.0}
+
+
+def fences(post_ohm: dict | None = None, shift: dict | None = None) -> gpd.GeoDataFrame:
+    post_ohm = post_ohm or {}
+    shift = shift or {}
+    rows, geoms = [], []
+    for i, (aid, off) in enumerate(OFFSETS_M.items()):
+        x0 = X0_M + 300.0 + 100.0 * i
+        pts = [(x0, Y0_M + off), (x0 + 1500.0, Y0_M + off), (x0 + 3000.0, Y0_M + off)]
+        if aid in shift:
+            pts[1] = (pts[1][0], pts[1][1] + shift[aid])
+        geoms.append(LineString(pts))
+        rows.append({"AID": aid, "KIND": "fence", "POST_OHM": post_ohm.get(aid, 80.0)})
+    return gpd.GeoDataFrame(pd.DataFrame(rows), geometry=geoms, crs="EPSG:32633")
+
+
+def make(root: Path, out: str = "out", cache: str | None = None, **kw) -> Path:
+    root.mkdir(parents=True, exist_ok=True)
+    sc = Scenario(root)
+    cfg = sc.build(assets=fences(**kw))
+    cfg["run"]["output_dir"] = out
+    if cache is not None:
+        cfg["run"]["cache_dir"] = cache
+    return sc.write_config(cfg)
+
+
+def cli_run(cfg: Path, *args, env=None, wait=True, cwd=None):
+    cmd = [sys.executable, "-m", "corridor", "run", str(cfg), *args]
+    full_env = {**os.environ, "CORRIDOR_PROGRESS": "0", **(env or {})}
+    p = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                         env=full_env, cwd=cwd or cfg.parent)
+    if not wait:
+        return p
+    out, err = p.communicate(timeout=120)
+    return p.returncode, out, err
+
+
+def hashes(folder: Path) -> dict[str, str]:
+    return {p.name: sha256_file(p) for p in sorted(folder.iterdir()) if p.is_file()}
+
+
+def wait_for(path: Path, proc, timeout_s: float = 60.0) -> None:
+    t0 = time.monotonic()
+    while not path.exists():
+        if proc.poll() is not None:
+            raise AssertionError(f"run ended before the pause point: {proc.stderr.read()}")
+        if time.monotonic() - t0 > timeout_s:
+            raise AssertionError("pause point not reached")
+        time.sleep(0.02)
+
+
+def layers_equal(a: Path, b: Path) -> None:
+    """Every layer of screening.gpkg and every CSV but changes.csv: same rows."""
+    la = [str(n) for n in pyogrio.list_layers(a / "screening.gpkg")[:, 0]]
+    lb = [str(n) for n in pyogrio.list_layers(b / "screening.gpkg")[:, 0]]
+    assert la == lb
+    for name in la:
+        fa = pyogrio.read_dataframe(a / "screening.gpkg", layer=name)
+        fb = pyogrio.read_dataframe(b / "screening.gpkg", layer=name)
+        # rtol 1e-12: same arithmetic on a subset; only summation order could differ
+        assert_frame_equal(fa.drop(columns="geometry"), fb.drop(columns="geometry"),
+                           check_exact=False, rtol=1e-12)
+        assert fa.geometry.geom_equals_exact(fb.geometry, 0.0).all(), name
+    csvs = sorted(p.name for p in a.glob("*.csv") if p.name != "changes.csv")
+    assert csvs == sorted(p.name for p in b.glob("*.csv") if p.name != "changes.csv")
+    for name in csvs:
+        assert_frame_equal(pd.read_csv(a / name, comment="#"), pd.read_csv(b / name, comment="#"),
+                           check_exact=False, rtol=1e-12)
+
+
+@pytest.mark.slow
+def test_kill_midway_leaves_previous_outputs(tmp_path):
+    cfg = make(tmp_path / "s")
+    rc, _, err = cli_run(cfg)
+    assert rc == 0, err
+    out = tmp_path / "s" / "out"
+    before = hashes(out)
+    marker = tmp_path / "paused"
+    # deterministic kills at named points, then kills after fixed delays
+    for point in ("compute", "write"):
+        marker.unlink(missing_ok=True)
+        p = cli_run(cfg, env={"CORRIDOR_TEST_PAUSE_AT": point,
+                              "CORRIDOR_TEST_PAUSE_FILE": str(marker)}, wait=False)
+        wait_for(marker, p)
+        p.send_signal(signal.SIGKILL)
+        p.wait(timeout=30)
+        p.stdout.close()
+        p.stderr.close()
+        assert hashes(out) == before, point
+        pyogrio.read_dataframe(out / "screening.gpkg", layer="segments")  # still opens
+    for delay_s in (0.3, 1.0):
+        p = cli_run(cfg, wait=False)
+        time.sleep(delay_s)
+        p.send_signal(signal.SIGKILL)
+        p.wait(timeout=30)
+        p.stdout.close()
+        p.stderr.close()
+        # either the kill landed before the swap (old bytes) or the run finished (new
+        # outputs, which are byte-identical apart from run.json and the log)
+        now = hashes(out)
+        same = {k for k in before if now.get(k) == before[k]}
+        assert {"exposures.csv", "rejected.csv"} <= same
+        pyogrio.read_dataframe(out / "screening.gpkg", layer="segments")
+    rc, _, err = cli_run(cfg)
+    assert rc == 0, err
+    leftovers = [p.name for p in (tmp_path / "s").iterdir() if p.name.startswith(".out.")]
+    assert leftovers == []
+    assert not (tmp_path / "s" / "out.lock").exists()
+
+
+def test_recover_restores_interrupted_swap(tmp_path):
+    """A kill between 'out -> .old' and 'tmp -> out' leaves only .old: it is put back."""
+    from corridor.runner import recover
+
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "run.json").write_text("{}", encoding="utf-8")
+    before = hashes(out)
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                          capture_output=True, text=True, check=True)
+    pid = int(dead.stdout)
+    os.rename(out, tmp_path / f".out.old-{pid}")
+    (tmp_path / f".out.tmp-{pid}").mkdir()
+    recover(out)
+    assert hashes(out) == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+
+
+@pytest.mark.slow
+def test_incremental_rerun_matches_full_run_and_reports_the_edit(tmp_path):
+    cfg = make(tmp_path / "inc")
+    assert cli_run(cfg)[0] == 0
+    # edit one fence: lower post resistance and move a vertex 5 m
+    make(tmp_path / "inc", post_ohm={"F2": 5.0}, shift={"F2": 5.0})
+    rc, _, err = cli_run(cfg)
+    assert rc == 0, err
+    out = tmp_path / "inc" / "out"
+    record = json.loads((out / "run.json").read_text(encoding="utf-8"))
+    assert record["counts"]["assets_recomputed"] == 1
+    assert record["counts"]["assets_from_cache"] == len(OFFSETS_M) - 1
+    full_cfg = make(tmp_path / "full", cache="", post_ohm={"F2": 5.0}, shift={"F2": 5.0})
+    assert cli_run(full_cfg)[0] == 0
+    full = tmp_path / "full" / "out"
+    layers_equal(out, full)
+    full_counts = json.loads((full / "run.json").read_text(encoding="utf-8"))["counts"]
+    for k, v in full_counts.items():
+        if k not in ("assets_recomputed", "assets_from_cache"):
+            assert record["counts"][k] == v, k
+    changes = pd.read_csv(out / "changes.csv", comment="#")
+    f2 = changes[changes["asset_id"] == "F2"]
+    if len(f2):  # the edit moved F2's utilization (it usually does at 5 ohm posts)
+        assert f2["cause"].str.contains("asset edited").all()
+    assert not changes["asset_id"].isin(["F1", "F3", "F4"]).any()
+    assert "changes" in record and "inputs_state" in record
+    # a rerun with nothing changed computes nothing
+    rc, _, err = cli_run(cfg)
+    assert rc == 0, err
+    record = json.loads((out / "run.json").read_text(encoding="utf-8"))
+    assert record["counts"]["assets_recomputed"] == 0
+    layers_equal(out, full)
+
+
+def test_change_report_names_line_attribute(tmp_path):
+    from corridor.cli import main
+
+    sc = Scenario(tmp_path)
+    cfg = sc.build(assets=fences())
+    cfg["layers"]["power_lines"]["fields"].update(fault_current_start_ka="IF_KA",
+                                                  fault_current_end_ka="IF_KA")
+    lines = sc.line_frame()
+    lines["IF_KA"] = 5.0
+    sc.write_layer(lines, "power_lines")
+    path = sc.write_config(cfg)
+    assert main(["run", str(path), "-q"]) == 0
+    lines["IF_KA"] = 40.0
+    sc.write_layer(lines, "power_lines")
+    assert main(["run", str(path), "-q"]) == 0
+    changes = pd.read_csv(tmp_path / "out" / "changes.csv", comment="#")
+    assert set(changes["asset_id"]) == set(OFFSETS_M)
+    assert changes["cause"].str.contains("line L1: fault_current_start_ka 5.0 -> 40.0",
+                                         regex=False).all()
+    # the fault EMF is linear in the inducing current (Carson's equations), and the
+    # fault touch limit does not depend on it, so an 8x current gives 8x utilization;
+    # rtol 1e-5: changes.csv keeps 6 significant digits
+    fault = changes[changes["governing_after"].str.contains("fault")]
+    ratio = fault["utilization_after"] / fault["utilization_before"]
+    assert len(fault) and ((ratio - 8.0).abs() < 8.0 * 1e-5).all()
+    assert set(changes.loc[changes["utilization_before"] < 1, "change"]) <= {"new exceedance"}
+
+
+def test_two_runs_one_wins_and_stale_lock_taken_over(tmp_path):
+    cfg = make(tmp_path / "c")
+    marker = tmp_path / "paused"
+    first = cli_run(cfg, env={"CORRIDOR_TEST_PAUSE_AT": "compute",
+                              "CORRIDOR_TEST_PAUSE_FILE": str(marker),
+                              "CORRIDOR_TEST_PAUSE_S": "2"}, wait=False)
+    wait_for(marker, first)
+    rc, _, err = cli_run(cfg)
+    assert rc == 4
+    assert f"locked by PID {first.pid} on host" in err and "since" in err
+    out, err1 = first.communicate(timeout=60)
+    assert first.returncode == 0, err1
+    # stale lock: the PID of a process that has ended
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                          capture_output=True, text=True, check=True)
+    import socket
+
+    lock = tmp_path / "c" / "out.lock"
+    lock.write_text(json.dumps({"pid": int(dead.stdout), "host": socket.gethostname(),
+                                "started_utc": "2020-01-01T00:00:00+00:00"}), encoding="utf-8")
+    rc, _, err = cli_run(cfg)
+    assert rc == 0, err
+    assert "stale lock" in err
+    assert not lock.exists()
+
+
+def test_lock_is_exclusive_in_process(tmp_path):
+    from corridor.lock import LockError, OutputLock
+
+    with OutputLock(tmp_path / "out") as held:
+        data = json.loads(held.path.read_text(encoding="utf-8"))
+        assert data["pid"] == os.getpid()
+        with pytest.raises(LockError, match="locked by PID"):
+            # same host, live PID (ours): a second holder is refused
+            OutputLock(tmp_path / "out").acquire()
+    assert not (tmp_path / "out.lock").exists()
+
+
+def test_failed_run_keeps_log_and_previous_outputs(tmp_path, cli, capsys):
+    cfg = make(tmp_path / "f")
+    assert cli(["run", str(cfg), "-q"]) == 0
+    out = tmp_path / "f" / "out"
+    before = hashes(out)
+    assert (out / "corridor.log").exists()
+    # break the asset layer: every feature gets an unknown kind -> whole-layer error
+    bad = fences()
+    bad["KIND"] = "hedge"
+    Scenario(tmp_path / "f").write_layer(bad, "assets")
+    capsys.readouterr()
+    assert cli(["run", str(cfg), "-q"]) == 2
+    err = capsys.readouterr().err
+    assert "Traceback" not in err
+    assert "last-error.log" in err
+    assert hashes(out) == before
+    text = (tmp_path / "f" / "out.last-error.log").read_text(encoding="utf-8")
+    assert "hedge" in text or "no usable asset" in text
