@@ -18,7 +18,6 @@ from corridor.steps import asset_stages, run_stages
 from corridor.steps.respond import line_constants, terminations
 
 
-
 def _scenario(scenario, assets):
     cfg = scenario.build(assets=assets)
     cfg["run"].update({"limit_set": "ieee_na", "frequency_hz": 60.0, "crs": "EPSG:32633"})
@@ -68,7 +67,8 @@ def test_exceeding_asset_gets_sites_and_independent_resolve_agrees(grounded_fenc
     # independent re-solve with the proposed grounds
     seg = run.geometry.segments
     sel = np.flatnonzero(run.inputs.assets["asset_id"].to_numpy()[seg.feature] == "F-NEAR")
-    z, y, _ = line_constants(run.config, run.inputs.assets, seg, run.geometry.soil_resistivity_ohm_m)
+    soil = run.geometry.soil_resistivity_ohm_m
+    z, y, _ = line_constants(run.config, run.inputs.assets, seg, soil)
     chain_start = np.array([sel[0]])
     y_start, y_end = terminations(run.inputs.assets, seg, chain_start, z, y)
     shunt = np.zeros(len(sel) + 1, complex)

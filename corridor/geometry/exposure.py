@@ -225,13 +225,23 @@ def _pairs_chunk(segments, edges, distance_m, min_separation_m, parallel_angle_d
     si, ej, dist, touches = candidate_pairs(segments, edges, distance_m, tree=tree, lo=lo, hi=hi)
     e = edges.segments
     line = e.feature[ej]
-    # nearest edge per (segment, line); deterministic: distance, then edge index
-    order = np.lexsort((ej, dist, line, si))
-    si, ej, line, touches = si[order], ej[order], line[order], touches[order]
-    first = np.r_[True, (si[1:] != si[:-1]) | (line[1:] != line[:-1])] if len(si) else \
-        np.zeros(0, bool)
-    si, ej, line, touches = si[first], ej[first], line[first], touches[first]
-    return si, ej, line, touches
+    if len(si) == 0:
+        return si, ej, line, touches
+    # nearest edge per (segment, line). Candidates come out almost sorted by
+    # segment, so a stable argsort of one integer key is fast (timsort runs);
+    # the minimum distance in each group is then found with reduceat, ties
+    # going to the first candidate (deterministic).
+    n_lines = int(e.feature.max()) + 1
+    key = si.astype(np.int64) * n_lines + line
+    order = np.argsort(key, kind="stable")
+    key = key[order]
+    d = dist[order]
+    starts = np.flatnonzero(np.r_[True, key[1:] != key[:-1]])
+    group = np.cumsum(np.r_[True, key[1:] != key[:-1]]) - 1
+    dmin = np.minimum.reduceat(d, starts)
+    pos = np.where(d == dmin[group], np.arange(len(d)), len(d))
+    pick = order[np.minimum.reduceat(pos, starts)]
+    return si[pick], ej[pick], line[pick], touches[pick]
 
 
 def find_pairs(segments: Segments, edges: LineEdges, distance_m: float,

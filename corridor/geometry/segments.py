@@ -112,7 +112,7 @@ def split_lines(geometries: np.ndarray, max_length_m: float | None) -> Segments:
     sy1[last] = y1[rep][last]
     sx0[1:] = np.where(k[1:] > 0, sx1[:-1], sx0[1:])
     sy0[1:] = np.where(k[1:] > 0, sy1[:-1], sy0[1:])
-    length = np.hypot(sx1 - sx0, sy1 - sy0)
+    length = (edge_len / n_sub)[rep]
     part_index = edge_part[rep]
     feature = feature_of_part[part_index]
     # part number within the feature
