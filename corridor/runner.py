@@ -233,6 +233,12 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     t0 = time.perf_counter()
     inputs = read_inputs(cfg)
     read_s = round(time.perf_counter() - t0, 4)
+    if len(inputs.assets) == 0:
+        from corridor.errors import InputError
+
+        raise InputError(["asset layers: no usable asset features; every one was rejected:"]
+                         + [f"layer {r['layer']}: feature {r['feature_id']}: field"
+                            f" '{r['field']}': {r['reason']}" for r in inputs.rejected.rows])
     test_pause("compute")
     progress.stage("compute", 2, total)
     t1 = time.perf_counter()

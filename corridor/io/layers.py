@@ -9,6 +9,7 @@ appears in the rejected list with the layer, feature id, field and reason.
 from __future__ import annotations
 
 import logging
+import warnings
 from dataclasses import dataclass, field
 
 import geopandas as gpd
@@ -75,10 +76,18 @@ def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
             raise InputError(f"layer {src.label}: the file holds several layers"
                              f" ({', '.join(names)}); name one with 'layer = ...'")
     try:
-        gdf = pyogrio.read_dataframe(src.path, layer=src.layer, use_arrow=True)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            gdf = pyogrio.read_dataframe(src.path, layer=src.layer, use_arrow=True)
+        for w in caught:
+            log.warning("layer %s: reader: %s", src.label, w.message)
     except pyogrio.errors.DataLayerError as exc:
         raise InputError(f"layer {src.label}: cannot be read: {exc}") from None
     except pyogrio.errors.DataSourceError as exc:
+        if "locked" in str(exc).lower():
+            raise InputError(f"layer {src.label}: file is locked by another program (an"
+                             " editing session holds it); close it there or save the edits,"
+                             f" then rerun: {exc}") from None
         raise InputError(f"layer {src.label}: file cannot be opened (corrupt, truncated, locked"
                          f" or not a GIS format): {exc}") from None
     except UnicodeDecodeError as exc:
@@ -86,6 +95,20 @@ def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
                          " re-save the layer as UTF-8") from None
     except (OSError, RuntimeError) as exc:
         raise InputError(f"layer {src.label}: cannot be read: {exc}") from None
+    except shapely.errors.GEOSException as exc:
+        raise InputError(f"layer {src.label}: a geometry cannot be decoded ({exc}), e.g. a"
+                         " line with a single point; fix or delete that feature") from None
+    for col in gdf.columns:
+        if col == getattr(gdf, "_geometry_column_name", None) or gdf[col].dtype.kind in "biufcmM":
+            continue
+        try:
+            gdf[col].to_numpy(dtype=object)
+        except Exception as exc:  # pyarrow's ArrowException on undecodable text
+            if "Arrow" not in type(exc).__name__:
+                raise
+            raise InputError(f"layer {src.label}: field '{col}': text values are not valid"
+                             f" UTF-8 ({exc}); re-save the layer as UTF-8 (or give a Shapefile"
+                             " a .cpg file naming its encoding)") from None
     if not isinstance(gdf, gpd.GeoDataFrame) or gdf.geometry is None:
         raise InputError(f"layer {src.label}: has no geometry column")
     if gdf.crs is None:
@@ -256,6 +279,11 @@ def _clean_geometry(gdf, src, ids, rejected, warnings, keep_mask, types) -> np.n
             reason = f"geometry type {kind[i]} (expected {' or '.join(types)})"
         elif types == LINEAR_TYPES and shapely.length(geoms[i]) <= 0.0:
             reason = "zero-length line"
+        elif types == LINEAR_TYPES and not shapely.is_simple(geoms[i]):
+            msg = (f"layer {src.label}: feature {ids.iloc[i]}: line crosses itself; kept as"
+                   " drawn (each part couples on its own)")
+            warnings.append(msg)
+            log.warning(msg)
         elif types != LINEAR_TYPES and not shapely.is_valid(geoms[i]):
             fixed = shapely.make_valid(geoms[i])
             polys = shapely.get_parts(fixed)
