@@ -36,8 +36,13 @@ def stage_respond(run) -> None:
 
 
 def response_columns(run, rs, t) -> None:
-    """Write the response (and coupling) results into segment table ``t``."""
+    """Write the response (and coupling) results into segment table ``t``.
+
+    ``t`` holds the rows of ``rs.segments`` (all segments, or the segments of
+    the assets a partial re-solve covered), in that order.
+    """
     cp = run.coupling
+    sel = rs.segments
     length_km = t["length_m"].to_numpy(float) / 1000.0
     emf_n = np.abs(rs.segment_emf_normal_v)
     emf_f = np.abs(rs.fault_rhs).max(axis=1) if rs.fault_rhs.shape[1] else np.zeros(len(t))
@@ -70,15 +75,15 @@ def response_columns(run, rs, t) -> None:
     t["clearing_time_s"] = by_case(cp.fault_case_clearing_s, np.nan).astype(float)
     t["high_reliability"] = by_case(cp.fault_case_high_reliability, False).astype(bool)
     t["screening_factor"] = by_case(np.abs(cp.fault_case_screening), np.nan).astype(float)
-    t["fault_current_ka"] = cp.segment_fault_current_a / 1000.0
-    epr = cp.earth_potential_fault_v
+    t["fault_current_ka"] = cp.segment_fault_current_a[sel] / 1000.0
+    epr = cp.earth_potential_fault_v[sel]
     t["earth_potential_fault_v"] = epr
     # touch during a fault: induced voltage plus earth potential rise (conservative
     # sum), loaded by a 1000 ohm body through the asset's source impedance
     t["v_touch_fault_v"] = (rs.v_fault_v + epr) * rs.touch_loading
     t["v_coating_stress_v"] = np.where(kind == "pipeline", rs.v_fault_v + epr, np.nan)
     above = (kind == "fence") | (
-        run.inputs.assets["height_m"].to_numpy(float)[run.geometry.segments.feature] > 0)
+        run.inputs.assets["height_m"].to_numpy(float)[run.geometry.segments.feature[sel]] > 0)
     t["v_capacitive_open_v"] = np.where(above, rs.v_capacitive_open_v, 0.0)
     t["i_capacitive_short_ma"] = np.where(above, rs.i_capacitive_short_ma, 0.0)
     t["i_capacitive_body_ma"] = np.where(above, rs.i_capacitive_body_ma, 0.0)
@@ -109,12 +114,15 @@ def stage_assess(run) -> None:
     t["hazard_class"] = res["hazard_class"]
 
 
-def categories(run) -> dict:
-    """Per-segment labels the limit set may select values by."""
+def categories(run, sel=None) -> dict:
+    """Per-segment labels the limit set may select values by (segments ``sel``)."""
     cat = {}
+    feat = run.geometry.segments.feature
+    if sel is not None:
+        feat = feat[sel]
     if "coating_type" in run.inputs.assets:
         cat["coating_type"] = run.inputs.assets["coating_type"].to_numpy(dtype=object)[
-            run.geometry.segments.feature].astype(str)
+            feat].astype(str)
     return cat
 
 

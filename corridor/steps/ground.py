@@ -88,77 +88,80 @@ def stage_ground(run) -> None:
     """Propose grounding sites and write ``layer:sites`` / ``csv:grounding_sites.csv``."""
     from corridor.steps import categories, response_columns
     from corridor.steps.assess import assess
-    from corridor.steps.respond import respond
+    from corridor.steps.respond import solve_model
 
     cfg = run.config
-    t = run.segment_table
     seg = run.geometry.segments
     rs = run.response
+    model = rs.model
     menu = sorted(cfg.run["grounding_menu_ohm"], reverse=True)
     max_sites = cfg.run["max_sites_per_asset"]
     assets = run.inputs.assets
     n_assets = len(assets)
     feat = seg.feature
-    chain_of_seg = rs.chain_of_segment
-    node_ch, node_x, node_y = _node_positions(seg, chain_of_seg)
+    node_ch, node_x, node_y = _node_positions(seg, model.chain_of_segment)
     n_nodes = len(node_ch)
-    start_node = np.arange(len(seg)) + chain_of_seg
+    start_node = np.arange(len(seg)) + model.chain_of_segment
     node_asset = np.zeros(n_nodes, np.int64)
     node_asset[start_node] = feat
     node_asset[start_node + 1] = feat
     cp_asset = assets.get("cathodic_protection")
     cathodic = (cp_asset.fillna(False).astype(bool).to_numpy() if cp_asset is not None
                 else np.zeros(n_assets, bool))
+    kinds = assets["asset_kind"].to_numpy(dtype=object)
+    ids = assets["asset_id"].to_numpy(dtype=object)
+    responsible = _lines_per_asset(run.segment_table, feat, n_assets)
 
+    table = run.segment_table.copy()
+    node_v = rs.node_voltage_all_v.copy()  # global nodes, all cases
     extra = np.zeros(n_nodes, complex)
     has_site = rs.node_shunt_s != 0  # existing grounds are not proposed again
     sites: list[dict] = []
     n_sites = np.zeros(n_assets, np.int64)
-    table = t
-    response = rs
-    result = run.assessment
     done = np.zeros(n_assets, bool)
     for _ in range(max_sites):
         util = table["utilization"].to_numpy(float)
         worst_seg = _worst_segment_per_asset(util, feat, n_assets)
         worst_u = np.where(worst_seg >= 0, util[np.maximum(worst_seg, 0)], 0.0)
-        active = (worst_u >= 1.0) & ~done & (n_sites < max_sites)
-        if not active.any():
+        active = np.flatnonzero((worst_u >= 1.0) & ~done & (n_sites < max_sites))
+        if not len(active):
             break
         gov = table["governing"].to_numpy(dtype=object)
+        epr = table["earth_potential_fault_v"].to_numpy(float)
+        v_fault = table["v_fault_v"].to_numpy(float)
+        fault_case = run.response.fault_case_of_segment
         new_nodes = []
-        for a in np.flatnonzero(active):
+        for a in active:
             s = worst_seg[a]
             crit, _, case = str(gov[s]).partition(":")
             remedy = None
-            epr_dominates = (table["earth_potential_fault_v"].iat[s] >
-                             table["v_fault_v"].iat[s])
             if crit in NOT_GROUNDABLE:
                 remedy = REMEDY_TELECOM
-            elif crit in ("coating_stress", "touch_fault", "step_fault") and epr_dominates:
+            elif crit in ("coating_stress", "touch_fault", "step_fault") and epr[s] > v_fault[s]:
                 remedy = REMEDY_SEPARATION if crit == "coating_stress" else REMEDY_TOWER
-            column = _case_column(case, s, response)
-            v_nodes = np.abs(response.node_voltage_all_v[:, column])
+            column = _case_column(case, fault_case[s], model.fault_column_case[a])
             mine = np.flatnonzero((node_asset == a) & ~has_site)
             if len(mine) == 0:
                 done[a] = True
                 continue
-            k = mine[np.argmax(v_nodes[mine])]
+            k = mine[np.argmax(np.abs(node_v[mine, column]))]
+            v0 = abs(node_v[k, column])
             if remedy is not None:
-                sites.append(_site(run, a, k, node_ch, node_x, node_y, gov[s], v_nodes[k],
-                                   v_nodes[k], np.nan, remedy, table, s, len(sites)))
+                sites.append(_site(ids[a], kinds[a], node_ch[k], node_x[k], node_y[k], gov[s],
+                                   v0, v0, np.nan, remedy, responsible[a], worst_u[a],
+                                   table["soil_resistivity_ohm_m"].iat[s], len(sites)))
                 done[a] = True
                 continue
-            new_nodes.append((a, k, s, column, gov[s], v_nodes[k], worst_u[a]))
+            new_nodes.append((a, k, column, gov[s], v0, worst_u[a], s))
         if not new_nodes:
             break
-        nodes = np.array([n[1] for n in new_nodes])
-        zth = response.system.thevenin_impedance(nodes)
+        solve_assets = np.array(sorted({n[0] for n in new_nodes}))
+        # Thevenin impedance at the chosen nodes, in the current state
+        before = solve_model(model, solve_assets, extra)
+        local = np.searchsorted(before.nodes, [n[1] for n in new_nodes])
+        zth = before.system.thevenin_impedance(local)
         chosen = []
-        for (a, k, _s, _col, _g, v0, u), z in zip(new_nodes, zth, strict=True):
-            # no second site within SITE_SPACING_NODES nodes of this one on the same asset
-            lo, hi = max(k - SITE_SPACING_NODES, 0), min(k + SITE_SPACING_NODES + 1, n_nodes)
-            has_site[lo:hi] |= node_asset[lo:hi] == a
+        for (a, k, _c, _g, v0, u, _s), z in zip(new_nodes, zth, strict=True):
             target = v0 / u * MARGIN
             r_pick = menu[-1]
             for r in menu:
@@ -166,28 +169,36 @@ def stage_ground(run) -> None:
                     r_pick = r
                     break
             extra[k] += 1.0 / r_pick
+            # no second site within SITE_SPACING_NODES nodes of this one on the same asset
+            lo, hi = max(k - SITE_SPACING_NODES, 0), min(k + SITE_SPACING_NODES + 1, n_nodes)
+            has_site[lo:hi] |= node_asset[lo:hi] == a
             chosen.append(r_pick)
-        response = respond(cfg, run.inputs, run.geometry, run.coupling, extra_node_shunt_s=extra)
-        table = table.copy()
-        response_columns(run, response, table)
-        result = assess(run.limit_set, table, categories(run))
-        _apply_assessment(table, result)
-        for (a, k, s, column, g, v0, _u), r_pick in zip(new_nodes, chosen, strict=True):
-            v_after = abs(response.node_voltage_all_v[k, column])
-            remedy = REMEDY_DECOUPLED if (assets["asset_kind"].iat[a] == "pipeline"
-                                          and cathodic[a]) else REMEDY_GROUND
-            sites.append(_site(run, a, k, node_ch, node_x, node_y, g, v0, v_after, r_pick,
-                               remedy, table, s, len(sites)))
+        after = solve_model(model, solve_assets, extra)
+        node_v[after.nodes] = after.node_voltage_all_v
+        rows = table.iloc[after.segments].copy()
+        response_columns(run, after, rows)
+        result = assess(run.limit_set, rows, categories(run, after.segments))
+        _apply_assessment(rows, result)
+        table.iloc[after.segments, [table.columns.get_loc(c) for c in rows.columns]] = \
+            rows.to_numpy(dtype=object)
+        util_after = _max_per_asset(rows["utilization"].to_numpy(float), feat[after.segments],
+                                    n_assets)
+        for (a, k, column, g, v0, _u, s), r_pick in zip(new_nodes, chosen, strict=True):
+            remedy = REMEDY_DECOUPLED if (kinds[a] == "pipeline" and cathodic[a]) \
+                else REMEDY_GROUND
+            sites.append(_site(ids[a], kinds[a], node_ch[k], node_x[k], node_y[k], g, v0,
+                               abs(node_v[k, column]), r_pick, remedy, responsible[a],
+                               util_after[a], table["soil_resistivity_ohm_m"].iat[s],
+                               len(sites)))
             n_sites[a] += 1
-    # final state of every asset that had sites
+    table = table.infer_objects()
     util = table["utilization"].to_numpy(float)
-    worst_seg = _worst_segment_per_asset(util, feat, n_assets)
-    still = np.where(worst_seg >= 0, util[np.maximum(worst_seg, 0)], 0.0) >= 1.0
+    still = _max_per_asset(util, feat, n_assets) >= 1.0
     frame = pd.DataFrame(sites, columns=SITE_COLUMNS)
     if len(frame):
         frame["unresolved"] = False
         last = frame.groupby("asset_id").tail(1).index
-        aid_to_idx = {v: i for i, v in enumerate(assets["asset_id"])}
+        aid_to_idx = {v: i for i, v in enumerate(ids)}
         frame.loc[last, "unresolved"] = [bool(still[aid_to_idx[v]])
                                          for v in frame.loc[last, "asset_id"]]
         frame = frame.sort_values(["asset_id", "site_order"], kind="stable").reset_index(
@@ -213,27 +224,40 @@ def stage_ground(run) -> None:
     run.segment_table_after_grounding = table
 
 
+def _lines_per_asset(t, feat, n_assets) -> list[str]:
+    """';'-joined ids of the lines in reach of, or faulting onto, each asset."""
+    out = [set() for _ in range(n_assets)]
+    for col in ("line_id", "fault_line_id"):
+        v = t[col].to_numpy(dtype=object)
+        has = v != ""
+        pairs = pd.DataFrame({"a": feat[has], "l": v[has]}).drop_duplicates()
+        for a, line in zip(pairs["a"], pairs["l"], strict=True):
+            out[a].add(line)
+    return [";".join(sorted(x)) for x in out]
+
+
+def _max_per_asset(values, feat, n_assets):
+    out = np.full(n_assets, -np.inf)
+    np.maximum.at(out, feat, values)
+    return out
+
+
 SITE_COLUMNS = ["asset_id", "asset_kind", "chainage_m", "x", "y", "governing", "v_before_v",
                 "v_after_v", "ground_resistance_ohm", "electrode_length_m", "remedy",
                 "line_ids", "utilization_after", "site_order"]
 
 
-def _site(run, a, k, node_ch, node_x, node_y, governing, v0, v1, r, remedy, table, s,
-          order):
-    assets = run.inputs.assets
-    rows = table[table["asset_id"] == assets["asset_id"].iat[a]]
-    lines = sorted(set(rows["line_id"][rows["line_id"] != ""]) |
-                   set(rows["fault_line_id"][rows["fault_line_id"] != ""]))
-    rho = float(table["soil_resistivity_ohm_m"].iat[s])
+def _site(asset_id, kind, chainage_m, x, y, governing, v0, v1, r, remedy, line_ids,
+          utilization_after, soil_ohm_m, order):
     return {
-        "asset_id": assets["asset_id"].iat[a], "asset_kind": assets["asset_kind"].iat[a],
-        "chainage_m": float(node_ch[k]), "x": float(node_x[k]), "y": float(node_y[k]),
+        "asset_id": asset_id, "asset_kind": kind,
+        "chainage_m": float(chainage_m), "x": float(x), "y": float(y),
         "governing": str(governing), "v_before_v": float(v0), "v_after_v": float(v1),
         "ground_resistance_ohm": float(r),
-        "electrode_length_m": (float(horizontal_electrode_length_m(r, rho))
+        "electrode_length_m": (float(horizontal_electrode_length_m(r, soil_ohm_m))
                                if np.isfinite(r) else np.nan),
-        "remedy": remedy, "line_ids": ";".join(lines),
-        "utilization_after": float(rows["utilization"].max()),
+        "remedy": remedy, "line_ids": line_ids,
+        "utilization_after": float(utilization_after),
         "site_order": order,
     }
 
@@ -249,19 +273,14 @@ def _worst_segment_per_asset(util, feat, n_assets):
     return out
 
 
-def _case_column(case, s, response):
-    """Solution column of the governing case at segment ``s``."""
+def _case_column(case, fault_case, columns_of_asset):
+    """Solution column of the governing case: 0 normal, 1 capacitive, 2+ faults."""
     if case == "normal":
         return 0
     if case == "capacitive":
         return 1
-    c = response.fault_case_of_segment[s]
-    if c < 0:
-        return 0
-    cols = response.fault_column_case
-    a_rows = np.flatnonzero((cols == c).any(axis=1))
-    col = int(np.flatnonzero(cols[a_rows[0]] == c)[0]) if len(a_rows) else 0
-    return 2 + col
+    hit = np.flatnonzero(columns_of_asset == fault_case) if fault_case >= 0 else []
+    return 2 + int(hit[0]) if len(hit) else 0
 
 
 def _apply_assessment(table, result):

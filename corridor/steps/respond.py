@@ -68,6 +68,9 @@ class Response:
     touch_loading: np.ndarray  # R_body/|R_body + Z_th|, per segment
     node_voltage_all_v: np.ndarray  # (n_nodes, 2 + n_fault_columns): normal, capacitive, faults
     chain_of_segment: np.ndarray
+    segments: np.ndarray  # global segment index of each row
+    nodes: np.ndarray  # global node index of each node row
+    model: ResponseModel
 
 
 def chain_layout(seg) -> np.ndarray:
@@ -235,14 +238,48 @@ def place_items(inputs, seg, chain_start, tolerance_m):
 BODY_RESISTANCE_OHM = 1000.0
 
 
-def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
-    """Solve every asset for the normal, capacitive and fault cases.
+@dataclass
+class ResponseModel:
+    """Everything the solve needs, built once; solved whole or for a subset of assets."""
 
-    Parameters
-    ----------
-    extra_node_shunt_s : ndarray of complex, per node, optional
-        Extra grounds [S] (the grounding design adds its sites here).
-    """
+    segment_length_m: np.ndarray
+    z_ohm_per_m: np.ndarray
+    y_s_per_m: np.ndarray
+    segment_break: np.ndarray
+    feature: np.ndarray  # asset of each segment
+    chain_start: np.ndarray
+    chain_of_segment: np.ndarray
+    y_start_s: np.ndarray  # per chain
+    y_end_s: np.ndarray
+    node_shunt_s: np.ndarray  # per node: existing grounds
+    rhs_v: np.ndarray  # (n_segments, 2 + n_fault_columns) segment EMF
+    injection_a: np.ndarray  # (n_nodes, 2 + n_fault_columns) node currents
+    fault_column_case: np.ndarray  # (n_assets, n_fault_columns)
+    rejected: list
+
+    @property
+    def n_fault_columns(self) -> int:
+        return self.rhs_v.shape[1] - 2
+
+    def subset(self, assets: np.ndarray | None):
+        """Global segment and node indices of the chains of ``assets`` (None: all)."""
+        n_seg = len(self.feature)
+        n_chain = len(self.chain_start)
+        if assets is None:
+            return np.arange(n_seg), np.arange(n_seg + n_chain), np.arange(n_chain)
+        keep_seg = np.isin(self.feature, assets)
+        seg = np.flatnonzero(keep_seg)
+        chains = np.unique(self.chain_of_segment[seg])
+        first_node = self.chain_start[chains] + chains
+        n_nodes = np.diff(np.r_[self.chain_start, n_seg])[chains] + 1
+        rep = np.repeat(np.arange(len(chains)), n_nodes)
+        nodes = first_node[rep] + (np.arange(len(rep)) - np.repeat(np.cumsum(n_nodes) - n_nodes,
+                                                                   n_nodes))
+        return seg, nodes, chains
+
+
+def build_model(cfg, inputs, geo, coup) -> ResponseModel:
+    """Line constants, terminations, grounds, breaks and every right-hand side."""
     seg = geo.segments
     n_seg = len(seg)
     chain_start = chain_layout(seg)
@@ -250,16 +287,9 @@ def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
     y_start, y_end = terminations(inputs.assets, seg, chain_start, z, y)
     node_shunt, brk, rejected = place_items(inputs, seg, chain_start,
                                             max(cfg.run["segment_length_m"], 25.0))
-    if extra_node_shunt_s is not None:
-        node_shunt = node_shunt + extra_node_shunt_s
-    batch = ChainBatch.from_arrays(seg.length_m, z, y, chain_start, node_shunt, brk,
-                                   y_start, y_end)
-    system = ChainSystem(batch)
     n_chain = len(chain_start)
     chain_of_seg = np.repeat(np.arange(n_chain), np.diff(np.r_[chain_start, n_seg]))
     start_node = np.arange(n_seg) + chain_of_seg
-
-    emf_n = coup.segment_emf_normal_v * scale
     # fault columns: case j of each asset in column j
     n_assets = len(inputs.assets)
     case_asset = coup.fault_case_asset
@@ -270,22 +300,65 @@ def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
         grp_first = np.searchsorted(sa, sa, side="left")
         rank[order] = np.arange(len(sa)) - grp_first
     n_fcol = int(rank.max()) + 1 if len(case_asset) else 0
-    fault_rhs = np.zeros((n_seg, n_fcol), complex)
+    rhs = np.zeros((n_seg, 2 + n_fcol), complex)
+    rhs[:, 0] = coup.segment_emf_normal_v * scale
     col_case = np.full((n_assets, n_fcol), -1, np.int64)
     if n_fcol:
         col_case[case_asset, rank] = np.arange(len(case_asset))
-        ent_case = coup.fault_case_of_entry
-        fault_rhs[coup.fault_seg, rank[ent_case]] = coup.fault_emf_v
-        fault_rhs *= scale[:, None]
-
-    rhs = np.zeros((n_seg, 2 + n_fcol), complex)
-    rhs[:, 0] = emf_n
-    rhs[:, 2:] = fault_rhs
-    inj = np.zeros((batch.n_nodes, 2 + n_fcol), complex)
+        rhs[coup.fault_seg, 2 + rank[coup.fault_case_of_entry]] = coup.fault_emf_v
+        rhs[:, 2:] *= scale[:, None]
+    inj = np.zeros((n_seg + n_chain, 2 + n_fcol), complex)
     half = 0.5 * coup.capacitive_current_a
     np.add.at(inj[:, 1], start_node, half)
     np.add.at(inj[:, 1], start_node + 1, half)
-    sol = system.solve(rhs, node_current_a=inj)
+    return ResponseModel(seg.length_m, z, y, brk, seg.feature, chain_start, chain_of_seg,
+                         y_start, y_end, node_shunt, rhs, inj, col_case, rejected)
+
+
+def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
+    """Solve every asset for the normal, capacitive and fault cases."""
+    model = build_model(cfg, inputs, geo, coup)
+    return solve_model(model, None, extra_node_shunt_s)
+
+
+def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> Response:
+    """Solve the chains of ``assets`` (None: all) with optional extra grounds.
+
+    Parameters
+    ----------
+    model : ResponseModel
+    assets : ndarray of int, optional
+        Asset indices to solve; their chains are solved whole.
+    extra_node_shunt_s : ndarray of complex, per global node, optional
+        Extra grounds [S] (the grounding design adds its sites here).
+
+    Returns
+    -------
+    Response
+        Arrays per selected segment (``segments`` holds their global
+        indices) and per selected node (``nodes``).
+    """
+    seg_idx, node_idx, chains = model.subset(assets)
+    n_seg = len(seg_idx)
+    if assets is None:
+        chain_start = model.chain_start
+        chain_of_seg = model.chain_of_segment
+    else:
+        counts = np.diff(np.r_[model.chain_start, len(model.feature)])[chains]
+        chain_start = np.cumsum(counts) - counts
+        chain_of_seg = np.repeat(np.arange(len(chains)), counts)
+    node_shunt = model.node_shunt_s[node_idx]
+    if extra_node_shunt_s is not None:
+        node_shunt = node_shunt + extra_node_shunt_s[node_idx]
+    batch = ChainBatch.from_arrays(model.segment_length_m[seg_idx], model.z_ohm_per_m[seg_idx],
+                                   model.y_s_per_m[seg_idx], chain_start, node_shunt,
+                                   model.segment_break[seg_idx], model.y_start_s[chains],
+                                   model.y_end_s[chains])
+    system = ChainSystem(batch)
+    rhs = model.rhs_v[seg_idx]
+    n_fcol = model.n_fault_columns
+    sol = system.solve(rhs, node_current_a=model.injection_a[node_idx])
+    feat = model.feature[seg_idx]
 
     v_n = sol.segment_voltage_v[:, 0]
     i_n = sol.segment_current_a[:, 0]
@@ -295,7 +368,7 @@ def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
         best = np.argmax(vf_all, axis=1)
         v_f = vf_all[np.arange(n_seg), best]
         i_f = sol.segment_current_a[:, 2:][np.arange(n_seg), best]
-        case_of_seg = col_case[seg.feature, best]
+        case_of_seg = model.fault_column_case[feat, best]
         v_f = np.where(case_of_seg >= 0, v_f, 0.0)
         i_f = np.where(case_of_seg >= 0, i_f, 0.0)
     else:
@@ -303,38 +376,34 @@ def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
         i_f = np.zeros(n_seg)
         case_of_seg = np.full(n_seg, -1)
 
-    # source impedance at each chain's peak, for the available current
-    peak_n = system.peak_node(sol.node_voltage_v[:, 0])
-    peak_c = system.peak_node(sol.node_voltage_v[:, 1])
-    zth_n = np.abs(system.thevenin_impedance(peak_n))
-    zth_c = np.abs(system.thevenin_impedance(peak_c))
-    zn = zth_n[chain_of_seg]
-    zc = zth_c[chain_of_seg]
+    # source impedance at each chain's peak (normal, capacitive, fault), one solve
+    peaks = [system.peak_node(sol.node_voltage_v[:, 0]),
+             system.peak_node(sol.node_voltage_v[:, 1])]
     if n_fcol:
-        peak_f = system.peak_node(np.abs(sol.node_voltage_v[:, 2:]).max(axis=1))
-        zth_f = system.thevenin_impedance(peak_f)[chain_of_seg]
-    else:
-        zth_f = np.zeros(n_seg, complex)
+        peaks.append(system.peak_node(np.abs(sol.node_voltage_v[:, 2:]).max(axis=1)))
+    zth = system.thevenin_impedance(np.stack(peaks, axis=1))
+    zth_n = zth[:, 0][chain_of_seg]
+    zth_c = zth[:, 1][chain_of_seg]
+    zth_f = zth[:, 2][chain_of_seg] if n_fcol else np.zeros(n_seg, complex)
+    zn, zc = np.abs(zth_n), np.abs(zth_c)
     loading = BODY_RESISTANCE_OHM / np.abs(BODY_RESISTANCE_OHM + zth_f)
-    # steady-state current through a 1000 ohm body touching the segment's node
-    i_body_n = v_n / np.abs(BODY_RESISTANCE_OHM + system.thevenin_impedance(peak_n)
-                            [chain_of_seg]) * 1000.0
+    # steady-state current through a 1000 ohm body touching the segment
+    i_body_n = v_n / np.abs(BODY_RESISTANCE_OHM + zth_n) * 1000.0
     i_avail_c = np.where(zc > 0, v_cap / np.where(zc > 0, zc, 1.0), 0.0) * 1000.0
-    i_body_c = v_cap / np.abs(BODY_RESISTANCE_OHM + system.thevenin_impedance(peak_c)
-                              [chain_of_seg]) * 1000.0
+    i_body_c = v_cap / np.abs(BODY_RESISTANCE_OHM + zth_c) * 1000.0
 
     # longitudinal EMF of each chain (telecom ITU-T check): |sum of segment EMF|
     def chain_sum(values):
-        re = np.add.reduceat(values.real, chain_start) if n_seg else np.zeros(0)
-        im = np.add.reduceat(values.imag, chain_start) if n_seg else np.zeros(0)
+        re = np.add.reduceat(values.real, chain_start, axis=0)
+        im = np.add.reduceat(values.imag, chain_start, axis=0)
         return np.abs(re + 1j * im)
 
-    emf_sec_n = chain_sum(emf_n)[chain_of_seg] if n_seg else np.zeros(0)
-    if n_fcol:
-        per_col = np.stack([chain_sum(fault_rhs[:, j]) for j in range(n_fcol)], axis=1)
-        emf_sec_f = per_col.max(axis=1)[chain_of_seg]
+    if n_seg:
+        emf_sec_n = chain_sum(rhs[:, 0])[chain_of_seg]
+        emf_sec_f = (chain_sum(rhs[:, 2:]).max(axis=1)[chain_of_seg] if n_fcol
+                     else np.zeros(n_seg))
     else:
-        emf_sec_f = np.zeros(n_seg)
+        emf_sec_n = emf_sec_f = np.zeros(0)
     return Response(
         v_normal_v=v_n, i_normal_a=i_n, v_fault_v=v_f, i_fault_a=i_f,
         fault_case_of_segment=case_of_seg,
@@ -345,12 +414,13 @@ def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
         emf_section_normal_v=emf_sec_n, emf_section_fault_v=emf_sec_f,
         node_voltage_normal_v=sol.node_voltage_v[:, 0],
         node_voltage_fault_v=sol.node_voltage_v[:, 2:],
-        chain_start=chain_start, system=system, segment_emf_normal_v=emf_n,
-        fault_rhs=fault_rhs, fault_column_case=col_case, node_shunt_s=node_shunt,
-        rejected=rejected, fault_source_impedance_ohm=np.abs(zth_f),
-        touch_loading=loading, node_voltage_all_v=sol.node_voltage_v,
-        chain_of_segment=chain_of_seg)
+        chain_start=chain_start, system=system, segment_emf_normal_v=rhs[:, 0],
+        fault_rhs=rhs[:, 2:], fault_column_case=model.fault_column_case,
+        node_shunt_s=node_shunt, rejected=model.rejected,
+        fault_source_impedance_ohm=np.abs(zth_f), touch_loading=loading,
+        node_voltage_all_v=sol.node_voltage_v, chain_of_segment=chain_of_seg,
+        segments=seg_idx, nodes=node_idx, model=model)
 
 
-__all__ = ["Response", "respond", "chain_layout", "line_constants", "place_items",
-           "terminations"]
+__all__ = ["Response", "ResponseModel", "build_model", "solve_model", "respond", "chain_layout",
+           "line_constants", "place_items", "terminations"]
