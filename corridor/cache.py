@@ -39,6 +39,7 @@ generations are deleted afterwards, so a killed run leaves a usable cache.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import logging
@@ -135,8 +136,9 @@ def _split_digests(frame: gpd.GeoDataFrame) -> tuple[list[str], list[str]]:
     return geo, att
 
 
+@functools.lru_cache(maxsize=1)
 def code_fingerprint() -> str:
-    """SHA-256 over corridor's own source files (names and bytes)."""
+    """SHA-256 over corridor's own source files (names and bytes), once per process."""
     root = Path(__file__).resolve().parent
     h = hashlib.sha256()
     for p in sorted(root.rglob("*.py")):
@@ -537,7 +539,9 @@ def incremental_compute(cfg: Config, inputs: Inputs, stages: dict | None, folder
                    dtype=bool)
     cached: dict[str, pd.DataFrame] = {}
     if hit.any():
+        t_read = time.perf_counter()
         loaded = cache.load(set(ids[hit]))
+        timings["cache_read"] = round(time.perf_counter() - t_read, 4)
         if loaded is None or _REJECTED not in loaded or _COUNTS not in loaded:
             hit[:] = False
         else:

@@ -54,7 +54,7 @@ def _input_files(cfg: Config) -> list[Path]:
     return seen
 
 
-def test_pause(point: str) -> None:
+def pause_for_test(point: str) -> None:
     """Test hook: sleep at a named point when ``CORRIDOR_TEST_PAUSE_AT`` names it.
 
     ``CORRIDOR_TEST_PAUSE_AT`` is a comma list of points (``compute``, ``write``,
@@ -89,7 +89,7 @@ def write_outputs(run: Run, out_dir: Path) -> dict[str, Path]:
     seg = run.segment_table
     write_layer(run.exposure_table, paths["gpkg"], "exposures")
     write_layer(seg, paths["gpkg"], "segments")
-    test_pause("write")
+    pause_for_test("write")
     for name, table in run.extra_tables.items():
         if hasattr(table, "geometry") and name.startswith("layer:"):
             write_layer(table, paths["gpkg"], name.split(":", 1)[1])
@@ -177,7 +177,7 @@ def swap_in(tmp: Path, out_dir: Path) -> None:
     else:
         old = out_dir.parent / f".{out_dir.name}.old-{os.getpid()}"
         os.rename(out_dir, old)
-        test_pause("swap")
+        pause_for_test("swap")
         os.rename(tmp, out_dir)
         shutil.rmtree(old, ignore_errors=True)
     _fsync_dir(out_dir.parent)
@@ -239,7 +239,7 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
         raise InputError(["asset layers: no usable asset features; every one was rejected:"]
                          + [f"layer {r['layer']}: feature {r['feature_id']}: field"
                             f" '{r['field']}': {r['reason']}" for r in inputs.rejected.rows])
-    test_pause("compute")
+    pause_for_test("compute")
     progress.stage("compute", 2, total)
     t1 = time.perf_counter()
     keys = cache_mod.asset_keys(cfg, inputs)
