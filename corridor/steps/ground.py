@@ -111,8 +111,17 @@ def stage_ground(run) -> None:
     kinds = assets["asset_kind"].to_numpy(dtype=object)
     ids = assets["asset_id"].to_numpy(dtype=object)
     responsible = _lines_per_asset(run.segment_table, feat, n_assets)
-
-    table = run.segment_table.copy()
+    # an asset's nodes are contiguous: its chains follow each other
+    node_lo = np.searchsorted(node_asset, np.arange(n_assets), side="left")
+    node_hi = np.searchsorted(node_asset, np.arange(n_assets), side="right")
+    current = rs  # the solution whose system holds the current grounds
+    # working state as plain arrays (pandas per-row updates are slow)
+    base = pd.DataFrame({c: run.segment_table[c].to_numpy(dtype=object if c == "asset_kind"
+                                                          else None)
+                         for c in ("asset_kind", "length_m", "soil_resistivity_ohm_m")})
+    state = {c: run.segment_table[c].to_numpy().copy() for c in STATE_COLUMNS}
+    state["governing"] = state["governing"].astype(object)
+    soil = state["soil_resistivity_ohm_m"]
     node_v = rs.node_voltage_all_v.copy()  # global nodes, all cases
     extra = np.zeros(n_nodes, complex)
     has_site = rs.node_shunt_s != 0  # existing grounds are not proposed again
@@ -120,15 +129,15 @@ def stage_ground(run) -> None:
     n_sites = np.zeros(n_assets, np.int64)
     done = np.zeros(n_assets, bool)
     for _ in range(max_sites):
-        util = table["utilization"].to_numpy(float)
+        util = state["utilization"]
         worst_seg = _worst_segment_per_asset(util, feat, n_assets)
         worst_u = np.where(worst_seg >= 0, util[np.maximum(worst_seg, 0)], 0.0)
         active = np.flatnonzero((worst_u >= 1.0) & ~done & (n_sites < max_sites))
         if not len(active):
             break
-        gov = table["governing"].to_numpy(dtype=object)
-        epr = table["earth_potential_fault_v"].to_numpy(float)
-        v_fault = table["v_fault_v"].to_numpy(float)
+        gov = state["governing"]
+        epr = state["earth_potential_fault_v"]
+        v_fault = state["v_fault_v"]
         fault_case = run.response.fault_case_of_segment
         new_nodes = []
         for a in active:
@@ -140,7 +149,7 @@ def stage_ground(run) -> None:
             elif crit in ("coating_stress", "touch_fault", "step_fault") and epr[s] > v_fault[s]:
                 remedy = REMEDY_SEPARATION if crit == "coating_stress" else REMEDY_TOWER
             column = _case_column(case, fault_case[s], model.fault_column_case[a])
-            mine = np.flatnonzero((node_asset == a) & ~has_site)
+            mine = node_lo[a] + np.flatnonzero(~has_site[node_lo[a]:node_hi[a]])
             if len(mine) == 0:
                 done[a] = True
                 continue
@@ -149,17 +158,17 @@ def stage_ground(run) -> None:
             if remedy is not None:
                 sites.append(_site(ids[a], kinds[a], node_ch[k], node_x[k], node_y[k], gov[s],
                                    v0, v0, np.nan, remedy, responsible[a], worst_u[a],
-                                   table["soil_resistivity_ohm_m"].iat[s], len(sites)))
+                                   soil[s], len(sites)))
                 done[a] = True
                 continue
             new_nodes.append((a, k, column, gov[s], v0, worst_u[a], s))
         if not new_nodes:
             break
         solve_assets = np.array(sorted({n[0] for n in new_nodes}))
-        # Thevenin impedance at the chosen nodes, in the current state
-        before = solve_model(model, solve_assets, extra)
-        local = np.searchsorted(before.nodes, [n[1] for n in new_nodes])
-        zth = before.system.thevenin_impedance(local)
+        # Thevenin impedance at the chosen nodes, in the current state: the last
+        # solution covers every asset still active (the active set only shrinks)
+        local = np.searchsorted(current.nodes, [n[1] for n in new_nodes])
+        zth = current.system.thevenin_impedance(local)
         chosen = []
         for (a, k, _c, _g, v0, u, _s), z in zip(new_nodes, zth, strict=True):
             target = v0 / u * MARGIN
@@ -174,13 +183,14 @@ def stage_ground(run) -> None:
             has_site[lo:hi] |= node_asset[lo:hi] == a
             chosen.append(r_pick)
         after = solve_model(model, solve_assets, extra)
+        current = after
         node_v[after.nodes] = after.node_voltage_all_v
-        rows = table.iloc[after.segments].copy()
+        rows = base.iloc[after.segments].reset_index(drop=True)
         response_columns(run, after, rows)
         result = assess(run.limit_set, rows, categories(run, after.segments))
         _apply_assessment(rows, result)
-        table.iloc[after.segments, [table.columns.get_loc(c) for c in rows.columns]] = \
-            rows.to_numpy(dtype=object)
+        for c in STATE_COLUMNS:
+            state[c][after.segments] = rows[c].to_numpy()
         util_after = _max_per_asset(rows["utilization"].to_numpy(float), feat[after.segments],
                                     n_assets)
         for (a, k, column, g, v0, _u, s), r_pick in zip(new_nodes, chosen, strict=True):
@@ -188,13 +198,16 @@ def stage_ground(run) -> None:
                 else REMEDY_GROUND
             sites.append(_site(ids[a], kinds[a], node_ch[k], node_x[k], node_y[k], g, v0,
                                abs(node_v[k, column]), r_pick, remedy, responsible[a],
-                               util_after[a], table["soil_resistivity_ohm_m"].iat[s],
-                               len(sites)))
+                               util_after[a], soil[s], len(sites)))
             n_sites[a] += 1
-    table = table.infer_objects()
-    util = table["utilization"].to_numpy(float)
-    still = _max_per_asset(util, feat, n_assets) >= 1.0
+    still = _max_per_asset(state["utilization"], feat, n_assets) >= 1.0
     frame = pd.DataFrame(sites, columns=SITE_COLUMNS)
+    r = frame["ground_resistance_ohm"].to_numpy(float)
+    ok = np.isfinite(r)
+    length = np.full(len(frame), np.nan)
+    length[ok] = horizontal_electrode_length_m(r[ok], frame["soil_ohm_m"].to_numpy(float)[ok])
+    frame["electrode_length_m"] = length
+    frame = frame.drop(columns=["soil_ohm_m"])
     if len(frame):
         frame["unresolved"] = False
         last = frame.groupby("asset_id").tail(1).index
@@ -221,7 +234,10 @@ def stage_ground(run) -> None:
     run.extra_tables["csv:grounding_sites.csv"] = pd.DataFrame(frame)
     run.counts["grounding_sites"] = int((frame["ground_resistance_ohm"].notna()).sum())
     run.counts["assets_unresolved"] = int(frame["unresolved"].sum()) if len(frame) else 0
-    run.segment_table_after_grounding = table
+    after = run.segment_table.copy()
+    for c in STATE_COLUMNS:
+        after[c] = state[c]
+    run.segment_table_after_grounding = after
 
 
 def _lines_per_asset(t, feat, n_assets) -> list[str]:
@@ -244,7 +260,11 @@ def _max_per_asset(values, feat, n_assets):
 
 SITE_COLUMNS = ["asset_id", "asset_kind", "chainage_m", "x", "y", "governing", "v_before_v",
                 "v_after_v", "ground_resistance_ohm", "electrode_length_m", "remedy",
-                "line_ids", "utilization_after", "site_order"]
+                "line_ids", "utilization_after", "site_order", "soil_ohm_m"]
+
+#: Segment columns the grounding loop tracks while it re-solves.
+STATE_COLUMNS = ("utilization", "governing", "hazard_class", "v_normal_v", "v_fault_v",
+                 "v_touch_fault_v", "earth_potential_fault_v", "soil_resistivity_ohm_m")
 
 
 def _site(asset_id, kind, chainage_m, x, y, governing, v0, v1, r, remedy, line_ids,
@@ -253,12 +273,10 @@ def _site(asset_id, kind, chainage_m, x, y, governing, v0, v1, r, remedy, line_i
         "asset_id": asset_id, "asset_kind": kind,
         "chainage_m": float(chainage_m), "x": float(x), "y": float(y),
         "governing": str(governing), "v_before_v": float(v0), "v_after_v": float(v1),
-        "ground_resistance_ohm": float(r),
-        "electrode_length_m": (float(horizontal_electrode_length_m(r, soil_ohm_m))
-                               if np.isfinite(r) else np.nan),
+        "ground_resistance_ohm": float(r), "electrode_length_m": np.nan,
         "remedy": remedy, "line_ids": line_ids,
         "utilization_after": float(utilization_after),
-        "site_order": order,
+        "site_order": order, "soil_ohm_m": float(soil_ohm_m),
     }
 
 
