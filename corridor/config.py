@@ -60,6 +60,8 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
                          " footing.", (0.05, 50.0)),
     "grounding_menu_ohm": (list, "Ω", [10.0, 5.0, 2.0, 1.0], "Ground resistances the grounding"
                            " design may choose, easiest first.", None),
+    "output_formats": (list, "-", ["gpkg"], "Output layer formats: 'gpkg' always, plus 'fgb'"
+                       " (FlatGeobuf) and/or 'parquet' (GeoParquet), one file per layer.", None),
     "max_sites_per_asset": (int, "-", 6, "Largest number of grounding sites proposed on one"
                             " asset.", (1, 100)),
     "cache_dir": (str, "path", "auto", "Cache of per-asset results for incremental reruns"
@@ -202,7 +204,8 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
         return None
     for key in raw:
         if key not in LAYER_KEYS:
-            problems.append(f"{where}.{key}: unknown key (allowed: {', '.join(sorted(LAYER_KEYS))})")
+            allowed = ", ".join(sorted(LAYER_KEYS))
+            problems.append(f"{where}.{key}: unknown key (allowed: {allowed})")
     path = raw.get("path")
     if not isinstance(path, str):
         problems.append(f"{where}.path: required, a string")
@@ -363,7 +366,8 @@ def load_config(path: str | Path) -> Config:
     base = path.parent
     for key in raw:
         if key not in TOP_KEYS:
-            problems.append(f"{name}: {key}: unknown section (allowed: {', '.join(sorted(TOP_KEYS))})")
+            allowed = ", ".join(sorted(TOP_KEYS))
+            problems.append(f"{name}: {key}: unknown section (allowed: {allowed})")
 
     run: dict[str, Any] = {}
     raw_run = raw.get("run", {})
@@ -374,6 +378,14 @@ def load_config(path: str | Path) -> Config:
         value = raw_run.get(key, default)
         if typ is float and isinstance(value, int) and not isinstance(value, bool):
             value = float(value)
+        if key == "output_formats":
+            ok = isinstance(value, list) and all(v in ("gpkg", "fgb", "parquet") for v in value)
+            if not ok:
+                problems.append(f"{name}: run.{key}: expected a list of 'gpkg', 'fgb',"
+                                f" 'parquet', got {value!r}")
+                continue
+            run[key] = list(value)
+            continue
         if typ is list:
             ok = isinstance(value, list) and value and all(
                 isinstance(v, int | float) and not isinstance(v, bool) and v > 0 for v in value)
@@ -424,7 +436,8 @@ def load_config(path: str | Path) -> Config:
             if key not in kspecs or key == "asset_id":
                 problems.append(f"{name}: defaults.{kind}.{key}: unknown field for a {kind}")
                 continue
-            if kspecs[key].dtype == "float" and isinstance(value, int) and not isinstance(value, bool):
+            is_int = isinstance(value, int) and not isinstance(value, bool)
+            if kspecs[key].dtype == "float" and is_int:
                 value = float(value)
             err = _check_value(value, kspecs[key])
             if err:

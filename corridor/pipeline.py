@@ -68,6 +68,11 @@ class Run:
     extra_tables: dict[str, pd.DataFrame] = field(default_factory=dict)
     timings_s: dict[str, float] = field(default_factory=dict)
     counts: dict[str, int] = field(default_factory=dict)
+    limit_set: object = None
+    coupling: object = None
+    response: object = None
+    assessment: dict | None = None
+    segment_table_after_grounding: gpd.GeoDataFrame | None = None
 
 
 class _Timer:

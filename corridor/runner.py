@@ -81,25 +81,66 @@ def cache_folder(cfg: Config, out_dir: Path) -> Path | None:
     return (cfg.path.parent / value).resolve()
 
 
-def write_outputs(run: Run, out_dir: Path) -> dict[str, Path]:
-    """Write every output of a finished run into ``out_dir``."""
+#: Outputs that depend only on the per-asset results and the inputs: a run whose
+#: inputs are all unchanged since the previous run may reuse them as they are.
+REUSABLE_OUTPUTS = ("screening.gpkg", "exposures.csv", "rejected.csv", "grounding_sites.csv")
+
+
+def write_outputs(run: Run, out_dir: Path, previous: dict | None = None,
+                  reuse_from: Path | None = None) -> dict[str, Path]:
+    """Write every output of a finished run into ``out_dir``.
+
+    Parameters
+    ----------
+    previous : dict, optional
+        The previous run's run.json, for the report's change section.
+    reuse_from : Path, optional
+        The previous output folder, when every input is unchanged since then:
+        its layer files are copied instead of written again (same bytes as a
+        fresh write would give in content; much faster for large runs).
+    """
+    from corridor.io.formats import write_extra_formats
+    from corridor.io.styles import apply_styles
+    from corridor.report import write_report
+
     out_dir.mkdir(parents=True, exist_ok=True)
     paths = output_paths(out_dir)
     t0 = time.perf_counter()
-    seg = run.segment_table
-    write_layer(run.exposure_table, paths["gpkg"], "exposures")
-    write_layer(seg, paths["gpkg"], "segments")
-    pause_for_test("write")
-    for name, table in run.extra_tables.items():
-        if hasattr(table, "geometry") and name.startswith("layer:"):
-            write_layer(table, paths["gpkg"], name.split(":", 1)[1])
-    write_csv(run.exposure_table.drop(columns="geometry"), paths["exposures_csv"])
-    write_csv(run.inputs.rejected.frame(), paths["rejected_csv"])
+    formats = list(run.config.run.get("output_formats", ["gpkg"]))
+    reused = False
+    if reuse_from is not None and all((reuse_from / n).exists() for n in REUSABLE_OUTPUTS):
+        for name in REUSABLE_OUTPUTS:
+            shutil.copy2(reuse_from / name, out_dir / name)
+        for fmt_file in reuse_from.iterdir():
+            if fmt_file.suffix in (".fgb", ".parquet"):
+                shutil.copy2(fmt_file, out_dir / fmt_file.name)
+        reused = True
+        log.info("inputs unchanged since the previous run: its layers are reused")
+    if not reused:
+        seg = run.segment_table
+        write_layer(run.exposure_table, paths["gpkg"], "exposures")
+        write_layer(seg, paths["gpkg"], "segments")
+        pause_for_test("write")
+        layers = ["exposures", "segments"]
+        for name, table in run.extra_tables.items():
+            if hasattr(table, "geometry") and name.startswith("layer:"):
+                write_layer(table, paths["gpkg"], name.split(":", 1)[1])
+                layers.append(name.split(":", 1)[1])
+        apply_styles(paths["gpkg"], layers,
+                     review_threshold=getattr(run.limit_set, "review_threshold", 0.5))
+        write_extra_formats(run, out_dir, formats)
+        write_csv(run.exposure_table.drop(columns="geometry"), paths["exposures_csv"])
+        write_csv(run.inputs.rejected.frame(), paths["rejected_csv"])
+    else:
+        pause_for_test("write")
     for name, table in run.extra_tables.items():
         if name.startswith("csv:"):
             target = out_dir / name.split(":", 1)[1]
-            write_csv(pd.DataFrame(table.drop(columns="geometry", errors="ignore")), target)
+            if not (reused and target.name in REUSABLE_OUTPUTS):
+                write_csv(pd.DataFrame(table.drop(columns="geometry", errors="ignore")),
+                          target)
             paths[target.stem] = target
+    run.counts["outputs_reused"] = int(reused)
     run.timings_s["write"] = round(time.perf_counter() - t0, 4)
     record = {
         "caution": SAFETY_CAUTION,
@@ -117,7 +158,27 @@ def write_outputs(run: Run, out_dir: Path) -> dict[str, Path]:
     }
     record.update(run.extra_tables.get("json", {}))
     write_json(record, paths["run_json"])
+    t1 = time.perf_counter()
+    paths["report"] = write_report(run, out_dir, previous)
+    run.timings_s["report"] = round(time.perf_counter() - t1, 4)
     return paths
+
+
+def inputs_unchanged(run: Run, previous_record: dict | None) -> bool:
+    """True when every input file, every asset key and the config match the last run."""
+    if not previous_record:
+        return False
+    if run.counts.get("assets_recomputed", 1) != 0:
+        return False
+    try:
+        before = {(d["path"], d["sha256"]) for d in previous_record.get("inputs", [])}
+    except (TypeError, KeyError):
+        return False
+    now = {(str(p), sha256_file(p)) for p in _input_files(run.config)}
+    state = run.extra_tables.get("json", {}).get("inputs_state")
+    return (before == now and state is not None
+            and previous_record.get("inputs_state") == state
+            and previous_record.get("versions", {}).get("corridor") == versions()["corridor"])
 
 
 # -- swapping and recovery ----------------------------------------------------
@@ -307,7 +368,9 @@ def publish(cfg: Config, out_dir: Path | None = None, stages: dict | None = None
         try:
             log.info("corridor run of %s into %s (PID %d)", cfg.path, out_dir, os.getpid())
             run = screen(cfg, out_dir, stages, final_stages)
-            write_outputs(run, tmp)
+            previous = _previous_record(out_dir)
+            reuse = out_dir if inputs_unchanged(run, previous) else None
+            write_outputs(run, tmp, previous, reuse_from=reuse)
             log.info("assets recomputed: %d, from cache: %d; outputs complete, publishing",
                      run.counts.get("assets_recomputed", 0),
                      run.counts.get("assets_from_cache", 0))
@@ -343,6 +406,15 @@ def publish(cfg: Config, out_dir: Path | None = None, stages: dict | None = None
             handler.close()
             if tmp.exists() and not published:
                 shutil.rmtree(tmp, ignore_errors=True)
+
+
+def _previous_record(out_dir: Path) -> dict | None:
+    import json
+
+    try:
+        return json.loads((out_dir / "run.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
 
 
 def run_and_publish(cfg: Config, out_dir: Path | None = None) -> Run:

@@ -425,7 +425,8 @@ def read_inputs(cfg: Config) -> Inputs:
     dup = assets["asset_id"].duplicated(keep=False)
     if dup.any():
         names = sorted(set(assets.loc[dup, "asset_id"]))
-        raise InputError(f"asset layers: duplicate asset ids across layers: {', '.join(names[:10])}")
+        raise InputError("asset layers: duplicate asset ids across layers: "
+                         + ", ".join(names[:10]))
     assets = gpd.GeoDataFrame(assets, geometry="geometry", crs=crs)
     counts = {"power_lines": len(lines), "assets": len(assets),
               "rejected": len(rejected.rows)}
@@ -454,7 +455,8 @@ def _read_assets(src, cfg, crs, rejected, warnings, allow, raw) -> gpd.GeoDataFr
         ids = _feature_ids(raw, id_col)
         for i in np.flatnonzero(bad_kind.to_numpy()):
             rejected.add(src.label, ids.iloc[i], src.fields.get("asset_kind", "asset_kind"),
-                         f"unknown asset kind {kinds.iloc[i]!r} (allowed: {', '.join(ASSET_KINDS)})")
+                         f"unknown asset kind {kinds.iloc[i]!r}"
+                         f" (allowed: {', '.join(ASSET_KINDS)})")
     for kind in ASSET_KINDS:
         part = raw[(kinds == kind).to_numpy()]
         if len(part) == 0:

@@ -93,15 +93,22 @@ def response_columns(run, rs, t) -> None:
     t["emf_section_fault_v"] = np.where(kind == "telecom", rs.emf_section_fault_v, np.nan)
 
 
-def stage_assess(run) -> None:
-    """Ratios to the limit set, utilization, governing criterion, class, rank."""
+def load_run_limit_set(run):
+    """The run's limit set (loaded once and kept on the run)."""
     from corridor.limits.limit_sets import load_limit_set
+
+    if run.limit_set is None:
+        cfg = run.config
+        run.limit_set = load_limit_set(cfg.run["limit_set"], dict(cfg.limit_overrides) or None,
+                                       search_dir=LIMITS_DIR)
+    return run.limit_set
+
+
+def stage_assess(run) -> None:
+    """Ratios to the limit set, utilization, governing criterion, class."""
     from corridor.steps.assess import assess
 
-    cfg = run.config
-    limit_set = load_limit_set(cfg.run["limit_set"], dict(cfg.limit_overrides) or None,
-                               search_dir=LIMITS_DIR)
-    run.limit_set = limit_set
+    limit_set = load_run_limit_set(run)
     t = run.segment_table
     res = assess(limit_set, t, categories(run))
     run.assessment = res
@@ -128,6 +135,7 @@ def categories(run, sel=None) -> dict:
 
 def stage_rank(run) -> None:
     """Rank 1 is the worst segment of the run; ties by asset id, then chainage."""
+    load_run_limit_set(run)  # merged (cached) runs did not assess in this process
     t = run.segment_table
     order = np.lexsort((t["chainage_m"].to_numpy(), t["asset_id"].to_numpy(dtype=str),
                         -t["utilization"].to_numpy(float)))
