@@ -6,41 +6,84 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 
+#: Columns of the ``hazards`` layer (the segments at or above the review threshold).
+HAZARD_COLUMNS = (
+    "rank", "segment_id", "asset_id", "asset_kind", "chainage_m", "length_m", "hazard_class",
+    "utilization", "governing", "line_id", "fault_line_id", "separation_m", "v_normal_v",
+    "v_fault_v", "v_touch_fault_v", "v_coating_stress_v", "ac_density_a_per_m2",
+    "v_capacitive_open_v", "i_capacitive_short_ma", "i_capacitive_body_ma", "i_normal_body_ma",
+    "earth_potential_fault_v", "emf_section_fault_v", "clearing_time_s",
+)
 
-def hazards_layer(t: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
-    """Segments ranked across the run, worst first."""
-    return t.sort_values("rank", kind="stable").reset_index(drop=True)
+
+def hazards_layer(t: gpd.GeoDataFrame, review_threshold: float = 0.5) -> gpd.GeoDataFrame:
+    """Segments at or above the review threshold, worst first, with the deciding columns."""
+    util = t["utilization"].to_numpy(float)
+    sel = np.flatnonzero(util >= review_threshold)
+    sel = sel[np.argsort(t["rank"].to_numpy()[sel], kind="stable")]
+    cols = [c for c in HAZARD_COLUMNS if c in t.columns]
+    out = t.iloc[sel][cols + [t.geometry.name]].reset_index(drop=True)
+    return gpd.GeoDataFrame(out, geometry=t.geometry.name, crs=t.crs)
+
+
+def _asset_index(t, assets) -> np.ndarray:
+    pos = pd.Index(assets["asset_id"].astype(object))
+    return pos.get_indexer(t["asset_id"].astype(object))
+
+
+def responsible_lines(t, a_idx: np.ndarray, n_assets: int) -> list[str]:
+    """';'-joined ids of the lines that put utilization > 0 on each asset."""
+    util = t["utilization"].to_numpy(float)
+    frames = []
+    for col in ("line_id", "fault_line_id"):
+        v = t[col].to_numpy(dtype=object)
+        keep = (v != "") & (util > 0)
+        frames.append(pd.DataFrame({"a": a_idx[keep], "l": v[keep]}))
+    pairs = pd.concat(frames).drop_duplicates().sort_values(["a", "l"])
+    joined = pairs.groupby("a", sort=True)["l"].agg(";".join)
+    out = [""] * n_assets
+    for a, s in zip(joined.index, joined.to_numpy(), strict=True):
+        out[a] = s
+    return out
 
 
 def assets_layer(run) -> gpd.GeoDataFrame:
     """One row per asset: worst utilization, length over the limit, governing, lines."""
     t = run.segment_table
     assets = run.inputs.assets
-    over = t["utilization"].to_numpy(float) >= 1.0
-    g = t.assign(_over_m=np.where(over, t["length_m"], 0.0))
-    worst_idx = g.groupby("asset_id", sort=False)["utilization"].idxmax()
-    agg = g.groupby("asset_id", sort=False).agg(
-        length_m=("length_m", "sum"), length_over_limit_m=("_over_m", "sum"))
-    worst = g.loc[worst_idx.to_numpy(), ["asset_id", "utilization", "governing", "hazard_class",
-                                         "chainage_m", "v_normal_v", "v_fault_v",
-                                         "i_capacitive_short_ma"]]
-    worst = worst.rename(columns={"utilization": "worst_utilization",
-                                  "chainage_m": "worst_chainage_m",
-                                  "v_normal_v": "worst_v_normal_v",
-                                  "v_fault_v": "worst_v_fault_v",
-                                  "i_capacitive_short_ma": "worst_i_capacitive_short_ma"})
+    n = len(assets)
+    a_idx = _asset_index(t, assets)
+    util = t["utilization"].to_numpy(float)
+    length = t["length_m"].to_numpy(float)
+    total = np.bincount(a_idx, weights=length, minlength=n)
+    over = np.bincount(a_idx, weights=np.where(util >= 1.0, length, 0.0), minlength=n)
+    # worst segment per asset: highest utilization, then lowest chainage (deterministic)
+    order = np.lexsort((t["chainage_m"].to_numpy(float), -util, a_idx))
+    first = np.r_[True, a_idx[order][1:] != a_idx[order][:-1]]
+    worst = np.full(n, -1, np.int64)
+    worst[a_idx[order][first]] = order[first]
+    has = worst >= 0
+    w = np.where(has, worst, 0)
 
-    def lines_of(frame):
-        s = set(frame["line_id"][frame["line_id"] != ""]) | set(
-            frame["fault_line_id"][frame["fault_line_id"] != ""])
-        return ";".join(sorted(s))
+    def pick(col, fill):
+        v = t[col].to_numpy()
+        return np.where(has, v[w], fill)
 
-    responsible = {aid: lines_of(fr) for aid, fr in t[t["utilization"] > 0].groupby("asset_id")}
-    out = pd.DataFrame({"asset_id": assets["asset_id"], "asset_kind": assets["asset_kind"],
-                        "source_layer": assets["source_layer"]})
-    out = out.merge(agg.reset_index(), on="asset_id", how="left").merge(
-        worst, on="asset_id", how="left")
-    out["line_ids"] = out["asset_id"].map(responsible).fillna("")
+    out = pd.DataFrame({
+        "asset_id": assets["asset_id"].to_numpy(dtype=object),
+        "asset_kind": assets["asset_kind"].to_numpy(dtype=object),
+        "source_layer": assets["source_layer"].to_numpy(dtype=object),
+        "length_m": total,
+        "length_over_limit_m": over,
+        "worst_utilization": pick("utilization", np.nan).astype(float),
+        "governing": pick("governing", "").astype(object),
+        "hazard_class": pick("hazard_class", "").astype(object),
+        "worst_chainage_m": pick("chainage_m", np.nan).astype(float),
+        "worst_v_normal_v": pick("v_normal_v", np.nan).astype(float),
+        "worst_v_fault_v": pick("v_fault_v", np.nan).astype(float),
+        "worst_i_capacitive_short_ma": pick("i_capacitive_short_ma", np.nan).astype(float),
+        "line_ids": responsible_lines(t, a_idx, n),
+    })
     out = gpd.GeoDataFrame(out, geometry=assets.geometry.to_numpy(), crs=assets.crs)
     order = np.lexsort((out["asset_id"].to_numpy(dtype=str),
                         -out["worst_utilization"].to_numpy(float)))
@@ -50,5 +93,6 @@ def assets_layer(run) -> gpd.GeoDataFrame:
 
 
 def stage_tables(run) -> None:
-    run.extra_tables["layer:hazards"] = hazards_layer(run.segment_table)
+    threshold = getattr(run.limit_set, "review_threshold", 0.5)
+    run.extra_tables["layer:hazards"] = hazards_layer(run.segment_table, threshold)
     run.extra_tables["layer:assets"] = assets_layer(run)
