@@ -92,14 +92,92 @@ def _col(assets, name, default):
     return np.full(len(assets), default)
 
 
+#: Per-segment values of an asset attribute (missing or NaN take the default).
+asset_column = _col
+
+
+def _pipeline_constants(s):
+    """Coated steel pipeline: finite-wall steel impedance, surface earth return, coating leakage."""
+    f = s.frequency_hz
+    d = s.column("diameter_m", 0.508)
+    mu_r = s.column("steel_relative_permeability", 300.0)
+    zint = conductors.pipe_internal_impedance(
+        d, relative_permeability=mu_r, frequency_hz=f,
+        wall_thickness_m=s.column("wall_thickness_m", 0.0095))
+    zext = earth_return.self_impedance(s.height_m, d / 2, 0.0, s.soil_resistivity_ohm_m, f)
+    lc = asset_models.pipeline_line_constants(
+        d, s.column("coating_resistance_ohm_m2", 1e5), f, earth_return_self_ohm_per_m=zext)
+    # the physics core's finite-wall internal impedance replaces the thin-skin one
+    z_thin = asset_models.pipe_internal_impedance(d, f, asset_models.STEEL_RESISTIVITY_OHM_M,
+                                                  mu_r)
+    return lc.z_ohm_per_m - z_thin + zint, lc.y_s_per_m
+
+
+def _fence_constants(s):
+    """Wire fence: bonded wires, post leakage (metal posts) and capacitance to earth."""
+    hh = np.maximum(s.height_m, 0.1)
+    rw = s.column("wire_radius_m", 0.00125)
+    cap = 2 * np.pi * EPS0_F_PER_M / np.log(2 * hh / rw)
+    lc = asset_models.fence_line_constants(
+        s.column("wire_count", 4).astype(np.int64), rw, s.column("post_spacing_m", 3.0),
+        s.column("post_resistance_ohm", 100.0), s.column("post_type", "metal").astype(str),
+        s.frequency_hz, soil_resistivity_ohm_m=s.soil_resistivity_ohm_m,
+        capacitance_f_per_m=cap)
+    return lc.z_ohm_per_m, lc.y_s_per_m
+
+
+def _rail_constants(s):
+    """Railway track: rail equivalent conductor, surface earth return, ballast leakage."""
+    f = s.frequency_hz
+    rail = conductors.rail_equivalent(frequency_hz=f)
+    # two rails in parallel: internal impedance halved; the rails' DC
+    # resistance attribute raises the resistive part where it is larger
+    r_attr = s.column("rail_resistance_ohm_per_km", 0.03) / 1000.0
+    zint = rail.internal_impedance_ohm_per_m / 2
+    zint = zint + np.maximum(r_attr - zint.real, 0.0)
+    zext = earth_return.self_impedance(0.0, rail.equivalent_radius_m * 2.0, 0.0,
+                                       s.soil_resistivity_ohm_m, f)
+    lc = asset_models.rail_line_constants(
+        s.column("ballast_resistance_ohm_km", 5.0),
+        track_impedance_ohm_per_km=(zint + zext) * 1000.0)
+    return lc.z_ohm_per_m, lc.y_s_per_m
+
+
+def _telecom_constants(s):
+    """Telecom pair against earth; the EMF is scaled by the sheath screening factor."""
+    rc = s.column("conductor_radius_m", 0.01)
+    zext = earth_return.self_impedance(s.height_m, rc, 0.0, s.soil_resistivity_ohm_m,
+                                       s.frequency_hz)
+    lc = asset_models.telecom_line_constants(rc, s.frequency_hz, earth_return_self_ohm_per_m=zext)
+    return lc.z_ohm_per_m, lc.y_s_per_m, s.column("screening_factor", 1.0)
+
+
+#: Line-constant models of the built-in kinds (plugins register theirs in
+#: :mod:`corridor.registry`).
+BUILTIN_LINE_CONSTANTS = {
+    "pipeline": _pipeline_constants,
+    "fence": _fence_constants,
+    "rail": _rail_constants,
+    "telecom": _telecom_constants,
+}
+
+
 def line_constants(cfg, assets, seg, soil_ohm_m):
     """Series impedance and shunt admittance of every segment.
+
+    Each kind's segments go to the kind's model in the registry
+    (:meth:`corridor.registry.Registry.line_constant_model`), which gets a
+    :class:`corridor.registry.KindSegments` and returns z [Ω/m], y [S/m] and
+    optionally an EMF scale factor [-].
 
     Returns
     -------
     z_ohm_per_m, y_s_per_m : ndarray of complex, per segment
     emf_scale : ndarray, per segment (sheath screening factor for telecom, else 1)
     """
+    from corridor.errors import ConfigError
+    from corridor.registry import KindSegments, registry
+
     f = cfg.run["frequency_hz"]
     kind = assets["asset_kind"].to_numpy(dtype=object)[seg.feature]
     n = len(seg)
@@ -108,55 +186,24 @@ def line_constants(cfg, assets, seg, soil_ohm_m):
     scale = np.ones(n)
     a = seg.feature
     h = _col(assets, "height_m", 0.0)[a]
-    rho = soil_ohm_m
-    sel = kind == "pipeline"
-    if sel.any():
-        d = _col(assets, "diameter_m", 0.508)[a][sel]
-        zint = conductors.pipe_internal_impedance(
-            d, relative_permeability=_col(assets, "steel_relative_permeability", 300.0)[a][sel],
-            frequency_hz=f, wall_thickness_m=_col(assets, "wall_thickness_m", 0.0095)[a][sel])
-        zext = earth_return.self_impedance(h[sel], d / 2, 0.0, rho[sel], f)
-        lc = asset_models.pipeline_line_constants(
-            d, _col(assets, "coating_resistance_ohm_m2", 1e5)[a][sel], f,
-            earth_return_self_ohm_per_m=zext)
-        # the physics core's finite-wall internal impedance replaces the thin-skin one
-        z_thin = asset_models.pipe_internal_impedance(d, f, asset_models.STEEL_RESISTIVITY_OHM_M,
-                                                      _col(assets, "steel_relative_permeability",
-                                                           300.0)[a][sel])
-        z[sel] = lc.z_ohm_per_m - z_thin + zint
-        y[sel] = lc.y_s_per_m
-    sel = kind == "fence"
-    if sel.any():
-        hh = np.maximum(h[sel], 0.1)
-        rw = _col(assets, "wire_radius_m", 0.00125)[a][sel]
-        cap = 2 * np.pi * EPS0_F_PER_M / np.log(2 * hh / rw)
-        post_type = _col(assets, "post_type", "metal")[a][sel].astype(str)
-        lc = asset_models.fence_line_constants(
-            _col(assets, "wire_count", 4)[a][sel].astype(np.int64), rw,
-            _col(assets, "post_spacing_m", 3.0)[a][sel],
-            _col(assets, "post_resistance_ohm", 100.0)[a][sel], post_type, f,
-            soil_resistivity_ohm_m=rho[sel], capacitance_f_per_m=cap)
-        z[sel], y[sel] = lc.z_ohm_per_m, lc.y_s_per_m
-    sel = kind == "rail"
-    if sel.any():
-        rail = conductors.rail_equivalent(frequency_hz=f)
-        # two rails in parallel: internal impedance halved; the rails' DC
-        # resistance attribute raises the resistive part where it is larger
-        r_attr = _col(assets, "rail_resistance_ohm_per_km", 0.03)[a][sel] / 1000.0
-        zint = rail.internal_impedance_ohm_per_m / 2
-        zint = zint + np.maximum(r_attr - zint.real, 0.0)
-        zext = earth_return.self_impedance(0.0, rail.equivalent_radius_m * 2.0, 0.0, rho[sel], f)
-        lc = asset_models.rail_line_constants(
-            _col(assets, "ballast_resistance_ohm_km", 5.0)[a][sel],
-            track_impedance_ohm_per_km=(zint + zext) * 1000.0)
-        z[sel], y[sel] = lc.z_ohm_per_m, lc.y_s_per_m
-    sel = kind == "telecom"
-    if sel.any():
-        rc = _col(assets, "conductor_radius_m", 0.01)[a][sel]
-        zext = earth_return.self_impedance(h[sel], rc, 0.0, rho[sel], f)
-        lc = asset_models.telecom_line_constants(rc, f, earth_return_self_ohm_per_m=zext)
-        z[sel], y[sel] = lc.z_ohm_per_m, lc.y_s_per_m
-        scale[sel] = _col(assets, "screening_factor", 1.0)[a][sel]
+    present = set(kind.tolist())
+    unknown = present.difference(registry.kind_names())
+    if unknown:
+        raise ConfigError(f"asset kinds without a registered model: {', '.join(sorted(unknown))}")
+    for name in registry.kind_names():
+        if name not in present:
+            continue
+        sel = kind == name
+        out = registry.line_constant_model(name)(KindSegments(
+            kind=name, frequency_hz=f, soil_resistivity_ohm_m=soil_ohm_m[sel],
+            height_m=h[sel], assets=assets, feature=a[sel]))
+        if len(out) not in (2, 3):
+            raise ConfigError(f"line-constant model of {name!r}: expected (z, y) or"
+                              f" (z, y, emf_scale), got {len(out)} values")
+        z[sel] = out[0]
+        y[sel] = out[1]
+        if len(out) == 3:
+            scale[sel] = out[2]
     return z, y, scale
 
 
@@ -347,18 +394,24 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
         counts = np.diff(np.r_[model.chain_start, len(model.feature)])[chains]
         chain_start = np.cumsum(counts) - counts
         chain_of_seg = np.repeat(np.arange(len(chains)), counts)
-    node_shunt = model.node_shunt_s[node_idx]
+    whole = assets is None
+
+    def part(values, index):  # no copy when the whole model is solved
+        return values if whole else values[index]
+
+    node_shunt = part(model.node_shunt_s, node_idx)
     if extra_node_shunt_s is not None:
-        node_shunt = node_shunt + extra_node_shunt_s[node_idx]
-    batch = ChainBatch.from_arrays(model.segment_length_m[seg_idx], model.z_ohm_per_m[seg_idx],
-                                   model.y_s_per_m[seg_idx], chain_start, node_shunt,
-                                   model.segment_break[seg_idx], model.y_start_s[chains],
-                                   model.y_end_s[chains])
+        node_shunt = node_shunt + part(extra_node_shunt_s, node_idx)
+    batch = ChainBatch.from_arrays(part(model.segment_length_m, seg_idx),
+                                   part(model.z_ohm_per_m, seg_idx),
+                                   part(model.y_s_per_m, seg_idx), chain_start, node_shunt,
+                                   part(model.segment_break, seg_idx),
+                                   part(model.y_start_s, chains), part(model.y_end_s, chains))
     system = ChainSystem(batch)
-    rhs = model.rhs_v[seg_idx]
+    rhs = part(model.rhs_v, seg_idx)
     n_fcol = model.n_fault_columns
-    sol = system.solve(rhs, node_current_a=model.injection_a[node_idx])
-    feat = model.feature[seg_idx]
+    sol = system.solve(rhs, node_current_a=part(model.injection_a, node_idx), current_cases=[0])
+    feat = part(model.feature, seg_idx)
 
     v_n = sol.segment_voltage_v[:, 0]
     i_n = sol.segment_current_a[:, 0]
@@ -367,7 +420,7 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
         vf_all = sol.segment_voltage_v[:, 2:]
         best = np.argmax(vf_all, axis=1)
         v_f = vf_all[np.arange(n_seg), best]
-        i_f = sol.segment_current_a[:, 2:][np.arange(n_seg), best]
+        i_f = system.currents_at(sol.node_voltage_v, rhs, 2 + best)
         case_of_seg = model.fault_column_case[feat, best]
         v_f = np.where(case_of_seg >= 0, v_f, 0.0)
         i_f = np.where(case_of_seg >= 0, i_f, 0.0)
