@@ -70,6 +70,21 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
                   " value: a folder relative to the config file.", None),
     "change_threshold": (float, "-", 0.1, "Change of an asset's worst utilization since the"
                          " previous run that changes.csv reports as moved.", (0.0, 100.0)),
+    "backend": (str, "-", "local", "Where the per-asset compute runs: 'local' (this process)"
+                " or 'dask' (a dask.distributed cluster, spatial partitions of whole assets;"
+                " needs the 'dask' extra).", None),
+    "scheduler_address": (str, "-", "", "Dask scheduler to use with backend 'dask' (e.g."
+                          " 'tcp://10.0.0.5:8786'); '': start a LocalCluster on this machine"
+                          " for the run.", None),
+    "dask_workers": (int, "-", 2, "Workers of the LocalCluster started when"
+                     " scheduler_address is empty (one thread each).", (1, 256)),
+    "dask_processes": (bool, "-", True, "LocalCluster workers are processes (true) or threads"
+                       " of this process (false; GEOS and LAPACK release the GIL).", None),
+    "partitions": (int, "-", 0, "Spatial partitions of whole assets with backend 'dask'; 0:"
+                   " max(2, estimated segments / 500,000).", (0, 100000)),
+    "work_dir": (str, "path", "", "Folder for the partition files of backend 'dask', relative"
+                 " to the config file; must be reachable by every worker. '': beside the"
+                 " output folder.", None),
 }
 
 LINE_DEFAULT_KEYS = {
@@ -364,6 +379,13 @@ def load_config(path: str | Path) -> Config:
         raise ConfigError(f"{name}: not valid TOML: {exc}") from None
     problems: list[str] = []
     base = path.parent
+    from corridor.registry import load_plugins
+
+    try:  # plugins (asset kinds, limit sets) load once, here; a failure names the plugin
+        plugin_registry = load_plugins()
+    except ConfigError as exc:
+        problems.extend(exc.problems)
+        plugin_registry = None
     for key in raw:
         if key not in TOP_KEYS:
             allowed = ", ".join(sorted(TOP_KEYS))
@@ -400,6 +422,8 @@ def load_config(path: str | Path) -> Config:
             problems.append(f"{name}: run.{key}: {value} [{unit}] outside the valid range"
                             f" {rng[0]}..{rng[1]}")
         run[key] = value
+    if plugin_registry is not None and "limit_set" in run:
+        run["limit_set"] = plugin_registry.resolve_limit_set(run["limit_set"])
     if run.get("crs"):
         try:
             from pyproj import CRS

@@ -7,6 +7,7 @@ human version of this module.
 
 from __future__ import annotations
 
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
 
@@ -40,7 +41,8 @@ class FieldSpec:
     doc: str = ""
 
 
-ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
+#: The asset kinds corridor ships with; plugins add more (:mod:`corridor.registry`).
+BUILTIN_ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
 TERMINATIONS = ("open", "grounded", "continuing")
 
 LINE_FIELDS: tuple[FieldSpec, ...] = (
@@ -76,7 +78,7 @@ COMMON_ASSET_FIELDS: tuple[FieldSpec, ...] = (
               doc="Resistance to earth of a grounded end [Ω]."),
 )
 
-KIND_FIELDS: dict[str, tuple[FieldSpec, ...]] = {
+BUILTIN_KIND_FIELDS: dict[str, tuple[FieldSpec, ...]] = {
     "pipeline": (
         FieldSpec("diameter_m", "float", low=0.01, high=3.0, doc="Outer diameter [m]."),
         FieldSpec("wall_thickness_m", "float", low=0.001, high=0.1, doc="Wall thickness [m]."),
@@ -128,7 +130,7 @@ GROUND_FIELDS: tuple[FieldSpec, ...] = (
 
 #: Built-in defaults per asset kind. Values are typical of the trade; each
 #: carries its provenance. The config's ``[defaults.<kind>]`` overrides them.
-KIND_DEFAULTS: dict[str, dict[str, object]] = {
+BUILTIN_KIND_DEFAULTS: dict[str, dict[str, object]] = {
     "pipeline": {
         "height_m": -1.5,  # typical depth of cover 1-2 m (common practice)
         "start_termination": "continuing",  # pipelines run on past the data (common practice)
@@ -172,6 +174,68 @@ KIND_DEFAULTS: dict[str, dict[str, object]] = {
 }
 
 
+class _Kinds(Sequence):
+    """Live tuple-like view of the registered asset kinds (built-ins, then plugins)."""
+
+    def _names(self) -> tuple[str, ...]:
+        from corridor.registry import registry
+
+        return registry.kind_names()
+
+    def __getitem__(self, i):
+        return self._names()[i]
+
+    def __len__(self) -> int:
+        return len(self._names())
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._names())
+
+    def __contains__(self, kind) -> bool:
+        return kind in self._names()
+
+    def __eq__(self, other) -> bool:
+        return tuple(self) == tuple(other) if isinstance(other, Sequence) else NotImplemented
+
+    __hash__ = None
+
+    def __repr__(self) -> str:
+        return repr(self._names())
+
+
+class _KindTable(Mapping):
+    """Live read-only mapping kind -> one attribute of the registered kind."""
+
+    def __init__(self, attribute: str):
+        self._attribute = attribute
+
+    def __getitem__(self, kind):
+        from corridor.registry import registry
+
+        try:
+            value = getattr(registry.kind(kind), self._attribute)
+        except KeyError:
+            raise KeyError(kind) from None
+        return dict(value) if isinstance(value, Mapping) else value
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(ASSET_KINDS)
+
+    def __len__(self) -> int:
+        return len(ASSET_KINDS)
+
+    def __repr__(self) -> str:
+        return repr(dict(self))
+
+
+#: Every registered asset kind (live: includes the kinds plugins add).
+ASSET_KINDS: Sequence[str] = _Kinds()
+#: kind -> its own field specs (live).
+KIND_FIELDS: Mapping[str, tuple[FieldSpec, ...]] = _KindTable("fields")
+#: kind -> default of every field but ``asset_id`` (live; a fresh dict per lookup).
+KIND_DEFAULTS: Mapping[str, dict[str, object]] = _KindTable("defaults")
+
+
 def asset_fields(kind: str) -> tuple[FieldSpec, ...]:
-    """Return every field spec of an asset of ``kind``."""
+    """Return every field spec of an asset of ``kind`` (built in or from a plugin)."""
     return COMMON_ASSET_FIELDS + KIND_FIELDS[kind]
