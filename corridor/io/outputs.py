@@ -46,7 +46,7 @@ def write_csv(frame: pd.DataFrame, path: Path, caution: bool = True) -> None:
     with open(path, "w", newline="", encoding="utf-8") as fh:
         if caution:
             fh.write(f"# {SAFETY_CAUTION}\n")
-        frame.to_csv(fh, index=False, float_format="%.6g", quoting=csv.QUOTE_MINIMAL,
+        frame.to_csv(fh, index=False, float_format="%.12g", quoting=csv.QUOTE_MINIMAL,
                      lineterminator="\n")
 
 
