@@ -483,14 +483,20 @@ def build_exposures(pairs: Pairs, segments: Segments, eq_sep_m: np.ndarray) -> E
 
 
 def nearest_line(pairs: Pairs, n_segments: int) -> np.ndarray:
-    """Index into ``pairs`` of each segment's nearest line, -1 where none is in reach."""
+    """Index into ``pairs`` of each segment's nearest line, -1 where none is in reach.
+
+    Pairs are sorted by segment then line, so each segment's rows are
+    contiguous; ties in separation go to the lower line index.
+    """
     out = np.full(n_segments, -1, dtype=np.int64)
     if len(pairs) == 0:
         return out
-    order = np.lexsort((pairs.line, pairs.separation_m, pairs.segment))
-    seg = pairs.segment[order]
-    first = np.r_[True, seg[1:] != seg[:-1]]
-    out[seg[first]] = order[first]
+    seg = pairs.segment
+    starts = np.flatnonzero(np.r_[True, seg[1:] != seg[:-1]])
+    group = np.cumsum(np.r_[True, seg[1:] != seg[:-1]]) - 1
+    smin = np.minimum.reduceat(pairs.separation_m, starts)
+    pos = np.where(pairs.separation_m == smin[group], np.arange(len(seg)), len(seg))
+    out[seg[starts]] = np.minimum.reduceat(pos, starts)
     return out
 
 

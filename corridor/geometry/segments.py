@@ -96,24 +96,27 @@ def split_lines(geometries: np.ndarray, max_length_m: float | None) -> Segments:
     else:
         n_sub = np.maximum(1, np.ceil(edge_len / max_length_m - 1e-9)).astype(np.int64)
     k = _group_arange(n_sub).astype(float)
-    rep = np.repeat(np.arange(len(edge_len)), n_sub)
-    n = n_sub[rep].astype(float)
+    n = np.repeat(n_sub.astype(float), n_sub)
     t0 = k / n
     t1 = (k + 1.0) / n
-    dx = (x1 - x0)[rep]
-    dy = (y1 - y0)[rep]
-    sx0 = x0[rep] + dx * t0
-    sy0 = y0[rep] + dy * t0
-    sx1 = x0[rep] + dx * t1
-    sy1 = y0[rep] + dy * t1
+    rx0 = np.repeat(x0, n_sub)
+    ry0 = np.repeat(y0, n_sub)
+    dx = np.repeat(x1 - x0, n_sub)
+    dy = np.repeat(y1 - y0, n_sub)
+    sx0 = rx0 + dx * t0
+    sy0 = ry0 + dy * t0
+    sx1 = rx0 + dx * t1
+    sy1 = ry0 + dy * t1
     # Exact end vertices, so consecutive segments share coordinates bit for bit.
     last = k == n - 1
-    sx1[last] = x1[rep][last]
-    sy1[last] = y1[rep][last]
-    sx0[1:] = np.where(k[1:] > 0, sx1[:-1], sx0[1:])
-    sy0[1:] = np.where(k[1:] > 0, sy1[:-1], sy0[1:])
-    length = (edge_len / n_sub)[rep]
-    part_index = edge_part[rep]
+    sx1[last] = x1
+    sy1[last] = y1
+    inner = np.flatnonzero(k[1:] > 0) + 1
+    sx0[inner] = sx1[inner - 1]
+    sy0[inner] = sy1[inner - 1]
+    length = np.repeat(edge_len / n_sub, n_sub)
+    rep_part = np.repeat(edge_part, n_sub)
+    part_index = rep_part
     feature = feature_of_part[part_index]
     # part number within the feature
     first_part = np.searchsorted(feature_of_part, feature_of_part, side="left")
