@@ -130,38 +130,19 @@ def earth_return_self_impedance_low_frequency(radius_m, soil_resistivity_ohm_m, 
 
 def pipe_internal_impedance(diameter_m, frequency_hz,
                             steel_resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
-                            steel_relative_permeability=PIPE_STEEL_RELATIVE_PERMEABILITY):
-    """Internal impedance of a steel pipe, thin-skin form.
+                            steel_relative_permeability=PIPE_STEEL_RELATIVE_PERMEABILITY,
+                            wall_thickness_m=None):
+    """Internal impedance of a steel pipe [Ω/m].
 
-    Parameters
-    ----------
-    diameter_m : array_like
-        Outer diameter [m].
-    frequency_hz : array_like
-        Frequency [Hz].
-    steel_resistivity_ohm_m : array_like, optional
-        Steel resistivity [Ω·m]; default 1.7e-7 [memory].
-    steel_relative_permeability : array_like, optional
-        Relative permeability [-]; default 300 [memory].
-
-    Returns
-    -------
-    ndarray of complex
-        Internal impedance per unit length [Ω/m].
-
-    Notes
-    -----
-    Z_int = (1 + j)/(πD)·√(ωμ0μr·ρ_steel/2), valid while the skin depth
-    δ = √(2ρ/(ωμ0μr)) (≈1.7 mm at 50 Hz) is well below the wall thickness.
-
-    References
-    ----------
-    .. [1] METHODS.md §1 (pipe internal impedance, thin skin) [memory].
+    The physics core owns the formula
+    (:func:`corridor.physics.conductors.pipe_internal_impedance`): thin-skin
+    Z_int = (1 + j)/(πD)·√(ωμ0μr·ρ_steel/2) without a wall thickness, the
+    finite-wall form with one.
     """
-    omega = _omega(frequency_hz)
-    d = np.asarray(diameter_m, dtype=float)
-    mu = MU0_H_PER_M * np.asarray(steel_relative_permeability, dtype=float)
-    return (1 + 1j) / (np.pi * d) * np.sqrt(omega * mu * np.asarray(steel_resistivity_ohm_m) / 2)
+    from corridor.physics.conductors import pipe_internal_impedance as physics_pipe
+
+    return physics_pipe(diameter_m, steel_resistivity_ohm_m, steel_relative_permeability,
+                        frequency_hz, wall_thickness_m)
 
 
 def wire_internal_impedance(radius_m, frequency_hz,
@@ -249,7 +230,8 @@ def pipeline_line_constants(diameter_m, coating_resistance_ohm_m2, frequency_hz,
                             steel_resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
                             steel_relative_permeability=PIPE_STEEL_RELATIVE_PERMEABILITY,
                             coating_thickness_m=PE_COATING_THICKNESS_M,
-                            coating_relative_permittivity=PE_RELATIVE_PERMITTIVITY):
+                            coating_relative_permittivity=PE_RELATIVE_PERMITTIVITY,
+                            wall_thickness_m=None):
     """Line constants of a coated buried steel pipeline.
 
     Parameters
@@ -271,6 +253,9 @@ def pipeline_line_constants(diameter_m, coating_resistance_ohm_m2, frequency_hz,
     coating_thickness_m, coating_relative_permittivity : array_like, optional
         See :func:`coating_capacitance`; pass ``coating_thickness_m=None`` to
         leave the coating capacitance out.
+    wall_thickness_m : array_like, optional
+        Wall thickness [m]; given, the internal impedance uses the
+        finite-wall form of the physics core.
 
     Returns
     -------
@@ -299,7 +284,7 @@ def pipeline_line_constants(diameter_m, coating_resistance_ohm_m2, frequency_hz,
         y = y + 1j * omega * coating_capacitance(d, coating_thickness_m,
                                                  coating_relative_permittivity)
     z = pipe_internal_impedance(d, frequency_hz, steel_resistivity_ohm_m,
-                                steel_relative_permeability)
+                                steel_relative_permeability, wall_thickness_m)
     z = z + _earth_self(earth_return_self_ohm_per_m, d / 2, soil_resistivity_ohm_m, frequency_hz)
     return LineConstants(np.asarray(z, dtype=complex), np.asarray(y, dtype=complex))
 
