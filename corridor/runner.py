@@ -35,7 +35,7 @@ from corridor.config import Config
 from corridor.errors import CorridorError
 from corridor.io.outputs import SAFETY_CAUTION, sha256_file, write_csv, write_json, write_layer
 from corridor.lock import OutputLock, pid_alive
-from corridor.pipeline import Run, compute, finalize, output_paths, versions
+from corridor.pipeline import Run, finalize, output_paths, versions
 
 log = logging.getLogger(__name__)
 
@@ -284,11 +284,12 @@ def last_error_path(out_dir: Path) -> Path:
 def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
            final_stages: dict | None = None) -> Run:
     """Read, compute (incrementally when a cache is configured), finalize, compare."""
+    from corridor import backends, progress
     from corridor import cache as cache_mod
     from corridor import changes as changes_mod
-    from corridor import progress
     from corridor.io.layers import read_inputs
 
+    compute_fn = backends.compute_function(cfg, out_dir.parent)
     total = 5
     progress.stage("read", 1, total)
     t0 = time.perf_counter()
@@ -308,9 +309,10 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     folder = cache_folder(cfg, out_dir)
     if folder is not None:
         with OutputLock(folder):
-            run = cache_mod.incremental_compute(cfg, inputs, stages, folder, keys)
+            run = backends.incremental_compute(cache_mod, cfg, inputs, stages, folder, keys,
+                                               compute_fn)
     else:
-        run = compute(cfg, inputs, stages)
+        run = compute_fn(cfg, inputs, stages)
         run.counts["assets_recomputed"] = len(inputs.assets)
         run.counts["assets_from_cache"] = 0
     run.timings_s = {"read": read_s, "hash": hash_s, **run.timings_s}

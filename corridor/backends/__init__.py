@@ -1,0 +1,122 @@
+"""Where the per-asset compute runs: in this process or on a Dask cluster.
+
+``run.backend`` picks an entry of :data:`BACKENDS`:
+
+``local`` (default)
+    :func:`corridor.backends.local.compute_local`, i.e.
+    :func:`corridor.pipeline.compute` in this process.
+``dask``
+    :func:`corridor.backends.dask_backend.compute_dask`: the assets are cut
+    into spatial partitions of whole assets, each partition is computed by
+    the same :func:`corridor.pipeline.compute` on a ``dask.distributed``
+    worker, and the per-asset tables are merged in input order. Needs the
+    ``dask`` extra (``pip install 'corridor[dask]'``).
+
+Both give the same rows: per-asset results do not depend on which other
+assets are in the run (:func:`corridor.pipeline.subset_inputs`).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+import inspect
+import logging
+from pathlib import Path
+from types import MappingProxyType
+
+from corridor.config import RUN_SETTINGS, Config
+from corridor.errors import ConfigError
+
+log = logging.getLogger(__name__)
+
+
+def _local():
+    from corridor.backends.local import compute_local
+
+    return compute_local
+
+
+def _dask():
+    from corridor.backends.dask_backend import compute_dask
+
+    return compute_dask
+
+
+#: Backend name -> loader returning ``compute(cfg, inputs, stages, work_dir=None) -> Run``.
+BACKENDS = {"local": _local, "dask": _dask}
+
+
+def backend_name(cfg: Config) -> str:
+    """The configured backend name, checked against :data:`BACKENDS`.
+
+    Raises
+    ------
+    ConfigError
+        ``run.backend`` names no known backend.
+    """
+    name = str(cfg.run.get("backend", "local"))
+    if name not in BACKENDS:
+        raise ConfigError(f"{cfg.path.name}: run.backend: {name!r} is not one of"
+                          f" {', '.join(BACKENDS)}")
+    return name
+
+
+def compute_function(cfg: Config, work_dir: Path | None = None):
+    """The configured backend's compute, as ``fn(cfg, inputs, stages) -> Run``.
+
+    Parameters
+    ----------
+    cfg : Config
+    work_dir : Path, optional
+        Folder for the backend's temporary files when ``run.work_dir`` is
+        empty (the runner passes the output folder's parent).
+    """
+    name = backend_name(cfg)
+    if name == "local":
+        from corridor.pipeline import compute
+
+        return compute
+    fn = BACKENDS[name]()
+    return functools.partial(fn, work_dir=work_dir)
+
+
+def incremental_compute(cache_module, cfg: Config, inputs, stages, folder: Path, keys,
+                        compute_fn):
+    """:func:`corridor.cache.incremental_compute` with the changed assets computed by
+    ``compute_fn``.
+
+    Uses the cache's ``compute_fn`` parameter where it has one; otherwise the
+    cache's call of :func:`corridor.pipeline.compute` is routed to
+    ``compute_fn`` for the duration of the call.
+    """
+    import corridor.pipeline as pipeline
+
+    fn = cache_module.incremental_compute
+    if compute_fn is pipeline.compute:
+        return fn(cfg, inputs, stages, folder, keys)
+    if "compute_fn" in inspect.signature(fn).parameters:
+        return fn(cfg, inputs, stages, folder, keys, compute_fn=compute_fn)
+    original = pipeline.compute
+    pipeline.compute = compute_fn
+    try:
+        return fn(cfg, inputs, stages, folder, keys)
+    finally:
+        pipeline.compute = original
+
+
+def override_run(cfg: Config, **settings) -> Config:
+    """A copy of ``cfg`` with some ``[run]`` settings replaced (benchmarks and tests).
+
+    Raises
+    ------
+    ConfigError
+        A name that is not a run setting.
+    """
+    unknown = [k for k in settings if k not in RUN_SETTINGS]
+    if unknown:
+        raise ConfigError([f"{cfg.path.name}: run.{k}: unknown setting" for k in unknown])
+    run = MappingProxyType({**dict(cfg.run), **settings})
+    resolved = dict(cfg.resolved)
+    resolved["run"] = {**dict(resolved.get("run", {})), **settings}
+    return dataclasses.replace(cfg, run=run, resolved=MappingProxyType(resolved))

@@ -1,0 +1,540 @@
+"""The Dask backend: the per-asset compute on a ``dask.distributed`` cluster.
+
+How a run is cut up
+-------------------
+1. **Partitions of whole assets.** Assets are ordered by the Hilbert distance
+   of their centroid (:func:`hilbert_order`) and the ordered list is cut into
+   ``run.partitions`` pieces of about equal estimated segment count
+   (:func:`plan_partitions`). An asset never straddles two partitions, so the
+   response solve of a partition always holds all of an asset's segments:
+   this is how the solve's "group by asset" is met without a shuffle.
+2. **Small layers broadcast.** Power lines, soil, towers and grounding items
+   are scattered once to every worker (``client.scatter(..., broadcast=True)``).
+3. **Assets through files.** The client writes each partition's assets to
+   GeoParquet in a work folder the workers can reach (``run.work_dir``; by
+   default beside the output folder) and each task reads only its own file;
+   no asset frame is shipped from the client.
+4. **Each task** builds an :class:`corridor.io.layers.Inputs` (the reader's
+   validation already ran on the client) and runs the same
+   :func:`corridor.pipeline.compute` as the local backend. The exposure
+   search (an STRtree over the broadcast line edges, queried with the
+   partition's segments and the screening distance) runs on the worker, so
+   every line within reach of an asset is found whatever partition holds it.
+   dask-geopandas' spatial join is deliberately not used: it takes no
+   ``dwithin`` distance and drops matches between partitions whose hulls are
+   disjoint but within reach.
+5. **The task returns only per-asset tables**: numbers and strings, with
+   geometries as WKB bytes, plus geometry counts and the rows it rejected.
+6. **The client merges** them in input order with the cache's merge rules
+   (:data:`corridor.cache.PER_ASSET_TABLES`: row order, run-wide ids
+   renumbered) and the caller runs :func:`corridor.pipeline.finalize`.
+
+Per-asset results do not depend on which other assets are in the run, so the
+merged rows are those of a local run. Shapely's GEOS calls and numpy/LAPACK
+release the GIL: threads (``run.dask_processes = false``) or processes both
+work on one machine.
+
+Fault tolerance: a worker that dies mid-task has its task rescheduled by the
+scheduler on another worker (Dask's ``distributed.scheduler.allowed-failures``,
+3 by default); a task that keeps killing workers ends the run with
+``distributed.KilledWorker``, an internal error (exit code 3) that leaves the
+previous outputs in place.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+import math
+import os
+import shutil
+import time
+import uuid
+from contextlib import contextmanager
+from pathlib import Path
+from types import MappingProxyType
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+
+from corridor import cache as cache_mod
+from corridor.config import Config
+from corridor.errors import CorridorError
+from corridor.io.layers import Inputs, Rejected
+from corridor.pipeline import Run
+from corridor.pipeline import compute as _pipeline_compute
+
+log = logging.getLogger(__name__)
+
+#: Estimated segments per partition when ``run.partitions`` is 0 (auto).
+SEGMENTS_PER_PARTITION = 500_000
+#: Hilbert curve level: 2**16 cells a side.
+HILBERT_LEVEL = 16
+#: Test hook: a file path; the first task to start creates it and kills its worker.
+KILL_ENV = "CORRIDOR_TEST_KILL_WORKER"
+
+
+class DaskUnavailable(CorridorError):
+    """``run.backend = "dask"`` but dask.distributed cannot be imported."""
+
+
+# -- partitioning --------------------------------------------------------------
+
+def hilbert_order(geometries: np.ndarray) -> np.ndarray:
+    """Order of geometries along a Hilbert curve through their centroids.
+
+    Parameters
+    ----------
+    geometries : ndarray of shapely geometries
+        In a metric CRS [m].
+
+    Returns
+    -------
+    ndarray of int
+        Indices that sort the geometries by the Hilbert distance of their
+        centroid (stable: ties keep input order).
+
+    Notes
+    -----
+    The distance is geopandas' :meth:`GeoSeries.hilbert_distance` of the
+    centroids on a ``2**16`` grid over their common bounds; nearby centroids
+    get nearby distances, so consecutive runs of the order are compact areas.
+
+    References
+    ----------
+    D. Hilbert, "Ueber die stetige Abbildung einer Linie auf ein
+    Flaechenstueck", Math. Ann. 38, 1891.
+    """
+    if len(geometries) == 0:
+        return np.zeros(0, np.int64)
+    cent = gpd.GeoSeries(shapely.centroid(np.asarray(geometries)))
+    dist = cent.hilbert_distance(level=HILBERT_LEVEL).to_numpy(np.int64)
+    return np.argsort(dist, kind="stable")
+
+
+def estimated_segments(geometries: np.ndarray, segment_length_m: float) -> np.ndarray:
+    """Estimated number of segments of each asset [-]: pieces of at most
+    ``segment_length_m`` [m] plus one split at every vertex."""
+    geoms = np.asarray(geometries)
+    length_m = shapely.length(geoms)
+    vertices = shapely.get_num_coordinates(geoms)
+    return np.ceil(length_m / float(segment_length_m)).astype(np.int64) + np.maximum(
+        vertices - 2, 0)
+
+
+def auto_partitions(n_segments: int) -> int:
+    """Partitions for ``run.partitions = 0``: max(2, ceil(segments / 500,000))."""
+    return max(2, math.ceil(n_segments / SEGMENTS_PER_PARTITION))
+
+
+def plan_partitions(geometries: np.ndarray, segment_length_m: float,
+                    n_partitions: int = 0) -> list[np.ndarray]:
+    """Cut the assets into spatial partitions of whole assets.
+
+    Parameters
+    ----------
+    geometries : ndarray of shapely geometries
+        Asset geometries in input order, metric CRS [m].
+    segment_length_m : float
+        Maximum segment length [m] (for the workload estimate).
+    n_partitions : int
+        Wanted partitions; 0 for :func:`auto_partitions`. Never more than the
+        number of assets.
+
+    Returns
+    -------
+    list of ndarray of int
+        Per partition, the input indices of its assets, ascending. Every asset
+        is in exactly one partition; no partition is empty. An asset heavier
+        than a partition's share fills its slot alone, so there may be fewer
+        than ``n_partitions`` partitions.
+
+    Notes
+    -----
+    Assets are taken in Hilbert order and asset ``k`` goes to partition
+    ``floor(n * W_k / W)``, where ``W_k`` is the estimated segment count of the
+    assets before it in that order and ``W`` the total: partitions of about
+    equal work, each a compact area.
+    """
+    n_assets = len(geometries)
+    if n_assets == 0:
+        return []
+    weight = estimated_segments(geometries, segment_length_m).astype(float)
+    n = int(n_partitions) if n_partitions else auto_partitions(int(weight.sum()))
+    n = max(1, min(n, n_assets))
+    order = hilbert_order(geometries)
+    w = weight[order]
+    before = np.cumsum(w) - w
+    part = np.minimum((before * n / max(w.sum(), 1.0)).astype(np.int64), n - 1)
+    out = []
+    for p in range(n):
+        idx = np.sort(order[part == p])
+        if len(idx):
+            out.append(idx)
+    return out
+
+
+# -- what travels to the workers -------------------------------------------------
+
+def _pack(obj):
+    """A picklable copy: read-only mappings become ``('__mapping__', dict)``."""
+    if isinstance(obj, MappingProxyType):
+        return ("__mapping__", {k: _pack(v) for k, v in obj.items()})
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return ("__dataclass__", type(obj),
+                {f.name: _pack(getattr(obj, f.name)) for f in dataclasses.fields(obj)})
+    if isinstance(obj, tuple):
+        return ("__tuple__", [_pack(v) for v in obj])
+    if isinstance(obj, list):
+        return [_pack(v) for v in obj]
+    if isinstance(obj, dict):
+        return {k: _pack(v) for k, v in obj.items()}
+    return obj
+
+
+def _unpack(obj):
+    if isinstance(obj, tuple) and obj and isinstance(obj[0], str):
+        tag = obj[0]
+        if tag == "__mapping__":
+            return MappingProxyType({k: _unpack(v) for k, v in obj[1].items()})
+        if tag == "__dataclass__":
+            return obj[1](**{k: _unpack(v) for k, v in obj[2].items()})
+        if tag == "__tuple__":
+            return tuple(_unpack(v) for v in obj[1])
+    if isinstance(obj, list):
+        return [_unpack(v) for v in obj]
+    if isinstance(obj, dict):
+        return {k: _unpack(v) for k, v in obj.items()}
+    return obj
+
+
+def pack_config(cfg: Config):
+    """The config in a form pickle accepts (:class:`types.MappingProxyType` is not)."""
+    return _pack(cfg)
+
+
+def unpack_config(packed) -> Config:
+    """Inverse of :func:`pack_config`."""
+    return _unpack(packed)
+
+
+def _column_kinds(frame: pd.DataFrame) -> dict[str, tuple[str, object]]:
+    """Per column: dtype and, for object columns, the missing-value sentinel used."""
+    out = {}
+    for col in frame.columns:
+        if col == frame.geometry.name:
+            continue
+        dt = str(frame[col].dtype)
+        sentinel = np.nan
+        if dt == "object":
+            for v in frame[col]:
+                if v is None:
+                    sentinel = None
+                    break
+        out[str(col)] = (dt, sentinel)
+    return out
+
+
+def _restore_columns(frame: pd.DataFrame, kinds: dict) -> pd.DataFrame:
+    """Give a Parquet round trip back the dtypes (and missing values) it had."""
+    for col, (dt, sentinel) in kinds.items():
+        if col not in frame.columns or str(frame[col].dtype) == dt:
+            continue
+        if dt == "object":
+            s = frame[col].astype(object)
+            missing = s.isna().to_numpy()
+            if missing.any():
+                values = s.to_numpy(dtype=object, copy=True)
+                values[missing] = sentinel
+                s = pd.Series(values, index=s.index, dtype=object)
+            frame[col] = s
+        else:
+            frame[col] = frame[col].astype(dt)
+    return frame
+
+
+def _to_wire(frame: pd.DataFrame) -> dict:
+    """A table as plain columns: geometry as WKB bytes."""
+    if isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns:
+        name = frame.geometry.name
+        plain = pd.DataFrame(frame).copy()
+        plain[name] = shapely.to_wkb(frame.geometry.to_numpy())
+        return {"frame": plain, "geometry": name}
+    return {"frame": pd.DataFrame(frame), "geometry": None}
+
+
+def _from_wire(item: dict, crs) -> pd.DataFrame:
+    frame = item["frame"]
+    name = item["geometry"]
+    if name is None:
+        return frame
+    frame = frame.copy()
+    frame[name] = shapely.from_wkb(frame[name].to_numpy(dtype=object))
+    return gpd.GeoDataFrame(frame, geometry=name, crs=crs)
+
+
+# -- the task ------------------------------------------------------------------
+
+def _kill_hook() -> None:
+    """Test hook: the first task to start (marker file ``$CORRIDOR_TEST_KILL_WORKER``
+    absent) creates the marker and ends its worker process at once."""
+    marker = os.environ.get(KILL_ENV)
+    if not marker:
+        return
+    try:
+        fd = os.open(marker, os.O_CREAT | os.O_EXCL | os.O_WRONLY)
+    except FileExistsError:
+        return
+    os.close(fd)
+    os._exit(1)
+
+
+def compute_partition(packed_cfg, shared: dict, path: str, kinds: dict, stages: dict | None):
+    """One task: read a partition's assets, compute them, return plain tables.
+
+    Parameters
+    ----------
+    packed_cfg
+        :func:`pack_config` of the run's config.
+    shared : dict
+        The broadcast layers: ``crs``, ``lines``, ``soil``, ``grounds``, ``towers``,
+        ``counts``.
+    path : str
+        The partition's GeoParquet file.
+    kinds : dict
+        :func:`_column_kinds` of the client's asset frame.
+    stages : dict or None
+        Per-asset stages.
+
+    Returns
+    -------
+    dict
+        ``tables`` (name -> wire table, the names of :func:`corridor.cache._per_asset_tables`
+        plus the internal ``_rejected`` and ``_counts``), ``timings_s``, ``counts``,
+        ``assets``, ``worker_pid``.
+    """
+    _kill_hook()
+    cfg = unpack_config(packed_cfg)
+    t0 = time.perf_counter()
+    assets = gpd.read_parquet(path)
+    assets = _restore_columns(assets.reset_index(drop=True), kinds)
+    if assets.crs is None or assets.crs != shared["crs"]:
+        assets = assets.set_crs(shared["crs"], allow_override=True)
+    grounds = shared["grounds"]
+    if grounds is not None:
+        grounds = grounds[grounds["asset_id"].isin(assets["asset_id"])].reset_index(drop=True)
+    inputs = Inputs(crs=shared["crs"], lines=shared["lines"], assets=assets,
+                    soil=shared["soil"], grounds=grounds, towers=shared["towers"],
+                    rejected=Rejected(), counts=dict(shared["counts"]), warnings=[])
+    read_s = time.perf_counter() - t0
+    run = _pipeline_compute(cfg, inputs, stages)
+    tables = dict(cache_mod._per_asset_tables(run))
+    tables[cache_mod._REJECTED] = cache_mod._compute_rejections(inputs, run.inputs.rejected.rows)
+    tables[cache_mod._COUNTS] = cache_mod._geometry_counts(run)
+    return {"tables": {k: _to_wire(v) for k, v in tables.items()},
+            "timings_s": {"partition_read": round(read_s, 4), **run.timings_s},
+            "counts": dict(run.counts), "assets": len(assets), "worker_pid": os.getpid()}
+
+
+# -- the client side --------------------------------------------------------------
+
+@contextmanager
+def cluster_client(cfg: Config):
+    """A ``distributed.Client``: to ``run.scheduler_address``, or to a LocalCluster
+    of ``run.dask_workers`` workers, one thread each, processes unless
+    ``run.dask_processes`` is false. A LocalCluster is closed on exit."""
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError as exc:
+        raise DaskUnavailable(f"{cfg.path.name}: run.backend: 'dask' needs dask.distributed"
+                              " and dask-geopandas: pip install 'corridor[dask]'"
+                              f" ({exc})") from None
+    address = str(cfg.run.get("scheduler_address", ""))
+    if address:
+        log.info("dask: connecting to the scheduler at %s", address)
+        with Client(address, timeout="30s") as client:
+            yield client
+        return
+    processes = bool(cfg.run.get("dask_processes", True))
+    n_workers = int(cfg.run.get("dask_workers", 2))
+    log.info("dask: starting a LocalCluster of %d workers (%s)", n_workers,
+             "processes" if processes else "threads")
+    with LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=processes,
+                      dashboard_address=":0", host="127.0.0.1") as cluster, \
+            Client(cluster) as client:
+        yield client
+
+
+def _work_folder(cfg: Config, work_dir: Path | None) -> Path:
+    value = str(cfg.run.get("work_dir", ""))
+    if value:
+        root = (cfg.path.parent / value).resolve()
+    elif work_dir is not None:
+        root = Path(work_dir)
+    else:
+        import tempfile
+
+        root = Path(tempfile.gettempdir())
+    folder = root / f".corridor-dask-{os.getpid()}-{uuid.uuid4().hex[:8]}"
+    folder.mkdir(parents=True)
+    return folder
+
+
+def _code_identity() -> tuple[str, str]:
+    from corridor import __version__
+
+    return __version__, cache_mod.code_fingerprint()
+
+
+def _check_workers(client) -> None:
+    """The workers must run the same corridor as the client (else other rows).
+
+    Another version is an error; the same version with other source files (an
+    edited checkout) is logged as a warning.
+    """
+    version, fingerprint = _code_identity()
+    theirs = client.run(_code_identity)
+    other = sorted(w for w, (v, _fp) in theirs.items() if v != version)
+    if other:
+        raise CorridorError(f"dask workers {', '.join(other)} run another corridor version than"
+                            f" this client ({version}); install the same corridor there")
+    edited = sorted(w for w, (_v, fp) in theirs.items() if fp != fingerprint)
+    if edited:
+        log.warning("dask workers %s run corridor %s from other source files than this"
+                    " client; results may differ", ", ".join(edited), version)
+
+
+def compute_dask(cfg: Config, inputs: Inputs, stages: dict | None = None,
+                 work_dir: Path | None = None) -> Run:
+    """Exposure geometry and every per-asset stage, partitioned over a Dask cluster.
+
+    Parameters
+    ----------
+    cfg : Config
+        ``run.scheduler_address``, ``run.dask_workers``, ``run.dask_processes``,
+        ``run.partitions`` and ``run.work_dir`` select the cluster and the cut.
+    inputs : Inputs
+        Validated inputs (:func:`corridor.io.layers.read_inputs`), on the client.
+    stages : dict, optional
+        Per-asset stages (:func:`corridor.steps.asset_stages`); must be picklable
+        (module-level functions are).
+    work_dir : Path, optional
+        Where the partition files go when ``run.work_dir`` is empty (the runner
+        passes the output folder's parent); must be reachable by the workers.
+
+    Returns
+    -------
+    corridor.pipeline.Run
+        The merged run, ready for :func:`corridor.pipeline.finalize`. Its
+        ``timings_s`` holds the client's steps (``partition_plan``,
+        ``partition_write``, ``cluster_start``, ``cluster_compute`` wall time,
+        ``merge``) and, per per-asset stage, the largest time any one
+        partition spent on it [s].
+    """
+    timings: dict[str, float] = {}
+    t0 = time.perf_counter()
+    assets = inputs.assets
+    parts = plan_partitions(assets.geometry.to_numpy(), cfg.run["segment_length_m"],
+                            int(cfg.run.get("partitions", 0)))
+    timings["partition_plan"] = round(time.perf_counter() - t0, 4)
+    folder = _work_folder(cfg, work_dir)
+    try:
+        t0 = time.perf_counter()
+        kinds = _column_kinds(assets)
+        paths = []
+        for k, idx in enumerate(parts):
+            p = folder / f"assets-{k:05d}.parquet"
+            assets.iloc[idx].reset_index(drop=True).to_parquet(p, index=False)
+            paths.append(str(p))
+        timings["partition_write"] = round(time.perf_counter() - t0, 4)
+        log.info("dask: %d assets in %d partitions written to %s", len(assets), len(parts),
+                 folder)
+        t0 = time.perf_counter()
+        with cluster_client(cfg) as client:
+            timings["cluster_start"] = round(time.perf_counter() - t0, 4)
+            _check_workers(client)
+            t0 = time.perf_counter()
+            shared = {"crs": inputs.crs, "lines": inputs.lines, "soil": inputs.soil,
+                      "grounds": inputs.grounds, "towers": inputs.towers,
+                      "counts": dict(inputs.counts)}
+            shared_f, cfg_f = client.scatter([shared, pack_config(cfg)], broadcast=True,
+                                             hash=False)
+            futures = [client.submit(compute_partition, cfg_f, shared_f, p, kinds, stages,
+                                     key=f"corridor-partition-{k:05d}-{uuid.uuid4().hex[:6]}",
+                                     pure=False)
+                       for k, p in enumerate(paths)]
+            results = client.gather(futures)
+            timings["cluster_compute"] = round(time.perf_counter() - t0, 4)
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+    t0 = time.perf_counter()
+    run = merge_partitions(cfg, inputs, results)
+    timings["merge"] = round(time.perf_counter() - t0, 4)
+    stage_max: dict[str, float] = {}
+    for r in results:
+        for name, dt in r["timings_s"].items():
+            stage_max[name] = max(stage_max.get(name, 0.0), float(dt))
+    run.timings_s = {**{k: round(v, 4) for k, v in stage_max.items()}, **timings}
+    run.counts["partitions"] = len(parts)
+    run.counts["assets_recomputed"] = len(assets)
+    run.counts["assets_from_cache"] = 0
+    return run
+
+
+def merge_partitions(cfg: Config, inputs: Inputs, results: list[dict]) -> Run:
+    """One run from the partitions' tables, as :func:`corridor.cache.incremental_compute`
+    merges cached and fresh rows: input order, run-wide ids renumbered."""
+    crs = inputs.crs
+    asset_pos = {a: i for i, a in enumerate(inputs.assets["asset_id"])}
+    by_name: dict[str, list] = {}
+    for r in results:
+        for name, item in r["tables"].items():
+            by_name.setdefault(name, []).append(_from_wire(item, crs))
+    run = Run(cfg, inputs=inputs)
+    merged = {}
+    for name, frames in by_name.items():
+        full = [f for f in frames if len(f)]
+        frames = full or frames[:1]
+        if len(frames) == 1:
+            table = frames[0]
+        elif isinstance(frames[0], gpd.GeoDataFrame):
+            table = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True),
+                                     geometry=frames[0].geometry.name, crs=crs)
+        else:
+            table = pd.concat(frames, ignore_index=True)
+        merged[name] = cache_mod._order_rows(table, name, asset_pos)
+    for name, table in merged.items():
+        if not name.startswith("_"):
+            cache_mod._place(run, name, table)
+    rej = merged.get(cache_mod._REJECTED)
+    orphans = cache_mod._orphan_ground_rejections(cfg, inputs)
+    if len(orphans):
+        rej = orphans if rej is None or len(rej) == 0 else pd.concat([rej, orphans],
+                                                                     ignore_index=True)
+    rows = []
+    if rej is not None and len(rej):
+        g = inputs.grounds
+        gpos: dict[str, int] = {}
+        if g is not None:
+            for i, fid in enumerate(g["feature_id"].astype(str)):
+                gpos.setdefault(fid, i)
+        rej = rej.iloc[np.argsort([gpos.get(str(f), len(gpos)) for f in rej["feature_id"]],
+                                  kind="stable")]
+        rows = [{k: r[k] for k in ("layer", "feature_id", "field", "reason")}
+                for r in rej.to_dict("records")]
+    inputs.rejected.rows.extend(rows)
+    counts = merged.get(cache_mod._COUNTS)
+    run.counts["segments"] = len(run.segment_table) if run.segment_table is not None else 0
+    run.counts["pairs"] = int(counts["pairs"].sum()) if counts is not None else 0
+    run.counts["sections"] = int(counts["sections"].sum()) if counts is not None else 0
+    run.counts["exposures"] = len(run.exposure_table) if run.exposure_table is not None else 0
+    run.counts["grounds_rejected"] = len(rows)
+    for cname, (tname, fn) in cache_mod.COUNTS_FROM_TABLES.items():
+        if tname in merged:
+            try:
+                run.counts[cname] = fn(merged[tname])
+            except (KeyError, TypeError, ValueError):
+                pass
+    return run
