@@ -196,6 +196,47 @@ def _line_coords(geoms, tolerance_m: float = 0.0):
     return lines, owner[cidx[starts]]
 
 
+def _band_runs(seg, util, edges, tolerance_m: float):
+    """Polylines of consecutive segments of one asset part in one utilization band.
+
+    Drawing runs instead of single segments keeps the map's path count near
+    the number of assets (a whole network has millions of segments). Vertices
+    closer than ``tolerance_m`` along a run are thinned; each run keeps its
+    ends. Returns the vertex arrays and each run's highest utilization.
+    """
+    n = len(seg)
+    if n == 0:
+        return [], np.zeros(0)
+    xy = shapely.get_coordinates(seg.geometry.to_numpy())
+    if len(xy) != 2 * n:  # not all simple two-point segments: draw them one by one
+        lines, owner = _line_coords(seg.geometry.to_numpy(), tolerance_m)
+        return lines, util[owner]
+    xy = xy.reshape(n, 2, 2)
+    band = np.digitize(np.nan_to_num(util, nan=0.0), np.asarray(edges[1:-1], float))
+    asset = pd.factorize(seg["asset_id"].to_numpy(dtype=object))[0]
+    part = seg["part"].to_numpy() if "part" in seg else np.zeros(n, int)
+    joined = np.all(xy[1:, 0] == xy[:-1, 1], axis=1)
+    new = np.r_[True, (asset[1:] != asset[:-1]) | (part[1:] != part[:-1])
+                | (band[1:] != band[:-1]) | ~joined]
+    run = np.cumsum(new) - 1
+    starts = np.flatnonzero(new)
+    ends = np.r_[starts[1:], n] - 1
+    length = np.hypot(*(xy[:, 1] - xy[:, 0]).T)
+    step = max(1, int(tolerance_m / max(float(np.median(length)), 1e-9)))
+    pos = np.arange(n) - starts[run]
+    keep = (pos % step == 0)
+    pts = xy[keep, 0]
+    rid = run[keep]
+    # append each run's last end point
+    pts = np.concatenate([pts, xy[ends, 1]])
+    rid = np.concatenate([rid, np.arange(len(starts))])
+    order = np.argsort(rid, kind="stable")
+    pts, rid = pts[order], rid[order]
+    cuts = np.flatnonzero(np.diff(rid)) + 1
+    value = np.maximum.reduceat(np.nan_to_num(util, nan=0.0), starts)
+    return np.split(pts, cuts), value
+
+
 def _nice_length_m(span_m: float) -> float:
     target = span_m / 5.0
     p = 10.0 ** np.floor(np.log10(target))
@@ -260,11 +301,13 @@ def overview_map(run, review_threshold: float) -> str:
         for v in sorted(set(kv[np.isfinite(kv)])):
             handles.append(Line2D([], [], color=_voltage_colour(v), lw=1.0 + v / 200.0,
                                   ls=(0, (6, 2)), label=f"power line {v:g} kV"))
-        scoords, sowner = _line_coords(seg.geometry.to_numpy(), tol)
+        # thin runs to about half a pixel of the ~900 px wide map
+        scoords, svalue = _band_runs(seg, util, edges, span / 1800.0)
         if len(scoords):
+            n_vertices = sum(len(c) for c in scoords)
             coll = LineCollection(scoords, cmap=cmap, norm=norm, linewidths=2.6, zorder=3,
-                                  capstyle="round", rasterized=len(scoords) > RASTER_ABOVE)
-            coll.set_array(util[sowner])
+                                  capstyle="round", rasterized=n_vertices > RASTER_ABOVE)
+            coll.set_array(svalue)
             ax.add_collection(coll)
             cb = fig.colorbar(coll, cax=cax, spacing="uniform", ticks=edges[:-1])
             cb.ax.set_yticklabels([f"{e:g}" for e in edges[:-1]])
