@@ -1,4 +1,11 @@
-"""Command line: ``corridor run CONFIG``, ``corridor check CONFIG``.
+"""Command line: ``corridor run CONFIG``, ``corridor check CONFIG``, ``corridor steps``,
+``corridor step NAME CONFIG [--in LAYER=PATH ...] [--out DIR] [--set KEY=VALUE ...]``.
+
+``corridor steps`` lists the named processing steps with their inputs,
+outputs and parameters (name, type, unit, default); ``corridor step`` runs one
+of them (:func:`corridor.steps.catalog.run_step`): the pipeline up to and
+including that step, in memory, writing the step's outputs to ``--out``
+(default ``<run.output_dir>/steps``).
 
 Exit codes
 ----------
@@ -53,7 +60,18 @@ def _parser() -> argparse.ArgumentParser:
                    help="exit 1 when any segment exceeds a limit")
     c = sub.add_parser("check", help="validate config and layers without computing")
     c.add_argument("config", type=Path)
-    for q in (r, c):
+    ls = sub.add_parser("steps", help="list the processing steps and their parameters")
+    ls.add_argument("--json", action="store_true", help="print the declarations as JSON")
+    st = sub.add_parser("step", help="run one processing step and write its outputs")
+    st.add_argument("name", help="step name (see `corridor steps`)")
+    st.add_argument("config", type=Path, help="run configuration (TOML)")
+    st.add_argument("--in", dest="inputs", action="append", default=[], metavar="LAYER=PATH",
+                    help="start from a saved layer (assess, rank: segments=PATH)")
+    st.add_argument("--out", type=Path, default=None,
+                    help="output folder (default <run.output_dir>/steps)")
+    st.add_argument("--set", dest="settings", action="append", default=[], metavar="KEY=VALUE",
+                    help="override a run setting the step takes (see `corridor steps`)")
+    for q in (r, c, ls, st):
         q.add_argument("-q", "--quiet", action="store_true", help="warnings and errors only")
         q.add_argument("-v", "--verbose", action="store_true", help="debug messages")
     return p
@@ -109,6 +127,52 @@ def check(cfg) -> int:
     return EXIT_OK
 
 
+def list_steps(as_json: bool = False) -> int:
+    """Print every step with its inputs, outputs and parameters."""
+    from corridor.steps.catalog import describe
+
+    steps = describe()
+    if as_json:
+        import json
+
+        print(json.dumps(steps, indent=2, ensure_ascii=False, default=str))
+        return EXIT_OK
+    for s in steps:
+        print(f"{s['name']}: {s['title']}. {s['description']}")
+        saved = f" (or --in {', '.join(s['from_saved'])}=PATH)" if s["from_saved"] else ""
+        print(f"  inputs: the config's layers{saved}")
+        print("  outputs: " + ", ".join(f"{p['name']} ({p['type']})" for p in s["outputs"]))
+        print("  parameters:")
+        for p in s["parameters"]:
+            rng = f", {p['low']}..{p['high']}" if p["low"] is not None else ""
+            print(f"    {p['name']:32s} {p['type']:10s} [{p['unit']}] default"
+                  f" {p['default']!r}{rng}")
+    return EXIT_OK
+
+
+def _pairs(items: list[str], flag: str) -> dict[str, str]:
+    from corridor.errors import ConfigError
+
+    out = {}
+    for item in items:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip():
+            raise ConfigError(f"{flag} {item!r}: expected KEY=VALUE")
+        out[key.strip()] = value
+    return out
+
+
+def run_one_step(args) -> int:
+    """``corridor step NAME CONFIG ...``."""
+    from corridor.steps.catalog import run_step
+
+    written = run_step(args.name, args.config, inputs=_pairs(args.inputs, "--in"),
+                       outputs_dir=args.out, params=_pairs(args.settings, "--set"))
+    for name, path in written.items():
+        log.info("%s: %s", name, path)
+    return EXIT_OK
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     _console(args)
@@ -117,6 +181,10 @@ def main(argv: list[str] | None = None) -> int:
 
     out = None
     try:
+        if args.command == "steps":
+            return list_steps(args.json)
+        if args.command == "step":
+            return run_one_step(args)
         cfg = load_config(args.config)
         if args.command == "check":
             return check(cfg)
