@@ -188,8 +188,12 @@ def config_parts(cfg: Config) -> dict[str, str]:
            json.dumps(dict(cfg.limit_overrides), sort_keys=True, default=str).encode()]
     for p in _limit_files(cfg):
         lim += [p.name.encode(), p.read_bytes()]
+    from corridor.registry import registry
+
+    # installed plugins (kinds, limit sets, methods) and their versions shape results too
     return {"config": _sha(cfg_json), "arrangements": _sha(arr), "limit_set": _sha(*lim),
-            "code": _sha(__version__.encode(), code_fingerprint().encode())}
+            "code": _sha(__version__.encode(), code_fingerprint().encode(),
+                         registry.fingerprint().encode())}
 
 
 def config_hash(cfg: Config, parts: dict[str, str] | None = None) -> str:
