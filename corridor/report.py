@@ -801,8 +801,13 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
 
     body.append('<section id="worst-segments"><h2>Worst segments</h2>')
     if "rank" in t:
-        order = np.argsort(t["rank"].to_numpy(), kind="stable")
-        ranked = pd.DataFrame(t.iloc[order].drop(columns="geometry"))
+        # only the worst rows are needed: rank a bounded head, not the whole table
+        cols = [c for c in ("rank", "asset_id", "asset_kind", "chainage_m", "separation_m",
+                            "line_id", "v_normal_v", "v_fault_v", "utilization", "governing",
+                            "hazard_class") if c in t.columns]
+        head = min(len(t), max_rows * SEGMENTS_PER_ASSET * 50)
+        order = np.argsort(t["rank"].to_numpy(), kind="stable")[:head]
+        ranked = pd.DataFrame(t[cols].iloc[order])
         top = ranked[ranked.groupby("asset_id", sort=False).cumcount() < SEGMENTS_PER_ASSET]
         top = top.head(max_rows)
         body.append(_table(top, ["rank", "asset_id", "asset_kind", "chainage_m", "separation_m",

@@ -33,10 +33,11 @@ def sha256_file(path: Path) -> str:
 
 def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
     """Write one layer to a GeoPackage (bulk Arrow write, spatial index on)."""
-    frame = frame.copy()
-    for col in frame.columns:
-        if col != frame.geometry.name and frame[col].dtype == object:
-            frame[col] = frame[col].astype("string")
+    geom = frame.geometry.name
+    text = [c for c in frame.columns if c != geom and frame[c].dtype == object]
+    if text:  # convert only the object columns; the rest are shared, not copied
+        frame = gpd.GeoDataFrame({c: (frame[c].astype("string") if c in text else frame[c])
+                                  for c in frame.columns}, geometry=geom, crs=frame.crs)
     pyogrio.write_dataframe(frame, path, layer=layer, driver="GPKG", use_arrow=True,
                             layer_options={"SPATIAL_INDEX": "YES"})
 

@@ -234,7 +234,9 @@ def stage_ground(run) -> None:
     run.extra_tables["csv:grounding_sites.csv"] = pd.DataFrame(frame)
     run.counts["grounding_sites"] = int((frame["ground_resistance_ohm"].notna()).sum())
     run.counts["assets_unresolved"] = int(frame["unresolved"].sum()) if len(frame) else 0
-    after = run.segment_table.copy()
+    # a light table: the columns grounding changed, for the report's profiles
+    after = pd.DataFrame({c: run.segment_table[c].to_numpy()
+                          for c in ("asset_id", "segment_index", "chainage_m")})
     for c in STATE_COLUMNS:
         after[c] = state[c]
     run.segment_table_after_grounding = after
@@ -281,13 +283,16 @@ def _site(asset_id, kind, chainage_m, x, y, governing, v0, v1, r, remedy, line_i
 
 
 def _worst_segment_per_asset(util, feat, n_assets):
+    """First segment of highest utilization of each asset (segments grouped by asset)."""
     out = np.full(n_assets, -1, np.int64)
     if len(util) == 0:
         return out
-    order = np.lexsort((np.arange(len(util)), -util, feat))
-    f = feat[order]
-    first = np.r_[True, f[1:] != f[:-1]]
-    out[f[first]] = order[first]
+    u = np.nan_to_num(np.asarray(util, float), nan=-np.inf)
+    starts = np.flatnonzero(np.r_[True, feat[1:] != feat[:-1]])
+    group = np.cumsum(np.r_[True, feat[1:] != feat[:-1]]) - 1
+    umax = np.maximum.reduceat(u, starts)
+    pos = np.where(u == umax[group], np.arange(len(u)), len(u))
+    out[feat[starts]] = np.minimum.reduceat(pos, starts)
     return out
 
 
