@@ -511,7 +511,7 @@ def _geometry_counts(run) -> pd.DataFrame:
 
 
 def incremental_compute(cfg: Config, inputs: Inputs, stages: dict | None, folder: Path,
-                        keys: AssetKeys | None = None):
+                        keys: AssetKeys | None = None, compute_fn=None):
     """Compute the per-asset results, recomputing only assets whose key changed.
 
     Parameters
@@ -522,6 +522,9 @@ def incremental_compute(cfg: Config, inputs: Inputs, stages: dict | None, folder
         The cache folder (created when missing).
     keys : AssetKeys, optional
         Precomputed :func:`asset_keys`.
+    compute_fn : callable, optional
+        ``fn(cfg, inputs, stages) -> Run`` for the changed assets (a backend);
+        default :func:`corridor.pipeline.compute`.
 
     Returns
     -------
@@ -529,8 +532,10 @@ def incremental_compute(cfg: Config, inputs: Inputs, stages: dict | None, folder
         The merged run, ready for :func:`corridor.pipeline.finalize`, with
         ``counts["assets_recomputed"]`` and ``counts["assets_from_cache"]``.
     """
-    from corridor.pipeline import Run, compute, subset_inputs
+    from corridor.pipeline import Run, subset_inputs
+    from corridor.pipeline import compute as local_compute
 
+    compute = compute_fn or local_compute
     t0 = time.perf_counter()
     timings = {}
     if keys is None:

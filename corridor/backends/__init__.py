@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-import inspect
 import logging
 from pathlib import Path
 from types import MappingProxyType
@@ -84,25 +83,9 @@ def compute_function(cfg: Config, work_dir: Path | None = None):
 def incremental_compute(cache_module, cfg: Config, inputs, stages, folder: Path, keys,
                         compute_fn):
     """:func:`corridor.cache.incremental_compute` with the changed assets computed by
-    ``compute_fn``.
-
-    Uses the cache's ``compute_fn`` parameter where it has one; otherwise the
-    cache's call of :func:`corridor.pipeline.compute` is routed to
-    ``compute_fn`` for the duration of the call.
-    """
-    import corridor.pipeline as pipeline
-
-    fn = cache_module.incremental_compute
-    if compute_fn is pipeline.compute:
-        return fn(cfg, inputs, stages, folder, keys)
-    if "compute_fn" in inspect.signature(fn).parameters:
-        return fn(cfg, inputs, stages, folder, keys, compute_fn=compute_fn)
-    original = pipeline.compute
-    pipeline.compute = compute_fn
-    try:
-        return fn(cfg, inputs, stages, folder, keys)
-    finally:
-        pipeline.compute = original
+    ``compute_fn``."""
+    return cache_module.incremental_compute(cfg, inputs, stages, folder, keys,
+                                            compute_fn=compute_fn)
 
 
 def override_run(cfg: Config, **settings) -> Config:

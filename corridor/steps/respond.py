@@ -430,14 +430,16 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
         case_of_seg = np.full(n_seg, -1)
 
     # source impedance at each chain's peak (normal, capacitive, fault), one solve
+    # (a chain no fault reaches peaks at its first node, whatever else is in the run,
+    # so results stay independent of the other assets)
+    fault_mag = (np.abs(sol.node_voltage_v[:, 2:]).max(axis=1) if n_fcol
+                 else np.zeros(batch.n_nodes))
     peaks = [system.peak_node(sol.node_voltage_v[:, 0]),
-             system.peak_node(sol.node_voltage_v[:, 1])]
-    if n_fcol:
-        peaks.append(system.peak_node(np.abs(sol.node_voltage_v[:, 2:]).max(axis=1)))
+             system.peak_node(sol.node_voltage_v[:, 1]), system.peak_node(fault_mag)]
     zth = system.thevenin_impedance(np.stack(peaks, axis=1))
     zth_n = zth[:, 0][chain_of_seg]
     zth_c = zth[:, 1][chain_of_seg]
-    zth_f = zth[:, 2][chain_of_seg] if n_fcol else np.zeros(n_seg, complex)
+    zth_f = zth[:, 2][chain_of_seg]
     zn, zc = np.abs(zth_n), np.abs(zth_c)
     loading = BODY_RESISTANCE_OHM / np.abs(BODY_RESISTANCE_OHM + zth_f)
     # steady-state current through a 1000 ohm body touching the segment
