@@ -610,17 +610,27 @@ class ChainSystem:
         v_t = self._solve_rhs(rhs_t.T, keep_factors=_keep_factors).T
         v_abs = np.abs(v_t)
         seg_v = np.maximum(np.take(v_abs, first, axis=1), np.take(v_abs, first + 1, axis=1))
-        cases = np.arange(n_case) if current_cases is None else np.asarray(current_cases, int)
-        i_start = np.full((n_case, batch.n_segments), np.nan + 0j)
-        i_end = np.full((n_case, batch.n_segments), np.nan + 0j)
-        if cases.size:
-            v1 = np.take(v_t[cases], first, axis=1)
-            v2 = np.take(v_t[cases], first + 1, axis=1)
-            through = v1 - v2
-            through *= self.y_series_s
-            through += j[cases]
-            i_start[cases] = self.y_half_s * v1 + through
-            i_end[cases] = through - self.y_half_s * v2
+        if current_cases is None:
+            v_sel, j_sel = v_t, j
+        else:
+            cases = np.asarray(current_cases, int)
+            v_sel, j_sel = v_t[cases], j[cases]
+        v1 = np.take(v_sel, first, axis=1)
+        v2 = np.take(v_sel, first + 1, axis=1)
+        through = v1 - v2
+        through *= self.y_series_s
+        through += j_sel
+        v1 *= self.y_half_s
+        v1 += through  # current at the segment's start
+        v2 *= self.y_half_s
+        np.subtract(through, v2, out=v2)  # current at its end
+        if current_cases is None:
+            i_start, i_end = v1, v2
+        else:  # the cases not asked for get NaN currents
+            i_start = np.full((n_case, batch.n_segments), np.nan + 0j)
+            i_end = np.full((n_case, batch.n_segments), np.nan + 0j)
+            i_start[cases] = v1
+            i_end[cases] = v2
         seg_i = np.maximum(np.abs(i_start), np.abs(i_end))
         v, i_start, i_end, seg_v, seg_i = (a.T for a in (v_t, i_start, i_end, seg_v, seg_i))
         if single:
