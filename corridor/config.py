@@ -74,8 +74,8 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
                 " or 'dask' (a dask.distributed cluster, spatial partitions of whole assets;"
                 " needs the 'dask' extra).", None),
     "scheduler_address": (str, "-", "", "Dask scheduler to use with backend 'dask' (e.g."
-                          " 'tcp://scheduler.example:8786'); '': start a LocalCluster on this machine"
-                          " for the run.", None),
+                          " 'tcp://scheduler.example:8786'); '': start a LocalCluster on this"
+                          " machine for the run.", None),
     "dask_workers": (int, "-", 2, "Workers of the LocalCluster started when"
                      " scheduler_address is empty (one thread each).", (1, 256)),
     "dask_processes": (bool, "-", True, "LocalCluster workers are processes (true) or threads"
