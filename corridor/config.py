@@ -64,6 +64,9 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
                        " (FlatGeobuf) and/or 'parquet' (GeoParquet), one file per layer.", None),
     "max_sites_per_asset": (int, "-", 6, "Largest number of grounding sites proposed on one"
                             " asset.", (1, 100)),
+    "threads": (int, "-", 0, "Threads of the local backend: partitions of whole assets computed"
+                " side by side, rows identical to one thread; 0: up to 2 when the run has"
+                " 300,000 segments or more, else 1.", (0, 64)),
     "cache_dir": (str, "path", "auto", "Cache of per-asset results for incremental reruns"
                   " (GeoParquet + JSON index; safe to delete). 'auto': the folder"
                   " '<output folder>.cache' beside the output folder; '': no cache; any other"

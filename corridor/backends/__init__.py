@@ -73,9 +73,9 @@ def compute_function(cfg: Config, work_dir: Path | None = None):
     """
     name = backend_name(cfg)
     if name == "local":
-        from corridor.pipeline import compute
+        from corridor.backends.local import compute_local
 
-        return compute
+        return compute_local
     fn = BACKENDS[name]()
     return functools.partial(fn, work_dir=work_dir)
 

@@ -483,15 +483,19 @@ def compute_dask(cfg: Config, inputs: Inputs, stages: dict | None = None,
     return run
 
 
-def merge_partitions(cfg: Config, inputs: Inputs, results: list[dict]) -> Run:
+def merge_partitions(cfg: Config, inputs: Inputs, results: list[dict],
+                     wire: bool = True) -> Run:
     """One run from the partitions' tables, as :func:`corridor.cache.incremental_compute`
-    merges cached and fresh rows: input order, run-wide ids renumbered."""
+    merges cached and fresh rows: input order, run-wide ids renumbered.
+
+    ``wire=False`` takes the tables as frames (partitions computed in this
+    process) instead of their wire form."""
     crs = inputs.crs
     asset_pos = {a: i for i, a in enumerate(inputs.assets["asset_id"])}
     by_name: dict[str, list] = {}
     for r in results:
         for name, item in r["tables"].items():
-            by_name.setdefault(name, []).append(_from_wire(item, crs))
+            by_name.setdefault(name, []).append(_from_wire(item, crs) if wire else item)
     run = Run(cfg, inputs=inputs)
     merged = {}
     for name, frames in by_name.items():

@@ -121,14 +121,16 @@ def split_lines(geometries: np.ndarray, max_length_m: float | None) -> Segments:
     # part number within the feature
     first_part = np.searchsorted(feature_of_part, feature_of_part, side="left")
     part_no = (np.arange(len(parts)) - first_part)[part_index]
-    # chainage restarts at each feature
-    csum = np.cumsum(length)
+    # chainage restarts at each feature. The running sum is kept in extended
+    # precision so a feature's chainage does not pick up the rounding of the
+    # features before it (results per asset stay independent of the others).
+    csum = np.cumsum(length, dtype=np.longdouble)
     before = csum - length
     if len(feature):
         new_feature = np.r_[True, feature[1:] != feature[:-1]]
-        base = np.maximum.accumulate(np.where(new_feature, before, 0.0))
-        chainage = before - base
+        base = np.maximum.accumulate(np.where(new_feature, before, np.longdouble(0)))
+        chainage = (before - base).astype(float)
     else:
-        chainage = before
+        chainage = before.astype(float)
     return Segments(feature.astype(np.int64), part_no.astype(np.int64), sx0, sy0, sx1, sy1,
                     chainage, length)
