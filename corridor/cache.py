@@ -510,6 +510,44 @@ def _geometry_counts(run) -> pd.DataFrame:
                          "pairs": pairs.astype(np.int64), "sections": sections.astype(np.int64)})
 
 
+def finish_merged_run(cfg: Config, inputs: Inputs, run, merged: dict) -> None:
+    """Rejections and counts of a run merged from per-asset tables (cache, partitions).
+
+    Grounding items naming no screened asset are rejected as a full run rejects
+    them; rejected rows follow the grounds layer's order; counts are rebuilt
+    from the merged tables.
+    """
+    rej = merged.get(_REJECTED)
+    orphans = _orphan_ground_rejections(cfg, inputs)
+    if len(orphans):
+        rej = (orphans if rej is None or len(rej) == 0
+               else pd.concat([rej, orphans], ignore_index=True))
+    rows = []
+    if rej is not None and len(rej):
+        g = inputs.grounds
+        gpos = {}
+        if g is not None:
+            for i, fid in enumerate(g["feature_id"].astype(str)):
+                gpos.setdefault(fid, i)
+        rej = rej.iloc[np.argsort([gpos.get(str(f), len(gpos)) for f in rej["feature_id"]],
+                                  kind="stable")]
+        rows = [{k: r[k] for k in ("layer", "feature_id", "field", "reason")}
+                for r in rej.to_dict("records")]
+    inputs.rejected.rows.extend(rows)
+    counts = merged.get(_COUNTS)
+    run.counts["segments"] = len(run.segment_table) if run.segment_table is not None else 0
+    run.counts["pairs"] = int(counts["pairs"].sum()) if counts is not None else 0
+    run.counts["sections"] = int(counts["sections"].sum()) if counts is not None else 0
+    run.counts["exposures"] = len(run.exposure_table) if run.exposure_table is not None else 0
+    run.counts["grounds_rejected"] = len(rows)
+    for cname, (tname, fn) in COUNTS_FROM_TABLES.items():
+        if tname in merged:
+            try:
+                run.counts[cname] = fn(merged[tname])
+            except (KeyError, TypeError, ValueError):
+                pass
+
+
 def incremental_compute(cfg: Config, inputs: Inputs, stages: dict | None, folder: Path,
                         keys: AssetKeys | None = None, compute_fn=None):
     """Compute the per-asset results, recomputing only assets whose key changed.
@@ -592,34 +630,7 @@ def incremental_compute(cfg: Config, inputs: Inputs, stages: dict | None, folder
     for name, table in merged.items():
         if not name.startswith("_"):
             _place(run, name, table)
-    rej = merged.get(_REJECTED)
-    orphans = _orphan_ground_rejections(cfg, inputs)
-    if len(orphans):
-        rej = orphans if rej is None else pd.concat([rej, orphans], ignore_index=True)
-    rows = []
-    if rej is not None and len(rej):
-        g = inputs.grounds
-        gpos = {}
-        if g is not None:
-            for i, fid in enumerate(g["feature_id"].astype(str)):
-                gpos.setdefault(fid, i)
-        rej = rej.iloc[np.argsort([gpos.get(str(f), len(gpos)) for f in rej["feature_id"]],
-                                  kind="stable")]
-        rows = [{k: r[k] for k in ("layer", "feature_id", "field", "reason")}
-                for r in rej.to_dict("records")]
-    inputs.rejected.rows.extend(rows)
-    counts = merged.get(_COUNTS)
-    run.counts["segments"] = len(run.segment_table) if run.segment_table is not None else 0
-    run.counts["pairs"] = int(counts["pairs"].sum()) if counts is not None else 0
-    run.counts["sections"] = int(counts["sections"].sum()) if counts is not None else 0
-    run.counts["exposures"] = len(run.exposure_table) if run.exposure_table is not None else 0
-    run.counts["grounds_rejected"] = len(rows)
-    for cname, (tname, fn) in COUNTS_FROM_TABLES.items():
-        if tname in merged:
-            try:
-                run.counts[cname] = fn(merged[tname])
-            except (KeyError, TypeError, ValueError):
-                pass
+    finish_merged_run(cfg, inputs, run, merged)
     run.counts["assets_recomputed"] = int(changed.sum())
     run.counts["assets_from_cache"] = int(hit.sum())
     removed = set(old) - set(ids)

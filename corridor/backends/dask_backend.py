@@ -512,33 +512,5 @@ def merge_partitions(cfg: Config, inputs: Inputs, results: list[dict],
     for name, table in merged.items():
         if not name.startswith("_"):
             cache_mod._place(run, name, table)
-    rej = merged.get(cache_mod._REJECTED)
-    orphans = cache_mod._orphan_ground_rejections(cfg, inputs)
-    if len(orphans):
-        rej = orphans if rej is None or len(rej) == 0 else pd.concat([rej, orphans],
-                                                                     ignore_index=True)
-    rows = []
-    if rej is not None and len(rej):
-        g = inputs.grounds
-        gpos: dict[str, int] = {}
-        if g is not None:
-            for i, fid in enumerate(g["feature_id"].astype(str)):
-                gpos.setdefault(fid, i)
-        rej = rej.iloc[np.argsort([gpos.get(str(f), len(gpos)) for f in rej["feature_id"]],
-                                  kind="stable")]
-        rows = [{k: r[k] for k in ("layer", "feature_id", "field", "reason")}
-                for r in rej.to_dict("records")]
-    inputs.rejected.rows.extend(rows)
-    counts = merged.get(cache_mod._COUNTS)
-    run.counts["segments"] = len(run.segment_table) if run.segment_table is not None else 0
-    run.counts["pairs"] = int(counts["pairs"].sum()) if counts is not None else 0
-    run.counts["sections"] = int(counts["sections"].sum()) if counts is not None else 0
-    run.counts["exposures"] = len(run.exposure_table) if run.exposure_table is not None else 0
-    run.counts["grounds_rejected"] = len(rows)
-    for cname, (tname, fn) in cache_mod.COUNTS_FROM_TABLES.items():
-        if tname in merged:
-            try:
-                run.counts[cname] = fn(merged[tname])
-            except (KeyError, TypeError, ValueError):
-                pass
+    cache_mod.finish_merged_run(cfg, inputs, run, merged)
     return run
