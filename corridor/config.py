@@ -83,8 +83,10 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
                      " scheduler_address is empty (one thread each).", (1, 256)),
     "dask_processes": (bool, "-", True, "LocalCluster workers are processes (true) or threads"
                        " of this process (false; GEOS and LAPACK release the GIL).", None),
-    "partitions": (int, "-", 0, "Spatial partitions of whole assets with backend 'dask'; 0:"
-                   " max(2, estimated segments / 500,000).", (0, 100000)),
+    "partitions": (int, "-", 0, "Spatial partitions of whole assets. Backend 'dask', 0:"
+                   " max(2, estimated segments / 500,000). Backend 'local', 0: one piece below"
+                   " 300,000 segments on one thread, else max(threads, estimated segments /"
+                   " 250,000), so that peak memory stays bounded.", (0, 100000)),
     "work_dir": (str, "path", "", "Folder for the partition files of backend 'dask', relative"
                  " to the config file; must be reachable by every worker. '': beside the"
                  " output folder.", None),

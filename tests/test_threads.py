@@ -50,18 +50,21 @@ def _same(a, b, where):
             assert pd.Series(va).equals(pd.Series(vb)), f"{where}: {col}"
 
 
-@pytest.mark.parametrize("source", ["demo", "network"])
-def test_two_threads_equal_one(source, tmp_path):
+@pytest.mark.parametrize(("source", "threads", "partitions"), [
+    ("demo", 2, 0), ("network", 2, 0),
+    # many small partitions (the bounded-memory path of large runs), on one and two threads
+    ("network", 1, 7), ("network", 2, 7)])
+def test_partitions_equal_one_piece(source, threads, partitions, tmp_path):
     if source == "demo":
         cfg = load_config(ROOT / "config" / "demo.toml")
     else:
         cfg = load_config(network.write(tmp_path, 200.0, 1000.0, seed=3))
     inputs = read_inputs(cfg)
     one = finalize(compute(cfg, inputs, asset_stages()), run_stages())
-    cfg2 = override_run(cfg, threads=2)
-    assert local_threads(cfg2, inputs) == 2
+    cfg2 = override_run(cfg, threads=threads, partitions=partitions)
+    assert local_threads(cfg2, inputs) == threads
     two = finalize(compute_local(cfg2, read_inputs(cfg2), asset_stages()), run_stages())
-    assert two.counts["partitions"] >= 2
+    assert two.counts["partitions"] >= max(2, min(partitions, len(inputs.assets)))
     for name in TABLES:
         _same(_table(one, name), _table(two, name), name)
     assert one.inputs.rejected.rows == two.inputs.rejected.rows

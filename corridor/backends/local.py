@@ -1,18 +1,35 @@
 """The local backend: the whole compute in this process.
 
-With one thread this is :func:`corridor.pipeline.compute` itself. With more
-(``run.threads``), the assets are cut into spatial partitions of whole assets
-(the dask backend's planner) computed on a thread pool — GEOS, numpy and
-LAPACK release the GIL for most of the work — and merged as the cache merges
-cached and fresh rows, so the rows equal a single-threaded run's.
+A small run is :func:`corridor.pipeline.compute` itself. A large one (or one
+with ``run.threads`` above 1) is cut into spatial partitions of whole assets
+(the dask backend's planner) of at most about
+:data:`LOCAL_SEGMENTS_PER_PARTITION` segments, computed on a pool of
+``run.threads`` threads — GEOS, numpy and LAPACK release the GIL for most of
+the work — and merged as the cache merges cached and fresh rows, so the rows
+equal a single-partition run's. Only the partitions in flight hold their
+working arrays (coupling, the response system, the grounding loop's state):
+peak memory grows with the partition size and the thread count, not with the
+network.
 """
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
+
+import numpy as np
 
 from corridor.config import Config
 from corridor.io.layers import Inputs
+
+#: Below this many estimated segments a run stays in one piece on one thread.
+THREADED_ABOVE_SEGMENTS = 300_000
+
+#: Estimated segments per partition of the local backend when
+#: ``run.partitions`` is 0. A partition in flight holds about 3 kB of working
+#: arrays per segment (measured on the benchmark network), so two threads on
+#: 250,000-segment partitions hold about 1.5 GB besides the finished rows.
+LOCAL_SEGMENTS_PER_PARTITION = 250_000
 
 
 def compute_local(cfg: Config, inputs: Inputs, stages: dict | None = None,
@@ -35,46 +52,74 @@ def compute_local(cfg: Config, inputs: Inputs, stages: dict | None = None,
     """
     from corridor.pipeline import compute
 
-    threads = local_threads(cfg, inputs)
-    if threads <= 1:
+    threads, n_parts = local_plan(cfg, inputs)
+    if n_parts <= 1:
         return compute(cfg, inputs, stages)
-    return compute_threaded(cfg, inputs, stages, threads)
-
-
-#: Below this many estimated segments a run stays on one thread.
-THREADED_ABOVE_SEGMENTS = 300_000
+    return compute_threaded(cfg, inputs, stages, threads, n_parts)
 
 
 def local_threads(cfg: Config, inputs: Inputs) -> int:
     """Threads for this run: ``run.threads``, or with 0 (auto) the CPUs, at most 2,
     when the run is large enough to gain from them."""
+    return local_plan(cfg, inputs)[0]
+
+
+def local_plan(cfg: Config, inputs: Inputs) -> tuple[int, int]:
+    """Threads and wanted partitions for this run.
+
+    Returns
+    -------
+    threads : int
+        ``run.threads``; with 0 (auto), the CPUs (at most 2) when the run has
+        :data:`THREADED_ABOVE_SEGMENTS` estimated segments or more, else 1.
+    partitions : int
+        ``run.partitions`` when set; else 1 for a small run on one thread,
+        and otherwise max(threads, ceil(segments / LOCAL_SEGMENTS_PER_PARTITION)).
+    """
     import os
 
     from corridor.backends.dask_backend import estimated_segments
 
-    wanted = int(cfg.run.get("threads", 0))
-    if wanted > 0:
-        return wanted
     n_seg = float(estimated_segments(inputs.assets.geometry.to_numpy(),
                                      cfg.run["segment_length_m"]).sum())
-    return min(2, os.cpu_count() or 1) if n_seg >= THREADED_ABOVE_SEGMENTS else 1
+    large = n_seg >= THREADED_ABOVE_SEGMENTS
+    wanted = int(cfg.run.get("threads", 0))
+    threads = wanted if wanted > 0 else (min(2, os.cpu_count() or 1) if large else 1)
+    fixed = int(cfg.run.get("partitions", 0))
+    if fixed > 0:
+        return threads, min(fixed, max(len(inputs.assets), 1))
+    if not large and threads <= 1:
+        return threads, 1
+    auto = math.ceil(n_seg / LOCAL_SEGMENTS_PER_PARTITION)
+    return threads, min(max(threads, auto), max(len(inputs.assets), 1))
 
 
-def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: int):
-    """Partitions of whole assets computed on ``threads`` threads, merged in input order."""
+def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: int,
+                     n_partitions: int | None = None):
+    """Partitions of whole assets computed on ``threads`` threads, merged in input order.
+
+    Parameters
+    ----------
+    n_partitions : int, optional
+        Wanted partitions (default: ``threads``); see
+        :func:`corridor.backends.dask_backend.plan_partitions`.
+    """
+    import threading
     import time
     from concurrent.futures import ThreadPoolExecutor
 
-    import numpy as np
     import pandas as pd
 
     from corridor import cache as cache_mod
+    from corridor import progress
     from corridor.backends.dask_backend import merge_partitions, plan_partitions
     from corridor.pipeline import compute, subset_inputs
 
     t0 = time.perf_counter()
     parts = plan_partitions(inputs.assets.geometry.to_numpy(), cfg.run["segment_length_m"],
-                            threads)
+                            n_partitions or threads)
+    lock = threading.Lock()
+    bar = progress.bar("compute", total=len(parts))
 
     def one(index):
         mask = np.zeros(len(inputs.assets), bool)
@@ -85,20 +130,27 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
         tables[cache_mod._REJECTED] = cache_mod._compute_rejections(sub,
                                                                     run.inputs.rejected.rows)
         tables[cache_mod._COUNTS] = cache_mod._geometry_counts(run)
-        return {"tables": tables, "timings_s": run.timings_s, "counts": dict(run.counts),
-                "after": run.segment_table_after_grounding}
+        out = {"tables": tables, "timings_s": run.timings_s, "counts": dict(run.counts),
+               "after": run.segment_table_after_grounding}
+        with lock:
+            bar.update()
+        return out
 
-    with ThreadPoolExecutor(threads) as pool:
+    with bar, ThreadPoolExecutor(threads) as pool:
         results = list(pool.map(one, parts))
     t1 = time.perf_counter()
     run = merge_partitions(cfg, inputs, results, wire=False)
     afters = [r["after"] for r in results if r["after"] is not None]
     if afters:
         run.segment_table_after_grounding = pd.concat(afters, ignore_index=True)
-    # stage times: the slowest partition's (they ran side by side)
+    # stage times: summed over the partitions (CPU-side work), divided by the
+    # threads that ran them side by side — an estimate of each stage's share of
+    # the wall time; compute_wall is the measured wall time
     for r in results:
         for k, v in r["timings_s"].items():
-            run.timings_s[k] = max(run.timings_s.get(k, 0.0), v)
+            run.timings_s[k] = run.timings_s.get(k, 0.0) + v
+    for k in list(run.timings_s):
+        run.timings_s[k] = round(run.timings_s[k] / min(threads, len(parts)), 4)
     run.timings_s["merge"] = round(time.perf_counter() - t1, 4)
     run.timings_s["compute_wall"] = round(t1 - t0, 4)
     run.counts["threads"] = threads
