@@ -568,7 +568,7 @@ def _input_records(run, out_dir: Path) -> list[dict]:
 
 
 def _summary(run, out_dir: Path, assets: pd.DataFrame | None, previous: dict | None,
-             review_threshold: float) -> str:
+             review_threshold: float, inputs: list[dict] | None = None) -> str:
     t = run.segment_table
     parts = ['<section id="summary"><h2>Summary</h2>']
     crs = run.inputs.crs
@@ -607,7 +607,7 @@ def _summary(run, out_dir: Path, assets: pd.DataFrame | None, previous: dict | N
             " km</li>" for r in top.itertuples())
         parts.append(f"<h3>Worst assets</h3><ol>{items}</ol>")
     # inputs
-    recs = _input_records(run, out_dir)
+    recs = inputs if inputs is not None else _input_records(run, out_dir)
     if recs:
         body = "".join(f"<tr><td>{_esc(Path(r['path']).name)}</td>"
                        f"<td>{_esc(r.get('modified_utc', ''))}</td>"
@@ -724,7 +724,8 @@ footer{color:var(--muted);font-size:12px;margin-top:36px;border-top:1px solid va
 
 
 def write_report(run, out_dir: Path, previous: dict | None = None,
-                 max_profiles: int = MAX_PROFILES, max_rows: int = MAX_ROWS) -> Path:
+                 max_profiles: int = MAX_PROFILES, max_rows: int = MAX_ROWS,
+                 inputs: list[dict] | None = None) -> Path:
     """Write ``report.html`` for a finished run.
 
     Parameters
@@ -745,6 +746,9 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
         Cap on the number of profile plots (worst assets first).
     max_rows : int, optional
         Rows per ranked table.
+    inputs : list of dict, optional
+        Input files (``path``, ``sha256``, ``modified_utc``); default: from
+        ``run.json`` in ``out_dir``, else hashed again.
 
     Returns
     -------
@@ -767,7 +771,7 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
             "</p></header>",
             f'<div class="caution" role="alert"><strong>Caution</strong>{_esc(SAFETY_CAUTION)}'
             "</div>",
-            _summary(run, out_dir, assets_df, previous, thr)]
+            _summary(run, out_dir, assets_df, previous, thr, inputs)]
 
     body.append('<section id="map"><h2>Overview map</h2><figure>')
     body.append(overview_map(run, thr))
