@@ -455,8 +455,12 @@ def _order_rows(frame: pd.DataFrame, name: str, asset_pos: dict) -> pd.DataFrame
     if order_kind == "asset_id":
         frame = frame.sort_values("asset_id", kind="stable", key=lambda s: s.astype(str))
     else:
-        pos = frame["asset_id"].map(asset_pos).to_numpy(dtype=np.int64)
-        frame = frame.iloc[np.argsort(pos, kind="stable")]
+        ids = asset_pos if isinstance(asset_pos, pd.Index) else pd.Index(list(asset_pos))
+        pos = ids.get_indexer(frame["asset_id"]).astype(np.int64)
+        pos[pos < 0] = len(ids)  # unknown ids last, as a map to NaN sorted them
+        order = np.argsort(pos, kind="stable")
+        if not np.array_equal(order, np.arange(len(order))):
+            frame = frame.iloc[order]
     frame = frame.reset_index(drop=True)
     if isinstance(renumber, str):
         frame[renumber] = np.arange(len(frame), dtype=np.int64)

@@ -236,11 +236,13 @@ def compute(cfg: Config, inputs: Inputs, stages: dict | None = None) -> Run:
 
 def finalize(run: Run, stages: dict | None = None) -> Run:
     """Run-wide steps on the per-asset results: ids, ranks, summary layers."""
-    order = run.inputs.assets["asset_id"].reset_index(drop=True)
-    pos = {v: i for i, v in enumerate(order)}
+    ids = pd.Index(run.inputs.assets["asset_id"].astype(str))
     t = run.segment_table
-    key = np.lexsort((t["segment_index"].to_numpy(), t["asset_id"].map(pos).to_numpy()))
-    t = t.iloc[key].reset_index(drop=True)
+    key = np.lexsort((t["segment_index"].to_numpy(), ids.get_indexer(t["asset_id"])))
+    if np.array_equal(key, np.arange(len(t))):  # merged runs arrive in order: no copy
+        t = t.reset_index(drop=True)
+    else:
+        t = t.iloc[key].reset_index(drop=True)
     t.insert(0, "segment_id", np.arange(len(t), dtype=np.int64))
     run.segment_table = t
     for name, fn in (stages or {}).items():

@@ -27,23 +27,29 @@ def hazards_layer(t: gpd.GeoDataFrame, review_threshold: float = 0.5) -> gpd.Geo
 
 
 def _asset_index(t, assets) -> np.ndarray:
-    pos = pd.Index(assets["asset_id"].astype(object))
-    return pos.get_indexer(t["asset_id"].astype(object))
+    pos = pd.Index(assets["asset_id"].astype(str))
+    return pos.get_indexer(t["asset_id"])
 
 
 def responsible_lines(t, a_idx: np.ndarray, n_assets: int) -> list[str]:
     """';'-joined ids of the lines that put utilization > 0 on each asset."""
     util = t["utilization"].to_numpy(float)
-    frames = []
-    for col in ("line_id", "fault_line_id"):
-        v = t[col].to_numpy(dtype=object)
-        keep = (v != "") & (util > 0)
-        frames.append(pd.DataFrame({"a": a_idx[keep], "l": v[keep]}))
-    pairs = pd.concat(frames).drop_duplicates().sort_values(["a", "l"])
-    joined = pairs.groupby("a", sort=True)["l"].agg(";".join)
+    # distinct (asset, line) pairs on integer codes; the strings only per pair
+    codes, names = pd.factorize(pd.concat([t["line_id"], t["fault_line_id"]],
+                                          ignore_index=True))
+    names = np.asarray(names, dtype=object)
+    n = len(t)
+    a2 = np.concatenate([a_idx, a_idx])
+    keep = (codes >= 0) & np.concatenate([util > 0, util > 0])
+    keep[keep] = names[codes[keep]] != ""
+    key = np.unique(a2[keep].astype(np.int64) * max(len(names), 1) + codes[keep])
+    a, line = key // max(len(names), 1), names[key % max(len(names), 1)]
     out = [""] * n_assets
-    for a, s in zip(joined.index, joined.to_numpy(), strict=True):
-        out[a] = s
+    if n == 0 or len(key) == 0:
+        return out
+    starts = np.flatnonzero(np.r_[True, a[1:] != a[:-1]])
+    for lo, hi in zip(starts, np.r_[starts[1:], len(a)], strict=True):
+        out[a[lo]] = ";".join(sorted(line[lo:hi]))
     return out
 
 
@@ -66,8 +72,8 @@ def assets_layer(run) -> gpd.GeoDataFrame:
     w = np.where(has, worst, 0)
 
     def pick(col, fill):
-        v = t[col].to_numpy()
-        return np.where(has, v[w], fill)
+        v = t[col].take(w).to_numpy()  # only the worst rows (string columns convert slowly)
+        return np.where(has, v, fill)
 
     out = pd.DataFrame({
         "asset_id": assets["asset_id"].to_numpy(dtype=object),
