@@ -71,3 +71,37 @@ def test_partitions_equal_one_piece(source, threads, partitions, tmp_path):
     for key in ("segments", "pairs", "sections", "exposures", "grounding_sites",
                 "assets_unresolved", "segments_exceeding"):
         assert one.counts[key] == two.counts[key], key
+
+
+def test_auto_plan_bounds_partition_size(tmp_path, monkeypatch):
+    """Large runs are cut into pieces of at most about LOCAL_SEGMENTS_PER_PARTITION
+    segments whatever the thread count, so peak memory follows the partition size."""
+    import math
+
+    from corridor.backends import local
+    from corridor.backends.dask_backend import estimated_segments
+
+    cfg = load_config(network.write(tmp_path, 200.0, 1000.0, seed=3))
+    inputs = read_inputs(cfg)
+    n_seg = int(estimated_segments(inputs.assets.geometry.to_numpy(),
+                                   cfg.run["segment_length_m"]).sum())
+    assert local.local_plan(cfg, inputs) == (1, 1)  # small: one piece, one thread
+    monkeypatch.setattr(local, "THREADED_ABOVE_SEGMENTS", n_seg // 2)
+    monkeypatch.setattr(local, "LOCAL_SEGMENTS_PER_PARTITION", n_seg // 5)
+    threads, parts = local.local_plan(override_run(cfg, threads=1), inputs)
+    assert (threads, parts) == (1, math.ceil(n_seg / (n_seg // 5)))
+    threads, parts = local.local_plan(override_run(cfg, partitions=3), inputs)
+    assert parts == 3
+
+
+def test_release_free_memory_is_safe():
+    """On glibc the allocator's trim is called; elsewhere it is a no-op (common practice
+    for long-running Linux processes: malloc_trim(3))."""
+    import platform
+
+    from corridor.memory import release_free_memory
+
+    blocks = [bytes(1000) for _ in range(100_000)]
+    del blocks
+    assert release_free_memory() is (sys.platform.startswith("linux")
+                                      and platform.libc_ver()[0] == "glibc")

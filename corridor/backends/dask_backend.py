@@ -489,16 +489,20 @@ def merge_partitions(cfg: Config, inputs: Inputs, results: list[dict],
     merges cached and fresh rows: input order, run-wide ids renumbered.
 
     ``wire=False`` takes the tables as frames (partitions computed in this
-    process) instead of their wire form."""
+    process) instead of their wire form. The ``tables`` of ``results`` are
+    emptied while merging, so that each partition frame is freed once its
+    table is merged."""
     crs = inputs.crs
     asset_pos = {a: i for i, a in enumerate(inputs.assets["asset_id"])}
     by_name: dict[str, list] = {}
     for r in results:
         for name, item in r["tables"].items():
             by_name.setdefault(name, []).append(_from_wire(item, crs) if wire else item)
+        r["tables"] = {}  # the partitions' frames go as soon as their table is merged
     run = Run(cfg, inputs=inputs)
     merged = {}
-    for name, frames in by_name.items():
+    for name in list(by_name):
+        frames = by_name.pop(name)
         full = [f for f in frames if len(f)]
         frames = full or frames[:1]
         if len(frames) == 1:
@@ -508,7 +512,9 @@ def merge_partitions(cfg: Config, inputs: Inputs, results: list[dict],
                                      geometry=frames[0].geometry.name, crs=crs)
         else:
             table = pd.concat(frames, ignore_index=True)
+        del frames, full  # before the reorder copies the table
         merged[name] = cache_mod._order_rows(table, name, asset_pos)
+        del table
     for name, table in merged.items():
         if not name.startswith("_"):
             cache_mod._place(run, name, table)

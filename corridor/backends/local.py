@@ -113,6 +113,7 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
     from corridor import cache as cache_mod
     from corridor import progress
     from corridor.backends.dask_backend import merge_partitions, plan_partitions
+    from corridor.memory import release_free_memory
     from corridor.pipeline import compute, subset_inputs
 
     t0 = time.perf_counter()
@@ -138,8 +139,10 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
 
     with bar, ThreadPoolExecutor(threads) as pool:
         results = list(pool.map(one, parts))
+    release_free_memory()  # the partitions' working arrays, before the merge copies
     t1 = time.perf_counter()
     run = merge_partitions(cfg, inputs, results, wire=False)
+    release_free_memory()
     afters = [r["after"] for r in results if r["after"] is not None]
     if afters:
         run.segment_table_after_grounding = pd.concat(afters, ignore_index=True)
