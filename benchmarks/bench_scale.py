@@ -14,7 +14,9 @@
 3. Prints medians over ``--repeat`` runs and the ratio time(2x assets) /
    time(1x) measured in this one invocation (target <= 2.1).
 4. With ``--profile``, profiles one more 1x run with pyinstrument and writes
-   the profile to ``benchmarks/_work/profile.txt`` (top printed).
+   the profile to ``benchmarks/_work/profile.txt`` (top printed). With the
+   local backend that run uses one thread, so that the partitions' work is on
+   the main thread where pyinstrument samples.
 """
 
 from __future__ import annotations
@@ -58,6 +60,9 @@ def one_run(cfg_path: Path, backend: str, profile: Path | None) -> dict:
     from corridor.steps import asset_stages, run_stages
 
     cfg = override_run(load_config(cfg_path), cache_dir="", backend=backend)
+    if profile is not None and backend == "local":
+        # one thread: the partitions run on the main thread, where the profiler looks
+        cfg = override_run(cfg, threads=1)
     with tempfile.TemporaryDirectory(dir=cfg_path.parent) as tmp:
         profiler = None
         if profile is not None:

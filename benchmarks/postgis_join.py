@@ -17,8 +17,10 @@ the same asset segments and line edges corridor uses
 It checks that the pair counts agree and prints both times and their ratio
 (target: corridor at least 5x faster than the join alone).
 
-PostgreSQL and PostGIS come from Debian's packages
-(``apt-get install -y postgresql postgis``). A throw-away cluster is created
+PostgreSQL and PostGIS come from Debian's packages: when they are missing
+and the script runs as root on a machine with ``apt-get``, it installs them
+(``apt-get update`` then ``apt-get install -y postgresql postgis``; pass
+``--no-install`` to forbid that). A throw-away cluster is created
 with ``initdb`` under a temporary folder, owned by the ``postgres`` user,
 listening on 127.0.0.1 only (trust authentication, loopback only), and
 stopped and deleted at the end. Without PostgreSQL/PostGIS the script says so
@@ -122,6 +124,22 @@ def write_csv(path: Path, columns: list[np.ndarray]) -> None:
                                                                    index=False)
 
 
+def install_postgis() -> None:
+    """Install PostgreSQL and PostGIS from Debian's packages (root with apt-get only)."""
+    if shutil.which("apt-get") is None or os.geteuid() != 0:
+        print("postgis_join: cannot install PostgreSQL/PostGIS here (needs root and apt-get)")
+        return
+    print("postgis_join: installing postgresql and postgis from Debian's packages ...",
+          flush=True)
+    env = {**os.environ, "DEBIAN_FRONTEND": "noninteractive"}
+    for cmd in (["apt-get", "update", "-qq"],
+                ["apt-get", "install", "-y", "-qq", "postgresql", "postgis"]):
+        p = subprocess.run(cmd, capture_output=True, text=True, env=env)
+        if p.returncode != 0:
+            print(f"postgis_join: {' '.join(cmd)} failed:\n{p.stderr[-2000:]}")
+            return
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--line-km", type=float, default=10_000.0)
@@ -129,9 +147,14 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=7)
     ap.add_argument("--distance-m", type=float, default=1000.0)
     ap.add_argument("--segment-length-m", type=float, default=50.0)
+    ap.add_argument("--no-install", action="store_true",
+                    help="do not install PostgreSQL/PostGIS when they are missing")
     a = ap.parse_args()
 
     bindir = pg_bin()
+    if (bindir is None or not postgis_available(bindir)) and not a.no_install:
+        install_postgis()
+        bindir = pg_bin()
     if bindir is None or not postgis_available(bindir):
         print("postgis_join: skipped: PostgreSQL and/or PostGIS are not installed"
               " (apt-get install -y postgresql postgis)")

@@ -10,7 +10,6 @@ the free pages; it changes no data.
 from __future__ import annotations
 
 import ctypes
-import ctypes.util
 import logging
 import sys
 
@@ -25,7 +24,9 @@ def _load_trim():
         _trim = False
         if sys.platform.startswith("linux"):
             try:
-                libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+                # the glibc soname; ctypes.util.find_library would fork a helper
+                # program from a process that may hold gigabytes
+                libc = ctypes.CDLL("libc.so.6")
                 fn = libc.malloc_trim
                 fn.argtypes = [ctypes.c_size_t]
                 fn.restype = ctypes.c_int

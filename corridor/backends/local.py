@@ -137,8 +137,12 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
             bar.update()
         return out
 
-    with bar, ThreadPoolExecutor(threads) as pool:
-        results = list(pool.map(one, parts))
+    if threads <= 1:  # in this thread: nothing to gain from a pool, and profilers see it
+        with bar:
+            results = [one(p) for p in parts]
+    else:
+        with bar, ThreadPoolExecutor(threads) as pool:
+            results = list(pool.map(one, parts))
     release_free_memory()  # the partitions' working arrays, before the merge copies
     t1 = time.perf_counter()
     run = merge_partitions(cfg, inputs, results, wire=False)
