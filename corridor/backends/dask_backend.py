@@ -63,6 +63,7 @@ from corridor import cache as cache_mod
 from corridor.config import Config
 from corridor.errors import CorridorError
 from corridor.io.layers import Inputs, Rejected
+from corridor.memory import release_free_memory
 from corridor.pipeline import Run
 from corridor.pipeline import compute as _pipeline_compute
 
@@ -471,6 +472,7 @@ def compute_dask(cfg: Config, inputs: Inputs, stages: dict | None = None,
         shutil.rmtree(folder, ignore_errors=True)
     t0 = time.perf_counter()
     run = merge_partitions(cfg, inputs, results)
+    release_free_memory()  # the wire copies of the partitions' tables
     timings["merge"] = round(time.perf_counter() - t0, 4)
     stage_max: dict[str, float] = {}
     for r in results:
