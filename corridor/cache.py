@@ -501,6 +501,10 @@ def _orphan_ground_rejections(cfg: Config, inputs: Inputs) -> pd.DataFrame:
 
 def _geometry_counts(run) -> pd.DataFrame:
     geo = run.geometry
+    if geo is None:  # a merged run (partitioned backend): the counts it merged
+        if getattr(run, "asset_counts", None) is None:
+            raise ValueError("run has neither geometry nor merged per-asset counts")
+        return run.asset_counts
     n = len(run.inputs.assets)
     seg_feature = geo.segments.feature
     pairs = np.bincount(seg_feature[geo.pairs.segment], minlength=n) if len(geo.pairs) else \
@@ -539,6 +543,7 @@ def finish_merged_run(cfg: Config, inputs: Inputs, run, merged: dict) -> None:
                 for r in rej.to_dict("records")]
     inputs.rejected.rows.extend(rows)
     counts = merged.get(_COUNTS)
+    run.asset_counts = counts
     run.counts["segments"] = len(run.segment_table) if run.segment_table is not None else 0
     run.counts["pairs"] = int(counts["pairs"].sum()) if counts is not None else 0
     run.counts["sections"] = int(counts["sections"].sum()) if counts is not None else 0

@@ -73,6 +73,9 @@ class Run:
     response: object = None
     assessment: dict | None = None
     segment_table_after_grounding: gpd.GeoDataFrame | None = None
+    #: Per-asset pair and section counts of a run merged from partitions or the
+    #: cache, which keeps no :class:`Geometry` (``asset_id``, ``pairs``, ``sections``).
+    asset_counts: pd.DataFrame | None = None
 
 
 class _Timer:

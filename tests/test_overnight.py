@@ -49,13 +49,15 @@ def fences(post_ohm: dict | None = None, shift: dict | None = None) -> gpd.GeoDa
     return gpd.GeoDataFrame(pd.DataFrame(rows), geometry=geoms, crs="EPSG:32633")
 
 
-def make(root: Path, out: str = "out", cache: str | None = None, **kw) -> Path:
+def make(root: Path, out: str = "out", cache: str | None = None, run: dict | None = None,
+         **kw) -> Path:
     root.mkdir(parents=True, exist_ok=True)
     sc = Scenario(root)
     cfg = sc.build(assets=fences(**kw))
     cfg["run"]["output_dir"] = out
     if cache is not None:
         cfg["run"]["cache_dir"] = cache
+    cfg["run"].update(run or {})
     return sc.write_config(cfg)
 
 
@@ -164,11 +166,14 @@ def test_recover_restores_interrupted_swap(tmp_path):
 
 
 @pytest.mark.slow
-def test_incremental_rerun_matches_full_run_and_reports_the_edit(tmp_path):
-    cfg = make(tmp_path / "inc")
+# partitions: the cache fed by the partitioned local backend (how large runs compute)
+@pytest.mark.parametrize("settings", [{}, {"threads": 2, "partitions": 2}],
+                         ids=["one-piece", "partitioned"])
+def test_incremental_rerun_matches_full_run_and_reports_the_edit(tmp_path, settings):
+    cfg = make(tmp_path / "inc", run=settings)
     assert cli_run(cfg)[0] == 0
     # edit one fence: lower post resistance and move a vertex 5 m
-    make(tmp_path / "inc", post_ohm={"F2": 5.0}, shift={"F2": 5.0})
+    make(tmp_path / "inc", run=settings, post_ohm={"F2": 5.0}, shift={"F2": 5.0})
     rc, _, err = cli_run(cfg)
     assert rc == 0, err
     out = tmp_path / "inc" / "out"
