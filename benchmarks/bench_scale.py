@@ -11,7 +11,8 @@
    (``run.timings_s``), total wall time and peak resident memory of the run's
    process and of its children (``resource.getrusage``; the children are the
    Dask workers with ``--backend dask``).
-3. Prints medians over ``--repeat`` runs and the ratio time(2x assets) /
+3. Prints medians over ``--repeat`` runs, the peak resident memory of each
+   phase of the first run (sampled from /proc) and the ratio time(2x assets) /
    time(1x) measured in this one invocation (target <= 2.1).
 4. With ``--profile``, profiles one more 1x run with pyinstrument and writes
    the profile to ``benchmarks/_work/profile.txt`` (top printed). With the
@@ -52,6 +53,38 @@ def network_config(folder: Path, line_km: float, asset_km: float, seed: int) -> 
     return cfg
 
 
+class PhaseMemory:
+    """Peak resident memory per phase of :func:`corridor.runner.screen` (read, compute,
+    finalize, compare, write), sampled from /proc every 20 ms (Linux only)."""
+
+    def __init__(self):
+        import os
+        import threading
+
+        from corridor import progress
+
+        self.page = os.sysconf("SC_PAGE_SIZE")
+        self.phase = "start"
+        self.peak_gb: dict[str, float] = {}
+        original = progress.stage
+
+        def stage(name, index, count, stream=None):
+            self.phase = name
+            return original(name, index, count, stream)
+
+        progress.stage = stage
+        self.on = Path("/proc/self/statm").exists()
+        if self.on:
+            threading.Thread(target=self._sample, daemon=True).start()
+
+    def _sample(self) -> None:
+        statm = Path("/proc/self/statm")
+        while True:
+            rss = int(statm.read_text().split()[1]) * self.page / 1024 ** 3
+            self.peak_gb[self.phase] = max(self.peak_gb.get(self.phase, 0.0), rss)
+            time.sleep(0.02)
+
+
 def one_run(cfg_path: Path, backend: str, profile: Path | None) -> dict:
     """One publish in this process; the figures as a dict."""
     from corridor.backends import override_run
@@ -70,6 +103,7 @@ def one_run(cfg_path: Path, backend: str, profile: Path | None) -> dict:
 
             profiler = Profiler(interval=0.01)
             profiler.start()
+        memory = PhaseMemory()
         t0 = time.perf_counter()
         run = publish(cfg, Path(tmp) / "out", asset_stages(), run_stages())
         total = time.perf_counter() - t0
@@ -80,7 +114,8 @@ def one_run(cfg_path: Path, backend: str, profile: Path | None) -> dict:
     self_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     child_kb = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
     return {"total_s": total, "timings_s": dict(run.timings_s), "counts": dict(run.counts),
-            "peak_self_gb": self_kb / 1024 ** 2, "peak_children_gb": child_kb / 1024 ** 2}
+            "peak_self_gb": self_kb / 1024 ** 2, "peak_children_gb": child_kb / 1024 ** 2,
+            "peak_by_phase_gb": dict(memory.peak_gb)}
 
 
 def run_in_process(cfg_path: Path, backend: str, profile: Path | None = None) -> dict:
@@ -108,6 +143,10 @@ def summary(label: str, runs: list[dict]) -> float:
         print(f"  {s:16s} median {statistics.median(vals):8.2f} s")
     print(f"peak memory  self {max(r['peak_self_gb'] for r in runs):.2f} GB, children"
           f" {max(r['peak_children_gb'] for r in runs):.2f} GB")
+    phases = runs[0].get("peak_by_phase_gb", {})
+    if phases:
+        print("  by phase (first run): " + ", ".join(f"{k} {v:.2f} GB"
+                                                    for k, v in phases.items()))
     return med
 
 
