@@ -10,10 +10,7 @@ the free pages; it changes no data.
 from __future__ import annotations
 
 import ctypes
-import logging
 import sys
-
-log = logging.getLogger(__name__)
 
 _trim = None
 
