@@ -83,7 +83,7 @@ def _console(args) -> None:
 
     level = logging.WARNING if args.quiet else logging.DEBUG if args.verbose else logging.INFO
     progress.set_quiet(args.quiet)
-    handler = logging.StreamHandler(sys.stderr)
+    handler = progress.ConsoleHandler(sys.stderr)
     handler.setLevel(level)
     handler.setFormatter(logging.Formatter("corridor: %(levelname)s: %(message)s"))
     handler.addFilter(_FileOnly())

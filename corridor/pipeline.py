@@ -79,19 +79,19 @@ class Run:
 
 
 class _Timer:
-    def __init__(self, run: Run, name: str):
-        self.run, self.name = run, name
+    def __init__(self, run: Run, name: str, level: int = logging.INFO):
+        self.run, self.name, self.level = run, name, level
 
     def __enter__(self):
         self.t0 = time.perf_counter()
-        log.info("step %s ...", self.name)
+        log.log(self.level, "step %s ...", self.name)
         return self
 
     def __exit__(self, *exc):
         dt = time.perf_counter() - self.t0
         self.run.timings_s[self.name] = round(dt, 4)
         if exc[0] is None:
-            log.info("step %s done in %.2f s", self.name, dt)
+            log.log(self.level, "step %s done in %.2f s", self.name, dt)
         return False
 
 
@@ -220,15 +220,19 @@ def subset_inputs(inputs: Inputs, keep_asset: np.ndarray) -> Inputs:
     return sub
 
 
-def compute(cfg: Config, inputs: Inputs, stages: dict | None = None) -> Run:
-    """Exposure geometry and every per-asset stage, for any subset of the assets."""
+def compute(cfg: Config, inputs: Inputs, stages: dict | None = None,
+            step_log_level: int = logging.INFO) -> Run:
+    """Exposure geometry and every per-asset stage, for any subset of the assets.
+
+    ``step_log_level`` is the level of the per-step log messages (a partition
+    of a larger run logs them at DEBUG and reports once when it is done)."""
     run = Run(cfg, inputs=inputs)
-    with _Timer(run, "expose"):
+    with _Timer(run, "expose", step_log_level):
         run.geometry = stage_geometry(cfg, inputs)
         run.segment_table = segment_frame(inputs, run.geometry)
         run.exposure_table = exposure_frame(inputs, run.geometry)
     for name, fn in (stages or {}).items():
-        with _Timer(run, name):
+        with _Timer(run, name, step_log_level):
             fn(run)
     run.counts["segments"] = len(run.geometry.segments)
     run.counts["pairs"] = len(run.geometry.pairs)

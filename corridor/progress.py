@@ -15,6 +15,7 @@ or, at stage boundaries, ``progress.stage("couple", 2, 4)``.
 
 from __future__ import annotations
 
+import logging
 import os
 import sys
 import time
@@ -34,6 +35,27 @@ def enabled(stream=None) -> bool:
 
 
 _quiet = [False]
+#: Streams with a progress line drawn on them now (see :func:`clear_line`).
+_drawn: set[int] = set()
+
+
+def clear_line(stream=None) -> None:
+    """Wipe a progress line drawn on ``stream``, so that a log message starts clean.
+
+    The bar redraws itself on its next update."""
+    stream = sys.stderr if stream is None else stream
+    if id(stream) in _drawn:
+        _drawn.discard(id(stream))
+        stream.write("\r" + " " * (_WIDTH + 40) + "\r")
+        stream.flush()
+
+
+class ConsoleHandler(logging.StreamHandler):
+    """A log handler that first wipes a progress line on its stream."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        clear_line(self.stream)
+        super().emit(record)
 
 
 def set_quiet(quiet: bool) -> None:
@@ -78,9 +100,11 @@ class Bar:
             text = f"\r{self.label:<10} {self.done} {dt:5.1f} s"
         self.stream.write(text)
         self.stream.flush()
+        _drawn.add(id(self.stream))
 
     def close(self) -> None:
         if self.on:
+            _drawn.discard(id(self.stream))
             self.stream.write("\r" + " " * (_WIDTH + 40) + "\r")
             self.stream.flush()
 
@@ -103,6 +127,6 @@ def stage(name: str, index: int, count: int, stream=None) -> None:
     if enabled(stream):
         stream.write(f"\r[{index}/{count}] {name:<20}")
         stream.flush()
+        _drawn.add(id(stream))
         if index >= count:
-            stream.write("\r" + " " * 40 + "\r")
-            stream.flush()
+            clear_line(stream)

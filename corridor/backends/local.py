@@ -14,6 +14,7 @@ network.
 
 from __future__ import annotations
 
+import logging
 import math
 from pathlib import Path
 
@@ -30,6 +31,8 @@ THREADED_ABOVE_SEGMENTS = 300_000
 #: arrays per segment (measured on the benchmark network), so two threads on
 #: 250,000-segment partitions hold about 1.5 GB besides the finished rows.
 LOCAL_SEGMENTS_PER_PARTITION = 250_000
+
+log = logging.getLogger(__name__)
 
 
 def compute_local(cfg: Config, inputs: Inputs, stages: dict | None = None,
@@ -121,12 +124,16 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
                             n_partitions or threads)
     lock = threading.Lock()
     bar = progress.bar("compute", total=len(parts))
+    done = [0]
+    log.info("%d assets in %d spatial partitions on %d thread(s)", len(inputs.assets),
+             len(parts), threads)
 
     def one(index):
+        t_part = time.perf_counter()
         mask = np.zeros(len(inputs.assets), bool)
         mask[index] = True
         sub = subset_inputs(inputs, mask)
-        run = compute(cfg, sub, stages)
+        run = compute(cfg, sub, stages, step_log_level=logging.DEBUG)
         tables = dict(cache_mod._per_asset_tables(run))
         tables[cache_mod._REJECTED] = cache_mod._compute_rejections(sub,
                                                                     run.inputs.rejected.rows)
@@ -134,6 +141,10 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
         out = {"tables": tables, "timings_s": run.timings_s, "counts": dict(run.counts),
                "after": run.segment_table_after_grounding}
         with lock:
+            done[0] += 1
+            log.info("partition %d/%d done: %d assets, %d segments in %.1f s", done[0],
+                     len(parts), len(index), len(run.segment_table),
+                     time.perf_counter() - t_part)
             bar.update()
         return out
 
