@@ -192,3 +192,35 @@ def test_killed_worker_without_retries_fails_with_exit_3_and_keeps_outputs(tmp_p
     assert after == before
     leftovers = [p.name for p in cfg_path.parent.iterdir() if p.name.startswith(".corridor-dask")]
     assert leftovers == []
+
+
+def test_results_travel_as_files_and_come_back_unchanged(tmp_path):
+    """A worker's tables go back to the client as (Geo)Parquet on shared storage: the
+    item that travels holds a path and dtypes, no frame, and reading it gives the
+    same table (an identity: Parquet stores float64 bit for bit)."""
+    import geopandas as gpd
+
+    from corridor.backends.dask_backend import _from_wire, _to_wire
+
+    frame = gpd.GeoDataFrame({
+        "asset_id": pd.Series(["A1", "A1", "B2"], dtype=object),
+        "line_id": ["L1", "", "L2"],
+        "part": np.array([0, 0, 1], np.int64),
+        "v_fault_v": [1.0 / 3.0, np.nan, 1e-300],
+        "high_reliability": [True, False, True],
+        "fault_phase": pd.Series(["a", None, "c"], dtype=object),
+    }, geometry=shapely.linestrings([[(0, 0), (50, 0)], [(50, 0), (100, 0)],
+                                     [(0, 5), (0, 55)]]), crs="EPSG:32633")
+    plain = pd.DataFrame(frame.drop(columns="geometry"))
+    for table, name in ((frame, "segments"), (plain, "_counts")):
+        item = _to_wire(table, tmp_path, name)
+        assert set(item) == {"path", "geo", "dtypes"}
+        back = _from_wire(item, frame.crs)
+        assert type(back) is type(table)
+        pd.testing.assert_frame_equal(pd.DataFrame(back).drop(columns="geometry",
+                                                               errors="ignore"),
+                                      pd.DataFrame(table).drop(columns="geometry",
+                                                               errors="ignore"))
+        if name == "segments":
+            assert back.crs == frame.crs
+            assert back.geometry.geom_equals_exact(frame.geometry, 0.0).all()

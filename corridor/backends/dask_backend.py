@@ -23,11 +23,15 @@ How a run is cut up
    dask-geopandas' spatial join is deliberately not used: it takes no
    ``dwithin`` distance and drops matches between partitions whose hulls are
    disjoint but within reach.
-5. **The task returns only per-asset tables**: numbers and strings, with
-   geometries as WKB bytes, plus geometry counts and the rows it rejected.
+5. **Results through files too.** The task writes its per-asset tables
+   (GeoParquet for the layers, Parquet for the rest, plus geometry counts and
+   the rows it rejected) into a folder of its own beside its partition file
+   and returns only their paths, dtypes, counts and timings: no frame travels
+   back through the scheduler.
 6. **The client merges** them in input order with the cache's merge rules
    (:data:`corridor.cache.PER_ASSET_TABLES`: row order, run-wide ids
-   renumbered) and the caller runs :func:`corridor.pipeline.finalize`.
+   renumbered), then deletes the work folder; the caller runs
+   :func:`corridor.pipeline.finalize`.
 
 Per-asset results do not depend on which other assets are in the run, so the
 merged rows are those of a local run. Shapely's GEOS calls and numpy/LAPACK
@@ -256,17 +260,37 @@ def _restore_columns(frame: pd.DataFrame, kinds: dict) -> pd.DataFrame:
     return frame
 
 
-def _to_wire(frame: pd.DataFrame) -> dict:
-    """A table as plain columns: geometry as WKB bytes."""
-    if isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns:
-        name = frame.geometry.name
+def _to_wire(frame: pd.DataFrame, folder: Path | None = None, name: str = "") -> dict:
+    """A table for the trip back to the client.
+
+    With ``folder`` (on storage the client reaches), the table is written there
+    as (Geo)Parquet with its dtypes and only the path travels; without, the
+    table itself goes as plain columns with the geometry as WKB."""
+    geo = isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns
+    if folder is not None:
+        path = Path(folder) / cache_mod._file_name(name)
+        dtypes = {str(c): str(frame[c].dtype) for c in frame.columns}
+        if geo:
+            frame.to_parquet(path, index=False)
+        else:
+            pd.DataFrame(frame).to_parquet(path, index=False)
+        return {"path": str(path), "geo": geo, "dtypes": dtypes}
+    if geo:
+        gname = frame.geometry.name
         plain = pd.DataFrame(frame).copy()
-        plain[name] = shapely.to_wkb(frame.geometry.to_numpy())
-        return {"frame": plain, "geometry": name}
+        plain[gname] = shapely.to_wkb(frame.geometry.to_numpy())
+        return {"frame": plain, "geometry": gname}
     return {"frame": pd.DataFrame(frame), "geometry": None}
 
 
 def _from_wire(item: dict, crs) -> pd.DataFrame:
+    if "path" in item:
+        path = Path(item["path"])
+        frame = gpd.read_parquet(path) if item["geo"] else pd.read_parquet(path)
+        frame = cache_mod._restore_dtypes(frame.reset_index(drop=True), item["dtypes"])
+        if item["geo"] and frame.crs is None:
+            frame = frame.set_crs(crs)
+        return frame
     frame = item["frame"]
     name = item["geometry"]
     if name is None:
@@ -312,9 +336,11 @@ def compute_partition(packed_cfg, shared: dict, path: str, kinds: dict, stages: 
     Returns
     -------
     dict
-        ``tables`` (name -> wire table, the names of :func:`corridor.cache._per_asset_tables`
-        plus the internal ``_rejected`` and ``_counts``), ``timings_s``, ``counts``,
-        ``assets``, ``worker_pid``.
+        ``tables`` (name -> where the table is: a (Geo)Parquet file in a folder of
+        this attempt's own beside ``path``, so a retried task never mixes files; the
+        names of :func:`corridor.cache._per_asset_tables` plus the internal
+        ``_rejected`` and ``_counts``), ``timings_s``, ``counts``, ``assets``,
+        ``worker_pid``. Only paths and numbers travel back to the client.
     """
     _kill_hook()
     cfg = unpack_config(packed_cfg)
@@ -334,8 +360,14 @@ def compute_partition(packed_cfg, shared: dict, path: str, kinds: dict, stages: 
     tables = dict(cache_mod._per_asset_tables(run))
     tables[cache_mod._REJECTED] = cache_mod._compute_rejections(inputs, run.inputs.rejected.rows)
     tables[cache_mod._COUNTS] = cache_mod._geometry_counts(run)
-    return {"tables": {k: _to_wire(v) for k, v in tables.items()},
-            "timings_s": {"partition_read": round(read_s, 4), **run.timings_s},
+    t1 = time.perf_counter()
+    out = Path(path).with_name(f"{Path(path).stem}-results-{uuid.uuid4().hex[:8]}")
+    out.mkdir()
+    wire = {k: _to_wire(v, out, k) for k, v in tables.items()}
+    write_s = time.perf_counter() - t1
+    return {"tables": wire,
+            "timings_s": {"partition_read": round(read_s, 4), **run.timings_s,
+                          "partition_results_write": round(write_s, 4)},
             "counts": dict(run.counts), "assets": len(assets), "worker_pid": os.getpid()}
 
 
@@ -468,12 +500,12 @@ def compute_dask(cfg: Config, inputs: Inputs, stages: dict | None = None,
                        for k, p in enumerate(paths)]
             results = client.gather(futures)
             timings["cluster_compute"] = round(time.perf_counter() - t0, 4)
+        t0 = time.perf_counter()
+        run = merge_partitions(cfg, inputs, results)  # reads the workers' result files
+        release_free_memory()
+        timings["merge"] = round(time.perf_counter() - t0, 4)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
-    t0 = time.perf_counter()
-    run = merge_partitions(cfg, inputs, results)
-    release_free_memory()  # the wire copies of the partitions' tables
-    timings["merge"] = round(time.perf_counter() - t0, 4)
     stage_max: dict[str, float] = {}
     for r in results:
         for name, dt in r["timings_s"].items():
