@@ -310,6 +310,30 @@ def _file_name(name: str) -> str:
     return "".join(c if c.isalnum() or c in "-_" else "_" for c in name) + ".parquet"
 
 
+def write_table(frame: pd.DataFrame, path: Path) -> dict:
+    """Write a table as GeoParquet (with a geometry column) or Parquet.
+
+    Returns
+    -------
+    dict
+        ``geo`` (bool), ``dtypes`` (column -> pandas dtype name) and ``columns``:
+        what :func:`read_table` needs to give the same frame back.
+    """
+    geo = isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns
+    if geo:
+        frame.to_parquet(path, index=False)
+    else:
+        pd.DataFrame(frame).to_parquet(path, index=False)
+    return {"geo": geo, "dtypes": {str(c): str(frame[c].dtype) for c in frame.columns},
+            "columns": [str(c) for c in frame.columns]}
+
+
+def read_table(path: Path, meta: dict) -> pd.DataFrame:
+    """Read a table written by :func:`write_table`, with its dtypes restored."""
+    frame = gpd.read_parquet(path) if meta["geo"] else pd.read_parquet(path)
+    return _restore_dtypes(frame.reset_index(drop=True), meta["dtypes"])
+
+
 class Cache:
     """A cache folder of per-asset results.
 
@@ -349,13 +373,9 @@ class Cache:
         out = {}
         try:
             for name, meta in self.index.get("tables", {}).items():
-                path = gen / meta["file"]
-                if meta["geo"]:
-                    frame = gpd.read_parquet(path)
-                else:
-                    frame = pd.read_parquet(path)
+                frame = read_table(gen / meta["file"], meta)
                 frame = frame[frame["asset_id"].astype(object).isin(asset_ids).to_numpy()]
-                out[name] = _restore_dtypes(frame.reset_index(drop=True), meta["dtypes"])
+                out[name] = frame.reset_index(drop=True)
         except (OSError, ValueError, KeyError, ImportError) as exc:
             log.warning("cache %s unreadable (%s); recomputing every asset", self.folder, exc)
             return None
@@ -370,14 +390,7 @@ class Cache:
         metas = {}
         for name, frame in tables.items():
             fname = _file_name(name)
-            geo = isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns
-            dtypes = {str(c): str(frame[c].dtype) for c in frame.columns}
-            if geo:
-                frame.to_parquet(gdir / fname, index=False)
-            else:
-                pd.DataFrame(frame).to_parquet(gdir / fname, index=False)
-            metas[name] = {"file": fname, "geo": geo, "dtypes": dtypes,
-                           "columns": [str(c) for c in frame.columns]}
+            metas[name] = {"file": fname, **write_table(frame, gdir / fname)}
         index = {"format": FORMAT, "corridor": __version__, "generation": gen,
                  "written_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
                  "tables": metas,

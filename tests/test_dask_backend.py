@@ -214,7 +214,8 @@ def test_results_travel_as_files_and_come_back_unchanged(tmp_path):
     plain = pd.DataFrame(frame.drop(columns="geometry"))
     for table, name in ((frame, "segments"), (plain, "_counts")):
         item = _to_wire(table, tmp_path, name)
-        assert set(item) == {"path", "geo", "dtypes"}
+        assert set(item) == {"path", "geo", "dtypes", "columns"}
+        assert not any(isinstance(v, pd.DataFrame) for v in item.values())
         back = _from_wire(item, frame.crs)
         assert type(back) is type(table)
         pd.testing.assert_frame_equal(pd.DataFrame(back).drop(columns="geometry",

@@ -266,16 +266,10 @@ def _to_wire(frame: pd.DataFrame, folder: Path | None = None, name: str = "") ->
     With ``folder`` (on storage the client reaches), the table is written there
     as (Geo)Parquet with its dtypes and only the path travels; without, the
     table itself goes as plain columns with the geometry as WKB."""
-    geo = isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns
     if folder is not None:
         path = Path(folder) / cache_mod._file_name(name)
-        dtypes = {str(c): str(frame[c].dtype) for c in frame.columns}
-        if geo:
-            frame.to_parquet(path, index=False)
-        else:
-            pd.DataFrame(frame).to_parquet(path, index=False)
-        return {"path": str(path), "geo": geo, "dtypes": dtypes}
-    if geo:
+        return {"path": str(path), **cache_mod.write_table(frame, path)}
+    if isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns:
         gname = frame.geometry.name
         plain = pd.DataFrame(frame).copy()
         plain[gname] = shapely.to_wkb(frame.geometry.to_numpy())
@@ -285,9 +279,7 @@ def _to_wire(frame: pd.DataFrame, folder: Path | None = None, name: str = "") ->
 
 def _from_wire(item: dict, crs) -> pd.DataFrame:
     if "path" in item:
-        path = Path(item["path"])
-        frame = gpd.read_parquet(path) if item["geo"] else pd.read_parquet(path)
-        frame = cache_mod._restore_dtypes(frame.reset_index(drop=True), item["dtypes"])
+        frame = cache_mod.read_table(Path(item["path"]), item)
         if item["geo"] and frame.crs is None:
             frame = frame.set_crs(crs)
         return frame

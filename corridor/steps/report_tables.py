@@ -38,14 +38,14 @@ def responsible_lines(t, a_idx: np.ndarray, n_assets: int) -> list[str]:
     codes, names = pd.factorize(pd.concat([t["line_id"], t["fault_line_id"]],
                                           ignore_index=True))
     names = np.asarray(names, dtype=object)
-    n = len(t)
+    m = max(len(names), 1)
     a2 = np.concatenate([a_idx, a_idx])
     keep = (codes >= 0) & np.concatenate([util > 0, util > 0])
     keep[keep] = names[codes[keep]] != ""
-    key = np.unique(a2[keep].astype(np.int64) * max(len(names), 1) + codes[keep])
-    a, line = key // max(len(names), 1), names[key % max(len(names), 1)]
+    key = np.unique(a2[keep].astype(np.int64) * m + codes[keep])
+    a, line = key // m, names[key % m]
     out = [""] * n_assets
-    if n == 0 or len(key) == 0:
+    if len(key) == 0:
         return out
     starts = np.flatnonzero(np.r_[True, a[1:] != a[:-1]])
     for lo, hi in zip(starts, np.r_[starts[1:], len(a)], strict=True):
