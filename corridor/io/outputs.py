@@ -121,7 +121,7 @@ def write_csv(frame: pd.DataFrame, path: Path, caution: bool = True) -> None:
     Text cells starting with a formula trigger (``=``, ``+``, ``-``, ``@``, tab,
     carriage return, or the escape ``'`` itself) get a leading single quote, so a
     spreadsheet shows them as text and never runs them (CSV injection; OWASP).
-    :func:`read_csv` undoes both.
+    Text is quoted (RFC 4180), numbers are not. :func:`read_csv` undoes both.
 
     Parameters
     ----------
@@ -134,7 +134,9 @@ def write_csv(frame: pd.DataFrame, path: Path, caution: bool = True) -> None:
     """
     out = csv_frame(frame, caution)
     with open(path, "w", newline="", encoding="utf-8") as fh:
-        out.to_csv(fh, index=False, float_format="%.12g", quoting=csv.QUOTE_MINIMAL,
+        # text in quotes: a carriage return inside a cell would otherwise be written
+        # bare (the csv module quotes only the line terminator's own characters)
+        out.to_csv(fh, index=False, float_format="%.12g", quoting=csv.QUOTE_NONNUMERIC,
                    lineterminator="\n")
 
 
