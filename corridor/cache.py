@@ -74,16 +74,16 @@ SOIL_REACH_M = 1.0
 PER_ASSET_TABLES: dict[str, tuple] = {
     "segments": ("segment_table", "input", None),
     "exposures": ("exposure_table", "asset_id", "exposure_id"),
-    "sites": ("extra:layer:sites", "asset_id", ("site_id", "S{:04d}", 1)),
-    "grounding_sites": ("extra:csv:grounding_sites.csv", "asset_id",
-                        ("site_id", "S{:04d}", 1)),
+    "sites": ("extra:layer:sites", "asset_id", None),  # site ids: asset and position
+    "grounding_sites": ("extra:csv:grounding_sites.csv", "asset_id", None),
 }
 #: Internal per-asset tables: rows of ``rejected.csv`` found while computing an asset
 #: (grounding items) and the asset's geometry counts.
 #: Counts the per-asset stages set on the run, rebuilt from the merged tables (a subset's
 #: own count covers only the subset).
 COUNTS_FROM_TABLES = {
-    "grounding_sites": ("sites", lambda t: int(t["ground_resistance_ohm"].notna().sum())),
+    "grounding_sites": ("sites", len),
+    "grounds_proposed": ("sites", lambda t: int(t["ground_resistance_ohm"].notna().sum())),
     "assets_unresolved": ("sites", lambda t: int(t["unresolved"].astype(bool).sum())),
 }
 _REJECTED = "_rejected"

@@ -7,9 +7,13 @@ component hashes, line attributes and config hashes written by the previous
 run under ``inputs_state``).
 
 Rows of ``changes.csv``: ``new exceedance`` (worst utilization reached 1),
-``resolved exceedance`` (fell below 1), ``utilization moved`` (changed by more
-than ``run.change_threshold`` without crossing 1), ``new asset`` and
-``removed asset``. The ``cause`` names the input change found for the asset:
+``resolved exceedance`` (fell below 1), ``line rejected`` (fell below 1 while a
+power line that acted on the asset in the previous run was rejected in this
+one: the exceedance was not resolved, it is no longer assessed), ``utilization
+moved`` (changed by more than ``run.change_threshold`` without crossing 1),
+``new asset`` and ``removed asset``. The ``cause`` names the input change found
+for the asset: ``line rejected: <id> (<field>: <reason>)`` first when a line of
+the asset's previous ``line_ids`` was rejected in this run,
 ``asset edited (geometry|attributes)``, ``line <id>: <field> <before> -> <after>``,
 ``line <id> geometry edited``, ``line <id> now in reach``, ``soil changed``,
 ``grounding items changed``, ``config changed: <keys>``, ``arrangements
@@ -84,9 +88,11 @@ def read_previous(out_dir: Path) -> tuple[pd.DataFrame, dict] | None:
         record = json.loads(rj.read_text(encoding="utf-8"))
         layers = [str(n) for n in pyogrio.list_layers(gpkg)[:, 0]]
         if "assets" in layers:
+            names = set(pyogrio.read_info(gpkg, layer="assets")["fields"])
             prev = pyogrio.read_dataframe(gpkg, layer="assets", read_geometry=False,
                                           columns=["asset_id", "asset_kind",
-                                                   "worst_utilization", "governing"])
+                                                   "worst_utilization", "governing"]
+                                          + (["line_ids"] if "line_ids" in names else []))
             prev = prev.rename(columns={"worst_utilization": "utilization"})
         else:
             seg = pyogrio.read_dataframe(gpkg, layer="segments", read_geometry=False,
@@ -167,6 +173,33 @@ def causes(asset_id: str, i: int, state: dict, prev_state: dict | None, keys,
     return "; ".join(found) if found else "no input change found"
 
 
+def rejected_power_lines(run) -> dict[str, str]:
+    """Power lines rejected in this run: line id -> ``"<field>: <reason>"``.
+
+    Rows of ``run.inputs.rejected`` whose ``role`` is ``power_lines`` (rows
+    without a role: those of the power-line layer's label).
+    """
+    rej = getattr(getattr(run, "inputs", None), "rejected", None)
+    if rej is None:
+        return {}
+    label = getattr(getattr(run.config, "power_lines", None), "label", None)
+    out: dict[str, str] = {}
+    for r in rej.rows:
+        role = r.get("role")
+        if role == "power_lines" or (role is None and label is not None
+                                     and r.get("layer") == label):
+            out.setdefault(str(r.get("feature_id")),
+                           f"{r.get('field', '')}: {r.get('reason', '')}")
+    return out
+
+
+def _rejected_cause(prev_line_ids, rejected: dict[str, str]) -> str:
+    if not rejected or not isinstance(prev_line_ids, str) or not prev_line_ids:
+        return ""
+    hit = [lid for lid in prev_line_ids.split(";") if lid in rejected]
+    return "; ".join(f"line rejected: {lid} ({rejected[lid]})" for lid in hit)
+
+
 def compare(run, keys, state: dict, previous, threshold: float) -> tuple[pd.DataFrame, dict]:
     """Rows of ``changes.csv`` and the ``changes`` section of run.json.
 
@@ -194,6 +227,7 @@ def compare(run, keys, state: dict, previous, threshold: float) -> tuple[pd.Data
     m = pd.merge(prev, cur, on="asset_id", how="outer", suffixes=("_before", "_after"),
                  indicator="merge_state")
     line_ids = run.inputs.lines["line_id"].to_numpy(dtype=object)
+    rejected = rejected_power_lines(run)
     rows = []
     for r in m.itertuples(index=False):
         ub = float(r.utilization_before) if pd.notna(r.utilization_before) else np.nan
@@ -208,28 +242,31 @@ def compare(run, keys, state: dict, previous, threshold: float) -> tuple[pd.Data
             change, cause = "new asset", "asset added to the input layers"
         else:
             b, a = (0.0 if np.isnan(ub) else ub), (0.0 if np.isnan(ua) else ua)
+            lost = _rejected_cause(getattr(r, "line_ids", ""), rejected)
             if b < 1.0 <= a:
                 change = "new exceedance"
             elif a < 1.0 <= b:
-                change = "resolved exceedance"
+                change = "line rejected" if lost else "resolved exceedance"
             elif abs(a - b) > threshold:
                 change = "utilization moved"
             else:
                 continue
             cause = causes(aid, pos[aid], state, prev_state, keys, line_ids)
+            if lost:
+                cause = f"{lost}; results incomplete near it; {cause}"
         rows.append({"change": change, "asset_id": aid, "asset_kind": kind,
                      "utilization_before": ub, "utilization_after": ua,
                      "governing_before": gb, "governing_after": ga, "cause": cause})
     frame = pd.DataFrame(rows, columns=COLUMNS)
     if len(frame):
-        order = {"new exceedance": 0, "resolved exceedance": 1, "utilization moved": 2,
-                 "new asset": 3, "removed asset": 4}
+        order = {"new exceedance": 0, "line rejected": 1, "resolved exceedance": 2,
+                 "utilization moved": 3, "new asset": 4, "removed asset": 5}
         frame = frame.iloc[np.lexsort((frame["asset_id"].to_numpy(dtype=str),
                                        frame["change"].map(order).to_numpy()))]
         frame = frame.reset_index(drop=True)
     counts = {k: int((frame["change"] == k).sum()) for k in
-              ("new exceedance", "resolved exceedance", "utilization moved", "new asset",
-               "removed asset")}
+              ("new exceedance", "line rejected", "resolved exceedance", "utilization moved",
+               "new asset", "removed asset")}
     summary = {"previous_run": record.get("finished_utc"), "threshold": threshold,
                "counts": counts,
                "rows": json.loads(frame.head(1000).to_json(orient="records"))}

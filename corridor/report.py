@@ -2,12 +2,16 @@
 
 ``report.html`` opens offline: CSS is inline, every figure is an inline SVG
 drawn with matplotlib from the run's own geometries (no web tiles, fonts or
-scripts). Sections: safety caution, summary (inputs with date and SHA-256
-prefix, CRS, limit set, counts by hazard class, worst assets, change since
-the previous run), overview map, ranked tables of the worst assets,
-exposures and segments, a |V|-along-chainage profile for each asset that
-exceeds a limit (capped), the limit set's criteria, and the method's
-assumptions.
+scripts). It opens with a banner for every rejected power line (the results
+are incomplete near it) and one for the limit-set criteria the run could not
+assess (they never count as passing). Sections: safety caution, summary
+(inputs with date and SHA-256 prefix, CRS, limit set, counts by hazard
+class, worst assets, change since the previous run), overview map, ranked
+tables of the worst assets, exposures and segments, a |V|-along-chainage profile for each asset that
+exceeds a limit (capped), rejected input features (power lines, assets,
+others), the defaults used per field (with the feature ids for the
+safety-relevant fields), the limit set's criteria (with what was not
+assessed), and the method's assumptions.
 
 Large runs stay small and fast: map geometries are simplified to well below
 the drawing resolution and drawn as one ``LineCollection`` per layer
@@ -541,6 +545,147 @@ def profile_plot(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | N
 # Sections
 # --------------------------------------------------------------------------
 
+#: Fields whose filled-in defaults the report lists asset by asset (their ids): a
+#: default there can hide a hazard (fault level and duration, fence posts, pipeline
+#: coating, how an asset ends).
+SAFETY_DEFAULT_FIELDS = (
+    "fault_current_start_ka", "fault_current_end_ka", "clearing_time_s", "post_type",
+    "coating_type", "coating_resistance_ohm_m2", "start_termination", "end_termination",
+    "termination_resistance_ohm",
+)
+#: Most ids listed per field in the report (run.json keeps them all).
+MAX_IDS = 200
+
+
+def _role_rows(run, role: str) -> list[dict]:
+    """Rows of ``run.inputs.rejected`` of one role (power_lines, assets, soil, ...).
+
+    Rows without a ``role`` key are placed by their layer label: the power-line
+    layer, an asset layer, else other.
+    """
+    rej = getattr(getattr(run, "inputs", None), "rejected", None)
+    rows = list(getattr(rej, "rows", None) or [])
+    cfg = run.config
+    line_label = getattr(getattr(cfg, "power_lines", None), "label", None)
+    asset_labels = {getattr(a, "label", None) for a in getattr(cfg, "assets", ()) or ()}
+
+    def role_of(r):
+        if r.get("role"):
+            return r["role"]
+        if line_label is not None and r.get("layer") == line_label:
+            return "power_lines"
+        if r.get("layer") in asset_labels:
+            return "assets"
+        return "other"
+
+    if role == "other":
+        return [r for r in rows if role_of(r) not in ("power_lines", "assets")]
+    return [r for r in rows if role_of(r) == role]
+
+
+def _rejected_lines_banner(run) -> str:
+    """The banner that opens the report when a power line was rejected."""
+    rows = _role_rows(run, "power_lines")
+    if not rows:
+        return ""
+    accepted = bool(run.config.run.get("accept_rejected_lines", False))
+    reach = run.config.run.get("screening_distance_m", "")
+    items = "".join(f"<li><b>{_esc(r.get('feature_id', ''))}</b> ({_esc(r.get('layer', ''))}):"
+                    f" field <code>{_esc(r.get('field', ''))}</code> — {_esc(r.get('reason', ''))}"
+                    "</li>" for r in rows)
+    note = (" The run was told to accept rejected lines (<code>accept_rejected_lines</code>);"
+            " that changes the exit code only, not what is missing." if accepted else "")
+    return (f'<div class="alert" id="rejected-lines" role="alert"><strong>Results incomplete'
+            f"</strong>{len(rows)} power line{'s were' if len(rows) != 1 else ' was'} rejected"
+            " and left out of the screening. Every asset within the screening distance"
+            f" ({_esc(reach)} m) of {'them' if len(rows) != 1 else 'it'} is assessed without"
+            " its induction, fault and earth-potential contribution: an asset shown clear"
+            f" there may not be.{note} Fix the line data and run again."
+            f"<ul>{items}</ul></div>")
+
+
+def _not_assessed(run) -> list[dict]:
+    extra = run.extra_tables.get("json", {}) if hasattr(run, "extra_tables") else {}
+    rows = extra.get("not_assessed") if isinstance(extra, dict) else None
+    if rows is None:
+        from corridor.steps.report_tables import not_assessed_criteria
+
+        rows = not_assessed_criteria(run)
+    return list(rows)
+
+
+def _not_assessed_banner(rows: list[dict]) -> str:
+    if not rows:
+        return ""
+    items = "".join(f"<li><code>{_esc(r.get('label', r.get('criterion', '')))}</code>"
+                    f" (<code>{_esc(r.get('quantity', ''))}</code>"
+                    + (f", {_num(r['segments'])} segments" if "segments" in r else "")
+                    + f"): {_esc(r.get('reason', ''))}</li>" for r in rows)
+    return ('<div class="alert" id="not-assessed" role="alert"><strong>Not assessed</strong>'
+            f"{len(rows)} criteri{'a' if len(rows) != 1 else 'on'} of the limit set could not be"
+            " judged on any segment. They did NOT pass: a segment shown clear was not checked"
+            " against them. Check these hazards by other means."
+            f"<ul>{items}</ul></div>")
+
+
+def _rejected_section(run) -> str:
+    """Tables of rejected assets and other rejected input features."""
+    parts = ['<section id="rejected"><h2>Rejected input features</h2>']
+    cols = ["layer", "feature_id", "field", "reason"]
+    lines = _role_rows(run, "power_lines")
+    assets = _role_rows(run, "assets")
+    other = _role_rows(run, "other")
+    if not (lines or assets or other):
+        parts.append("<p>No input feature was rejected.</p></section>")
+        return "".join(parts)
+    for title, rows in (("Power lines", lines), ("Assets", assets),
+                        ("Soil, grounds and towers", other)):
+        if not rows:
+            continue
+        frame = pd.DataFrame(rows).reindex(columns=cols)
+        shown = frame.head(MAX_ROWS * 4)
+        parts.append(f"<h3>{_esc(title)}</h3>")
+        parts.append(_table(shown, cols, f"{len(shown)} of {len(frame)} rejected; every one is"
+                            " in rejected.csv"))
+    if assets:
+        parts.append("<p>Rejected assets are not screened at all: they are in no layer"
+                     " but rejected.csv.</p>")
+    parts.append("</section>")
+    return "".join(parts)
+
+
+def _defaults_section(run) -> str:
+    """Counts of values filled from defaults per field; ids for the safety-relevant ones."""
+    used = getattr(getattr(run, "inputs", None), "defaults_used", None)
+    parts = ['<section id="defaults"><h2>Defaults used</h2>']
+    if used is None:
+        parts.append("<p>This run did not record which values came from defaults.</p>"
+                     "</section>")
+        return "".join(parts)
+    if not used:
+        parts.append("<p>No missing value was filled from defaults.</p></section>")
+        return "".join(parts)
+    rows = []
+    for fld in sorted(used):
+        ids = [str(i) for i in used[fld]]
+        safety = fld in SAFETY_DEFAULT_FIELDS
+        listed = ""
+        if safety:
+            listed = ", ".join(ids[:MAX_IDS]) + (f" … and {len(ids) - MAX_IDS} more (run.json)"
+                                                 if len(ids) > MAX_IDS else "")
+        rows.append(f"<tr><td><code>{_esc(fld)}</code></td><td class='n'>{len(ids)}</td>"
+                    f"<td>{'yes' if safety else ''}</td>"
+                    f"<td style='white-space:normal'>{_esc(listed)}</td></tr>")
+    parts.append("<p>Missing values filled from the asset kind's defaults or"
+                 " <code>[line_defaults]</code>. Where a default decides safety (fault current,"
+                 " clearing time, post type, coating, terminations) the features are listed:"
+                 " check them in the field data.</p>")
+    parts.append("<div class='tablewrap'><table><thead><tr><th>Field</th><th>Features</th>"
+                 "<th>Safety-relevant</th><th>Ids</th></tr></thead>"
+                 f"<tbody>{''.join(rows)}</tbody></table></div></section>")
+    return "".join(parts)
+
+
 
 def _input_records(run, out_dir: Path) -> list[dict]:
     record = out_dir / "run.json"
@@ -704,6 +849,11 @@ h1{font-size:24px;margin:6px 0 2px}h2{font-size:19px;margin:30px 0 8px;padding-b
 .caution{border:3px solid #b8322f;background:#fff4f2;padding:12px 16px;border-radius:6px;
  font-size:15px;margin:12px 0 8px}
 .caution strong{color:#8a1f1f;text-transform:uppercase;letter-spacing:.04em;margin-right:6px}
+.alert{border:4px solid #8a1f1f;background:#ffe3de;padding:12px 16px;border-radius:6px;
+ font-size:15px;margin:12px 0 8px}
+.alert strong{display:block;color:#8a1f1f;font-size:18px;text-transform:uppercase;
+ letter-spacing:.04em;margin-bottom:4px}
+.alert ul{margin:6px 0 0 18px;padding:0}
 dl.facts{display:grid;grid-template-columns:max-content 1fr;gap:3px 16px;margin:8px 0}
 dl.facts dt{color:var(--muted)}dl.facts dd{margin:0}
 .tablewrap{overflow-x:auto;margin:6px 0 12px}
@@ -766,9 +916,12 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
                                                                   errors="ignore"))
     t = run.segment_table
     now = datetime.now(UTC).isoformat(timespec="seconds")
+    missing = _not_assessed(run)
     body = [f"<header><h1>Corridor screening report</h1><p class='sub'>"
             f"{_esc(Path(str(run.config.path)).name)} · written {now} · corridor {__version__}"
             "</p></header>",
+            _rejected_lines_banner(run),
+            _not_assessed_banner(missing),
             f'<div class="caution" role="alert"><strong>Caution</strong>{_esc(SAFETY_CAUTION)}'
             "</div>",
             _summary(run, out_dir, assets_df, previous, thr, inputs)]
@@ -851,9 +1004,16 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
                         f" (cap of {max_profiles}); see the assets layer.</p>")
     body.append("</section>")
 
+    body.append(_rejected_section(run))
+    body.append(_defaults_section(run))
+
     if ls is not None:
+        unjudged = {r.get("criterion"): r for r in missing}
         crows = pd.DataFrame([{"criterion": c.name, "case": c.case, "quantity": c.quantity,
-                               "applies to": ", ".join(c.applies_to), "source": c.source}
+                               "applies to": ", ".join(c.applies_to),
+                               "assessed": ("NOT ASSESSED" if c.name in unjudged else "yes"),
+                               "needs": ", ".join(getattr(c, "needs", ())),
+                               "source": c.source}
                               for c in ls.criteria])
         body.append('<section id="limits"><h2>Limit set criteria</h2>')
         body.append(_table(crows, list(crows.columns), f"{ls.name}: {len(crows)} criteria"))

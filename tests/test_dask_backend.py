@@ -225,3 +225,24 @@ def test_results_travel_as_files_and_come_back_unchanged(tmp_path):
         if name == "segments":
             assert back.crs == frame.crs
             assert back.geometry.geom_equals_exact(frame.geometry, 0.0).all()
+
+
+def test_in_process_cluster_threads_equals_local(tmp_path):
+    # run.dask_processes = false: corridor starts a real in-process LocalCluster
+    # (threads, dask's in-process transport); it used to be given a host and fail.
+    cfg = load_config(DEMO)
+    a = local_run(cfg)
+    b = dask_run(cfg, tmp_path, scheduler_address="", dask_workers=2, dask_processes=False)
+    assert b.counts["partitions"] == 2
+    assert_runs_equal(a, b)
+    assert not list(tmp_path.iterdir()), "partition files left behind"
+
+
+def test_cluster_client_in_process_is_inproc(tmp_path):
+    from corridor.backends.dask_backend import cluster_client
+
+    cfg = override_run(load_config(DEMO), backend="dask", scheduler_address="",
+                       dask_workers=1, dask_processes=False)
+    with cluster_client(cfg) as client:
+        assert client.scheduler.address.startswith("inproc://")
+        assert client.submit(sum, [1, 2, 3]).result() == 6

@@ -105,3 +105,53 @@ def test_rank_ties_are_deterministic(scenario):
         t = run.segment_table.sort_values("rank")
         assert sorted(t["rank"]) == list(range(1, len(t) + 1))
     assert runs[0].segment_table["rank"].tolist() == runs[1].segment_table["rank"].tolist()
+
+
+# ------------------------------------------------------------- stable site ids
+
+DEMO = __import__("pathlib").Path(__file__).resolve().parents[1] / "config" / "demo.toml"
+
+
+def _demo_sites(extra_asset: str | None = None):
+    """Sites of the demo run; with ``extra_asset`` a copy of the first exceeding asset,
+    3 m aside, under that id (added last to the asset table, as a new feature would be)."""
+    import pandas as pd
+
+    from corridor.io.layers import read_inputs
+    from corridor.pipeline import compute, finalize
+
+    cfg = load_config(DEMO)
+    inputs = read_inputs(cfg)
+    if extra_asset is not None:
+        a = inputs.assets
+        row = a[a["asset_id"] == "FN-MILL-3"].copy()
+        row["asset_id"] = extra_asset
+        row["feature_id"] = extra_asset
+        row["geometry"] = row.geometry.translate(0.0, 3.0)
+        inputs.assets = gpd.GeoDataFrame(pd.concat([a, row], ignore_index=True),
+                                         geometry="geometry", crs=a.crs)
+    run = finalize(compute(cfg, inputs, asset_stages()), run_stages())
+    return run.extra_tables["csv:grounding_sites.csv"]
+
+
+def test_site_ids_unchanged_when_an_unrelated_asset_is_added():
+    before = _demo_sites()
+    after = _demo_sites("AAA-NEW")  # sorts before every demo asset
+    new = after[after["asset_id"] == "AAA-NEW"]
+    assert len(new) > 0  # it gets sites of its own, which would have renumbered the rest
+    kept = after[after["asset_id"] != "AAA-NEW"].reset_index(drop=True)
+    assert kept["site_id"].tolist() == before["site_id"].tolist()
+    assert kept["chainage_m"].tolist() == before["chainage_m"].tolist()
+    assert before["site_id"].is_unique and after["site_id"].is_unique
+
+
+def test_site_id_is_asset_and_chainage_to_the_metre():
+    from corridor.steps.ground import site_ids
+
+    sites = _demo_sites()
+    for sid, aid, ch in zip(sites["site_id"], sites["asset_id"], sites["chainage_m"],
+                            strict=True):
+        assert sid == f"{aid}@{int(np.floor(ch + 0.5))}"
+    # two sites of one asset within a metre stay distinct, in the order given
+    assert site_ids(["A", "A", "B", "A"], [10.2, 9.8, 10.0, 1250.49]) == \
+        ["A@10", "A@10/2", "B@10", "A@1250"]

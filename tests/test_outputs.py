@@ -5,6 +5,8 @@ that disagrees with its layer would send crews to the wrong place), plus the
 safety caution required on every CSV (project safety rule).
 """
 
+import csv
+import json
 from pathlib import Path
 
 import numpy as np
@@ -13,7 +15,7 @@ import pyogrio
 import pytest
 
 from corridor.cli import main
-from corridor.io.outputs import SAFETY_CAUTION
+from corridor.io.outputs import CAUTION_COLUMN, SAFETY_CAUTION, read_csv, write_csv
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -42,7 +44,7 @@ def test_files_written(demo_out):
     ("exposures.csv", "exposures", "exposure_id"),
 ])
 def test_csv_and_layer_agree_row_for_row(demo_out, csv_name, layer, key):
-    csv = pd.read_csv(demo_out / csv_name, comment="#")
+    csv = read_csv(demo_out / csv_name)
     lyr = pyogrio.read_dataframe(demo_out / "screening.gpkg", layer=layer, read_geometry=False)
     assert list(csv.columns) == list(lyr.columns)
     assert csv[key].astype(str).tolist() == lyr[key].astype(str).tolist()
@@ -58,8 +60,81 @@ def test_csv_and_layer_agree_row_for_row(demo_out, csv_name, layer, key):
 
 
 def test_every_csv_carries_the_caution(demo_out):
+    # project safety rule: every CSV carries the caution; here as the last column of a
+    # plain CSV (RFC 4180), read with the standard library's csv module as reference
+    paths = sorted(demo_out.glob("*.csv"))
+    assert len(paths) >= 4
+    for path in paths:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rows = list(csv.reader(fh))
+        assert rows[0][-1] == CAUTION_COLUMN, path.name
+        assert all(len(r) == len(rows[0]) for r in rows), path.name
+        assert all(r[-1] == SAFETY_CAUTION for r in rows[1:]), path.name
+    # the tables with rows carry the text itself
+    with open(demo_out / "grounding_sites.csv", newline="", encoding="utf-8") as fh:
+        assert SAFETY_CAUTION in fh.read()
+
+
+def test_csv_ids_with_hash_survive_plain_pandas(tmp_path):
+    # ids such as "#3" (a feature without id) or "MP#12" are whole: no comment line,
+    # so a plain pandas.read_csv needs no option (the README's advice)
+    frame = pd.DataFrame({"feature_id": ["#3", "MP#12", "A"], "x_m": [1.0, 2.0, 3.0]})
+    write_csv(frame, tmp_path / "t.csv")
+    back = pd.read_csv(tmp_path / "t.csv")
+    assert back["feature_id"].tolist() == ["#3", "MP#12", "A"]
+    assert list(back.columns) == ["feature_id", "x_m", CAUTION_COLUMN]
+    assert read_csv(tmp_path / "t.csv").columns.tolist() == ["feature_id", "x_m"]
+
+
+FORMULAS = ["=1+1", "+41 55", "-2+3", "@SUM(A1)", "\tTAB", "\rCR", "'quoted",
+            "=HYPERLINK(\"http://x\",\"y\")"]
+
+
+def test_csv_injection_neutralised_and_reversible(tmp_path):
+    # OWASP "CSV Injection": a cell starting with = + - @ tab or CR is read as a formula
+    # by spreadsheets; prefixing a single quote makes it text (common practice).
+    frame = pd.DataFrame({"asset_id": FORMULAS + ["plain", "MBL-12"],
+                          "v_normal_v": [-1.5] * 8 + [2.0, 3.0]})
+    write_csv(frame, tmp_path / "t.csv")
+    with open(tmp_path / "t.csv", newline="", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))[1:]
+    cells = [r[0] for r in rows]
+    for raw, cell in zip(FORMULAS, cells, strict=False):
+        assert cell == "'" + raw
+        assert not cell.startswith(("=", "+", "-", "@", "\t", "\r"))
+    assert cells[-2:] == ["plain", "MBL-12"]
+    assert [float(r[1]) for r in rows][:1] == [-1.5]  # numbers are not text: unchanged
+    back = read_csv(tmp_path / "t.csv")
+    assert back["asset_id"].tolist() == FORMULAS + ["plain", "MBL-12"]
+    np.testing.assert_array_equal(back["v_normal_v"], frame["v_normal_v"])
+
+
+def test_no_csv_cell_of_the_demo_starts_with_a_formula_trigger(demo_out):
     for path in demo_out.glob("*.csv"):
-        assert path.read_text(encoding="utf-8").splitlines()[0] == f"# {SAFETY_CAUTION}"
+        with open(path, newline="", encoding="utf-8") as fh:
+            for row in list(csv.reader(fh))[1:]:
+                for cell in row:
+                    if cell.startswith(("=", "+", "@", "\t", "\r")):
+                        raise AssertionError(f"{path.name}: {cell!r}")
+                    if cell.startswith("-"):  # only numbers may start with a minus
+                        float(cell)
+
+
+def test_run_json_counts_agree_with_the_files(demo_out):
+    record = json.loads((demo_out / "run.json").read_text(encoding="utf-8"))
+    counts = record["counts"]
+    sites = read_csv(demo_out / "grounding_sites.csv")
+    layer = pyogrio.read_dataframe(demo_out / "screening.gpkg", layer="sites",
+                                   read_geometry=False)
+    assert counts["grounding_sites"] == len(sites) == len(layer)
+    assert counts["grounds_proposed"] == int(sites["ground_resistance_ohm"].notna().sum())
+    assert counts["grounds_proposed"] < counts["grounding_sites"]  # the demo has both kinds
+    assert counts["exposures"] == len(read_csv(demo_out / "exposures.csv"))
+    assert counts["rejected"] == len(read_csv(demo_out / "rejected.csv"))
+    assert counts["segments"] == pyogrio.read_info(demo_out / "screening.gpkg",
+                                                   layer="segments")["features"]
+    assert counts["assets"] == pyogrio.read_info(demo_out / "screening.gpkg",
+                                                 layer="assets")["features"]
 
 
 def test_column_names_carry_units(demo_out):
@@ -80,8 +155,26 @@ def test_sites_have_wgs84_positions_matching_pyproj(demo_out):
     # pyproj is the reference for the run CRS -> WGS 84 transformation
     from pyproj import Transformer
 
-    s = pd.read_csv(demo_out / "grounding_sites.csv", comment="#")
+    s = read_csv(demo_out / "grounding_sites.csv")
     lon, lat = Transformer.from_crs("EPSG:32615", 4326, always_xy=True).transform(
         s["x"].to_numpy(), s["y"].to_numpy())
     np.testing.assert_allclose(s["lon"], lon, atol=1e-7)  # 12 significant digits in the CSV
     np.testing.assert_allclose(s["lat"], lat, atol=1e-7)
+
+
+def test_run_json_lists_criteria_not_assessed(demo_out):
+    # ieee_na (config/demo.toml): step_fault needs the ground electrodes' geometry and
+    # ac_corrosion_ratio the DC current density; the demo layers carry neither
+    record = json.loads((demo_out / "run.json").read_text(encoding="utf-8"))
+    rows = record["not_assessed"]
+    assert [(r["criterion"], r["label"]) for r in rows] == [
+        ("step_fault", "step_fault:fault"), ("ac_corrosion_ratio", "ac_corrosion_ratio:normal")]
+    assert "ground_electrode_geometry" in rows[0]["reason"]
+    assert "dc_current_density_a_per_m2" in rows[1]["reason"]
+    assert record["counts"]["criteria_not_assessed"] == 2
+    # pipelines, fences and rail carry step_fault; pipelines ac_corrosion_ratio
+    seg = pyogrio.read_dataframe(demo_out / "screening.gpkg", layer="segments",
+                                 read_geometry=False, columns=["asset_kind"])
+    kinds = seg["asset_kind"]
+    assert rows[0]["segments"] == int(kinds.isin(["pipeline", "fence", "rail"]).sum())
+    assert rows[1]["segments"] == int((kinds == "pipeline").sum())

@@ -35,7 +35,7 @@ needs_chromium = pytest.mark.skipif(
                              " .ci/run installs it")
 
 SECTIONS = ("summary", "changes", "map", "worst-assets", "worst-exposures", "worst-segments",
-            "profiles", "limits", "assumptions")
+            "profiles", "rejected", "defaults", "limits", "assumptions")
 
 
 @pytest.fixture(scope="module")
@@ -124,6 +124,90 @@ def test_change_section_generic(demo_run, tmp_path):
     section = text[text.index('id="changes"'):text.index('id="map"')]
     assert "X-1" in section and "worse" in section and "then" in section
     assert "&lt;b&gt;escaped&lt;/b&gt;" in section  # table cells are HTML-escaped
+
+
+def _variant(run, rejected_rows=(), defaults_used=None, **run_settings):
+    """A shallow copy of ``run`` with other rejected rows, defaults and run settings."""
+    import copy
+    import dataclasses
+    from types import MappingProxyType
+
+    from corridor.io.layers import Rejected
+
+    out = copy.copy(run)
+    out.inputs = copy.copy(run.inputs)
+    out.inputs.rejected = Rejected()
+    out.inputs.rejected.rows.extend(dict(r) for r in rejected_rows)
+    if defaults_used is not None:
+        out.inputs.defaults_used = defaults_used
+    if run_settings:
+        out.config = dataclasses.replace(
+            run.config, run=MappingProxyType({**dict(run.config.run), **run_settings}))
+    return out
+
+
+LINE_ROW = {"layer": "brackenford_vale.gpkg:power_lines", "feature_id": "VPC-138-B",
+            "field": "KV", "reason": "not a number: '220 kV'", "role": "power_lines"}
+ASSET_ROW = {"layer": "brackenford_vale.gpkg:fences", "feature_id": "FN-BAD-9",
+             "field": "POST_OHM", "reason": "below the valid range", "role": "assets"}
+
+
+@pytest.mark.parametrize("accepted", [False, True])
+def test_report_opens_with_rejected_line_banner(demo_run, tmp_path, accepted):
+    run = _variant(demo_run, [LINE_ROW, ASSET_ROW], accept_rejected_lines=accepted)
+    text = write_report(run, tmp_path).read_text(encoding="utf-8")
+    banner = text[text.index('id="rejected-lines"'):]
+    banner = banner[:banner.index("</div>")]
+    # the banner opens the report: before the caution and every section
+    assert text.index('id="rejected-lines"') < text.index('class="caution"')
+    assert "VPC-138-B" in banner and html.escape("not a number: '220 kV'") in banner
+    assert "incomplete" in banner.lower() and "FN-BAD-9" not in banner
+    assert ("accept_rejected_lines" in banner) == accepted  # the banner stays when accepted
+    # rejected assets are tabled
+    section = text[text.index('id="rejected"'):text.index('id="defaults"')]
+    assert "FN-BAD-9" in section and "below the valid range" in section
+
+
+def test_rejected_line_found_by_layer_without_role(demo_run, tmp_path):
+    row = {k: v for k, v in LINE_ROW.items() if k != "role"}
+    row["layer"] = demo_run.config.power_lines.label
+    text = write_report(_variant(demo_run, [row]), tmp_path).read_text(encoding="utf-8")
+    assert 'id="rejected-lines"' in text
+
+
+def test_no_banner_without_rejected_lines(text):
+    assert 'id="rejected-lines"' not in text
+    assert "No input feature was rejected." in text
+
+
+def test_defaults_counted_per_field_with_ids_of_safety_fields(demo_run, tmp_path):
+    used = {"clearing_time_s": ["VPC-345-A", "VPC-138-B"], "post_type": ["FN-MILL-3"],
+            "coating_type": ["MBL-12"], "end_termination": ["TC-VALE-3"],
+            "wire_count": ["FN-RIDGE-2", "FN-HOLLOW-1"]}
+    text = write_report(_variant(demo_run, defaults_used=used), tmp_path).read_text(
+        encoding="utf-8")
+    section = text[text.index('id="defaults"'):text.index('id="limits"')]
+    rows = {m.group(1): m.group(2) for m in re.finditer(
+        r"<tr><td><code>(\w+)</code></td>(.*?)</tr>", section)}
+    assert set(rows) == set(used)
+    for fld, ids in used.items():
+        assert f"<td class='n'>{len(ids)}</td>" in rows[fld], fld
+        listed = all(i in rows[fld] for i in ids)
+        assert listed == (fld != "wire_count"), fld  # ids only for safety-relevant fields
+
+
+def test_not_assessed_criteria_are_loud(text, demo_run):
+    # ieee_na's step_fault and ac_corrosion_ratio judge quantities no stage computes
+    missing = demo_run.extra_tables["json"]["not_assessed"]
+    assert [r["criterion"] for r in missing] == ["step_fault", "ac_corrosion_ratio"]
+    banner = text[text.index('id="not-assessed"'):]
+    banner = banner[:banner.index("</div>")]
+    assert text.index('id="not-assessed"') < text.index('id="summary"')
+    assert "did NOT pass" in banner
+    for r in missing:
+        assert r["label"] in banner and html.escape(r["reason"]) in banner
+    limits = text[text.index('id="limits"'):text.index('id="assumptions"')]
+    assert limits.count("NOT ASSESSED") == 2
 
 
 def _chromium(args: list[str], tmp_path: Path) -> subprocess.CompletedProcess:

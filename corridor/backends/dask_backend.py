@@ -386,8 +386,12 @@ def cluster_client(cfg: Config):
     n_workers = int(cfg.run.get("dask_workers", 2))
     log.info("dask: starting a LocalCluster of %d workers (%s)", n_workers,
              "processes" if processes else "threads")
+    # Worker processes talk over TCP on the loopback interface only; an in-process
+    # cluster (threads) talks over dask's in-process transport, which takes no host
+    # (given one, its scheduler fails to start).
+    where = {"host": "127.0.0.1"} if processes else {}
     with LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=processes,
-                      dashboard_address=":0", host="127.0.0.1") as cluster, \
+                      dashboard_address=":0", **where) as cluster, \
             Client(cluster) as client:
         yield client
 

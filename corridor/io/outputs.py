@@ -42,18 +42,114 @@ def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
                             layer_options={"SPATIAL_INDEX": "YES"})
 
 
+#: Name of the last column of every CSV corridor writes: the safety caution, on every row.
+CAUTION_COLUMN = "caution"
+
+#: First characters that make a spreadsheet read a cell as a formula (``=``, ``+``,
+#: ``-``, ``@``; tab and carriage return too), plus the escape character itself so the
+#: escaping can be undone without ambiguity (OWASP, "CSV Injection"; common practice).
+FORMULA_TRIGGERS = ("=", "+", "-", "@", "\t", "\r", "'")
+
+
+def neutralise_cell(value):
+    """A text cell made safe for spreadsheets: a single quote before a formula trigger.
+
+    Parameters
+    ----------
+    value : object
+        A cell of a text column. Anything that is not a ``str`` is returned as is
+        (numbers, missing values).
+
+    Returns
+    -------
+    object
+        ``"'" + value`` when ``value`` starts with one of :data:`FORMULA_TRIGGERS`,
+        else ``value``. :func:`restore_cell` undoes it.
+    """
+    if isinstance(value, str) and value.startswith(FORMULA_TRIGGERS):
+        return "'" + value
+    return value
+
+
+def restore_cell(value):
+    """The original text of a cell written by :func:`neutralise_cell`."""
+    if isinstance(value, str) and value.startswith("'") \
+            and value[1:].startswith(FORMULA_TRIGGERS):
+        return value[1:]
+    return value
+
+
+def _text_columns(frame: pd.DataFrame) -> list:
+    return [c for c in frame.columns
+            if frame[c].dtype == object or isinstance(frame[c].dtype, pd.StringDtype)]
+
+
+def csv_frame(frame: pd.DataFrame, caution: bool = True) -> pd.DataFrame:
+    """The table as :func:`write_csv` writes it: text cells neutralised, caution column last.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        The table (no geometry column).
+    caution : bool, optional
+        Append the :data:`CAUTION_COLUMN` holding :data:`SAFETY_CAUTION` on every row.
+
+    Returns
+    -------
+    DataFrame
+        A new frame; ``frame`` is not changed.
+    """
+    out = pd.DataFrame(frame, copy=False)
+    text = _text_columns(out)
+    if text or caution:
+        out = out.copy()
+    for c in text:
+        out[c] = out[c].astype(object).map(neutralise_cell)
+    if caution:
+        if CAUTION_COLUMN in out.columns:
+            out = out.drop(columns=CAUTION_COLUMN)
+        out[CAUTION_COLUMN] = SAFETY_CAUTION
+    return out
+
+
 def write_csv(frame: pd.DataFrame, path: Path, caution: bool = True) -> None:
-    """Write a CSV whose first line is the safety caution as a comment."""
+    """Write a table as a plain CSV that any reader and spreadsheet opens safely.
+
+    Every row carries the safety caution in a last column named
+    :data:`CAUTION_COLUMN` (a plain CSV, no comment line: readers need no
+    option, ids containing ``#`` stay whole, GIS import the file as it is).
+    Text cells starting with a formula trigger (``=``, ``+``, ``-``, ``@``, tab,
+    carriage return, or the escape ``'`` itself) get a leading single quote, so a
+    spreadsheet shows them as text and never runs them (CSV injection; OWASP).
+    Text is quoted (RFC 4180), numbers are not. :func:`read_csv` undoes both.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        The table (no geometry column).
+    path : Path
+        The file written (UTF-8, Unix line ends, numbers to 12 significant digits).
+    caution : bool, optional
+        Add the caution column (default true; every published CSV has it).
+    """
+    out = csv_frame(frame, caution)
     with open(path, "w", newline="", encoding="utf-8") as fh:
-        if caution:
-            fh.write(f"# {SAFETY_CAUTION}\n")
-        frame.to_csv(fh, index=False, float_format="%.12g", quoting=csv.QUOTE_MINIMAL,
-                     lineterminator="\n")
+        # text in quotes: a carriage return inside a cell would otherwise be written
+        # bare (the csv module quotes only the line terminator's own characters)
+        out.to_csv(fh, index=False, float_format="%.12g", quoting=csv.QUOTE_NONNUMERIC,
+                   lineterminator="\n")
 
 
-def read_csv(path: Path) -> pd.DataFrame:
-    """Read a CSV written by :func:`write_csv`."""
-    return pd.read_csv(path, comment="#")
+def read_csv(path: Path, **kwargs) -> pd.DataFrame:
+    """Read a CSV written by :func:`write_csv`: caution column dropped, text restored.
+
+    Extra keyword arguments go to :func:`pandas.read_csv` (e.g. ``dtype=str``).
+    """
+    frame = pd.read_csv(path, keep_default_na=False, na_values=[""], **kwargs)
+    frame = frame.drop(columns=CAUTION_COLUMN, errors="ignore")
+    for c in _text_columns(frame):
+        frame[c] = frame[c].map(restore_cell)
+    return frame
 
 
 def _jsonable(obj):

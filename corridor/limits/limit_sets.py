@@ -19,7 +19,12 @@ Schema
     ``case`` (``"normal"``, ``"fault"``, ``"capacitive"`` or
     ``"conductive"``), ``quantity`` (name of the per-segment quantity judged,
     e.g. ``v_normal_v``), ``method`` (a key of :data:`METHODS`), optional
-    ``description`` and ``source`` (str), and the method's parameters.
+    ``description`` and ``source`` (str), optional ``needs`` (list of
+    lower-case names: the inputs the quantity needs that a run may lack), and
+    the method's parameters. A criterion whose ``quantity`` is not one of
+    :data:`COMPUTED_QUANTITIES` is an error unless it has ``needs``; such a
+    criterion, and any whose quantity is empty on every segment it applies to,
+    is reported as *not assessed* (never as passing) by the run.
 """
 
 from __future__ import annotations
@@ -48,6 +53,15 @@ HAZARD_CLASSES = ("clear", "review", "exceeds")
 #: Default review threshold (common practice: look again at anything above
 #: half its limit, since screening inputs are uncertain).
 DEFAULT_REVIEW_THRESHOLD = 0.5
+
+#: Per-segment quantities the screening computes (the assess stage hands these
+#: to :func:`evaluate`; see :mod:`corridor.steps.assess` for what each one is).
+COMPUTED_QUANTITIES = (
+    "v_normal_v", "v_fault_v", "v_touch_fault_v", "v_coating_stress_v", "ac_density_a_per_m2",
+    "i_normal_body_ma", "i_capacitive_body_ma", "i_capacitive_short_ma",
+    "v_capacitive_open_v", "emf_section_normal_v", "emf_section_fault_v", "emf_normal_v",
+    "emf_fault_v",
+)
 
 #: Directory of the shipped limit sets, relative to the repository.
 DEFAULT_SEARCH_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
@@ -170,6 +184,14 @@ def _choice(options):
             return None, f"expected one of {list(options)}, got {x!r}"
         return x, None
     return check
+
+
+def _names(x):
+    if not isinstance(x, list) or not x or any(
+            not isinstance(v, str) or not _NAME_RE.match(v) for v in x):
+        return None, ("expected a non-empty list of lower-case names of inputs, such as"
+                      f" ['dc_current_density_a_per_m2'], got {x!r}")
+    return tuple(x), None
 
 
 def _asset_kinds(x):
@@ -318,6 +340,7 @@ _COMMON_KEYS = {
     "method": ParamSpec(_choice(tuple(METHODS))),
     "description": ParamSpec(_string, ""),
     "source": ParamSpec(_string, ""),
+    "needs": ParamSpec(_names, ()),
 }
 
 
@@ -346,6 +369,9 @@ class Criterion:
         The method's parameters, defaults filled in, sorted by name.
     description, source : str
         Free text from the file.
+    needs : tuple of str
+        Inputs the quantity needs that a run may not have (``needs`` in the
+        file); empty when the screening always computes the quantity.
     """
 
     name: str
@@ -356,6 +382,12 @@ class Criterion:
     parameters: tuple[tuple[str, Any], ...]
     description: str = ""
     source: str = ""
+    needs: tuple[str, ...] = ()
+
+    @property
+    def computed(self) -> bool:
+        """True when the screening computes this criterion's quantity."""
+        return self.quantity in COMPUTED_QUANTITIES
 
     @property
     def params(self) -> dict[str, Any]:
@@ -584,11 +616,20 @@ def _validate(raw, path, override_paths):
                                     f"{len(d)} durations")
             if common is None or params is None or len(common) < len(_COMMON_KEYS):
                 continue
+            if common["quantity"] not in COMPUTED_QUANTITIES and not common["needs"]:
+                problems.append(
+                    f"{where(*key, 'quantity')}: no stage computes {common['quantity']!r}, so"
+                    " this criterion would pass without being judged; judge a computed"
+                    f" quantity ({', '.join(COMPUTED_QUANTITIES)}) or declare the input it"
+                    " needs, e.g. needs = [\"dc_current_density_a_per_m2\"] (the run then"
+                    " reports it as not assessed)")
+                continue
             criteria.append(Criterion(
                 name=cname, applies_to=common["applies_to"], case=common["case"],
                 quantity=common["quantity"], method=common["method"],
                 parameters=tuple(sorted(params.items())),
-                description=common["description"], source=common["source"]))
+                description=common["description"], source=common["source"],
+                needs=common["needs"]))
 
     # Unknown keys were reported twice (once per spec pass) when both passes saw
     # them; keep each message once, in order.
@@ -726,3 +767,52 @@ def _per_segment(x, n, dtype):
     if a.shape[0] != n:
         raise ValueError(f"expected {n} values (one per segment), got {a.shape[0]}")
     return a
+
+
+def not_assessed(limit_set: LimitSet, asset_kind, ratios: Mapping[str, Any]) -> list[dict]:
+    """Criteria of a limit set that apply to some segment but judged none.
+
+    Parameters
+    ----------
+    limit_set : LimitSet
+        The run's limit set.
+    asset_kind : array_like of str, shape (n,)
+        Kind of the asset of every segment of the run.
+    ratios : mapping of str to array_like, each shape (n,)
+        ``ratios`` of :func:`evaluate` by criterion name (or the run's
+        ``ratio_<name>`` columns); a missing name counts as all NaN.
+
+    Returns
+    -------
+    list of dict
+        One dict per criterion that applies to at least one segment and has
+        no finite ratio on any of them, in file order: ``criterion`` (name),
+        ``label`` (``"<name>:<case>"``), ``quantity``, ``segments`` (how many
+        segments it should have judged) and ``reason`` (why, naming the
+        missing inputs). Such a criterion was not checked: it must never be
+        read as passing.
+    """
+    kind = np.asarray(asset_kind).astype(str).ravel()
+    out = []
+    for c in limit_set.criteria:
+        applies = np.isin(kind, c.applies_to)
+        n = int(applies.sum())
+        if n == 0:
+            continue
+        r = ratios.get(c.name)
+        if r is not None:
+            r = np.asarray(r, dtype=float).ravel()
+            if np.isfinite(r[applies]).any():
+                continue
+        kinds = ", ".join(sorted(set(kind[applies])))
+        needs = ", ".join(c.needs)
+        if not c.computed:
+            reason = (f"no stage computes {c.quantity}: it needs {needs}, which the input"
+                      " layers do not provide")
+        else:
+            reason = (f"{c.quantity} is empty on every {kinds} segment (a missing input or"
+                      " a NaN clearing time or soil resistivity)"
+                      + (f"; it needs {needs}" if needs else ""))
+        out.append({"criterion": c.name, "label": c.label, "quantity": c.quantity,
+                    "segments": n, "reason": reason})
+    return out

@@ -21,7 +21,13 @@ Quantities handed to the limit set (names as in ``config/limits/*.toml``):
   not the person, carries the short-circuit current;
 - ``emf_section_normal_v``, ``emf_section_fault_v`` (telecom): the
   longitudinal EMF summed over the cable between its grounded ends, the
-  quantity the ITU-T Directives limit.
+  quantity the ITU-T Directives limit;
+- ``i_capacitive_short_ma``, ``v_capacitive_open_v``: short-circuit current and
+  open-circuit voltage of the capacitively charged asset.
+
+Not computed (a criterion on them declares ``needs`` and is reported as not
+assessed): ``v_step_fault_v`` (needs the ground electrodes' geometry) and
+``ac_dc_density_ratio`` (needs the DC current density at a holiday).
 """
 
 from __future__ import annotations
@@ -29,13 +35,11 @@ from __future__ import annotations
 import numpy as np
 
 from corridor.limits.criteria import ac_current_density_a_per_m2
-from corridor.limits.limit_sets import evaluate
+from corridor.limits.limit_sets import COMPUTED_QUANTITIES, evaluate
 
-QUANTITIES = (
-    "v_normal_v", "v_fault_v", "v_touch_fault_v", "v_coating_stress_v", "ac_density_a_per_m2",
-    "i_normal_body_ma", "i_capacitive_body_ma", "emf_section_normal_v",
-    "emf_section_fault_v", "emf_normal_v", "emf_fault_v",
-)
+#: Segment-table columns handed to the limit set as they are (the rest of
+#: :data:`corridor.limits.limit_sets.COMPUTED_QUANTITIES` is derived here).
+QUANTITIES = tuple(q for q in COMPUTED_QUANTITIES if q != "ac_density_a_per_m2")
 
 
 def derived_quantities(table) -> dict[str, np.ndarray]:

@@ -13,7 +13,7 @@ How a step runs (:func:`run_step`)
 A step reads the config's input layers, runs the pipeline in memory up to
 and including itself, and writes its declared outputs into the output folder:
 its layers into ``<step>.gpkg`` (one GeoPackage layer per output), tables as
-CSV (with the safety caution as a ``#`` first line) and a ``<step>.json``
+CSV (with the safety caution as the last column) and a ``<step>.json``
 record (config, parameters, counts, timings). ``report`` is the whole run:
 it publishes exactly what ``corridor run`` writes.
 

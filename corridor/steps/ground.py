@@ -216,7 +216,7 @@ def stage_ground(run) -> None:
                                          for v in frame.loc[last, "asset_id"]]
         frame = frame.sort_values(["asset_id", "site_order"], kind="stable").reset_index(
             drop=True)
-        frame.insert(0, "site_id", [f"S{i + 1:04d}" for i in range(len(frame))])
+        frame.insert(0, "site_id", site_ids(frame["asset_id"], frame["chainage_m"]))
     else:
         frame.insert(0, "site_id", pd.Series([], dtype=object))
         frame["unresolved"] = pd.Series([], dtype=bool)
@@ -232,7 +232,11 @@ def stage_ground(run) -> None:
                            crs=run.inputs.crs)
     run.extra_tables["layer:sites"] = gdf
     run.extra_tables["csv:grounding_sites.csv"] = pd.DataFrame(frame)
-    run.counts["grounding_sites"] = int((frame["ground_resistance_ohm"].notna()).sum())
+    # each count agrees with the table it names: grounding_sites = rows of
+    # grounding_sites.csv (and of the sites layer), grounds_proposed = those rows
+    # whose remedy is a ground (a resistance is given)
+    run.counts["grounding_sites"] = len(frame)
+    run.counts["grounds_proposed"] = int((frame["ground_resistance_ohm"].notna()).sum())
     run.counts["assets_unresolved"] = int(frame["unresolved"].sum()) if len(frame) else 0
     # a light table: the columns grounding changed, for the report's profiles
     after = pd.DataFrame({c: run.segment_table[c].to_numpy()
@@ -240,6 +244,34 @@ def stage_ground(run) -> None:
     for c in STATE_COLUMNS:
         after[c] = state[c]
     run.segment_table_after_grounding = after
+
+
+def site_ids(asset_ids, chainage_m) -> list[str]:
+    """Ids of grounding sites that depend only on each site's asset and position.
+
+    Parameters
+    ----------
+    asset_ids : array_like of str
+        Asset of each site.
+    chainage_m : array_like of float
+        Chainage of each site along its asset [m].
+
+    Returns
+    -------
+    list of str
+        ``"<asset_id>@<chainage rounded to the metre>"``, e.g. ``"MBL-12@1250"``.
+        Adding, removing or editing another asset never changes them. Two sites
+        of one asset within the same metre (possible only at very short
+        segments) are told apart by ``/2``, ``/3``… in the order given.
+    """
+    ch = np.floor(np.asarray(chainage_m, float) + 0.5)
+    out, seen = [], {}
+    for aid, c in zip(asset_ids, ch, strict=True):
+        base = f"{aid}@{int(c)}" if np.isfinite(c) else f"{aid}@?"
+        k = seen.get(base, 0) + 1
+        seen[base] = k
+        out.append(base if k == 1 else f"{base}/{k}")
+    return out
 
 
 def _lines_per_asset(t, feat, n_assets) -> list[str]:

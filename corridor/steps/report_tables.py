@@ -2,9 +2,13 @@
 
 from __future__ import annotations
 
+import logging
+
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+
+log = logging.getLogger(__name__)
 
 #: Columns of the ``hazards`` layer (the segments at or above the review threshold).
 HAZARD_COLUMNS = (
@@ -98,7 +102,39 @@ def assets_layer(run) -> gpd.GeoDataFrame:
     return out
 
 
+def not_assessed_criteria(run) -> list[dict]:
+    """Criteria of the run's limit set that judged none of the segments they apply to.
+
+    Read from the finished segment table (its ``ratio_<criterion>`` columns), so a
+    run merged from partitions or the cache gives the same list as a full run.
+    See :func:`corridor.limits.limit_sets.not_assessed` for the rows.
+    """
+    from corridor.limits.limit_sets import not_assessed
+
+    ls = run.limit_set
+    t = run.segment_table
+    if ls is None or not hasattr(ls, "criteria") or t is None or "asset_kind" not in t:
+        return []
+    ratios = {c.name: t[f"ratio_{c.name}"].to_numpy(float) for c in ls.criteria
+              if f"ratio_{c.name}" in t.columns}
+    return not_assessed(ls, t["asset_kind"].to_numpy(dtype=object), ratios)
+
+
 def stage_tables(run) -> None:
+    """Run-wide tables: ``hazards`` and ``assets`` layers; criteria not assessed.
+
+    The criteria the run could not assess go to
+    ``run.extra_tables["json"]["not_assessed"]`` (merged into run.json) and are
+    logged at WARNING: they must never be read as passing.
+    """
     threshold = getattr(run.limit_set, "review_threshold", 0.5)
     run.extra_tables["layer:hazards"] = hazards_layer(run.segment_table, threshold)
     run.extra_tables["layer:assets"] = assets_layer(run)
+    missing = not_assessed_criteria(run)
+    extra = dict(run.extra_tables.get("json", {}))
+    extra["not_assessed"] = missing
+    run.extra_tables["json"] = extra
+    run.counts["criteria_not_assessed"] = len(missing)
+    for row in missing:
+        log.warning("criterion %s NOT ASSESSED on %d segments: %s", row["label"],
+                    row["segments"], row["reason"])
