@@ -18,10 +18,46 @@ __all__ = [
     "capacitive_coupling",
     "ground_level_electric_field",
     "line_charges",
+    "phase_to_earth_voltages",
     "potential_coefficients",
 ]
 
 _K_M_PER_F = 1.0 / (2.0 * np.pi * EPS0_F_PER_M)
+_PHASE_ANGLE_RAD = {"A": 0.0, "B": -2.0 * np.pi / 3.0, "C": 2.0 * np.pi / 3.0}
+
+
+def phase_to_earth_voltages(line_voltage_kv, conductor_phase):
+    """Phase-to-earth voltage phasor of every conductor of a three-phase line.
+
+    Parameters
+    ----------
+    line_voltage_kv : float
+        Nominal phase-to-phase (line) voltage [kV].
+    conductor_phase : sequence of str, shape (n_c,)
+        ``"A"``, ``"B"`` or ``"C"`` per phase conductor, ``""`` for an
+        earth wire.
+
+    Returns
+    -------
+    ndarray of complex, shape (n_c,)
+        Voltages [V]; 0 for earth wires.
+
+    Notes
+    -----
+    V = U/√3·e^{jφ}, φ = 0°, −120°, +120° for A, B, C (positive sequence,
+    phase A of every line at 0°: one synchronous network).
+
+    References
+    ----------
+    .. [1] J. D. Glover, M. S. Sarma, T. Overbye, Power System Analysis and
+       Design, ch. 2 (balanced three-phase phasors).
+    """
+    out = np.zeros(len(conductor_phase), complex)
+    for k, phase in enumerate(conductor_phase):
+        if phase:
+            out[k] = line_voltage_kv * 1000.0 / np.sqrt(3.0) * np.exp(
+                1j * _PHASE_ANGLE_RAD[phase])
+    return out
 
 
 def potential_coefficients(x_m, height_m, radius_m):
