@@ -465,7 +465,8 @@ def mutual_impedance(
     -----
     Per pair: k ≤ bound → ωμ0/8 + j(ωμ0/2π)ln(De/d); both heights ≤ 0 →
     Sunde's closed form ρ/(πa²)[1 − γaK₁(γa)]; otherwise Carson's integral
-    from the cached table. Methods are looked up in
+    from the cached table. The three are looked up by name
+    (``low_frequency``, ``surface``, ``carson_table``) in
     :data:`MUTUAL_IMPEDANCE_METHODS`.
 
     References
@@ -488,7 +489,7 @@ def mutual_impedance(
         k <= low_frequency_k_bound, 0, np.where((hi <= 0.0) & (hj <= 0.0), 1, 2)
     )
     out = np.empty(k.shape, dtype=complex)
-    for code, name in enumerate(MUTUAL_IMPEDANCE_METHODS):
+    for code, name in enumerate(("low_frequency", "surface", "carson_table")):
         sel = choice == code
         if sel.all():
             out = MUTUAL_IMPEDANCE_METHODS[name](big_d, small_d, theta, m, w, rho, f)
