@@ -48,8 +48,9 @@ __all__ = [
 #: Carson's integral for every angle θ, in the worst geometry ln(D/d) = 0
 #: (any ln(D/d) > 0 only lowers the relative error). Found numerically by
 #: bisection on max_θ |Z_LF − Z_Carson|/|Z_Carson| = 0.01 (see
-#: ``_find_low_frequency_k_bound``); the worst angle is θ = 0. METHODS.md
-#: quotes "≈1 % near k ≈ 0.2" for typical geometries, where ln(D/d) > 0.
+#: ``test_low_frequency_bound_is_where_error_reaches_one_percent`` in
+#: tests/physics/test_earth_return.py); the worst angle is θ = 0. In typical
+#: geometries, where ln(D/d) > 0, the error stays near 1 % up to k ≈ 0.2 (from memory).
 LOW_FREQUENCY_K_BOUND = 0.056
 
 #: Separations below this are floored to it to keep ln(D/d) finite [m].

@@ -270,7 +270,7 @@ def earth_potential(cfg, inputs, geo, total_len: np.ndarray) -> np.ndarray:
     The tower nearest along the line to the segment's projection (and its two
     neighbours) is taken; distance is √(separation² + Δs²). Each faulted
     tower discharges ``run.tower_current_share`` of the local fault current
-    (hemisphere approximation V = ρI/(2πr), METHODS.md §4).
+    (hemisphere approximation V = ρI/(2πr); IEEE Std 80, Sunde 1968).
     """
     seg = geo.segments
     out = np.zeros(len(seg))

@@ -63,7 +63,7 @@ def _uniform_chain(length_m, seg_m, z, y, **kw):
 
 @pytest.mark.parametrize("kind", list(KINDS))
 def test_open_ends_uniform_emf_closed_form(kind):
-    # Sunde closed form V(x) = (E/γ)·sinh(γ(x−L/2))/cosh(γL/2) (METHODS.md §5).
+    # Sunde closed form V(x) = (E/γ)·sinh(γ(x−L/2))/cosh(γL/2) (Sunde 1968).
     z, y = KINDS[kind]
     length_m = 10_000.0
     x, sol = _uniform_chain(length_m, 50.0, z, y)
@@ -96,7 +96,7 @@ def test_long_segments_stay_exact():
 @pytest.mark.parametrize("kind", ["pipeline", "leaky_rail"])
 def test_exposure_on_continuing_line_matched_ends(kind):
     # Exposure of length L on a line continuing both ways: end voltages
-    # ±(E/2γ)(1 − e^{−γL}) (Sunde; METHODS.md §5). Matched ends are exact.
+    # ±(E/2γ)(1 − e^{−γL}) (Sunde 1968). Matched ends are exact.
     z, y = KINDS[kind]
     length_m = 3_000.0
     g = propagation_constant(z, y)
@@ -170,7 +170,7 @@ def test_thevenin_mid_node_is_two_lines_in_parallel():
 
 def test_insulating_joint_splits_line():
     # An insulating joint makes two open-ended lines; each follows the Sunde
-    # closed form with its own length (METHODS.md §5), and both agree with
+    # closed form with its own length (Sunde 1968), and both agree with
     # solving the halves as separate chains. The break sits mid-segment.
     z, y = PIPE
     seg_m, n, k = 50.0, 200, 79  # break in segment 79: at 79.5·50 = 3975 m

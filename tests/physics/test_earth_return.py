@@ -73,7 +73,7 @@ def test_equivalent_earth_depth_constant():
     [(50.0, 0.0493, 0.1447), (60.0, 0.0592, 0.1736)],
 )
 def test_textbook_low_frequency_coefficients(f, r_ohm_per_km, x_ohm_per_km_per_decade):
-    # Source: textbook coefficients (Gönen; METHODS.md §1):
+    # Source: textbook coefficients (T. Gönen, Electric Power Transmission System Engineering):
     # 0.0493 + j0.1447·log10(De/d) Ω/km at 50 Hz, 0.0592 + j0.1736·log10(De/d) at 60 Hz.
     d = np.array([1.0, 10.0, 100.0])
     rho = 100.0
@@ -104,7 +104,8 @@ def test_surface_small_separation_matches_low_frequency_limit():
 
 
 def test_low_frequency_reactance_turns_negative_but_dispatcher_does_not():
-    # Source: METHODS.md §1 (LF reactance negative beyond De ≈ 930 m in 100 Ω·m, 50 Hz);
+    # Source: the LF form ln(De/d) turns negative beyond De = 658.87·√(ρ/f) ≈ 930 m in
+    # 100 Ω·m at 50 Hz (Gönen);
     # reference is Carson's integral.
     rho, f = 100.0, 50.0
     x = np.array([1000.0, 1500.0, 3000.0])
