@@ -385,9 +385,7 @@ def fault_emf_per_m(z_conductor_asset_ohm_per_m, fault_currents_per_unit, phase_
     z = np.asarray(z_conductor_asset_ohm_per_m, complex)
     i_f = np.asarray(fault_current_a)[:, None]
     p = np.asarray(phase_index, int)
-    bare = np.zeros((p.size, z.shape[1]), complex)
-    bare[np.arange(p.size), p] = 1.0
-    return FaultEmf(emf_per_m(z, fault_currents_per_unit) * i_f, -(z @ bare.T) * i_f)
+    return FaultEmf(emf_per_m(z, fault_currents_per_unit) * i_f, -z[:, p] * i_f)
 
 
 def screening_factor(emf_v, unscreened_emf_v):
