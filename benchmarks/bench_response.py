@@ -4,8 +4,9 @@ Solves 2,000,000 nodes in 40,000 chains (49 segments of 50 m each, the
 line constants of pipelines, rails and fences mixed, a few breaks and
 grounds), and prints nodes per second, median of several repeats:
 
-- ``full``: ``solve_chains`` — validation, assembly of the exact pi, one
-  tridiagonal LU solve (zgtsv), currents and per-segment maxima;
+- ``full``: ``ChainSystem(ChainBatch.from_arrays(...)).solve`` as production
+  calls it — validation, assembly of the exact pi, LU factors (zgttrf), one
+  solve (zgttrs), currents and per-segment maxima;
 - ``assemble``: ``ChainSystem(batch)`` — the exact pi and the matrix only;
 - ``factorise``: LU factors kept for reuse (zgttrf);
 - ``extra case``: one more EMF case on a factorised system (zgttrs + outputs);
@@ -31,16 +32,21 @@ from corridor.network.response import (
     ChainBatch,
     ChainSystem,
     matched_termination_admittance,
-    solve_chains,
 )
+
+
+def solve_chains(segment_emf_v, chain_start, **arrays):
+    """Validation, assembly, factors and one solve, as production does them."""
+    batch = ChainBatch.from_arrays(chain_start=chain_start, **arrays)
+    return ChainSystem(batch).solve(segment_emf_v)
 
 
 def make_inputs(n_chains: int, n_seg: int, seed: int = 0):
     rng = np.random.default_rng(seed)
     kinds = [
-        pipeline_line_constants(0.5, 1e5, 50.0, soil_resistivity_ohm_m=100.0),
-        rail_line_constants(5.0),
-        fence_line_constants(4, 1.25e-3, 3.0, 100.0, "metal", 50.0, soil_resistivity_ohm_m=100.0),
+        pipeline_line_constants(0.5, 0.0095, 1e5, -1.0, 100.0, 50.0),
+        rail_line_constants(5.0, 0.03, 100.0, 50.0),
+        fence_line_constants(4, 1.25e-3, 3.0, 100.0, "metal", 1.5, 100.0, 50.0),
     ]
     kind = rng.integers(0, len(kinds), n_chains)
     z_k = np.array([complex(k.z_ohm_per_m) for k in kinds])

@@ -318,16 +318,10 @@ class Registry:
         self._kinds[name] = AssetKind(name, fields, MappingProxyType(merged), line_constants,
                                       (merged["start_termination"], merged["end_termination"]),
                                       bool(above_ground), description, plugin)
-        from corridor.network import asset_models
-
-        had_term = name in asset_models.DEFAULT_TERMINATIONS
-        asset_models.DEFAULT_TERMINATIONS[name] = self._kinds[name].terminations
         self._sync_limit_kinds()
 
         def undo():
             self._kinds.pop(name, None)
-            if not had_term:
-                asset_models.DEFAULT_TERMINATIONS.pop(name, None)
             self._sync_limit_kinds()
 
         self._record(undo)
@@ -390,22 +384,15 @@ class Registry:
         :data:`corridor.physics.earth_return.MUTUAL_IMPEDANCE_METHODS`
         (distance to the image [m], direct distance [m], angle [rad],
         √(ωμ0/ρ) [1/m], ω [rad/s], ρ [Ω·m], f [Hz]) returns Z [Ω/m]. The
-        production dispatcher uses the first three entries (low-frequency,
-        surface, Carson); replacing one of those changes every run, a new
-        name only makes the method available to code that asks for it.
+        production dispatcher uses the entries named ``low_frequency``,
+        ``surface`` and ``carson_table``; replacing one of those changes
+        every run, a new name only makes the method available to code that
+        asks for it.
         """
         from corridor.physics import earth_return
 
         self._add_to_dict(earth_return.MUTUAL_IMPEDANCE_METHODS, name, fn, replace,
                           "mutual-impedance method")
-
-    def add_line_constant_model(self, name: str, fn: Callable, *,
-                                replace: bool = False) -> None:
-        """Add a model to :data:`corridor.network.asset_models.LINE_CONSTANT_MODELS`."""
-        from corridor.network import asset_models
-
-        self._add_to_dict(asset_models.LINE_CONSTANT_MODELS, name, fn, replace,
-                          "line-constant model")
 
     def _add_to_dict(self, table: dict, name: str, fn: Callable, replace: bool,
                      what: str) -> None:

@@ -1,7 +1,7 @@
 """Grounding work list: sites where limits are exceeded, checked by an independent re-solve.
 
 The independent check rebuilds the asset's chain with
-:func:`corridor.network.response.solve_chains` (not the grounding loop) and
+the chain solver (``tests/network/chains.py``) (not the grounding loop) and
 the proposed grounds, and compares with the limit: NACE SP0177 15 V steady
 state (ieee_na limit set; NACE RP0177-2000 §5.2.1.1).
 """
@@ -12,10 +12,10 @@ import pytest
 from shapely.geometry import LineString
 
 from corridor.config import load_config
-from corridor.network.response import solve_chains
 from corridor.pipeline import run_screening
 from corridor.steps import asset_stages, run_stages
 from corridor.steps.respond import line_constants, terminations
+from tests.network.chains import solve_chains
 
 
 def _scenario(scenario, assets):

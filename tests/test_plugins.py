@@ -280,13 +280,11 @@ def test_broken_plugin_fails_config_load(clean_registry):
 
 
 def test_good_plugin_kind_and_unload(clean_registry):
-    from corridor.network import asset_models
-
     load_plugins([_ep("goodplug", "register_good")])
     assert list(ASSET_KINDS)[-1] == "good_kind"
     assert registry.kind("good_kind").plugin == "goodplug"
-    assert asset_models.DEFAULT_TERMINATIONS["good_kind"] == ("grounded", "open")
+    assert registry.kind("good_kind").terminations == ("grounded", "open")
     assert registry.plugins()["goodplug"].endswith("(tests.test_plugins:register_good)")
     registry.unload()
-    assert "good_kind" not in asset_models.DEFAULT_TERMINATIONS
+    assert "good_kind" not in registry.kind_names()
     assert tuple(ASSET_KINDS) == ("pipeline", "fence", "rail", "telecom")

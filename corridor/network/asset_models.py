@@ -1,18 +1,19 @@
-"""Line constants (z, y) and default terminations of each asset kind.
+"""Line constants (z, y) and terminations of each asset kind.
 
 Each model turns an asset's attributes into the series impedance z [Ω/m] and
 shunt admittance y [S/m] of its earth-return circuit, ready for
 :mod:`corridor.network.response`. All functions broadcast over numpy arrays
-(one value per asset or per segment).
+(one value per asset or per segment); these are the functions a production
+run calls, through the kinds' entries in :mod:`corridor.steps.respond`.
 
-The earth-return self impedance belongs to the physics layer: every model
-takes it as ``earth_return_self_ohm_per_m`` and only falls back on the
-low-frequency Carson form (:func:`earth_return_self_impedance_low_frequency`)
-when it is not given. That fallback is good for a self impedance, because the
-conductor radius is small against the equivalent earth-return depth.
+The earth-return self impedance comes from the physics layer,
+:func:`corridor.physics.earth_return.self_impedance` (Carson's integral
+above ground, Sunde's surface form for buried conductors, the low-frequency
+form where it is within 1 %); internal impedances from
+:mod:`corridor.physics.conductors` or :func:`wire_internal_impedance`.
 
 Provenance of defaults: ``[memory]`` recalled, check before relying on it;
-``[practice]`` common practice, no single source (METHODS.md).
+``[practice]`` common practice, no single source.
 """
 
 from __future__ import annotations
@@ -25,29 +26,24 @@ from scipy import special
 
 from corridor.errors import InputError
 from corridor.network.response import matched_termination_admittance
+from corridor.physics import conductors, earth_return
 from corridor.physics.constants import EPS0_F_PER_M, MU0_H_PER_M
 
 __all__ = [
-    "DEFAULT_TERMINATIONS",
-    "LINE_CONSTANT_MODELS",
     "LineConstants",
     "coating_capacitance",
-    "default_terminations",
-    "earth_return_self_impedance_low_frequency",
     "fence_line_constants",
-    "pipe_internal_impedance",
     "pipeline_line_constants",
     "rail_line_constants",
-    "screened_emf",
-    "sheath_screening_factor",
     "telecom_line_constants",
     "termination_admittance",
+    "wire_capacitance",
     "wire_internal_impedance",
 ]
 
-#: Resistivity of pipe and fence steel [Ω·m] (METHODS.md §1) [memory].
+#: Resistivity of pipe and fence steel [Ω·m] [memory].
 STEEL_RESISTIVITY_OHM_M = 1.7e-7
-#: Relative permeability of pipe steel [-] (METHODS.md §1) [memory].
+#: Relative permeability of pipe steel [-] [memory].
 PIPE_STEEL_RELATIVE_PERMEABILITY = 300.0
 #: Relative permeability of galvanised fence wire [-]; order of magnitude [memory].
 WIRE_STEEL_RELATIVE_PERMEABILITY = 100.0
@@ -55,11 +51,11 @@ WIRE_STEEL_RELATIVE_PERMEABILITY = 100.0
 PE_COATING_THICKNESS_M = 3.0e-3
 #: Relative permittivity of polyethylene [-] (2.25–2.35) [memory].
 PE_RELATIVE_PERMITTIVITY = 2.3
-#: Capacitance to earth of an above-ground wire ≈ 2πε0/ln(2h/r) ≈ 7–12 pF/m [memory].
-WIRE_CAPACITANCE_F_PER_M = 10e-12
-#: Track (both rails in parallel, earth return included) at 50 Hz,
-#: about 0.15 + j0.6 Ω/km [memory].
-TRACK_IMPEDANCE_OHM_PER_KM = 0.15 + 0.6j
+#: Lowest height used for a wire's capacitance to earth [m]: a wire lying on
+#: the ground still has some capacitance [practice].
+MIN_WIRE_HEIGHT_M = 0.1
+#: Vertical spacing of fence wires for the bundle's geometric mean radius [m] [practice].
+FENCE_WIRE_SPACING_M = 0.3
 #: Track-to-earth (ballast) resistance of ballasted track, 2–20 Ω·km [memory].
 BALLAST_RESISTANCE_OHM_KM = 5.0
 #: A 0.6 mm copper pair, both wires in parallel: ρ_Cu/(2·π·(0.3 mm)²) [Ω/m]
@@ -88,63 +84,6 @@ def _omega(frequency_hz):
 # --------------------------------------------------------------------------
 # Building blocks
 # --------------------------------------------------------------------------
-def earth_return_self_impedance_low_frequency(radius_m, soil_resistivity_ohm_m, frequency_hz):
-    """Self impedance of an earth-return conductor, low-frequency Carson form.
-
-    Parameters
-    ----------
-    radius_m : array_like
-        Conductor radius, or geometric mean radius of a bundle [m].
-    soil_resistivity_ohm_m : array_like
-        Homogeneous soil resistivity [Ω·m].
-    frequency_hz : array_like
-        Frequency [Hz].
-
-    Returns
-    -------
-    ndarray of complex
-        Self impedance per unit length, without the conductor's internal
-        impedance [Ω/m].
-
-    Notes
-    -----
-    Z = ωμ0/8 + j(ωμ0/2π)·ln(De/r),  De = 658.9·√(ρ/f) m.
-    Valid while the radius (and height or depth) is small against De; this
-    holds for every asset conductor at power frequency.
-
-    References
-    ----------
-    .. [1] J. R. Carson, "Wave propagation in overhead wires with ground
-       return", Bell System Technical Journal 5, 1926.
-    .. [2] T. Gönen, Electric Power Transmission System Engineering
-       (low-frequency form; METHODS.md §1).
-    """
-    omega = _omega(frequency_hz)
-    r = np.asarray(radius_m, dtype=float)
-    rho = np.asarray(soil_resistivity_ohm_m, dtype=float)
-    if np.any(r <= 0) or np.any(rho <= 0):
-        raise InputError("radius_m and soil_resistivity_ohm_m: must be > 0")
-    de_m = 658.9 * np.sqrt(rho / np.asarray(frequency_hz, dtype=float))
-    return omega * MU0_H_PER_M / 8.0 + 1j * omega * MU0_H_PER_M / (2 * np.pi) * np.log(de_m / r)
-
-
-def pipe_internal_impedance(diameter_m, frequency_hz,
-                            steel_resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
-                            steel_relative_permeability=PIPE_STEEL_RELATIVE_PERMEABILITY,
-                            wall_thickness_m=None):
-    """Internal impedance of a steel pipe [Ω/m].
-
-    The physics core owns the formula
-    (:func:`corridor.physics.conductors.pipe_internal_impedance`): thin-skin
-    Z_int = (1 + j)/(πD)·√(ωμ0μr·ρ_steel/2) without a wall thickness, the
-    finite-wall form with one.
-    """
-    from corridor.physics.conductors import pipe_internal_impedance as physics_pipe
-
-    return physics_pipe(diameter_m, steel_resistivity_ohm_m, steel_relative_permeability,
-                        frequency_hz, wall_thickness_m)
-
-
 def wire_internal_impedance(radius_m, frequency_hz,
                             resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
                             relative_permeability=WIRE_STEEL_RELATIVE_PERMEABILITY):
@@ -213,49 +152,64 @@ def coating_capacitance(diameter_m, coating_thickness_m=PE_COATING_THICKNESS_M,
     return 2 * np.pi * eps_f_per_m / np.log1p(2 * t / d)
 
 
-def _earth_self(earth_return_self_ohm_per_m, radius_m, soil_resistivity_ohm_m, frequency_hz):
-    if earth_return_self_ohm_per_m is not None:
-        return np.asarray(earth_return_self_ohm_per_m, dtype=complex)
-    if soil_resistivity_ohm_m is None:
-        raise InputError("give earth_return_self_ohm_per_m or soil_resistivity_ohm_m")
-    return earth_return_self_impedance_low_frequency(radius_m, soil_resistivity_ohm_m,
-                                                     frequency_hz)
+def wire_capacitance(height_m, radius_m):
+    """Capacitance to earth of a horizontal wire above a conducting earth [F/m].
+
+    Parameters
+    ----------
+    height_m : array_like
+        Height of the wire [m]; heights below :data:`MIN_WIRE_HEIGHT_M`
+        (0.1 m) are raised to it.
+    radius_m : array_like
+        Wire radius [m].
+
+    Returns
+    -------
+    ndarray
+        C = 2πε0/ln(2h/r) [F/m].
+
+    References
+    ----------
+    .. [1] J. D. Glover, M. S. Sarma, T. Overbye, Power System Analysis and
+       Design, ch. 4 (capacitance of a conductor above earth, method of
+       images).
+    """
+    h = np.maximum(np.asarray(height_m, dtype=float), MIN_WIRE_HEIGHT_M)
+    return 2 * np.pi * EPS0_F_PER_M / np.log(2 * h / np.asarray(radius_m, dtype=float))
 
 
 # --------------------------------------------------------------------------
 # Per-kind models
 # --------------------------------------------------------------------------
-def pipeline_line_constants(diameter_m, coating_resistance_ohm_m2, frequency_hz,
-                            soil_resistivity_ohm_m=None, earth_return_self_ohm_per_m=None,
-                            steel_resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
+def pipeline_line_constants(diameter_m, wall_thickness_m, coating_resistance_ohm_m2, height_m,
+                            soil_resistivity_ohm_m, frequency_hz,
                             steel_relative_permeability=PIPE_STEEL_RELATIVE_PERMEABILITY,
+                            steel_resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
                             coating_thickness_m=PE_COATING_THICKNESS_M,
-                            coating_relative_permittivity=PE_RELATIVE_PERMITTIVITY,
-                            wall_thickness_m=None):
+                            coating_relative_permittivity=PE_RELATIVE_PERMITTIVITY):
     """Line constants of a coated buried steel pipeline.
 
     Parameters
     ----------
     diameter_m : array_like
         Outer diameter D [m].
+    wall_thickness_m : array_like
+        Steel wall thickness t [m].
     coating_resistance_ohm_m2 : array_like
         Specific coating resistance r_coat [Ω·m²] (1e4–1e6 for 3LPE/FBE,
-        1e2–1e4 for bitumen/coal tar, METHODS.md §5) [memory].
-    frequency_hz : array_like
+        1e2–1e4 for bitumen/coal tar) [memory].
+    height_m : array_like
+        Height of the pipe axis [m]; negative is depth of burial (a pipe
+        1–2 m deep is treated as lying on the surface [practice]).
+    soil_resistivity_ohm_m : array_like
+        Soil resistivity [Ω·m].
+    frequency_hz : float
         Frequency [Hz].
-    soil_resistivity_ohm_m : array_like, optional
-        Soil resistivity [Ω·m], used only by the low-frequency fallback.
-    earth_return_self_ohm_per_m : array_like of complex, optional
-        Earth-return self impedance of the pipe without its internal
-        impedance [Ω/m], from the physics layer (preferred).
-    steel_resistivity_ohm_m, steel_relative_permeability : array_like, optional
-        See :func:`pipe_internal_impedance`.
+    steel_relative_permeability, steel_resistivity_ohm_m : array_like, optional
+        Steel μr [-] (default 300) and resistivity [Ω·m] (default 1.7e-7) [memory].
     coating_thickness_m, coating_relative_permittivity : array_like, optional
         See :func:`coating_capacitance`; pass ``coating_thickness_m=None`` to
         leave the coating capacitance out.
-    wall_thickness_m : array_like, optional
-        Wall thickness [m]; given, the internal impedance uses the
-        finite-wall form of the physics core.
 
     Returns
     -------
@@ -264,14 +218,19 @@ def pipeline_line_constants(diameter_m, coating_resistance_ohm_m2, frequency_hz,
 
     Notes
     -----
-    y = πD/r_coat + jωC_coat,   z = Z_int + Z_earth.
-    C_coat (≈ 12 nF/m for D = 0.5 m, 3 mm PE) adds ωC ≈ 4e-6 S/m: small
-    beside πD/r_coat for ordinary coatings, but dominant for
-    r_coat ≳ 4e5 Ω·m², so it is kept by default.
+    z = Z_int + Z_earth: the finite-wall internal impedance of the steel
+    (:func:`corridor.physics.conductors.pipe_internal_impedance`) and the
+    earth-return self impedance of a conductor of radius D/2
+    (:func:`corridor.physics.earth_return.self_impedance`).
+    y = πD/r_coat + jωC_coat: the coating's leakage conductance per metre
+    (the coated area per metre is πD) and its capacitance. C_coat (≈ 11 nF/m
+    for D = 0.5 m, 3 mm PE) adds ωC ≈ 4e-6 S/m, small beside πD/r_coat for
+    ordinary coatings but dominant for r_coat ≳ 4e5 Ω·m².
 
     References
     ----------
-    .. [1] METHODS.md §1, §5 (pipe internal impedance; coating leakage).
+    .. [1] CIGRE Technical Brochure 95, Guide on the influence of high
+       voltage AC power systems on metallic pipelines, 1995 (memory).
     .. [2] E. D. Sunde, Earth Conduction Effects in Transmission Systems, 1968.
     """
     d = np.asarray(diameter_m, dtype=float)
@@ -283,10 +242,14 @@ def pipeline_line_constants(diameter_m, coating_resistance_ohm_m2, frequency_hz,
     if coating_thickness_m is not None:
         y = y + 1j * omega * coating_capacitance(d, coating_thickness_m,
                                                  coating_relative_permittivity)
-    z = pipe_internal_impedance(d, frequency_hz, steel_resistivity_ohm_m,
-                                steel_relative_permeability, wall_thickness_m)
-    z = z + _earth_self(earth_return_self_ohm_per_m, d / 2, soil_resistivity_ohm_m, frequency_hz)
-    return LineConstants(np.asarray(z, dtype=complex), np.asarray(y, dtype=complex))
+    z_int = conductors.pipe_internal_impedance(
+        d, steel_resistivity_ohm_m=steel_resistivity_ohm_m,
+        relative_permeability=steel_relative_permeability, frequency_hz=frequency_hz,
+        wall_thickness_m=wall_thickness_m)
+    z_earth = earth_return.self_impedance(height_m, d / 2, 0.0, soil_resistivity_ohm_m,
+                                          frequency_hz)
+    return LineConstants(np.asarray(z_int + z_earth, dtype=complex),
+                         np.asarray(y, dtype=complex))
 
 
 def _collinear_bundle_gmr_m(wire_count, wire_radius_m, wire_spacing_m):
@@ -308,11 +271,10 @@ def _collinear_bundle_gmr_m(wire_count, wire_radius_m, wire_spacing_m):
 
 
 def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resistance_ohm,
-                         post_type, frequency_hz, soil_resistivity_ohm_m=None,
-                         earth_return_self_ohm_per_m=None, wire_spacing_m=0.3,
+                         post_type, height_m, soil_resistivity_ohm_m, frequency_hz,
+                         wire_spacing_m=FENCE_WIRE_SPACING_M,
                          wire_resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
-                         wire_relative_permeability=WIRE_STEEL_RELATIVE_PERMEABILITY,
-                         capacitance_f_per_m=WIRE_CAPACITANCE_F_PER_M):
+                         wire_relative_permeability=WIRE_STEEL_RELATIVE_PERMEABILITY):
     """Line constants of a wire fence (wires bonded, treated as one conductor).
 
     Parameters
@@ -328,20 +290,17 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
     post_type : array_like of str
         ``"metal"`` (every post grounds the wires) or ``"wood"`` (no leakage
         except at grounds the caller places as node shunts).
-    frequency_hz : array_like
+    height_m : array_like
+        Height of the fence wires [m].
+    soil_resistivity_ohm_m : array_like
+        Soil resistivity [Ω·m].
+    frequency_hz : float
         Frequency [Hz].
-    soil_resistivity_ohm_m : array_like, optional
-        Soil resistivity [Ω·m], used only by the low-frequency fallback.
-    earth_return_self_ohm_per_m : array_like of complex, optional
-        Earth-return self impedance of the wire bundle, without internal
-        impedance [Ω/m], from the physics layer (preferred).
     wire_spacing_m : array_like, optional
-        Vertical spacing of the wires for the fallback's bundle radius [m];
-        default 0.3 m [practice].
+        Vertical spacing of the wires for the bundle's geometric mean radius
+        [m]; default 0.3 m [practice].
     wire_resistivity_ohm_m, wire_relative_permeability : array_like, optional
         See :func:`wire_internal_impedance`.
-    capacitance_f_per_m : array_like, optional
-        Capacitance of the fence to earth [F/m]; default 10 pF/m [memory].
 
     Returns
     -------
@@ -350,46 +309,53 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
 
     Notes
     -----
-    z = Z_int/n + Z_earth(GMR of the bundle);
+    z = Z_int/n + Z_earth(h, GMR of the n collinear wires), Z_earth from
+    :func:`corridor.physics.earth_return.self_impedance`;
     metal posts: y = 1/(R_post·spacing) + jωC (the posts smeared along the
-    line, fine while the post spacing is ≪ 1/|γ|); wooden posts: y = jωC.
+    line, fine while the post spacing is ≪ 1/|γ|); wooden posts: y = jωC,
+    with C from :func:`wire_capacitance` of one wire at the fence height.
+
+    References
+    ----------
+    .. [1] J. R. Carson, Bell System Technical Journal 5, 1926.
+    .. [2] T. Gönen, Electric Power Transmission System Engineering
+       (geometric mean radius of a bundle).
     """
     omega = _omega(frequency_hz)
     n = np.asarray(wire_count)
     kind = np.asarray(post_type)
     if not np.all(np.isin(kind, ("metal", "wood"))):
         raise InputError("post_type: must be 'metal' or 'wood'")
-    z_int = wire_internal_impedance(wire_radius_m, frequency_hz, wire_resistivity_ohm_m,
+    r_w = np.asarray(wire_radius_m, dtype=float)
+    z_int = wire_internal_impedance(r_w, frequency_hz, wire_resistivity_ohm_m,
                                     wire_relative_permeability) / n
-    if earth_return_self_ohm_per_m is None:
-        gmr_m = _collinear_bundle_gmr_m(n, np.asarray(wire_radius_m, dtype=float),
-                                        np.asarray(wire_spacing_m, dtype=float))
-    else:
-        gmr_m = None
-    z = z_int + _earth_self(earth_return_self_ohm_per_m, gmr_m, soil_resistivity_ohm_m,
-                            frequency_hz)
+    gmr_m = _collinear_bundle_gmr_m(n, r_w, np.asarray(wire_spacing_m, dtype=float))
+    z = z_int + earth_return.self_impedance(height_m, gmr_m, 0.0, soil_resistivity_ohm_m,
+                                            frequency_hz)
     spacing = np.asarray(post_spacing_m, dtype=float)
     r_post = np.asarray(post_resistance_ohm, dtype=float)
     metal = kind == "metal"
     g_posts = np.where(metal, 1.0 / np.where(metal, r_post * spacing, 1.0), 0.0)
-    y = g_posts + 1j * omega * np.asarray(capacitance_f_per_m)
+    y = g_posts + 1j * omega * wire_capacitance(height_m, r_w)
     return LineConstants(np.asarray(z, dtype=complex), np.asarray(y, dtype=complex))
 
 
-def rail_line_constants(ballast_resistance_ohm_km=BALLAST_RESISTANCE_OHM_KM,
-                        track_impedance_ohm_per_km=TRACK_IMPEDANCE_OHM_PER_KM):
+def rail_line_constants(ballast_resistance_ohm_km, rail_resistance_ohm_per_km,
+                        soil_resistivity_ohm_m, frequency_hz):
     """Line constants of a railway track (both rails in parallel).
 
     Parameters
     ----------
-    ballast_resistance_ohm_km : array_like, optional
-        Track-to-earth resistance of one km of track [Ω·km]; default 5 Ω·km
-        (range 2–20 Ω·km for ballasted track) [memory].
-    track_impedance_ohm_per_km : array_like of complex, optional
-        Series impedance of the track–earth loop [Ω/km]; default
-        0.15 + j0.6 Ω/km at 50 Hz [memory]. The rails' AC resistance and
-        internal reactance are set by skin effect in the steel, so this is
-        taken as a whole rather than built from the DC rail resistance.
+    ballast_resistance_ohm_km : array_like
+        Track-to-earth resistance of one km of track [Ω·km] (2–20 Ω·km for
+        ballasted track) [memory].
+    rail_resistance_ohm_per_km : array_like
+        Resistance of the two rails in parallel [Ω/km]; raises the
+        resistive part of the internal impedance where it is larger.
+    soil_resistivity_ohm_m : array_like
+        Soil resistivity [Ω·m].
+    frequency_hz : float
+        Frequency [Hz].
 
     Returns
     -------
@@ -398,19 +364,33 @@ def rail_line_constants(ballast_resistance_ohm_km=BALLAST_RESISTANCE_OHM_KM,
 
     Notes
     -----
-    z = Z_track/1000,   y = 1/(R_ballast·1000).
+    z = Z_int/2 (two rails in parallel, each the equivalent round conductor
+    of :func:`corridor.physics.conductors.rail_equivalent`; its resistive
+    part at least ``rail_resistance_ohm_per_km``) + Z_earth of a conductor on
+    the surface with twice the rail's equivalent radius;
+    y = 1/(R_ballast·1000). At 50–60 Hz this gives about 0.1 + j0.6–0.7 Ω/km,
+    the order quoted for track–earth loops (0.15 + j0.6 Ω/km at 50 Hz) [memory].
+
+    References
+    ----------
+    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems, 1968.
     """
     r_b = np.asarray(ballast_resistance_ohm_km, dtype=float)
     if np.any(r_b <= 0):
         raise InputError("ballast_resistance_ohm_km: must be > 0")
-    z = np.asarray(track_impedance_ohm_per_km, dtype=complex) / 1000.0
+    rail = conductors.rail_equivalent(frequency_hz=frequency_hz)
+    z_int = rail.internal_impedance_ohm_per_m / 2
+    z_int = z_int + np.maximum(np.asarray(rail_resistance_ohm_per_km, dtype=float) / 1000.0
+                               - z_int.real, 0.0)
+    z_earth = earth_return.self_impedance(0.0, rail.equivalent_radius_m * 2.0, 0.0,
+                                          soil_resistivity_ohm_m, frequency_hz)
+    z = np.asarray(z_int + z_earth, dtype=complex)
     y = 1.0 / (r_b * 1000.0) + 0j
     z, y = np.broadcast_arrays(z, y)
     return LineConstants(z.copy(), y.copy())
 
 
-def telecom_line_constants(conductor_radius_m, frequency_hz, soil_resistivity_ohm_m=None,
-                           earth_return_self_ohm_per_m=None,
+def telecom_line_constants(conductor_radius_m, height_m, soil_resistivity_ohm_m, frequency_hz,
                            conductor_resistance_ohm_per_m=PAIR_RESISTANCE_OHM_PER_M,
                            capacitance_f_per_m=CABLE_CAPACITANCE_F_PER_M):
     """Line constants of a telecom pair against earth (longitudinal circuit).
@@ -419,12 +399,12 @@ def telecom_line_constants(conductor_radius_m, frequency_hz, soil_resistivity_oh
     ----------
     conductor_radius_m : array_like
         Equivalent radius of the cable for its earth-return impedance [m].
-    frequency_hz : array_like
+    height_m : array_like
+        Height of the cable [m]; negative is depth of burial.
+    soil_resistivity_ohm_m : array_like
+        Soil resistivity [Ω·m].
+    frequency_hz : float
         Frequency [Hz].
-    soil_resistivity_ohm_m : array_like, optional
-        Soil resistivity [Ω·m], used only by the low-frequency fallback.
-    earth_return_self_ohm_per_m : array_like of complex, optional
-        Earth-return self impedance [Ω/m], from the physics layer (preferred).
     conductor_resistance_ohm_per_m : array_like, optional
         Resistance of the pair, both wires in parallel [Ω/m]; default a
         0.6 mm copper pair, 0.030 Ω/m [practice].
@@ -438,67 +418,16 @@ def telecom_line_constants(conductor_radius_m, frequency_hz, soil_resistivity_oh
 
     Notes
     -----
-    z = R_pair + Z_earth,  y = jωC. The sheath's screening acts on the EMF,
-    not on z and y: scale the EMF with :func:`screened_emf`.
+    z = R_pair + Z_earth (:func:`corridor.physics.earth_return.self_impedance`),
+    y = jωC. The sheath's screening acts on the EMF, not on z and y: the
+    caller scales the EMF with the cable's screening factor.
     """
     omega = _omega(frequency_hz)
-    z = np.asarray(conductor_resistance_ohm_per_m, dtype=float) + _earth_self(
-        earth_return_self_ohm_per_m, conductor_radius_m, soil_resistivity_ohm_m, frequency_hz)
+    z = np.asarray(conductor_resistance_ohm_per_m, dtype=float) + earth_return.self_impedance(
+        height_m, conductor_radius_m, 0.0, soil_resistivity_ohm_m, frequency_hz)
     y = 1j * omega * np.asarray(capacitance_f_per_m, dtype=float)
     z, y = np.broadcast_arrays(np.asarray(z, dtype=complex), np.asarray(y, dtype=complex))
     return LineConstants(z.copy(), y.copy())
-
-
-def screened_emf(emf_v, screening_factor):
-    """EMF on conductors inside a screening sheath.
-
-    Parameters
-    ----------
-    emf_v : array_like of complex
-        EMF the unscreened conductor would see [V] (or [V/m]).
-    screening_factor : array_like
-        Screening (reduction) factor k of the sheath, 0 < k ≤ 1 [-].
-
-    Returns
-    -------
-    ndarray of complex
-        k·E, in the unit of ``emf_v``.
-
-    References
-    ----------
-    .. [1] ITU-T Directives concerning the protection of telecommunication
-       lines against harmful effects from electric power and electrified
-       railway lines (screening factors) [memory].
-    """
-    k = np.asarray(screening_factor)
-    if np.any(np.abs(k) > 1) or np.any(np.abs(k) <= 0):
-        raise InputError("screening_factor: must be in (0, 1]")
-    return np.asarray(emf_v, dtype=complex) * k
-
-
-def sheath_screening_factor(sheath_resistance_ohm_per_m, sheath_self_ohm_per_m):
-    """Screening factor of a sheath grounded at both ends of a long exposure.
-
-    Parameters
-    ----------
-    sheath_resistance_ohm_per_m : array_like
-        Longitudinal resistance of the sheath (and armour) [Ω/m].
-    sheath_self_ohm_per_m : array_like of complex
-        Earth-return self impedance of the sheath, resistance included [Ω/m].
-
-    Returns
-    -------
-    ndarray of complex
-        k = R_s/Z_s [-].
-
-    Notes
-    -----
-    The sheath current I_s = −E/Z_s induces −Z_m·I_s on the conductors, and
-    Z_m ≈ Z_s − R_s, so E_core = E·(1 − Z_m/Z_s) = E·R_s/Z_s. Ignores the
-    ends' grounding resistances (long exposures) [memory].
-    """
-    return (np.asarray(sheath_resistance_ohm_per_m, dtype=complex)
-            / np.asarray(sheath_self_ohm_per_m, dtype=complex))
 
 
 # --------------------------------------------------------------------------
@@ -559,50 +488,9 @@ def termination_admittance(termination, z_ohm_per_m, y_s_per_m, resistance_ohm=n
     return out
 
 
-#: Default (start, end) termination of each kind [practice]: pipelines and
-#: rails run on beyond the data; fences stop; telecom by its grounding.
-DEFAULT_TERMINATIONS = {
-    "pipeline": ("continuing", "continuing"),
-    "fence": ("open", "open"),
-    "rail": ("continuing", "continuing"),
-}
-
 #: Terminations of a telecom pair by where it is grounded.
 TELECOM_GROUNDING_TERMINATIONS = {
     "one_end": ("grounded", "open"),
     "both_ends": ("grounded", "grounded"),
     "isolated": ("open", "open"),
-}
-
-
-def default_terminations(kind, cable_grounding="both_ends"):
-    """Default (start, end) termination labels of an asset kind.
-
-    Parameters
-    ----------
-    kind : str
-        ``"pipeline"``, ``"fence"``, ``"rail"`` or ``"telecom"``.
-    cable_grounding : str, optional
-        Telecom only: ``"one_end"``, ``"both_ends"`` or ``"isolated"``.
-
-    Returns
-    -------
-    tuple of str
-        Labels for :func:`termination_admittance`.
-    """
-    if kind == "telecom":
-        if cable_grounding not in TELECOM_GROUNDING_TERMINATIONS:
-            raise InputError(f"cable_grounding: unknown value {cable_grounding!r}")
-        return TELECOM_GROUNDING_TERMINATIONS[cable_grounding]
-    if kind not in DEFAULT_TERMINATIONS:
-        raise InputError(f"kind: unknown asset kind {kind!r}")
-    return DEFAULT_TERMINATIONS[kind]
-
-
-#: Line-constant model of each asset kind.
-LINE_CONSTANT_MODELS = {
-    "pipeline": pipeline_line_constants,
-    "fence": fence_line_constants,
-    "rail": rail_line_constants,
-    "telecom": telecom_line_constants,
 }

@@ -2,8 +2,8 @@
 
 Every asset (pipeline, fence, rail, telecom cable) is a chain of uniform
 segments, each a lossy earth-return transmission line with series impedance
-``z`` [Ω/m], shunt admittance ``y`` [S/m] and a longitudinal EMF (METHODS.md
-§5)::
+``z`` [Ω/m], shunt admittance ``y`` [S/m] and a longitudinal EMF (E. D.
+Sunde, Earth Conduction Effects in Transmission Systems, 1968)::
 
     dV/dx = -z·I + E(x),     dI/dx = -y·V
 
@@ -11,10 +11,9 @@ Each segment is replaced by its *exact* equivalent pi and its distributed EMF
 by the exact nodal (Norton) injections, so node voltages are exact for a
 piecewise-uniform EMF whatever the segment length. All chains of a run are
 stacked into one tridiagonal nodal-admittance system and solved at once with
-LAPACK's tridiagonal LU with partial pivoting (``zgtsv`` for a one-shot
-solve, ``zgttrf``/``zgttrs`` when the factors are reused for more EMF cases
-or Thevenin impedances); no dense matrix, no general sparse LU, no Python
-loop per node or per asset.
+LAPACK's tridiagonal LU with partial pivoting (``zgttrf`` once, then
+``zgttrs`` for every EMF case and the Thevenin impedances); no dense matrix,
+no general sparse LU, no Python loop per node or per asset.
 
 No path to earth
 ----------------
@@ -55,11 +54,8 @@ __all__ = [
     "ChainBatch",
     "ChainSolution",
     "ChainSystem",
-    "characteristic_impedance",
     "matched_termination_admittance",
     "propagation_constant",
-    "solve_chains",
-    "thevenin_at_node",
 ]
 
 #: Below this |w| the break-stub ratio (1 − sech w)/w² uses its Taylor series
@@ -97,37 +93,6 @@ def propagation_constant(z_ohm_per_m, y_s_per_m):
     z = np.asarray(z_ohm_per_m, dtype=complex)
     y = np.asarray(y_s_per_m, dtype=complex)
     return np.sqrt(z * y)
-
-
-def characteristic_impedance(z_ohm_per_m, y_s_per_m):
-    """Characteristic impedance of a uniform earth-return line.
-
-    Parameters
-    ----------
-    z_ohm_per_m : array_like of complex
-        Series impedance per unit length [Ω/m].
-    y_s_per_m : array_like of complex
-        Shunt admittance per unit length [S/m].
-
-    Returns
-    -------
-    ndarray of complex
-        Characteristic impedance Zc [Ω]; complex infinity where ``y == 0``.
-
-    Notes
-    -----
-    Zc = √(z/y) = z/γ.
-
-    References
-    ----------
-    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
-       Dover, 1968.
-    """
-    z = np.asarray(z_ohm_per_m, dtype=complex)
-    gamma = propagation_constant(z_ohm_per_m, y_s_per_m)
-    zero = gamma == 0
-    safe = np.where(zero, 1.0, gamma)
-    return np.where(zero, complex(np.inf, 0.0), z / safe)
 
 
 def matched_termination_admittance(z_ohm_per_m, y_s_per_m):
@@ -547,16 +512,8 @@ class ChainSystem:
     def _new_rhs(self, n_col):
         return np.zeros((self.batch.n_nodes + 1, n_col), dtype=complex, order="F")
 
-    def _solve_rhs(self, rhs, keep_factors=True):
-        if keep_factors or self._factors is not None:
-            x, info = lapack.zgttrs(*self._factorise(), rhs, overwrite_b=1)
-        else:
-            # One-shot solve: LU and substitution in one LAPACK call,
-            # overwriting the assembled matrix (the system cannot be reused).
-            _, _, _, x, info = lapack.zgtsv(self._off, self._diag, self._off.copy(), rhs,
-                                            overwrite_dl=1, overwrite_d=1, overwrite_du=1,
-                                            overwrite_b=1)
-            self._diag = self._off = None
+    def _solve_rhs(self, rhs):
+        x, info = lapack.zgttrs(*self._factorise(), rhs, overwrite_b=1)
         if info > 0:
             raise InputError(
                 f"nodal system is singular at node {info - 1}: a part of a chain has no"
@@ -565,8 +522,7 @@ class ChainSystem:
             raise RuntimeError(f"LAPACK tridiagonal solver failed with info={info}")
         return x[:-1]
 
-    def solve(self, segment_emf_v, node_current_a=None, _keep_factors=True,
-              current_cases=None) -> ChainSolution:
+    def solve(self, segment_emf_v, node_current_a=None, current_cases=None) -> ChainSolution:
         """Solve for one or more EMF cases.
 
         Parameters
@@ -607,7 +563,7 @@ class ChainSystem:
         if node_current_a is not None:
             rhs_t[:, :-1] += np.asarray(node_current_a, dtype=complex).reshape(
                 batch.n_nodes, -1).T
-        v_t = self._solve_rhs(rhs_t.T, keep_factors=_keep_factors).T
+        v_t = self._solve_rhs(rhs_t.T).T
         v_abs = np.abs(v_t)
         seg_v = np.maximum(np.take(v_abs, first, axis=1), np.take(v_abs, first + 1, axis=1))
         if current_cases is None:
@@ -715,80 +671,3 @@ class ChainSystem:
         hit = np.flatnonzero(mag == chain_max[self.batch.node_chain])
         _, first_hit = np.unique(self.batch.node_chain[hit], return_index=True)
         return hit[first_hit]
-
-
-# --------------------------------------------------------------------------
-# Functional interface
-# --------------------------------------------------------------------------
-def solve_chains(
-    segment_length_m,
-    series_impedance_ohm_per_m,
-    shunt_admittance_s_per_m,
-    segment_emf_v,
-    chain_start,
-    node_shunt_admittance_s=None,
-    segment_break=None,
-    start_termination_admittance_s=None,
-    end_termination_admittance_s=None,
-) -> ChainSolution:
-    """Solve many asset chains driven by induced EMF in one batched system.
-
-    Parameters
-    ----------
-    segment_length_m : array_like of float, shape (n_segments,)
-        Segment lengths [m].
-    series_impedance_ohm_per_m : array_like of complex
-        Series impedance z of each segment [Ω/m] (scalar broadcasts).
-    shunt_admittance_s_per_m : array_like of complex
-        Shunt admittance y of each segment [S/m] (scalar broadcasts).
-    segment_emf_v : array_like of complex, shape (n_segments[, n_cases])
-        Total EMF of each segment in the chain direction [V].
-    chain_start : array_like of int, shape (n_chains,)
-        First segment of each chain.
-    node_shunt_admittance_s : array_like of complex, shape (n_nodes,), optional
-        Lumped admittance to earth at nodes (grounds 1/R) [S]; default 0.
-    segment_break : array_like of bool, shape (n_segments,), optional
-        Broken segments (insulating joint, gate, gap); default none.
-    start_termination_admittance_s, end_termination_admittance_s : array_like, optional
-        Admittance to earth at each chain's first / last node [S]: 0 open,
-        1/R grounded, :func:`matched_termination_admittance` continuing.
-
-    Returns
-    -------
-    ChainSolution
-        Node voltages [V], segment currents [A] and per-segment maxima.
-
-    Notes
-    -----
-    See :class:`ChainSystem` for the exact pi and Norton injections.
-
-    References
-    ----------
-    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
-       Dover, 1968.
-    """
-    batch = ChainBatch.from_arrays(
-        segment_length_m, series_impedance_ohm_per_m, shunt_admittance_s_per_m,
-        chain_start, node_shunt_admittance_s, segment_break,
-        start_termination_admittance_s, end_termination_admittance_s)
-    return ChainSystem(batch).solve(segment_emf_v, _keep_factors=False)
-
-
-def thevenin_at_node(batch_or_system, node_index) -> np.ndarray:
-    """Thevenin impedance to remote earth at nodes, sources shorted [Ω].
-
-    Parameters
-    ----------
-    batch_or_system : ChainBatch or ChainSystem
-        The chains (a ready :class:`ChainSystem` reuses its factors).
-    node_index : array_like of int
-        Global node indices.
-
-    Returns
-    -------
-    ndarray of complex
-        Z_th at each node [Ω]; see :meth:`ChainSystem.thevenin_impedance`.
-    """
-    system = (batch_or_system if isinstance(batch_or_system, ChainSystem)
-              else ChainSystem(batch_or_system))
-    return system.thevenin_impedance(node_index)

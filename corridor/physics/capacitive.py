@@ -16,12 +16,46 @@ from corridor.physics.constants import EPS0_F_PER_M
 __all__ = [
     "CapacitiveCoupling",
     "capacitive_coupling",
-    "ground_level_electric_field",
-    "line_charges",
+    "phase_to_earth_voltages",
     "potential_coefficients",
 ]
 
 _K_M_PER_F = 1.0 / (2.0 * np.pi * EPS0_F_PER_M)
+_PHASE_ANGLE_RAD = {"A": 0.0, "B": -2.0 * np.pi / 3.0, "C": 2.0 * np.pi / 3.0}
+
+
+def phase_to_earth_voltages(line_voltage_kv, conductor_phase):
+    """Phase-to-earth voltage phasor of every conductor of a three-phase line.
+
+    Parameters
+    ----------
+    line_voltage_kv : float
+        Nominal phase-to-phase (line) voltage [kV].
+    conductor_phase : sequence of str, shape (n_c,)
+        ``"A"``, ``"B"`` or ``"C"`` per phase conductor, ``""`` for an
+        earth wire.
+
+    Returns
+    -------
+    ndarray of complex, shape (n_c,)
+        Voltages [V]; 0 for earth wires.
+
+    Notes
+    -----
+    V = U/√3·e^{jφ}, φ = 0°, −120°, +120° for A, B, C (positive sequence,
+    phase A of every line at 0°: one synchronous network).
+
+    References
+    ----------
+    .. [1] J. D. Glover, M. S. Sarma, T. Overbye, Power System Analysis and
+       Design, ch. 2 (balanced three-phase phasors).
+    """
+    out = np.zeros(len(conductor_phase), complex)
+    for k, phase in enumerate(conductor_phase):
+        if phase:
+            out[k] = line_voltage_kv * 1000.0 / np.sqrt(3.0) * np.exp(
+                1j * _PHASE_ANGLE_RAD[phase])
+    return out
 
 
 def potential_coefficients(x_m, height_m, radius_m):
@@ -57,28 +91,6 @@ def potential_coefficients(x_m, height_m, radius_m):
     small_d = np.hypot(dx, h[:, None] - h[None, :])
     np.fill_diagonal(small_d, r)
     return _K_M_PER_F * np.log(big_d / small_d)
-
-
-def line_charges(p_matrix, phase_voltages_v):
-    """Line charges from conductor voltages, q = P⁻¹·V [C/m].
-
-    Parameters
-    ----------
-    p_matrix : array_like, shape (n, n)
-        Potential coefficients [m/F].
-    phase_voltages_v : array_like, shape (n,) or (n, m)
-        Conductor-to-earth voltage phasors (earth wires 0) [V].
-
-    Returns
-    -------
-    ndarray of complex
-        Charge per unit length [C/m].
-
-    References
-    ----------
-    .. [1] Glover, Sarma, Overbye, Power System Analysis and Design, ch. 4.
-    """
-    return np.linalg.solve(np.asarray(p_matrix, float), np.asarray(phase_voltages_v, complex))
 
 
 class CapacitiveCoupling(NamedTuple):
@@ -154,40 +166,3 @@ def capacitive_coupling(
     schur = p_ww - np.einsum("pi,ij,pj->p", p_wc, p_inv, p_wc)
     i_sc = 1j * 2 * np.pi * frequency_hz * (-v_oc / schur)
     return CapacitiveCoupling(np.where(above, v_oc, 0), np.where(above, i_sc, 0))
-
-
-def ground_level_electric_field(
-    conductor_x_m, conductor_height_m, conductor_radius_m, conductor_voltage_v, x_m
-):
-    """Vertical electric field at ground level under a line.
-
-    Parameters
-    ----------
-    conductor_x_m, conductor_height_m, conductor_radius_m : array_like, shape (n_c,)
-        Line cross-section [m].
-    conductor_voltage_v : array_like, shape (n_c,)
-        Complex phase-to-earth voltages, 0 for earth wires [V].
-    x_m : array_like
-        Lateral positions at ground level [m].
-
-    Returns
-    -------
-    ndarray of complex
-        Downward vertical field phasor [V/m]; its modulus is the rms value.
-
-    Notes
-    -----
-    Charge q_i at height h_i and its image −q_i give at ground
-    E_i = q_i/(2πε0)·2h_i/(h_i² + (x − x_i)²); E = Σ E_i, q = P⁻¹V.
-
-    References
-    ----------
-    .. [1] Glover, Sarma, Overbye, Power System Analysis and Design, ch. 4.
-    .. [2] EPRI, Transmission Line Reference Book 345 kV and Above (memory).
-    """
-    xc = np.asarray(conductor_x_m, float)
-    hc = np.asarray(conductor_height_m, float)
-    q = line_charges(potential_coefficients(xc, hc, conductor_radius_m), conductor_voltage_v)
-    x = np.asarray(x_m, float)
-    dx = x[..., None] - xc
-    return _K_M_PER_F * np.sum(q * 2 * hc / (hc * hc + dx * dx), axis=-1)

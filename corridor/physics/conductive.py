@@ -1,10 +1,10 @@
-"""Conductive coupling: earth potential rise around a tower footing in a fault."""
+"""Conductive coupling: earth potential around a tower footing; electrode resistance."""
 
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["earth_potential_hemisphere", "ladder_impedance_ohm", "tower_current_share"]
+__all__ = ["earth_potential_hemisphere", "horizontal_electrode_length_m"]
 
 
 def earth_potential_hemisphere(current_a, soil_resistivity_ohm_m, distance_m, footing_radius_m):
@@ -41,63 +41,46 @@ def earth_potential_hemisphere(current_a, soil_resistivity_ohm_m, distance_m, fo
     return np.asarray(soil_resistivity_ohm_m, float) * np.asarray(current_a) / (2 * np.pi * r)
 
 
-def ladder_impedance_ohm(span_impedance_ohm, tower_resistance_ohm):
-    """Input impedance of an infinite earth-wire/tower ladder.
+def horizontal_electrode_length_m(resistance_ohm, soil_resistivity_ohm_m, depth_m=0.8,
+                                  radius_m=0.005):
+    """Length of a buried horizontal wire electrode with a given resistance to earth.
 
     Parameters
     ----------
-    span_impedance_ohm : array_like
-        Earth-wire self impedance of one span, Zs [Ω].
-    tower_resistance_ohm : array_like
-        Footing resistance of each tower, Rt [Ω].
+    resistance_ohm : array_like
+        Wanted resistance to remote earth R [Ω], > 0.
+    soil_resistivity_ohm_m : array_like
+        Homogeneous soil resistivity ρ [Ω·m].
+    depth_m : float, optional
+        Burial depth s of the wire [m]; default 0.8 m [practice].
+    radius_m : float, optional
+        Wire radius a [m]; default 5 mm [practice].
 
     Returns
     -------
-    ndarray of complex
-        Z∞ [Ω].
+    ndarray
+        Length L [m], at least 1 m.
 
     Notes
     -----
-    Z∞ = Zs/2 + √(Zs·Rt + Zs²/4) (principal root, positive real part).
-    Mutual coupling of the earth wire with the faulted phase is neglected.
+    Dwight's buried horizontal wire, leading terms:
+    R = ρ/(πL)·[ln(2L/√(2·a·s)) − 1]. (Dwight writes it for a wire of length
+    2L at depth s/2 with the further terms s/2L − s²/16L² + …, which are
+    below 1 % of R for L ≳ 20 m at these depths.) Solved for L by the
+    fixed-point iteration L ← ρ/(πR)·[ln(2L/√(2as)) − 1] (contracting:
+    its slope is 1/(ln(…) − 1) ≈ 0.1), 60 steps from L = 5ρ/(πR).
 
     References
     ----------
-    .. [1] Endrenyi, "Analysis of transmission tower potentials during
-       ground faults", IEEE Trans. PAS-86(10), 1967 (memory).
+    .. [1] H. B. Dwight, "Calculation of resistances to ground", Electrical
+       Engineering (AIEE Transactions) 55, 1319–1328, 1936 (from memory).
+    .. [2] IEEE Std 80-2013, Guide for Safety in AC Substation Grounding
+       (Dwight's formulas for simple electrodes, from memory).
     """
-    zs = np.asarray(span_impedance_ohm, complex)
-    rt = np.asarray(tower_resistance_ohm, complex)
-    return zs / 2 + np.sqrt(zs * rt + zs * zs / 4)
-
-
-def tower_current_share(span_impedance_ohm, tower_resistance_ohm, sides=2):
-    """Fraction of the fault current leaving through the faulted tower's footing.
-
-    Parameters
-    ----------
-    span_impedance_ohm : array_like
-        Earth-wire span impedance Zs [Ω].
-    tower_resistance_ohm : array_like
-        Footing resistance Rt of every tower (faulted one included) [Ω].
-    sides : int
-        Number of infinite ladders leaving the faulted tower (2 mid-line,
-        1 at a line end).
-
-    Returns
-    -------
-    ndarray of complex
-        I_tower / I_fault [-].
-
-    Notes
-    -----
-    Current divider between Rt and the ladders in parallel, Z∞/sides:
-    share = (Z∞/sides)/(Rt + Z∞/sides). Inductive return through the earth
-    wires is neglected, so the share is conservative (high).
-
-    References
-    ----------
-    .. [1] Endrenyi, IEEE Trans. PAS-86(10), 1967 (memory).
-    """
-    zinf = ladder_impedance_ohm(span_impedance_ohm, tower_resistance_ohm) / sides
-    return zinf / (np.asarray(tower_resistance_ohm, complex) + zinf)
+    r = np.asarray(resistance_ohm, float)
+    rho = np.asarray(soil_resistivity_ohm_m, float)
+    length = rho / (np.pi * r) * 5.0
+    for _ in range(60):
+        length = rho / (np.pi * r) * (np.log(2 * length / np.sqrt(2 * radius_m * depth_m)) - 1)
+        length = np.maximum(length, 1.0)
+    return length

@@ -18,55 +18,8 @@ __all__ = [
     "RailEquivalent",
     "pipe_internal_impedance",
     "rail_equivalent",
-    "round_conductor_internal_impedance",
     "skin_depth_m",
 ]
-
-
-def round_conductor_internal_impedance(
-    ac_resistance_ohm_per_m, radius_m=None, gmr_m=None, frequency_hz=50.0
-):
-    """Internal impedance of a round (stranded or solid) line conductor.
-
-    Parameters
-    ----------
-    ac_resistance_ohm_per_m : array_like
-        AC resistance at the operating temperature [Ω/m].
-    radius_m : array_like, optional
-        Outer radius [m]. Needed with ``gmr_m``.
-    gmr_m : array_like, optional
-        Geometric mean radius from the conductor table [m]. If omitted the
-        conductor is taken as solid and non-magnetic, GMR = r·e^{−1/4}.
-    frequency_hz : array_like
-        Frequency [Hz].
-
-    Returns
-    -------
-    ndarray of complex
-        R + jX_int [Ω/m], to be used with the *outer radius* as ``d``.
-
-    Notes
-    -----
-    X_int = (ωμ0/2π)·ln(r/GMR); for a solid round wire at low frequency
-    this is ωμ0/(8π) (GMR = r e^{−1/4}). Equivalently one may pass the GMR as
-    ``d`` to the self impedance and only R as the internal term (the GMR
-    approach of the conductor tables); both give the same total.
-
-    References
-    ----------
-    .. [1] W. H. Kersting, Distribution System Modeling and Analysis, ch. 4.
-    .. [2] J. D. Glover, M. S. Sarma, T. Overbye, Power System Analysis and
-       Design, ch. 4 (GMR of a solid conductor).
-    """
-    r_ac = np.asarray(ac_resistance_ohm_per_m, float)
-    w = 2 * np.pi * np.asarray(frequency_hz, float)
-    if gmr_m is None:
-        ratio_log = 0.25
-    else:
-        if radius_m is None:
-            raise ValueError("radius_m is required when gmr_m is given")
-        ratio_log = np.log(np.asarray(radius_m, float) / np.asarray(gmr_m, float))
-    return r_ac + 1j * w * MU0_H_PER_M / (2 * np.pi) * ratio_log
 
 
 def skin_depth_m(resistivity_ohm_m, relative_permeability, frequency_hz):
@@ -98,10 +51,10 @@ def skin_depth_m(resistivity_ohm_m, relative_permeability, frequency_hz):
 
 def pipe_internal_impedance(
     outer_diameter_m,
+    wall_thickness_m,
     steel_resistivity_ohm_m=1.7e-7,
     relative_permeability=300.0,
     frequency_hz=50.0,
-    wall_thickness_m=None,
 ):
     """Internal impedance of a steel pipe with the current returning outside.
 
@@ -109,15 +62,14 @@ def pipe_internal_impedance(
     ----------
     outer_diameter_m : array_like
         Outer diameter D [m].
+    wall_thickness_m : array_like
+        Wall thickness t [m].
     steel_resistivity_ohm_m : array_like
-        Steel resistivity [Ω·m] (default 1.7e-7, METHODS.md, memory).
+        Steel resistivity [Ω·m] (default 1.7e-7, memory).
     relative_permeability : array_like
-        μr of the steel [-] (default 300, METHODS.md, memory).
+        μr of the steel [-] (default 300, memory).
     frequency_hz : array_like
         Frequency [Hz].
-    wall_thickness_m : array_like, optional
-        Wall thickness t [m]. When given, the finite-wall form is used, which
-        also covers walls thinner than a few skin depths.
 
     Returns
     -------
@@ -126,11 +78,10 @@ def pipe_internal_impedance(
 
     Notes
     -----
-    Thin skin (δ ≪ t): Z = (1+j)/(πD)·√(ωμ0μrρ/2) = ρ(1+j)/(πDδ),
-    δ = √(2ρ/(ωμ0μr)). Finite wall, field on the outer face only:
-    Z = ρ·q·coth(q t)/(πD), q = (1+j)/δ, which tends to the thin-skin form for
-    t ≫ δ (coth → 1, within 0.1 % once t > 3.8δ) and to the DC value
-    ρ/(πDt) for t ≪ δ. Curvature is neglected (δ ≪ D).
+    Finite wall, field on the outer face only: Z = ρ·q·coth(q t)/(πD),
+    q = (1+j)/δ, δ = √(2ρ/(ωμ0μr)). For t ≫ δ it tends to the thin-skin form
+    Z = ρ(1+j)/(πDδ) (coth → 1, within 0.1 % once t > 3.8δ); for t ≪ δ to the
+    DC value ρ/(πDt). Curvature is neglected (δ ≪ D).
 
     References
     ----------
@@ -143,8 +94,6 @@ def pipe_internal_impedance(
     rho = np.asarray(steel_resistivity_ohm_m, float)
     delta = skin_depth_m(rho, relative_permeability, frequency_hz)
     q = (1 + 1j) / delta
-    if wall_thickness_m is None:
-        return rho * q / (np.pi * dia)
     t = np.asarray(wall_thickness_m, float)
     qt = q * t
     # coth(qt) = (1 + e^{-2qt})/(1 − e^{-2qt}), stable for large qt

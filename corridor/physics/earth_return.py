@@ -37,8 +37,6 @@ __all__ = [
     "carson_correction_dimensionless",
     "carson_correction_fast",
     "carson_correction_table",
-    "carson_mutual_impedance",
-    "carson_mutual_impedance_fast",
     "equivalent_earth_depth_m",
     "low_frequency_mutual_impedance",
     "mutual_impedance",
@@ -50,8 +48,9 @@ __all__ = [
 #: Carson's integral for every angle θ, in the worst geometry ln(D/d) = 0
 #: (any ln(D/d) > 0 only lowers the relative error). Found numerically by
 #: bisection on max_θ |Z_LF − Z_Carson|/|Z_Carson| = 0.01 (see
-#: ``_find_low_frequency_k_bound``); the worst angle is θ = 0. METHODS.md
-#: quotes "≈1 % near k ≈ 0.2" for typical geometries, where ln(D/d) > 0.
+#: ``test_low_frequency_bound_is_where_error_reaches_one_percent`` in
+#: tests/physics/test_earth_return.py); the worst angle is θ = 0. In typical
+#: geometries, where ln(D/d) > 0, the error stays near 1 % up to k ≈ 0.2 (from memory).
 LOW_FREQUENCY_K_BOUND = 0.056
 
 #: Separations below this are floored to it to keep ln(D/d) finite [m].
@@ -123,7 +122,7 @@ def _f_exact(s):
 
 
 def carson_correction_dimensionless(r, theta_rad):
-    """Carson's earth-return integral J(r, θ) in dimensionless form (reference).
+    """Carson's earth-return integral J(r, θ) in dimensionless form, exact (builds the table).
 
     Parameters
     ----------
@@ -182,46 +181,6 @@ def _geometry(height_i_m, height_j_m, horizontal_offset_m):
     small_d = np.maximum(np.hypot(x, hi - hj), MIN_SEPARATION_M)
     theta = np.arctan2(x, hi + hj)
     return big_d, small_d, theta
-
-
-def carson_mutual_impedance(
-    height_i_m, height_j_m, horizontal_offset_m, soil_resistivity_ohm_m, frequency_hz
-):
-    """Mutual earth-return impedance by Carson's full integral (reference).
-
-    Parameters
-    ----------
-    height_i_m, height_j_m : array_like
-        Conductor heights above ground [m]; ≤ 0 is taken as the surface.
-    horizontal_offset_m : array_like
-        Horizontal distance between the conductors [m].
-    soil_resistivity_ohm_m : array_like
-        Homogeneous soil resistivity ρ [Ω·m].
-    frequency_hz : array_like
-        Frequency f [Hz].
-
-    Returns
-    -------
-    ndarray of complex
-        Mutual impedance per unit length [Ω/m].
-
-    Notes
-    -----
-    Z = jωμ0/(2π)·[ln(D/d) + 2∫₀^∞ e^{−(hi+hj)λ} cos(λx)/(λ + √(λ² + jωμ0/ρ)) dλ],
-    evaluated as jωμ0/(2π)·[ln(D/d) + 2J(r, θ)], see
-    :func:`carson_correction_dimensionless` (relative error ≲ 1e-8).
-
-    References
-    ----------
-    .. [1] J. R. Carson, "Wave propagation in overhead wires with ground
-       return", Bell System Technical Journal 5, 1926.
-    """
-    big_d, small_d, theta = _geometry(height_i_m, height_j_m, horizontal_offset_m)
-    r = big_d * _wavenumber_per_m(soil_resistivity_ohm_m, frequency_hz)
-    big_d, small_d, theta, r = np.broadcast_arrays(big_d, small_d, theta, r)
-    jcar = carson_correction_dimensionless(r, theta)
-    w = np.broadcast_to(_omega(frequency_hz), r.shape)
-    return 1j * w * MU0_H_PER_M / (2 * np.pi) * (np.log(big_d / small_d) + 2.0 * jcar)
 
 
 class CarsonTable:
@@ -318,29 +277,6 @@ def carson_correction_table(r_min=1e-4, r_max=1e3, points_per_decade=40, theta_s
 def carson_correction_fast(r, theta_rad):
     """Tabulated J(r, θ) [-] from the default :func:`carson_correction_table`."""
     return carson_correction_table().evaluate(r, theta_rad)
-
-
-def carson_mutual_impedance_fast(
-    height_i_m, height_j_m, horizontal_offset_m, soil_resistivity_ohm_m, frequency_hz
-):
-    """Carson mutual impedance with the tabulated integral (production form).
-
-    Same parameters and result as :func:`carson_mutual_impedance` [Ω/m].
-
-    Notes
-    -----
-    Z = jωμ0/(2π)·[ln(D/d) + 2J(r, θ)] with J from :func:`carson_correction_fast`.
-
-    References
-    ----------
-    .. [1] J. R. Carson, Bell System Technical Journal 5, 1926.
-    """
-    big_d, small_d, theta = _geometry(height_i_m, height_j_m, horizontal_offset_m)
-    m = _wavenumber_per_m(soil_resistivity_ohm_m, frequency_hz)
-    big_d, small_d, theta, m = np.broadcast_arrays(big_d, small_d, theta, m)
-    jcar = carson_correction_fast(big_d * m, theta)
-    w = np.broadcast_to(_omega(frequency_hz), big_d.shape)
-    return (1j * MU0_H_PER_M / (2 * np.pi)) * w * (np.log(big_d / small_d) + 2.0 * jcar)
 
 
 def equivalent_earth_depth_m(soil_resistivity_ohm_m, frequency_hz):
@@ -530,7 +466,8 @@ def mutual_impedance(
     -----
     Per pair: k ≤ bound → ωμ0/8 + j(ωμ0/2π)ln(De/d); both heights ≤ 0 →
     Sunde's closed form ρ/(πa²)[1 − γaK₁(γa)]; otherwise Carson's integral
-    from the cached table. Methods are looked up in
+    from the cached table. The three are looked up by name
+    (``low_frequency``, ``surface``, ``carson_table``) in
     :data:`MUTUAL_IMPEDANCE_METHODS`.
 
     References
@@ -553,7 +490,7 @@ def mutual_impedance(
         k <= low_frequency_k_bound, 0, np.where((hi <= 0.0) & (hj <= 0.0), 1, 2)
     )
     out = np.empty(k.shape, dtype=complex)
-    for code, name in enumerate(MUTUAL_IMPEDANCE_METHODS):
+    for code, name in enumerate(("low_frequency", "surface", "carson_table")):
         sel = choice == code
         if sel.all():
             out = MUTUAL_IMPEDANCE_METHODS[name](big_d, small_d, theta, m, w, rho, f)

@@ -1,8 +1,19 @@
-"""Inductive coupling: line impedance matrices, earth-wire currents and EMFs.
+"""Inductive coupling: line impedance matrices, conductor currents and EMFs.
 
 Cross-section coordinates: ``x`` horizontal across the corridor [m], heights
 above ground [m]. Currents are complex rms phasors [A]. EMFs are complex
 [V/m] along the line direction; the sign follows E = −Σ Z·I.
+
+These are the functions a production run calls (through
+:mod:`corridor.steps.couple`), batched over every asset section near a line:
+
+1. :func:`conductor_currents`: the current of every conductor of a line,
+   earth wires included, in normal load and for a unit fault on each phase;
+2. :func:`asset_mutual_impedance`: conductor-to-asset mutual impedances;
+3. :func:`emf_per_m` and :func:`fault_emf_per_m`: the EMF per metre;
+4. :func:`exposure_fault_emf`: per exposure (asset, line), the faulted phase
+   giving the largest total EMF and the :func:`screening_factor` of the
+   earth wires.
 """
 
 from __future__ import annotations
@@ -14,22 +25,19 @@ import numpy as np
 from corridor.physics import earth_return
 
 __all__ = [
+    "ConductorCurrents",
+    "ExposureFault",
     "FaultEmf",
+    "asset_mutual_impedance",
+    "conductor_currents",
     "earth_wire_currents",
     "emf_per_m",
+    "exposure_fault_emf",
     "fault_emf_per_m",
     "impedance_matrix",
-    "kron_reduce",
     "normal_phase_currents",
     "screening_factor",
 ]
-
-#: Mutual-impedance methods for :func:`impedance_matrix`.
-MATRIX_METHODS = {
-    "production": earth_return.mutual_impedance,
-    "carson": earth_return.carson_mutual_impedance,
-    "low_frequency": None,  # handled in impedance_matrix (uses d only)
-}
 
 _PHASE_ANGLE_RAD = {"A": 0.0, "B": -2.0 * np.pi / 3.0, "C": 2.0 * np.pi / 3.0}
 
@@ -41,7 +49,6 @@ def impedance_matrix(
     conductor_resistance_ohm_per_m,
     soil_resistivity_ohm_m,
     frequency_hz,
-    method="production",
 ):
     """Primitive series impedance matrix of n earth-return conductors.
 
@@ -57,9 +64,6 @@ def impedance_matrix(
         Soil resistivity [Ω·m].
     frequency_hz : float
         Frequency [Hz].
-    method : {"production", "carson", "low_frequency"}
-        Earth-return formula: the dispatcher, the full Carson integral, or
-        the low-frequency ("modified Carson") form everywhere.
 
     Returns
     -------
@@ -68,7 +72,10 @@ def impedance_matrix(
 
     Notes
     -----
-    z_ii = R_i + Z_earth(2h_i, GMR_i); z_ij = Z_earth(h_i, h_j, |x_i − x_j|).
+    z_ii = R_i + Z_earth(2h_i, GMR_i); z_ij = Z_earth(h_i, h_j, |x_i − x_j|), with
+    the earth-return forms chosen per pair by
+    :func:`corridor.physics.earth_return.mutual_impedance` and
+    :func:`corridor.physics.earth_return.self_impedance`.
 
     References
     ----------
@@ -82,61 +89,13 @@ def impedance_matrix(
     n = x.size
     iu, ju = np.triu_indices(n, 1)
     dx = np.abs(x[iu] - x[ju])
-    if method == "low_frequency":
-        d = np.hypot(dx, h[iu] - h[ju])
-        z_off = earth_return.low_frequency_mutual_impedance(
-            d, soil_resistivity_ohm_m, frequency_hz
-        )
-        z_diag = res + earth_return.low_frequency_mutual_impedance(
-            gmr, soil_resistivity_ohm_m, frequency_hz
-        )
-    elif method in MATRIX_METHODS:
-        fn = MATRIX_METHODS[method]
-        z_off = fn(h[iu], h[ju], dx, soil_resistivity_ohm_m, frequency_hz)
-        if method == "carson":
-            jc = earth_return.carson_correction_dimensionless(
-                2 * h * earth_return._wavenumber_per_m(soil_resistivity_ohm_m, frequency_hz),
-                np.zeros(n),
-            )
-            w = 2 * np.pi * frequency_hz
-            z_diag = res + 1j * w * earth_return.MU0_H_PER_M / (2 * np.pi) * (
-                np.log(2 * h / gmr) + 2 * jc
-            )
-        else:
-            z_diag = earth_return.self_impedance(h, gmr, res, soil_resistivity_ohm_m, frequency_hz)
-    else:
-        raise ValueError(f"unknown method {method!r}; choose from {sorted(MATRIX_METHODS)}")
+    z_off = earth_return.mutual_impedance(h[iu], h[ju], dx, soil_resistivity_ohm_m, frequency_hz)
+    z_diag = earth_return.self_impedance(h, gmr, res, soil_resistivity_ohm_m, frequency_hz)
     z = np.zeros((n, n), dtype=complex)
     z[iu, ju] = z_off
     z[ju, iu] = z_off
     z[np.arange(n), np.arange(n)] = z_diag
     return z
-
-
-def kron_reduce(z_matrix, keep_index, eliminate_index):
-    """Kron reduction: eliminate conductors with zero voltage along them.
-
-    Parameters
-    ----------
-    z_matrix : array_like, shape (n, n)
-        Primitive impedance matrix [Ω/m].
-    keep_index, eliminate_index : sequence of int
-        Conductors kept (phases) and eliminated (earthed wires).
-
-    Returns
-    -------
-    ndarray of complex
-        Z_pp − Z_ps Z_ss⁻¹ Z_sp [Ω/m].
-
-    References
-    ----------
-    .. [1] W. H. Kersting, Distribution System Modeling and Analysis, eq. 4.13.
-    """
-    z = np.asarray(z_matrix, complex)
-    p = np.asarray(keep_index, int)
-    s = np.asarray(eliminate_index, int)
-    zps = z[np.ix_(p, s)]
-    return z[np.ix_(p, p)] - zps @ np.linalg.solve(z[np.ix_(s, s)], z[np.ix_(s, p)])
 
 
 def earth_wire_currents(z_matrix, phase_index, earth_wire_index, phase_currents_a):
@@ -224,25 +183,101 @@ def normal_phase_currents(load_current_a_per_circuit, phasing, residual_current_
     return out
 
 
-def emf_per_m(
+class ConductorCurrents(NamedTuple):
+    """Result of :func:`conductor_currents`."""
+
+    #: Normal-load currents, shape (n_soil, n_cases, n_cond) [A].
+    normal_a: np.ndarray
+    #: Currents for a 1 A fault on each phase (earth wires' share included),
+    #: shape (n_soil, n_phase, n_cond) [A per A of fault current].
+    fault_per_unit: np.ndarray
+
+
+def conductor_currents(
     conductor_x_m,
     conductor_height_m,
-    conductor_currents_a,
+    conductor_gmr_m,
+    conductor_resistance_ohm_per_m,
+    phase_index,
+    earth_wire_index,
+    phase_currents_a,
+    soil_resistivity_ohm_m,
+    frequency_hz,
+):
+    """Currents of every conductor of one line, earth wires included.
+
+    Parameters
+    ----------
+    conductor_x_m, conductor_height_m, conductor_gmr_m : array_like, shape (n_cond,)
+        Line cross-section [m].
+    conductor_resistance_ohm_per_m : array_like, shape (n_cond,)
+        Conductor AC resistance [Ω/m] (the earth wires' matters).
+    phase_index, earth_wire_index : sequence of int
+        Conductors carrying phases and earth wires grounded at every tower.
+    phase_currents_a : array_like, shape (n_cases, n_phase)
+        Normal-load phase currents, one row per case (e.g. per line sharing
+        the cross-section), from :func:`normal_phase_currents` [A].
+    soil_resistivity_ohm_m : array_like, shape (n_soil,)
+        Soil resistivities to evaluate [Ω·m].
+    frequency_hz : float
+        Frequency [Hz].
+
+    Returns
+    -------
+    ConductorCurrents
+        Normal-load currents per soil and case; currents per ampere of
+        fault current for a fault on each phase, per soil.
+
+    Notes
+    -----
+    Earth wires grounded at every tower carry I_s = −Z_ss⁻¹ Z_sp I_p
+    (:func:`earth_wire_currents`, Z from :func:`impedance_matrix` in each
+    soil). In a fault, the faulted phase carries 1 A and the others none
+    (the load current is neglected beside the fault current).
+
+    References
+    ----------
+    .. [1] W. H. Kersting, Distribution System Modeling and Analysis, §4.1.
+    .. [2] ITU-T Directives concerning the protection of telecommunication
+       lines against harmful effects from electric power lines, vol. II
+       (earth-wire currents in a fault, memory).
+    """
+    x = np.asarray(conductor_x_m, float)
+    p = np.asarray(phase_index, int)
+    s = np.asarray(earth_wire_index, int)
+    ip = np.asarray(phase_currents_a, complex).reshape(-1, p.size)
+    rhos = np.atleast_1d(np.asarray(soil_resistivity_ohm_m, float))
+    n_c = x.size
+    normal = np.zeros((len(rhos), len(ip), n_c), complex)
+    fault = np.zeros((len(rhos), p.size, n_c), complex)
+    for ri, rho in enumerate(rhos):
+        z = impedance_matrix(x, conductor_height_m, conductor_gmr_m,
+                             conductor_resistance_ohm_per_m, rho, frequency_hz)
+        for c in range(len(ip)):
+            normal[ri, c, p] = ip[c]
+            if s.size:
+                normal[ri, c, s] = earth_wire_currents(z, p, s, ip[c])
+        for j in range(p.size):
+            fault[ri, j, p[j]] = 1.0
+            if s.size:
+                fault[ri, j, s] = earth_wire_currents(z, [p[j]], s, np.array([1.0]))
+    return ConductorCurrents(normal, fault)
+
+
+def asset_mutual_impedance(
+    conductor_x_m,
+    conductor_height_m,
     asset_offset_m,
     asset_height_m,
     soil_resistivity_ohm_m,
     frequency_hz,
 ):
-    """Longitudinal EMF induced on assets by current-carrying conductors.
+    """Mutual impedance between each conductor of a line and each asset section.
 
     Parameters
     ----------
-    conductor_x_m, conductor_height_m : array_like, shape (n_cond,) or (n_pairs, n_cond)
-        Conductor positions [m]: one cross-section for every pair, or one
-        row per pair. Rows may be padded with NaN positions (or zero
-        currents); padded entries contribute nothing.
-    conductor_currents_a : array_like, shape (n_cond,) or (n_pairs, n_cond)
-        Current phasors, earth-wire currents included [A].
+    conductor_x_m, conductor_height_m : array_like, shape (n_cond,)
+        Line cross-section [m].
     asset_offset_m, asset_height_m : array_like, shape (n_pairs,)
         Asset position in the same cross-section frame [m]; height ≤ 0 for
         buried assets (treated as surface).
@@ -253,69 +288,127 @@ def emf_per_m(
 
     Returns
     -------
-    ndarray of complex, shape (n_pairs,)
-        EMF per unit length [V/m].
+    ndarray of complex, shape (n_pairs, n_cond)
+        Z(conductor, asset) [Ω/m].
 
     Notes
     -----
-    E = −Σ_k Z(k, asset)·I_k with Z from
-    :func:`corridor.physics.earth_return.mutual_impedance`; all pairs and
-    conductors are evaluated in one vectorised call.
+    Every pair and conductor in one vectorised call of
+    :func:`corridor.physics.earth_return.mutual_impedance`.
+
+    References
+    ----------
+    .. [1] J. R. Carson, Bell System Technical Journal 5, 1926.
+    """
+    x = np.asarray(conductor_x_m, float)
+    h = np.asarray(conductor_height_m, float)
+    xa = np.atleast_1d(np.asarray(asset_offset_m, float))
+    ha = np.broadcast_to(np.asarray(asset_height_m, float), xa.shape)
+    rho = np.broadcast_to(np.asarray(soil_resistivity_ohm_m, float), xa.shape)
+    return earth_return.mutual_impedance(
+        h[None, :], ha[:, None], x[None, :] - xa[:, None], rho[:, None], frequency_hz)
+
+
+def emf_per_m(z_conductor_asset_ohm_per_m, conductor_currents_a):
+    """Longitudinal EMF induced on assets by current-carrying conductors.
+
+    Parameters
+    ----------
+    z_conductor_asset_ohm_per_m : array_like, shape (n_pairs, n_cond)
+        Mutual impedances from :func:`asset_mutual_impedance` [Ω/m].
+    conductor_currents_a : array_like, shape (n_pairs, n_cond) or (n_pairs, n_cases, n_cond)
+        Current phasors of every conductor, earth wires included [A]; with
+        a middle axis, several current cases per pair.
+
+    Returns
+    -------
+    ndarray of complex, shape (n_pairs,) or (n_pairs, n_cases)
+        EMF per unit length along the line direction [V/m].
+
+    Notes
+    -----
+    E = −Σ_k Z(k, asset)·I_k.
 
     References
     ----------
     .. [1] J. R. Carson, Bell System Technical Journal 5, 1926.
     .. [2] ITU-T Directives, vol. III (inducing EMF, memory).
     """
-    xa = np.atleast_1d(np.asarray(asset_offset_m, float))
-    ha = np.broadcast_to(np.asarray(asset_height_m, float), xa.shape)
-    rho = np.broadcast_to(np.asarray(soil_resistivity_ohm_m, float), xa.shape)
-    xc = np.asarray(conductor_x_m, float)
-    n_cond = xc.shape[-1]
-    shape = (xa.size, n_cond)
-    xc = np.broadcast_to(xc, shape)
-    hc = np.broadcast_to(np.asarray(conductor_height_m, float), shape)
-    ic = np.broadcast_to(np.asarray(conductor_currents_a, complex), shape)
-    valid = np.isfinite(xc) & np.isfinite(hc) & (ic != 0)
-    z = np.zeros(shape, dtype=complex)
-    rows, cols = np.nonzero(valid)
-    z[rows, cols] = earth_return.mutual_impedance(
-        hc[rows, cols],
-        ha[rows],
-        xc[rows, cols] - xa[rows],
-        rho[rows],
-        frequency_hz,
-    )
-    return -np.sum(z * np.where(valid, ic, 0), axis=1)
+    z = np.asarray(z_conductor_asset_ohm_per_m, complex)
+    cur = np.asarray(conductor_currents_a, complex)
+    if cur.ndim == z.ndim + 1:
+        return -np.einsum("nc,npc->np", z, cur)
+    return -np.sum(z * cur, axis=1)
 
 
-def screening_factor(
-    z_mutual_phase_asset, z_mutual_phase_earthwire, z_mutual_earthwire_asset, z_self_earthwire
-):
-    """Screening (reduction) factor of earth wires grounded at every tower.
+class FaultEmf(NamedTuple):
+    """Result of :func:`fault_emf_per_m`."""
+
+    #: EMF for a fault on each phase, earth wires acting, shape (n_pairs, n_phase) [V/m].
+    emf_v_per_m: np.ndarray
+    #: The same without earth wires, shape (n_pairs, n_phase) [V/m].
+    unscreened_emf_v_per_m: np.ndarray
+
+
+def fault_emf_per_m(z_conductor_asset_ohm_per_m, fault_currents_per_unit, phase_index,
+                    fault_current_a):
+    """EMF on assets during a single phase-to-earth fault, for each faulted phase.
 
     Parameters
     ----------
-    z_mutual_phase_asset : array_like, shape (...)
-        Z_mf, faulted phase to asset [Ω/m].
-    z_mutual_phase_earthwire : array_like, shape (...) or (..., n_s)
-        Z_ms, faulted phase to each earth wire [Ω/m].
-    z_mutual_earthwire_asset : array_like, shape (...) or (..., n_s)
-        Z_sf, each earth wire to asset [Ω/m].
-    z_self_earthwire : array_like, shape (...) or (..., n_s, n_s)
-        Z_ss, earth-wire self impedance (matrix for several wires) [Ω/m].
+    z_conductor_asset_ohm_per_m : array_like, shape (n_pairs, n_cond)
+        Mutual impedances from :func:`asset_mutual_impedance` [Ω/m].
+    fault_currents_per_unit : array_like, shape (n_pairs, n_phase, n_cond)
+        Conductor currents per ampere of fault current for a fault on each
+        phase (:attr:`ConductorCurrents.fault_per_unit` in the pair's soil).
+    phase_index : sequence of int, length n_phase
+        Conductor of each phase.
+    fault_current_a : array_like, shape (n_pairs,)
+        Earth-fault current in the faulted phase at the pair [A].
 
     Returns
     -------
-    ndarray of complex, shape (...)
-        Screening factor k [-] (|k| = 1: no screening).
+    FaultEmf
+        EMF per faulted phase with and without the earth wires [V/m].
 
     Notes
     -----
-    One earth wire: k = 1 − Z_ms·Z_sf/(Z_ss·Z_mf). Several earth wires
-    (used when ``z_self_earthwire`` has one more dimension than
-    ``z_mutual_phase_earthwire``): k = 1 − Z_fs Z_ss⁻¹ Z_sm / Z_fm. From Z_sm I_m + Z_ss I_s = 0 and
-    E = −(Z_fm I_m + Z_fs I_s) = −Z_fm I_m·k.
+    E = −(Z_fa + Σ_s Z_sa·i_s)·I_f with i_s the earth-wire currents per
+    ampere; unscreened E₀ = −Z_fa·I_f. E/E₀ is the screening factor k of
+    the earth wires, 1 − Z_fs Z_ss⁻¹ Z_sa / Z_fa.
+
+    References
+    ----------
+    .. [1] ITU-T Directives, vols. II–III (screening factor of earth wires,
+       memory).
+    """
+    z = np.asarray(z_conductor_asset_ohm_per_m, complex)
+    i_f = np.asarray(fault_current_a)[:, None]
+    p = np.asarray(phase_index, int)
+    return FaultEmf(emf_per_m(z, fault_currents_per_unit) * i_f, -z[:, p] * i_f)
+
+
+def screening_factor(emf_v, unscreened_emf_v):
+    """Screening (reduction) factor of earth wires: E with them over E without.
+
+    Parameters
+    ----------
+    emf_v : array_like of complex
+        EMF with the earth wires carrying their induced currents [V] or [V/m].
+    unscreened_emf_v : array_like of complex
+        EMF of the same fault without earth wires, same unit.
+
+    Returns
+    -------
+    ndarray of complex
+        k [-] (|k| = 1: no screening); 1 where the unscreened EMF is 0.
+
+    Notes
+    -----
+    One earth wire: k = 1 − Z_ms·Z_sf/(Z_ss·Z_mf); several:
+    k = 1 − Z_fs Z_ss⁻¹ Z_sm / Z_fm. Both follow from Z_sm I_m + Z_ss I_s = 0
+    and E = −(Z_fm I_m + Z_fs I_s) = −Z_fm I_m·k; the ratio of the EMFs is the
+    same k without forming the formula.
 
     References
     ----------
@@ -323,114 +416,68 @@ def screening_factor(
        lines against harmful effects from electric power lines, vol. II
        (screening factor of earth wires, memory).
     """
-    zmf = np.asarray(z_mutual_phase_asset, complex)
-    zms = np.asarray(z_mutual_phase_earthwire, complex)
-    zsf = np.asarray(z_mutual_earthwire_asset, complex)
-    zss = np.asarray(z_self_earthwire, complex)
-    if zss.ndim >= 2 and zss.ndim == zms.ndim + 1:
-        sol = np.linalg.solve(zss, zsf[..., None])[..., 0]
-        return 1.0 - np.sum(zms * sol, axis=-1) / zmf
-    return 1.0 - zms * zsf / (zss * zmf)
+    e = np.asarray(emf_v, complex)
+    e0 = np.asarray(unscreened_emf_v, complex)
+    return np.where(np.abs(e0) > 0, e / np.where(e0 == 0, 1, e0), 1.0)
 
 
-class FaultEmf(NamedTuple):
-    """Result of :func:`fault_emf_per_m`."""
+def _complex_bincount(index, values, n):
+    return (np.bincount(index, weights=values.real, minlength=n)
+            + 1j * np.bincount(index, weights=values.imag, minlength=n))
 
-    #: EMF for a fault on each phase, shape (n_pairs, n_phase) [V/m].
-    emf_v_per_m: np.ndarray
-    #: EMF of the worst phase, shape (n_pairs,) [V/m].
-    worst_emf_v_per_m: np.ndarray
-    #: Index (into phase_index) of the worst phase, shape (n_pairs,).
+
+class ExposureFault(NamedTuple):
+    """Result of :func:`exposure_fault_emf`."""
+
+    #: Faulted phase (column of the input) of each exposure, shape (n_exposures,).
     worst_phase: np.ndarray
-    #: Screening factor per phase, shape (n_pairs, n_phase) [-].
+    #: EMF of each section for its exposure's faulted phase, shape (n_sections,) [V].
+    section_emf_v: np.ndarray
+    #: Screening factor of each exposure for that phase, shape (n_exposures,) [-].
     screening_factor: np.ndarray
 
 
-def fault_emf_per_m(
-    conductor_x_m,
-    conductor_height_m,
-    conductor_gmr_m,
-    conductor_resistance_ohm_per_m,
-    phase_index,
-    earth_wire_index,
-    fault_current_a,
-    asset_offset_m,
-    asset_height_m,
-    soil_resistivity_ohm_m,
-    frequency_hz,
-):
-    """EMF on assets during a single phase-to-earth fault, worst phase.
+def exposure_fault_emf(section_emf_v, section_unscreened_emf_v, exposure_of_section,
+                       n_exposures):
+    """Faulted phase and screening factor of each exposure (asset, faulted line).
 
     Parameters
     ----------
-    conductor_x_m, conductor_height_m, conductor_gmr_m : array_like, shape (n_cond,)
-        Line cross-section (shared by all pairs) [m].
-    conductor_resistance_ohm_per_m : array_like, shape (n_cond,)
-        Conductor resistance (earth wires matter) [Ω/m].
-    phase_index, earth_wire_index : sequence of int
-        Phase conductors (candidate faulted phases) and earth wires.
-    fault_current_a : array_like, shape (n_pairs,) or scalar
-        Earth-fault current in the faulted phase at this section [A].
-    asset_offset_m, asset_height_m : array_like, shape (n_pairs,)
-        Asset positions [m].
-    soil_resistivity_ohm_m : array_like, shape (n_pairs,) or scalar
-        Soil resistivity per pair [Ω·m].
-    frequency_hz : float
-        Frequency [Hz].
+    section_emf_v : array_like of complex, shape (n_sections, n_phase)
+        EMF of each asset section for a fault on each phase, earth wires
+        acting [V] (EMF per metre times the section's length).
+    section_unscreened_emf_v : array_like of complex, shape (n_sections, n_phase)
+        The same without earth wires [V].
+    exposure_of_section : array_like of int, shape (n_sections,)
+        Exposure each section belongs to.
+    n_exposures : int
+        Number of exposures.
 
     Returns
     -------
-    FaultEmf
-        Per-phase EMF, worst EMF and phase, screening factors.
+    ExposureFault
+        The faulted phase of each exposure, the EMF of each section for it,
+        and the exposure's screening factor.
 
     Notes
     -----
-    E = −Z_mf·I_f·k, k from :func:`screening_factor` (earth wires grounded
-    at every tower; the load current is neglected beside the fault current).
+    The faulted phase is the one giving the largest |Σ E| over the exposure
+    (the fault current flows through the whole exposure in one direction,
+    conservative). The screening factor is Σ E / Σ E₀ over the exposure for
+    that phase (:func:`screening_factor`).
 
     References
     ----------
-    .. [1] ITU-T Directives, vols. II–III (memory).
+    .. [1] ITU-T Directives, vol. II (resultant EMF of an exposure, memory).
     """
-    xc = np.asarray(conductor_x_m, float)
-    hc = np.asarray(conductor_height_m, float)
-    gmr = np.broadcast_to(np.asarray(conductor_gmr_m, float), xc.shape)
-    res = np.broadcast_to(np.asarray(conductor_resistance_ohm_per_m, complex), xc.shape)
-    p = np.asarray(phase_index, int)
-    s = np.asarray(earth_wire_index, int)
-    xa = np.atleast_1d(np.asarray(asset_offset_m, float))
-    ha = np.broadcast_to(np.asarray(asset_height_m, float), xa.shape)
-    rho = np.broadcast_to(np.asarray(soil_resistivity_ohm_m, float), xa.shape)
-    i_f = np.broadcast_to(np.asarray(fault_current_a, complex), xa.shape)
-    zmf = earth_return.mutual_impedance(
-        hc[p][None, :], ha[:, None], xc[p][None, :] - xa[:, None], rho[:, None], frequency_hz
-    )
-    if s.size == 0:
-        k = np.ones_like(zmf)
-    else:
-        zsf = earth_return.mutual_impedance(
-            hc[s][None, :], ha[:, None], xc[s][None, :] - xa[:, None], rho[:, None], frequency_hz
-        )  # (n_pairs, n_s)
-        zms = earth_return.mutual_impedance(
-            hc[p][None, :, None],
-            hc[s][None, None, :],
-            xc[p][None, :, None] - xc[s][None, None, :],
-            rho[:, None, None],
-            frequency_hz,
-        )  # (n_pairs, n_p, n_s)
-        ss_i, ss_j = np.meshgrid(s, s, indexing="ij")
-        zss = earth_return.mutual_impedance(
-            hc[ss_i][None], hc[ss_j][None], (xc[ss_i] - xc[ss_j])[None], rho[:, None, None],
-            frequency_hz,
-        )  # (n_pairs, n_s, n_s); diagonal replaced by self impedances
-        z_self = earth_return.self_impedance(
-            hc[s][None, :], gmr[s][None, :], res[s][None, :], rho[:, None], frequency_hz
-        )
-        diag = np.arange(s.size)
-        zss[:, diag, diag] = z_self
-        k = screening_factor(
-            zmf, zms, np.broadcast_to(zsf[:, None, :], zms.shape), zss[:, None, :, :]
-        )
-    emf = -zmf * i_f[:, None] * k
-    worst = np.argmax(np.abs(emf), axis=1)
-    return FaultEmf(emf, emf[np.arange(xa.size), worst], worst, k)
+    e = np.asarray(section_emf_v, complex)
+    e0 = np.asarray(section_unscreened_emf_v, complex)
+    idx = np.asarray(exposure_of_section, np.int64)
+    totals = np.zeros((n_exposures, e.shape[1]), complex)
+    for j in range(e.shape[1]):
+        totals[:, j] = _complex_bincount(idx, e[:, j], n_exposures)
+    worst = np.argmax(np.abs(totals), axis=1)
+    rows = np.arange(len(e))
+    bare_total = _complex_bincount(idx, e0[rows, worst[idx]], n_exposures)
+    k = screening_factor(totals[np.arange(n_exposures), worst], bare_total)
+    return ExposureFault(worst, e[rows, worst[idx]], k)

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from corridor.physics import capacitive, conductive, earth_return, induction
+from corridor.physics import capacitive, conductive, induction
 
 log = logging.getLogger(__name__)
 
@@ -91,9 +91,6 @@ def _arrangement_arrays(arr):
     return x, h, r, gmr, res, phase_idx, ew_idx, phasing
 
 
-_PHASE = {"A": 0.0, "B": -2.0 * np.pi / 3.0, "C": 2.0 * np.pi / 3.0}
-
-
 def couple(cfg, inputs, geo) -> Coupling:
     """Compute the coupling quantities of every asset segment.
 
@@ -144,6 +141,7 @@ def couple(cfg, inputs, geo) -> Coupling:
     for name in sorted(set(arr_names)):
         arr = cfg.arrangements[name]
         x, h, r, gmr, res, p_idx, s_idx, phasing = _arrangement_arrays(arr)
+        conductor_phase = [c.phase if c.circuit >= 0 else "" for c in arr.conductors]
         line_rows = np.flatnonzero(arr_names == name)
         for li in line_rows:
             for j, k in enumerate(p_idx):
@@ -153,52 +151,27 @@ def couple(cfg, inputs, geo) -> Coupling:
         if not in_arr.any():
             continue
         idx = np.flatnonzero(in_arr)
-        # mutual impedances conductor -> asset section, (n, n_cond)
-        zma = earth_return.mutual_impedance(
-            h[None, :], asset_h[idx, None], x[None, :] - sec.offset_m[idx, None],
-            rho[idx, None], f)
-        # per unique soil: conductor currents for normal load and per-unit faults
+        # conductor currents per unique soil: normal load per line, unit faults
         rhos, inv = np.unique(rho[idx], return_inverse=True)
-        n_c = len(x)
-        normal_cur = np.zeros((len(rhos), len(line_rows), n_c), complex)
-        fault_cur = np.zeros((len(rhos), len(p_idx), n_c), complex)
-        fault_bare = np.zeros((len(p_idx), n_c), complex)
-        for j in range(len(p_idx)):
-            fault_bare[j, p_idx[j]] = 1.0
         line_local = {li: i for i, li in enumerate(line_rows)}
         ip_all = np.array([
             induction.normal_phase_currents(np.full(arr.n_circuits, load[li]), phasing,
                                             resid[li]) for li in line_rows])
-        for ri, rho_v in enumerate(rhos):
-            z = induction.impedance_matrix(x, h, gmr, res, rho_v, f)
-            for i_l in range(len(line_rows)):
-                normal_cur[ri, i_l, p_idx] = ip_all[i_l]
-                if len(s_idx):
-                    normal_cur[ri, i_l, s_idx] = induction.earth_wire_currents(
-                        z, p_idx, s_idx, ip_all[i_l])
-            for j in range(len(p_idx)):
-                fault_cur[ri, j, p_idx[j]] = 1.0
-                if len(s_idx):
-                    fault_cur[ri, j, s_idx] = induction.earth_wire_currents(
-                        z, [p_idx[j]], s_idx, np.array([1.0]))
+        currents = induction.conductor_currents(x, h, gmr, res, p_idx, s_idx, ip_all, rhos, f)
         li_local = np.array([line_local[v] for v in sec_line[idx]])
-        cur = normal_cur[inv, li_local]  # (n, n_cond)
-        e_normal = -np.sum(zma * cur, axis=1)
+        zma = induction.asset_mutual_impedance(x, h, sec.offset_m[idx], asset_h[idx], rho[idx], f)
+        e_normal = induction.emf_per_m(zma, currents.normal_a[inv, li_local])
         emf_normal_sec[idx] = e_normal * sec.projected_length_m[idx]
-        fc = fault_cur[inv]  # (n, n_p, n_cond)
-        e_fault = -np.einsum("nc,npc->np", zma, fc) * i_fault[idx, None]
-        e_bare = -(zma @ fault_bare.T) * i_fault[idx, None]
-        fault_sec[idx, :len(p_idx)] = e_fault * sec.projected_length_m[idx, None]
-        fault_unscreened[idx, :len(p_idx)] = e_bare * sec.projected_length_m[idx, None]
+        fe = induction.fault_emf_per_m(zma, currents.fault_per_unit[inv], p_idx, i_fault[idx])
+        fault_sec[idx, :len(p_idx)] = fe.emf_v_per_m * sec.projected_length_m[idx, None]
+        fault_unscreened[idx, :len(p_idx)] = (fe.unscreened_emf_v_per_m
+                                              * sec.projected_length_m[idx, None])
         # electric field: above-ground assets only
         above = idx[is_above[idx]]
         if len(above):
             for li in np.unique(sec_line[above]):
                 sel = above[sec_line[above] == li]
-                v_ph = np.zeros(n_c, complex)
-                for k in p_idx:
-                    v_ph[k] = kv[li] * 1000.0 / np.sqrt(3.0) * np.exp(
-                        1j * _PHASE[arr.conductors[k].phase])
+                v_ph = capacitive.phase_to_earth_voltages(kv[li], conductor_phase)
                 cc = capacitive.capacitive_coupling(
                     x, h, r, v_ph, sec.offset_m[sel], asset_h[sel], asset_radius[sel], f)
                 # the current a section drives scales with its length along the line
@@ -218,17 +191,9 @@ def couple(cfg, inputs, geo) -> Coupling:
     n_case = len(case_ids)
     case_asset = case_ids // (len(lines) + 1)
     case_line = case_ids % (len(lines) + 1)
-    totals = np.zeros((n_case, max_phases), complex)
-    for j in range(max_phases):
-        totals[:, j] = _complex_bincount(case_of_sec, fault_sec[:, j], n_case)
-    worst = np.argmax(np.abs(totals), axis=1)
-    sec_emf = fault_sec[np.arange(len(sec)), worst[case_of_sec]]
-    bare_tot = np.zeros(n_case, complex)
-    bare_tot = _complex_bincount(
-        case_of_sec, fault_unscreened[np.arange(len(sec)), worst[case_of_sec]], n_case)
-    screening = np.where(np.abs(bare_tot) > 0,
-                         totals[np.arange(n_case), worst] / np.where(bare_tot == 0, 1, bare_tot),
-                         1.0)
+    exposure = induction.exposure_fault_emf(fault_sec, fault_unscreened, case_of_sec, n_case)
+    worst = exposure.worst_phase
+    sec_emf = exposure.section_emf_v
     # per (case, segment)
     entry_key = case_of_sec.astype(np.int64) * n_seg + sec_seg
     entries, entry_of_sec = np.unique(entry_key, return_inverse=True)
@@ -247,7 +212,7 @@ def couple(cfg, inputs, geo) -> Coupling:
         fault_case_phase=phase_labels[case_line, worst] if n_case else np.zeros(0, object),
         fault_case_clearing_s=clearing[case_line],
         fault_case_high_reliability=hirel[case_line],
-        fault_case_screening=screening,
+        fault_case_screening=exposure.screening_factor,
         fault_seg=(entries % n_seg).astype(np.int64),
         fault_case_of_entry=(entries // n_seg).astype(np.int64),
         fault_emf_v=fault_emf,
@@ -305,7 +270,7 @@ def earth_potential(cfg, inputs, geo, total_len: np.ndarray) -> np.ndarray:
     The tower nearest along the line to the segment's projection (and its two
     neighbours) is taken; distance is √(separation² + Δs²). Each faulted
     tower discharges ``run.tower_current_share`` of the local fault current
-    (hemisphere approximation V = ρI/(2πr), METHODS.md §4).
+    (hemisphere approximation V = ρI/(2πr); IEEE Std 80, Sunde 1968).
     """
     seg = geo.segments
     out = np.zeros(len(seg))

@@ -30,6 +30,8 @@ import numpy as np
 import pandas as pd
 from pyproj import Transformer
 
+from corridor.physics.conductive import horizontal_electrode_length_m
+
 log = logging.getLogger(__name__)
 
 MARGIN = 0.9  # aim 10 % below the limit (common practice)
@@ -45,25 +47,6 @@ REMEDY_TOWER = "keep clear of the tower footing: separation, insulating section 
 
 #: Criteria that grounding the asset cannot lower.
 NOT_GROUNDABLE = ("telecom_long_term", "telecom_fault")
-
-
-def horizontal_electrode_length_m(resistance_ohm, soil_resistivity_ohm_m, depth_m=0.8,
-                                  radius_m=0.005):
-    """Length of a buried horizontal conductor with resistance ``resistance_ohm`` [m].
-
-    Notes
-    -----
-    R = ρ/(πL)·[ln(2L/√(2·a·s)) − 1] for a horizontal wire of radius a at
-    depth s (Dwight's formula, as reproduced in IEEE Std 80 practice; from
-    memory). Solved for L by fixed-point iteration.
-    """
-    r = np.asarray(resistance_ohm, float)
-    rho = np.asarray(soil_resistivity_ohm_m, float)
-    length = rho / (np.pi * r) * 5.0
-    for _ in range(60):
-        length = rho / (np.pi * r) * (np.log(2 * length / np.sqrt(2 * radius_m * depth_m)) - 1)
-        length = np.maximum(length, 1.0)
-    return length
 
 
 def _node_positions(seg, chain_of_seg):

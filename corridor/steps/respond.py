@@ -33,8 +33,6 @@ import numpy as np
 
 from corridor.network import asset_models
 from corridor.network.response import ChainBatch, ChainSystem
-from corridor.physics import conductors, earth_return
-from corridor.physics.constants import EPS0_F_PER_M
 
 log = logging.getLogger(__name__)
 
@@ -96,59 +94,37 @@ def _col(assets, name, default):
 asset_column = _col
 
 
+# The built-in kinds: each reads its columns (missing or NaN take the
+# default) and hands the arrays to its model in corridor.network.asset_models.
 def _pipeline_constants(s):
-    """Coated steel pipeline: finite-wall steel impedance, surface earth return, coating leakage."""
-    f = s.frequency_hz
-    d = s.column("diameter_m", 0.508)
-    mu_r = s.column("steel_relative_permeability", 300.0)
-    zint = conductors.pipe_internal_impedance(
-        d, relative_permeability=mu_r, frequency_hz=f,
-        wall_thickness_m=s.column("wall_thickness_m", 0.0095))
-    zext = earth_return.self_impedance(s.height_m, d / 2, 0.0, s.soil_resistivity_ohm_m, f)
-    lc = asset_models.pipeline_line_constants(
-        d, s.column("coating_resistance_ohm_m2", 1e5), f, earth_return_self_ohm_per_m=zext)
-    # the physics core's finite-wall internal impedance replaces the thin-skin one
-    z_thin = asset_models.pipe_internal_impedance(d, f, asset_models.STEEL_RESISTIVITY_OHM_M,
-                                                  mu_r)
-    return lc.z_ohm_per_m - z_thin + zint, lc.y_s_per_m
+    """Coated buried steel pipeline (:func:`asset_models.pipeline_line_constants`)."""
+    return asset_models.pipeline_line_constants(
+        s.column("diameter_m", 0.508), s.column("wall_thickness_m", 0.0095),
+        s.column("coating_resistance_ohm_m2", 1e5), s.height_m, s.soil_resistivity_ohm_m,
+        s.frequency_hz, steel_relative_permeability=s.column("steel_relative_permeability",
+                                                             300.0))
 
 
 def _fence_constants(s):
-    """Wire fence: bonded wires, post leakage (metal posts) and capacitance to earth."""
-    hh = np.maximum(s.height_m, 0.1)
-    rw = s.column("wire_radius_m", 0.00125)
-    cap = 2 * np.pi * EPS0_F_PER_M / np.log(2 * hh / rw)
-    lc = asset_models.fence_line_constants(
-        s.column("wire_count", 4).astype(np.int64), rw, s.column("post_spacing_m", 3.0),
-        s.column("post_resistance_ohm", 100.0), s.column("post_type", "metal").astype(str),
-        s.frequency_hz, soil_resistivity_ohm_m=s.soil_resistivity_ohm_m,
-        capacitance_f_per_m=cap)
-    return lc.z_ohm_per_m, lc.y_s_per_m
+    """Wire fence (:func:`asset_models.fence_line_constants`)."""
+    return asset_models.fence_line_constants(
+        s.column("wire_count", 4).astype(np.int64), s.column("wire_radius_m", 0.00125),
+        s.column("post_spacing_m", 3.0), s.column("post_resistance_ohm", 100.0),
+        s.column("post_type", "metal").astype(str), s.height_m, s.soil_resistivity_ohm_m,
+        s.frequency_hz)
 
 
 def _rail_constants(s):
-    """Railway track: rail equivalent conductor, surface earth return, ballast leakage."""
-    f = s.frequency_hz
-    rail = conductors.rail_equivalent(frequency_hz=f)
-    # two rails in parallel: internal impedance halved; the rails' DC
-    # resistance attribute raises the resistive part where it is larger
-    r_attr = s.column("rail_resistance_ohm_per_km", 0.03) / 1000.0
-    zint = rail.internal_impedance_ohm_per_m / 2
-    zint = zint + np.maximum(r_attr - zint.real, 0.0)
-    zext = earth_return.self_impedance(0.0, rail.equivalent_radius_m * 2.0, 0.0,
-                                       s.soil_resistivity_ohm_m, f)
-    lc = asset_models.rail_line_constants(
-        s.column("ballast_resistance_ohm_km", 5.0),
-        track_impedance_ohm_per_km=(zint + zext) * 1000.0)
-    return lc.z_ohm_per_m, lc.y_s_per_m
+    """Railway track (:func:`asset_models.rail_line_constants`)."""
+    return asset_models.rail_line_constants(
+        s.column("ballast_resistance_ohm_km", 5.0), s.column("rail_resistance_ohm_per_km", 0.03),
+        s.soil_resistivity_ohm_m, s.frequency_hz)
 
 
 def _telecom_constants(s):
     """Telecom pair against earth; the EMF is scaled by the sheath screening factor."""
-    rc = s.column("conductor_radius_m", 0.01)
-    zext = earth_return.self_impedance(s.height_m, rc, 0.0, s.soil_resistivity_ohm_m,
-                                       s.frequency_hz)
-    lc = asset_models.telecom_line_constants(rc, s.frequency_hz, earth_return_self_ohm_per_m=zext)
+    lc = asset_models.telecom_line_constants(s.column("conductor_radius_m", 0.01), s.height_m,
+                                             s.soil_resistivity_ohm_m, s.frequency_hz)
     return lc.z_ohm_per_m, lc.y_s_per_m, s.column("screening_factor", 1.0)
 
 

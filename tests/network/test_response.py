@@ -2,7 +2,7 @@
 
 Closed forms: uniform EMF E [V/m] on a uniform earth-return line,
 dV/dx = −zI + E, dI/dx = −yV (E. D. Sunde, Earth Conduction Effects in
-Transmission Systems, Dover 1968; METHODS.md §5).
+Transmission Systems, Dover 1968).
 """
 
 import mpmath
@@ -19,28 +19,30 @@ from corridor.network.asset_models import (
 from corridor.network.response import (
     ChainBatch,
     ChainSystem,
-    characteristic_impedance,
     matched_termination_admittance,
     propagation_constant,
-    solve_chains,
-    thevenin_at_node,
 )
+from tests.network.chains import solve_chains
 
 FREQ_HZ = 50.0
 E_V_PER_M = 1.0 + 0.5j  # any complex EMF; the response is linear in it
 
-# Pipeline-like constants: D = 0.5 m, r_coat = 1e4 Ω·m², 100 Ω·m soil (task brief).
-PIPE = pipeline_line_constants(0.5, 1e4, FREQ_HZ, soil_resistivity_ohm_m=100.0)
-# Leaky rail: 0.15 + j0.6 Ω/km, 2 Ω·km ballast, wet end of the range [memory].
-RAIL = rail_line_constants(ballast_resistance_ohm_km=2.0)
+# Pipeline-like constants: D = 0.5 m, 9.5 mm wall, r_coat = 1e4 Ω·m², 100 Ω·m soil.
+PIPE = pipeline_line_constants(0.5, 0.0095, 1e4, -1.0, 100.0, FREQ_HZ)
+# Leaky rail: 2 Ω·km ballast, wet end of the range [memory].
+RAIL = rail_line_constants(2.0, 0.03, 100.0, FREQ_HZ)
 # Metal-post fence: 4 wires, 3 m posts of 100 Ω — the leakiest kind, |γ|l ≈ 0.27 at 50 m.
-FENCE = fence_line_constants(4, 1.25e-3, 3.0, 100.0, "metal", FREQ_HZ,
-                             soil_resistivity_ohm_m=100.0)
+FENCE = fence_line_constants(4, 1.25e-3, 3.0, 100.0, "metal", 1.5, 100.0, FREQ_HZ)
+
+
+def characteristic_impedance(z, y):
+    """Zc = √(z/y) (transmission-line theory; Sunde 1968)."""
+    return np.sqrt(np.asarray(z, complex) / np.asarray(y, complex))
 KINDS = {"pipeline": PIPE, "leaky_rail": RAIL, "metal_fence": FENCE}
 
 
 def _open_line_v(x_m, length_m, z, y, e=E_V_PER_M):
-    """Isolated line, open ends, uniform EMF (Sunde; METHODS.md §5)."""
+    """Isolated line, open ends, uniform EMF (Sunde 1968)."""
     g = np.sqrt(z * y)
     return (e / g) * np.sinh(g * (x_m - length_m / 2)) / np.cosh(g * length_m / 2)
 
@@ -61,7 +63,7 @@ def _uniform_chain(length_m, seg_m, z, y, **kw):
 
 @pytest.mark.parametrize("kind", list(KINDS))
 def test_open_ends_uniform_emf_closed_form(kind):
-    # Sunde closed form V(x) = (E/γ)·sinh(γ(x−L/2))/cosh(γL/2) (METHODS.md §5).
+    # Sunde closed form V(x) = (E/γ)·sinh(γ(x−L/2))/cosh(γL/2) (Sunde 1968).
     z, y = KINDS[kind]
     length_m = 10_000.0
     x, sol = _uniform_chain(length_m, 50.0, z, y)
@@ -94,7 +96,7 @@ def test_long_segments_stay_exact():
 @pytest.mark.parametrize("kind", ["pipeline", "leaky_rail"])
 def test_exposure_on_continuing_line_matched_ends(kind):
     # Exposure of length L on a line continuing both ways: end voltages
-    # ±(E/2γ)(1 − e^{−γL}) (Sunde; METHODS.md §5). Matched ends are exact.
+    # ±(E/2γ)(1 − e^{−γL}) (Sunde 1968). Matched ends are exact.
     z, y = KINDS[kind]
     length_m = 3_000.0
     g = propagation_constant(z, y)
@@ -158,7 +160,7 @@ def test_thevenin_mid_node_is_two_lines_in_parallel():
     n, seg_m = 160, 50.0
     batch = ChainBatch.from_arrays(np.full(n, seg_m), z, y, [0])
     nodes = np.array([40, 100, 0])
-    got = thevenin_at_node(batch, nodes)
+    got = ChainSystem(batch).thevenin_impedance(nodes)
     zc, g = characteristic_impedance(z, y), propagation_constant(z, y)
     a, b = nodes * seg_m, (n - nodes) * seg_m
     y_a = np.where(a > 0, np.tanh(g * a) / zc, 0)
@@ -168,7 +170,7 @@ def test_thevenin_mid_node_is_two_lines_in_parallel():
 
 def test_insulating_joint_splits_line():
     # An insulating joint makes two open-ended lines; each follows the Sunde
-    # closed form with its own length (METHODS.md §5), and both agree with
+    # closed form with its own length (Sunde 1968), and both agree with
     # solving the halves as separate chains. The break sits mid-segment.
     z, y = PIPE
     seg_m, n, k = 50.0, 200, 79  # break in segment 79: at 79.5·50 = 3975 m
@@ -262,12 +264,11 @@ def test_conservation_kcl_with_grounds_and_terminations():
 
 
 def test_short_isolated_fence_tiny_shunt():
-    # A short fence on wooden posts, open both ends, only jωC (10 pF/m) to
+    # A short fence on wooden posts, open both ends, only jωC (≈ 7 pF/m) to
     # earth: γL → 0 and the Sunde closed form tends to V_end = E·L/2
     # (the line floats at the mid-point potential). The next term is
     # (γL)²/12 ≈ 1e-9 here, so rtol 1e-6.
-    z, y = fence_line_constants(4, 1.25e-3, 3.0, 100.0, "wood", FREQ_HZ,
-                                soil_resistivity_ohm_m=100.0)
+    z, y = fence_line_constants(4, 1.25e-3, 3.0, 100.0, "wood", 1.5, 100.0, FREQ_HZ)
     length_m = 200.0
     _, sol = _uniform_chain(length_m, 50.0, z, y)
     half = E_V_PER_M * length_m / 2

@@ -8,6 +8,7 @@ import pytest
 
 from corridor.physics import earth_return as er
 from corridor.physics.constants import MU0_H_PER_M
+from tests.physics.reference import carson_mutual_impedance
 
 
 def _mp_carson_j(r, theta):
@@ -41,7 +42,7 @@ def test_carson_at_zero_height_equals_sunde_surface_form():
     # Source: Sunde (1968) closed form equals Carson's integral at h = 0.
     a = np.geomspace(0.05, 2e4, 40)
     for rho, f in [(10.0, 50.0), (100.0, 60.0), (1e4, 50.0)]:
-        carson = er.carson_mutual_impedance(1e-9, 1e-9, a, rho, f)
+        carson = carson_mutual_impedance(1e-9, 1e-9, a, rho, f)
         sunde = er.surface_mutual_impedance(a, rho, f)
         # rtol 1e-6: two independent exact evaluations of the same integral.
         np.testing.assert_allclose(carson, sunde, rtol=1e-6)
@@ -51,7 +52,7 @@ def test_carson_tends_to_low_frequency_form_at_small_k():
     # Source: low-frequency limit of Carson's series (Gönen; Kersting ch. 4).
     rho, f = 1e4, 50.0
     x = np.array([0.5, 1.0, 3.0])
-    carson = er.carson_mutual_impedance(10.0, 10.5, x, rho, f)  # k ≈ 0.004
+    carson = carson_mutual_impedance(10.0, 10.5, x, rho, f)  # k ≈ 0.004
     lf = er.low_frequency_mutual_impedance(np.hypot(x, 0.5), rho, f)
     # rtol 2e-3: first neglected series term (√2/6)(1+j)·k·cosθ is ≈ 5e-4 of Z here.
     np.testing.assert_allclose(lf, carson, rtol=2e-3)
@@ -72,7 +73,7 @@ def test_equivalent_earth_depth_constant():
     [(50.0, 0.0493, 0.1447), (60.0, 0.0592, 0.1736)],
 )
 def test_textbook_low_frequency_coefficients(f, r_ohm_per_km, x_ohm_per_km_per_decade):
-    # Source: textbook coefficients (Gönen; METHODS.md §1):
+    # Source: textbook coefficients (T. Gönen, Electric Power Transmission System Engineering):
     # 0.0493 + j0.1447·log10(De/d) Ω/km at 50 Hz, 0.0592 + j0.1736·log10(De/d) at 60 Hz.
     d = np.array([1.0, 10.0, 100.0])
     rho = 100.0
@@ -103,12 +104,13 @@ def test_surface_small_separation_matches_low_frequency_limit():
 
 
 def test_low_frequency_reactance_turns_negative_but_dispatcher_does_not():
-    # Source: METHODS.md §1 (LF reactance negative beyond De ≈ 930 m in 100 Ω·m, 50 Hz);
+    # Source: the LF form ln(De/d) turns negative beyond De = 658.87·√(ρ/f) ≈ 930 m in
+    # 100 Ω·m at 50 Hz (Gönen);
     # reference is Carson's integral.
     rho, f = 100.0, 50.0
     x = np.array([1000.0, 1500.0, 3000.0])
     lf = er.low_frequency_mutual_impedance(np.hypot(x, 10.0), rho, f)
-    ref = er.carson_mutual_impedance(20.0, 10.0, x, rho, f)
+    ref = carson_mutual_impedance(20.0, 10.0, x, rho, f)
     prod = er.mutual_impedance(20.0, 10.0, x, rho, f)
     assert np.all(lf.imag < 0)
     assert np.all(ref.imag > 0)
@@ -147,7 +149,7 @@ def test_low_frequency_bound_holds_for_random_overhead_geometries():
     x = rng.uniform(0, 1, n) * x_max
     keep = (np.hypot(x, hi + hj) * m <= er.LOW_FREQUENCY_K_BOUND) & (np.hypot(x, hi - hj) > 0.1)
     assert keep.sum() > 500
-    ref = er.carson_mutual_impedance(hi, hj, x, rho, f)[keep]
+    ref = carson_mutual_impedance(hi, hj, x, rho, f)[keep]
     lf = er.low_frequency_mutual_impedance(np.hypot(x, hi - hj), rho, f)[keep]
     assert np.max(np.abs(lf - ref) / np.abs(ref)) <= 0.01
 
@@ -158,7 +160,7 @@ def test_dispatcher_stays_right_kilometres_out():
     for rho in (10.0, 100.0, 1000.0, 1e4):
         for f in (50.0, 60.0):
             for hi, hj in [(20.0, -1.5), (30.0, 6.0), (25.0, 25.0), (0.0, -2.0)]:
-                ref = er.carson_mutual_impedance(hi, hj, x, rho, f)
+                ref = carson_mutual_impedance(hi, hj, x, rho, f)
                 prod = er.mutual_impedance(hi, hj, x, rho, f)
                 # rtol 1e-3: production accuracy required kilometres out.
                 np.testing.assert_allclose(prod, ref, rtol=1e-3)
