@@ -142,27 +142,73 @@ def test_kill_midway_leaves_previous_outputs(tmp_path):
         pyogrio.read_dataframe(out / "screening.gpkg", layer="segments")
     rc, _, err = cli_run(cfg)
     assert rc == 0, err
-    leftovers = [p.name for p in (tmp_path / "s").iterdir() if p.name.startswith(".out.")]
+    leftovers = [p.name for p in out.iterdir() if p.name.startswith(".corridor-staging")
+                 or p.name == ".corridor-journal.json"]
     assert leftovers == []
     assert not (tmp_path / "s" / "out.lock").exists()
 
 
-def test_recover_restores_interrupted_swap(tmp_path):
-    """A kill between 'out -> .old' and 'tmp -> out' leaves only .old: it is put back."""
+class _Killed(BaseException):
+    """Stands for a SIGKILL inside the publish (nothing after it runs)."""
+
+
+def test_recover_finishes_a_journal_and_removes_only_marked_staging(tmp_path, monkeypatch):
+    """A kill after the publish journal was written: the next run's recovery completes it.
+
+    The kill is simulated inside :func:`corridor.owned.commit` after the first
+    file moved. Staging folders carrying corridor's marker are removed; a
+    user's folder that merely looks like one (no marker, not empty) and the
+    old-style ``.out.tmp-N`` names beside the folder are left alone.
+    """
+    from corridor import owned
     from corridor.runner import recover
 
     out = tmp_path / "out"
     out.mkdir()
-    (out / "run.json").write_text("{}", encoding="utf-8")
-    before = hashes(out)
+    (out / "notes.txt").write_text("mine", encoding="utf-8")
+    first = owned.make_staging(out)
+    (first / "run.json").write_text('{"old": 1}', encoding="utf-8")
+    (first / "gone.csv").write_text("old only", encoding="utf-8")
+    owned.commit(out, first, {})
+    before = owned.owned_files(out)
+    assert before.keys() == {"gone.csv", "run.json"}
+    staging = owned.make_staging(out)
+    (staging / "run.json").write_text('{"new": 1}', encoding="utf-8")
+    (staging / "report.html").write_text("<html>new</html>", encoding="utf-8")
+
+    def kill_at_move(point):
+        if point == "move":
+            raise _Killed
+
+    monkeypatch.setattr(owned, "_pause", kill_at_move)
+    with pytest.raises(_Killed):
+        owned.commit(out, staging, before)
+    assert (out / owned.JOURNAL).exists()
+    monkeypatch.undo()
+    # a dead run's marked staging folder, a user's look-alike folder, old-style names beside
     dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
                           capture_output=True, text=True, check=True)
-    pid = int(dead.stdout)
-    os.rename(out, tmp_path / f".out.old-{pid}")
-    (tmp_path / f".out.tmp-{pid}").mkdir()
+    other = out / f"{owned.STAGING_PREFIX}{int(dead.stdout)}"
+    other.mkdir()
+    (other / owned.STAGING_MARKER).write_text(json.dumps({"pid": int(dead.stdout)}),
+                                              encoding="utf-8")
+    (other / "screening.gpkg").write_bytes(b"partial")
+    lookalike = out / f"{owned.STAGING_PREFIX}999999"
+    lookalike.mkdir()
+    (lookalike / "keep.txt").write_text("user", encoding="utf-8")
+    (tmp_path / ".out.tmp-1").mkdir()
+    (tmp_path / ".out.tmp-1" / "doc.txt").write_text("user", encoding="utf-8")
     recover(out)
-    assert hashes(out) == before
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+    assert (out / "run.json").read_text(encoding="utf-8") == '{"new": 1}'
+    assert (out / "report.html").read_text(encoding="utf-8") == "<html>new</html>"
+    assert not (out / "gone.csv").exists()  # the old run's file the new run does not write
+    now = owned.owned_files(out)
+    assert now.keys() == {"report.html", "run.json"}
+    assert all(sha256_file(out / n) == r["sha256"] for n, r in now.items())
+    assert not (out / owned.JOURNAL).exists() and not staging.exists() and not other.exists()
+    assert (lookalike / "keep.txt").read_text(encoding="utf-8") == "user"
+    assert (out / "notes.txt").read_text(encoding="utf-8") == "mine"
+    assert (tmp_path / ".out.tmp-1" / "doc.txt").read_text(encoding="utf-8") == "user"
 
 
 @pytest.mark.slow
