@@ -426,6 +426,7 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
     try:
         recover(out_dir)
         owned_before = owned_mod.check_output_folder(out_dir, _fixed_outputs())
+        created = not os.path.lexists(out_dir)
         staging = owned_mod.make_staging(out_dir)
     except OSError as exc:
         cause = storage_problem(exc)
@@ -507,6 +508,11 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
         if not published and not os.path.lexists(out_dir / owned_mod.JOURNAL):
             # (after the journal, the staged files belong to it: the next run finishes it)
             owned_mod.remove_staging(staging)
+            if created:
+                try:
+                    out_dir.rmdir()  # made by this run and still empty: leave no trace
+                except OSError:
+                    pass
 
 
 def input_fingerprint(cfg: Config) -> str:

@@ -13,6 +13,7 @@ takes the lock.
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import signal
@@ -332,3 +333,90 @@ def test_failed_run_keeps_log_and_previous_outputs(tmp_path, cli, capsys):
     assert hashes(out) == before
     text = (tmp_path / "f" / "out.last-error.log").read_text(encoding="utf-8")
     assert "hedge" in text or "no usable asset" in text
+
+
+# -- lock: heartbeat, other hosts, empty files, unlock ------------------------------------
+
+def _foreign_lock(path: Path, age_s: float, host: str = "another-host") -> None:
+    path.write_text(json.dumps({"pid": 4242, "host": host,
+                                "started_utc": "2026-01-01T01:30:00+00:00"}), encoding="utf-8")
+    old = time.time() - age_s
+    os.utime(path, (old, old))
+
+
+def test_lock_of_another_host_is_taken_over_only_without_heartbeat(tmp_path):
+    """Another host's lock: refused while its heartbeat is fresh, stale after STALE_AFTER_S."""
+    from corridor.lock import STALE_AFTER_S, LockError, OutputLock
+
+    lock = tmp_path / "out.lock"
+    _foreign_lock(lock, age_s=5.0)
+    with pytest.raises(LockError, match="locked by PID 4242 on host another-host"):
+        OutputLock(tmp_path / "out").acquire()
+    _foreign_lock(lock, age_s=STALE_AFTER_S + 60.0)  # e.g. an OOM-killed container
+    with OutputLock(tmp_path / "out") as held:
+        assert json.loads(lock.read_text(encoding="utf-8"))["pid"] == os.getpid()
+        assert held.still_held()
+    assert not lock.exists()
+
+
+def test_heartbeat_refreshes_the_lock_file(tmp_path):
+    from corridor.lock import OutputLock
+
+    with OutputLock(tmp_path / "out", heartbeat_s=0.05) as held:
+        old = time.time() - 3600.0
+        os.utime(held.path, (old, old))
+        t0 = time.monotonic()
+        while held.path.stat().st_mtime < old + 60.0 and time.monotonic() - t0 < 30.0:
+            time.sleep(0.02)
+        assert held.path.stat().st_mtime > old + 60.0  # refreshed by the daemon thread
+
+
+def test_empty_lock_file_is_stale_after_a_few_seconds(tmp_path):
+    """The 0-bytes-free case: an empty lock file must not block later runs for good."""
+    from corridor.lock import UNREADABLE_STALE_S, LockError, OutputLock
+
+    lock = tmp_path / "out.lock"
+    lock.write_bytes(b"")
+    with pytest.raises(LockError, match="being written"):
+        OutputLock(tmp_path / "out").acquire()
+    old = time.time() - UNREADABLE_STALE_S - 1.0
+    os.utime(lock, (old, old))
+    with OutputLock(tmp_path / "out"):
+        pass
+    assert not lock.exists()
+
+
+def test_lock_write_failure_leaves_no_lock_file(tmp_path, monkeypatch):
+    import corridor.lock as lock_mod
+
+    def full(*a, **kw):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(lock_mod.json, "dump", full)
+    with pytest.raises(OSError, match="No space left"):
+        lock_mod.OutputLock(tmp_path / "out").acquire()
+    assert not (tmp_path / "out.lock").exists()
+
+
+def test_unlock_prints_the_holder_and_removes_the_lock(tmp_path, cli, capsys):
+    cfg = make(tmp_path / "c")
+    lock = tmp_path / "c" / "out.lock"
+    _foreign_lock(lock, age_s=30.0)
+    assert cli(["run", str(cfg), "-q"]) == 4
+    assert "corridor unlock" in capsys.readouterr().err
+    assert cli(["unlock", str(cfg)]) == 0
+    printed = capsys.readouterr().out
+    assert "PID 4242 on host another-host" in printed and "removed" in printed
+    assert not lock.exists()
+    assert cli(["unlock", str(cfg)]) == 0
+    assert "nothing to do" in capsys.readouterr().out
+    # a holder running on this host (this test's own process) needs --force
+    import socket
+
+    _foreign_lock(lock, age_s=1.0, host=socket.gethostname())
+    lock.write_text(json.dumps({"pid": os.getpid(), "host": socket.gethostname()}),
+                    encoding="utf-8")
+    assert cli(["unlock", str(cfg)]) == 4
+    assert lock.exists()
+    assert cli(["unlock", str(cfg), "--force"]) == 0
+    assert not lock.exists()
