@@ -58,7 +58,8 @@ def pause_for_test(point: str) -> None:
     """Test hook: sleep at a named point when ``CORRIDOR_TEST_PAUSE_AT`` names it.
 
     ``CORRIDOR_TEST_PAUSE_AT`` is a comma list of points (``compute``, ``write``,
-    ``swap``); ``CORRIDOR_TEST_PAUSE_FILE``, if set, is created on arrival so a
+    ``publish``: before the journal, ``move``: after each file moved into place);
+    ``CORRIDOR_TEST_PAUSE_FILE``, if set, is created on arrival so a
     test knows the run is there; ``CORRIDOR_TEST_PAUSE_S`` is the sleep [s]
     (default 60).
     """
@@ -467,7 +468,10 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
         handler = None
         owned_mod.commit(out_dir, staging, owned_before)
         published = True
-        last_error_path(out_dir).unlink(missing_ok=True)
+        try:
+            last_error_path(out_dir).unlink(missing_ok=True)
+        except OSError:
+            pass
         log.info("outputs published to %s", out_dir)
         return run
     except BaseException as exc:

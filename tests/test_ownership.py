@@ -233,3 +233,14 @@ def test_sigkill_at_random_points_keeps_outputs_whole_and_user_files_untouched(t
     assert rc == 0, err
     assert_complete(out)
     assert tree(root, skip=("out", "out.cache", "out.lock")) == user
+
+
+def test_steps_folder_of_corridor_step_does_not_block_a_run(tmp_path, cli):
+    """``corridor step`` writes into ``<output_dir>/steps`` by default; a run may follow."""
+    cfg = make(tmp_path / "s")
+    assert cli(["step", "expose", str(cfg), "-q"]) == 0
+    steps = tree(tmp_path / "s" / "out" / "steps")
+    assert "expose.json" in steps
+    assert cli(["run", str(cfg), "-q"]) == 0
+    assert_complete(tmp_path / "s" / "out")
+    assert tree(tmp_path / "s" / "out" / "steps") == steps
