@@ -1,18 +1,18 @@
-"""Running a screening end to end and publishing its outputs atomically.
+"""Running a screening end to end and publishing its outputs.
 
-One run at a time per output folder (:mod:`corridor.lock`). Outputs and the
-run's log (``corridor.log``) are written into a temporary folder beside the
-output folder (``.<name>.tmp-<pid>``) and swapped in only when complete:
-
-1. on Linux, ``renameat2(RENAME_EXCHANGE)`` swaps the two folders in one
-   atomic step (readers see either the old or the new outputs, never none);
-2. elsewhere, ``out -> .<name>.old-<pid>``, ``tmp -> out``, delete the old one.
+One run at a time per output folder (:mod:`corridor.lock`). corridor owns
+only the files it wrote in the output folder, listed in the folder's
+manifest (:mod:`corridor.owned`): an existing folder holding other files and
+no manifest, or an output path that is a file, is refused before any
+computing (exit 2). Outputs and the run's log (``corridor.log``) are written
+into a marked staging folder inside the output folder and moved into place
+file by file (each rename atomic) through a publish journal, only when
+complete; no folder is renamed, so the output folder may be a mount point.
 
 A crashed, killed (SIGKILL included) or failed run leaves the previous
-outputs intact. At start-up, while holding the lock, leftovers of dead runs
-are cleaned: temporary folders are deleted and, if the output folder is
-missing while an ``.old`` folder exists (a kill between the two renames of
-step 2), the old folder is put back.
+outputs intact, or, when killed after the journal was written, the next run
+finishes the publish first. Files corridor did not write are never deleted,
+moved or overwritten.
 
 A failure before publishing keeps its log beside the output folder as
 ``<name>.last-error.log``.
@@ -20,21 +20,21 @@ A failure before publishing keeps its log beside the output folder as
 
 from __future__ import annotations
 
-import ctypes
-import errno
 import logging
 import os
 import shutil
+import tempfile
 import time
 from datetime import UTC, datetime
 from pathlib import Path
 
 import pandas as pd
 
+from corridor import owned as owned_mod
 from corridor.config import Config
-from corridor.errors import CorridorError
+from corridor.errors import CorridorError, StorageError, storage_problem
 from corridor.io.outputs import SAFETY_CAUTION, sha256_file, write_csv, write_json, write_layer
-from corridor.lock import OutputLock, pid_alive
+from corridor.lock import LockError, OutputLock
 from corridor.pipeline import Run, finalize, output_paths, versions
 
 log = logging.getLogger(__name__)
@@ -58,7 +58,8 @@ def pause_for_test(point: str) -> None:
     """Test hook: sleep at a named point when ``CORRIDOR_TEST_PAUSE_AT`` names it.
 
     ``CORRIDOR_TEST_PAUSE_AT`` is a comma list of points (``compute``, ``write``,
-    ``swap``); ``CORRIDOR_TEST_PAUSE_FILE``, if set, is created on arrival so a
+    ``publish``: before the journal, ``move``: after each file moved into place);
+    ``CORRIDOR_TEST_PAUSE_FILE``, if set, is created on arrival so a
     test knows the run is there; ``CORRIDOR_TEST_PAUSE_S`` is the sleep [s]
     (default 60).
     """
@@ -109,7 +110,8 @@ def _write_gpkg(run: Run, path: Path) -> None:
 
 
 def write_outputs(run: Run, out_dir: Path, previous: dict | None = None,
-                  reuse_from: Path | None = None) -> dict[str, Path]:
+                  reuse_from: Path | None = None,
+                  reuse_names: set[str] | None = None) -> dict[str, Path]:
     """Write every output of a finished run into ``out_dir``.
 
     The GeoPackage, the other formats, the CSV files and the report, then
@@ -126,6 +128,9 @@ def write_outputs(run: Run, out_dir: Path, previous: dict | None = None,
         The previous output folder, when every input is unchanged since then:
         its layer files are copied instead of written again (same bytes as a
         fresh write would give in content; much faster for large runs).
+    reuse_names : set of str, optional
+        The files of ``reuse_from`` that corridor wrote (its manifest); only
+        these are copied. None: every file of the names corridor writes.
     """
     from corridor.io.formats import write_extra_formats
     from corridor.report import write_report
@@ -136,11 +141,15 @@ def write_outputs(run: Run, out_dir: Path, previous: dict | None = None,
     formats = list(run.config.run.get("output_formats", ["gpkg"]))
     records = input_records(run.config)
     reused = False
-    if reuse_from is not None and all((reuse_from / n).exists() for n in REUSABLE_OUTPUTS):
+    def ours(name: str) -> bool:
+        return reuse_names is None or name in reuse_names
+
+    if reuse_from is not None and all((reuse_from / n).exists() and ours(n)
+                                      for n in REUSABLE_OUTPUTS):
         for name in REUSABLE_OUTPUTS:
             shutil.copy2(reuse_from / name, out_dir / name)
-        for fmt_file in reuse_from.iterdir():
-            if fmt_file.suffix in (".fgb", ".parquet"):
+        for fmt_file in sorted(reuse_from.iterdir()):
+            if fmt_file.suffix in (".fgb", ".parquet") and ours(fmt_file.name):
                 shutil.copy2(fmt_file, out_dir / fmt_file.name)
         reused = True
         log.info("inputs unchanged since the previous run: its layers are reused")
@@ -196,105 +205,105 @@ def inputs_unchanged(run: Run, previous_record: dict | None) -> bool:
             and previous_record.get("versions", {}).get("corridor") == versions()["corridor"])
 
 
-# -- swapping and recovery ----------------------------------------------------
-
-_AT_FDCWD = -100
-_RENAME_EXCHANGE = 2
-
-
-def _exchange(a: Path, b: Path) -> bool:
-    """Swap two paths atomically with Linux ``renameat2``; False where unsupported."""
-    try:
-        libc = ctypes.CDLL(None, use_errno=True)
-        fn = libc.renameat2
-    except (OSError, AttributeError):
-        return False
-    fn.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p,
-                   ctypes.c_uint]
-    rc = fn(_AT_FDCWD, os.fsencode(a), _AT_FDCWD, os.fsencode(b), _RENAME_EXCHANGE)
-    if rc == 0:
-        return True
-    err = ctypes.get_errno()
-    if err in (errno.ENOSYS, errno.EINVAL, errno.ENOTSUP, errno.EOPNOTSUPP):
-        return False
-    raise OSError(err, f"cannot swap {a} and {b}: {os.strerror(err)}")
-
-
-def _fsync_tree(folder: Path) -> None:
-    for p in folder.iterdir():
-        if p.is_file():
-            fd = os.open(p, os.O_RDONLY)
-            try:
-                os.fsync(fd)
-            finally:
-                os.close(fd)
-    _fsync_dir(folder)
-
-
-def _fsync_dir(folder: Path) -> None:
-    try:
-        fd = os.open(folder, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
-
-
-def swap_in(tmp: Path, out_dir: Path) -> None:
-    """Make ``tmp`` the output folder, as atomically as the file system allows."""
-    if not out_dir.exists():
-        os.rename(tmp, out_dir)
-    elif _exchange(tmp, out_dir):
-        shutil.rmtree(tmp, ignore_errors=True)  # now holds the previous outputs
-    else:
-        old = out_dir.parent / f".{out_dir.name}.old-{os.getpid()}"
-        os.rename(out_dir, old)
-        pause_for_test("swap")
-        os.rename(tmp, out_dir)
-        shutil.rmtree(old, ignore_errors=True)
-    _fsync_dir(out_dir.parent)
-
-
-def _leftover_pid(path: Path) -> int:
-    try:
-        return int(path.name.rsplit("-", 1)[1])
-    except (IndexError, ValueError):
-        return -1
-
+# -- publishing and recovery (see corridor.owned) --------------------------------
 
 def recover(out_dir: Path) -> None:
-    """Clean up after dead runs (call while holding the lock)."""
-    parent, name = out_dir.parent, out_dir.name
-    if not parent.exists():
-        return
-    olds = sorted(parent.glob(f".{name}.old-*"), key=lambda p: p.stat().st_mtime)
-    olds = [p for p in olds if not pid_alive(_leftover_pid(p)) or _leftover_pid(p) == os.getpid()]
-    if not out_dir.exists() and olds:
-        keep = olds.pop()
-        os.rename(keep, out_dir)
-        log.warning("output folder %s was missing after an interrupted swap; previous"
-                    " outputs restored from %s", out_dir, keep.name)
-    for p in olds:
-        shutil.rmtree(p, ignore_errors=True)
-        log.info("removed leftover %s of a dead run", p.name)
-    for p in parent.glob(f".{name}.tmp-*"):
-        pid = _leftover_pid(p)
-        if pid != os.getpid() and pid_alive(pid):
-            continue
-        shutil.rmtree(p, ignore_errors=True)
-        log.info("removed leftover %s of a dead run", p.name)
+    """Clean up after dead runs (call while holding the lock): :func:`corridor.owned.recover`."""
+    owned_mod.recover(out_dir)
 
 
 def last_error_path(out_dir: Path) -> Path:
-    """Where the log of a run that failed before publishing is kept."""
+    """Where the log of a run that failed before publishing is kept.
+
+    ``<name>.last-error.log`` beside the output folder; in the system's
+    temporary folder when the output folder is a file system root.
+    """
+    out_dir = Path(out_dir)
+    if out_dir.parent == out_dir or not out_dir.name:
+        return Path(tempfile.gettempdir()) / "corridor.last-error.log"
     return out_dir.parent / f"{out_dir.name}.last-error.log"
 
 
 # -- the run ------------------------------------------------------------------
+
+#: Fields whose filled-in defaults run.json lists by feature id (safety relevant).
+DEFAULT_IDS_LISTED = ("fault_current_start_ka", "fault_current_end_ka", "clearing_time_s",
+                      "post_type", "coating_resistance_ohm_m2", "coating_type",
+                      "start_termination", "end_termination")
+#: Rejected assets (and other features) logged one line each up to this many.
+REJECTED_SHOWN = 20
+
+
+def _row_role(row: dict, cfg: Config, asset_labels: set[str]) -> str:
+    role = row.get("role")
+    if role:
+        return "power_lines" if role == "power_lines" else (
+            "assets" if role == "assets" else "other")
+    if row.get("layer") == cfg.power_lines.label:
+        return "power_lines"
+    return "assets" if row.get("layer") in asset_labels else "other"
+
+
+def rejected_summary(cfg: Config, inputs) -> dict:
+    """Rejected features of a run split by role.
+
+    Returns
+    -------
+    dict
+        ``counts``: ``rejected_power_lines``, ``rejected_assets``,
+        ``rejected_other`` (features, each counted once); ``power_lines``:
+        ``[{"line_id", "field", "reason"}]`` for run.json; ``assets`` and
+        ``other``: the rejected rows of those roles.
+    """
+    asset_labels = {a.label for a in cfg.assets}
+    parts: dict[str, list[dict]] = {"power_lines": [], "assets": [], "other": []}
+    for row in inputs.rejected.rows:
+        parts[_row_role(row, cfg, asset_labels)].append(row)
+
+    def features(rows):
+        return len({(r.get("layer"), r.get("feature_id")) for r in rows})
+
+    return {"counts": {"rejected_power_lines": features(parts["power_lines"]),
+                       "rejected_assets": features(parts["assets"]),
+                       "rejected_other": features(parts["other"])},
+            "power_lines": [{"line_id": str(r["feature_id"]), "field": str(r["field"]),
+                             "reason": str(r["reason"])} for r in parts["power_lines"]],
+            "assets": parts["assets"], "other": parts["other"]}
+
+
+def log_rejected_lines(lines: list[dict]) -> None:
+    """One WARNING per rejected power line: its exposures are not assessed."""
+    for r in lines:
+        log.warning("power line %s REJECTED (field '%s': %s): the voltages it induces are"
+                    " NOT assessed; the results are incomplete", r.get("line_id"),
+                    r.get("field"), r.get("reason"))
+
+
+def log_rejected(summary: dict) -> None:
+    """WARNING lines for rejected power lines, assets and other features (bounded)."""
+    log_rejected_lines(summary["power_lines"])
+    for role, what in (("assets", "asset"), ("other", "feature")):
+        rows = summary[role]
+        for r in rows[:REJECTED_SHOWN]:
+            log.warning("%s %s of layer %s rejected (field '%s': %s)", what, r["feature_id"],
+                        r["layer"], r["field"], r["reason"])
+        if len(rows) > REJECTED_SHOWN:
+            log.warning("... and %d more rejected %ss (every one is in rejected.csv)",
+                        len(rows) - REJECTED_SHOWN, what)
+
+
+def defaults_used_record(inputs) -> dict:
+    """run.json's ``defaults_used``: field -> count, with ids for the safety-relevant fields."""
+    used = getattr(inputs, "defaults_used", None) or {}
+    out = {}
+    for fld, ids in sorted(used.items()):
+        ids = [str(i) for i in ids]
+        entry: dict = {"count": len(ids)}
+        if fld in DEFAULT_IDS_LISTED:
+            entry["ids"] = ids
+        out[fld] = entry
+    return out
+
 
 def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
            final_stages: dict | None = None) -> Run:
@@ -310,6 +319,8 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     t0 = time.perf_counter()
     inputs = read_inputs(cfg)
     read_s = round(time.perf_counter() - t0, 4)
+    rejected = rejected_summary(cfg, inputs)
+    log_rejected(rejected)
     if len(inputs.assets) == 0:
         from corridor.errors import InputError
 
@@ -322,15 +333,30 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     keys = cache_mod.asset_keys(cfg, inputs)
     hash_s = round(time.perf_counter() - t1, 4)
     folder = cache_folder(cfg, out_dir)
+    cache_lock = None
     if folder is not None:
-        with OutputLock(folder):
+        cache_lock = OutputLock(folder)
+        try:
+            cache_lock.acquire()
+        except OSError as exc:  # the cache is optional: a full or read-only disk only warns
+            cause = storage_problem(exc)
+            if cause is None:
+                raise
+            log.warning("cache folder %s cannot be used (%s); every asset is computed",
+                        folder, cause)
+            cache_lock = None
+    if cache_lock is not None:
+        try:
             run = backends.incremental_compute(cache_mod, cfg, inputs, stages, folder, keys,
                                                compute_fn)
+        finally:
+            cache_lock.release()
     else:
         run = compute_fn(cfg, inputs, stages)
         run.counts["assets_recomputed"] = len(inputs.assets)
         run.counts["assets_from_cache"] = 0
     run.timings_s = {"read": read_s, "hash": hash_s, **run.timings_s}
+    run.counts.update(rejected["counts"])
     progress.stage("finalize", 3, total)
     finalize(run, final_stages)
     run.counts["assets_recomputed"] = int(run.counts.get("assets_recomputed", 0))
@@ -343,6 +369,8 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     extra_json = dict(run.extra_tables.get("json", {}))
     extra_json["changes"] = summary
     extra_json["inputs_state"] = state
+    extra_json["rejected_power_lines"] = rejected["power_lines"]
+    extra_json["defaults_used"] = defaults_used_record(inputs)
     run.extra_tables["json"] = extra_json
     progress.stage("write", 5, total)
     return run
@@ -355,81 +383,140 @@ class _FileOnly(logging.Filter):
         return not getattr(record, "file_only", False)
 
 
+def _fixed_outputs() -> tuple[str, ...]:
+    return tuple(sorted(owned_mod.FIXED_OUTPUTS))
+
+
 def publish(cfg: Config, out_dir: Path | None = None, stages: dict | None = None,
             final_stages: dict | None = None) -> Run:
-    """Run a screening and swap its outputs into place atomically.
+    """Run a screening and publish its outputs into the output folder.
 
     Raises
     ------
     corridor.lock.LockError
         Another run holds the output folder.
+    corridor.errors.OutputFolderError
+        The output path is a file, or an existing folder holds files corridor
+        did not write and no manifest of corridor's (nothing is computed).
+    corridor.errors.StorageError
+        Disk full, read-only folder or no permission (its cause named).
     CorridorError
         Bad config or input (its log is kept as ``<out>.last-error.log``).
     """
     out_dir = Path(out_dir or cfg.output_dir).resolve()
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    root = logging.getLogger("corridor")
-    with OutputLock(out_dir):
-        recover(out_dir)
-        tmp = out_dir.parent / f".{out_dir.name}.tmp-{os.getpid()}"
-        if tmp.exists():
-            shutil.rmtree(tmp)
-        tmp.mkdir()
-        handler = logging.FileHandler(tmp / LOG_NAME, encoding="utf-8")
-        handler.setLevel(logging.DEBUG)
-        handler.setFormatter(logging.Formatter(LOG_FORMAT))
-        root.addHandler(handler)
-        if root.level == logging.NOTSET or root.level > logging.DEBUG:
-            root.setLevel(logging.DEBUG)
-        published = False
-        try:
-            log.info("corridor run of %s into %s (PID %d)", cfg.path, out_dir, os.getpid())
-            previous = _previous_record(out_dir)
-            fingerprint = input_fingerprint(cfg)
-            if _can_reuse_everything(out_dir, previous, fingerprint):
-                run = reuse_previous_outputs(cfg, out_dir, tmp, previous)
-            else:
-                run = screen(cfg, out_dir, stages, final_stages)
-                extra = dict(run.extra_tables.get("json", {}))
-                extra["input_fingerprint"] = fingerprint
-                run.extra_tables["json"] = extra
-                reuse = out_dir if inputs_unchanged(run, previous) else None
-                write_outputs(run, tmp, previous, reuse_from=reuse)
-            log.info("assets recomputed: %d, from cache: %d; outputs complete, publishing",
-                     run.counts.get("assets_recomputed", 0),
-                     run.counts.get("assets_from_cache", 0))
-            handler.flush()
-            _fsync_tree(tmp)
-            swap_in(tmp, out_dir)
-            published = True
-            last_error_path(out_dir).unlink(missing_ok=True)
-            log.info("outputs published to %s", out_dir)
-            return run
-        except BaseException as exc:
-            if isinstance(exc, CorridorError):
-                for line in getattr(exc, "problems", [str(exc)]):
-                    log.error("%s", line, extra={"file_only": True})
-            elif isinstance(exc, KeyboardInterrupt):
-                log.error("interrupted", extra={"file_only": True})
-            else:
-                log.error("internal error", exc_info=True, extra={"file_only": True})
-            if not published:
-                handler.flush()
-                target = last_error_path(out_dir)
-                try:
-                    shutil.copyfile(tmp / LOG_NAME, target)
-                    try:
-                        exc.corridor_log = target
-                    except AttributeError:
-                        pass
-                except OSError:
-                    pass
+    # read-only look first, so a refused folder gets no lock file or staging folder beside it
+    owned_mod.check_output_folder(out_dir)
+    lock = OutputLock(out_dir)
+    try:
+        out_dir.parent.mkdir(parents=True, exist_ok=True)
+        lock.acquire()
+    except OSError as exc:
+        cause = storage_problem(exc)
+        if cause is None:
             raise
-        finally:
+        raise StorageError(f"output folder {out_dir}: cannot take the lock {lock.path}:"
+                           f" {cause}") from exc
+    try:
+        return _publish_locked(cfg, out_dir, lock, stages, final_stages)
+    finally:
+        lock.release()
+
+
+def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_stages) -> Run:
+    root = logging.getLogger("corridor")
+    try:
+        recover(out_dir)
+        owned_before = owned_mod.check_output_folder(out_dir, _fixed_outputs())
+        created = not os.path.lexists(out_dir)
+        staging = owned_mod.make_staging(out_dir)
+    except OSError as exc:
+        cause = storage_problem(exc)
+        if cause is None:
+            raise
+        raise StorageError(f"output folder {out_dir}: {cause}") from exc
+    handler: logging.Handler | None = logging.FileHandler(staging / LOG_NAME, encoding="utf-8")
+    handler.setLevel(logging.DEBUG)
+    handler.setFormatter(logging.Formatter(LOG_FORMAT))
+    root.addHandler(handler)
+    if root.level == logging.NOTSET or root.level > logging.DEBUG:
+        root.setLevel(logging.DEBUG)
+    published = False
+    try:
+        log.info("corridor run of %s into %s (PID %d)", cfg.path, out_dir, os.getpid())
+        previous = _previous_record(out_dir) if "run.json" in owned_before else None
+        fingerprint = input_fingerprint(cfg)
+        if _can_reuse_everything(out_dir, previous, fingerprint, owned_before):
+            run = reuse_previous_outputs(cfg, out_dir, staging, previous, owned_before)
+        else:
+            run = screen(cfg, out_dir, stages, final_stages)
+            extra = dict(run.extra_tables.get("json", {}))
+            extra["input_fingerprint"] = fingerprint
+            run.extra_tables["json"] = extra
+            reuse = out_dir if inputs_unchanged(run, previous) else None
+            write_outputs(run, staging, previous, reuse_from=reuse,
+                          reuse_names=set(owned_before))
+        log.info("assets recomputed: %d, from cache: %d; outputs complete, publishing",
+                 run.counts.get("assets_recomputed", 0),
+                 run.counts.get("assets_from_cache", 0))
+        if not lock.still_held():
+            raise LockError(f"output folder {out_dir}: the lock {lock.path} was removed or"
+                            " taken over while this run computed (`corridor unlock`?); its"
+                            " outputs are not published")
+        # the log file closes before the files move, so the manifest's record of it holds
+        root.removeHandler(handler)
+        handler.close()
+        handler = None
+        owned_mod.commit(out_dir, staging, owned_before)
+        published = True
+        try:
+            last_error_path(out_dir).unlink(missing_ok=True)
+        except OSError:
+            pass
+        log.info("outputs published to %s", out_dir)
+        return run
+    except BaseException as exc:
+        cause = storage_problem(exc) if isinstance(exc, Exception) else None
+        if isinstance(exc, CorridorError):
+            for line in getattr(exc, "problems", [str(exc)]):
+                log.error("%s", line, extra={"file_only": True})
+        elif isinstance(exc, KeyboardInterrupt):
+            log.error("interrupted", extra={"file_only": True})
+        elif cause is not None:
+            log.error("the file system refused: %s", cause, exc_info=True,
+                      extra={"file_only": True})
+        else:
+            log.error("internal error", exc_info=True, extra={"file_only": True})
+        target = None
+        if not published:
+            if handler is not None:
+                handler.flush()
+            target = last_error_path(out_dir)
+            try:
+                shutil.copyfile(staging / LOG_NAME, target)
+            except OSError:
+                target = None
+        if target is not None:
+            try:
+                exc.corridor_log = target
+            except AttributeError:
+                pass
+        if cause is not None and not isinstance(exc, CorridorError):
+            err = StorageError(f"output folder {out_dir}: {cause}")
+            err.corridor_log = target
+            raise err from exc
+        raise
+    finally:
+        if handler is not None:
             root.removeHandler(handler)
             handler.close()
-            if tmp.exists() and not published:
-                shutil.rmtree(tmp, ignore_errors=True)
+        if not published and not os.path.lexists(out_dir / owned_mod.JOURNAL):
+            # (after the journal, the staged files belong to it: the next run finishes it)
+            owned_mod.remove_staging(staging)
+            if created:
+                try:
+                    out_dir.rmdir()  # made by this run and still empty: leave no trace
+                except OSError:
+                    pass
 
 
 def input_fingerprint(cfg: Config) -> str:
@@ -459,12 +546,15 @@ def input_fingerprint(cfg: Config) -> str:
 REUSED_WHOLE = (*REUSABLE_OUTPUTS, "report.html")
 
 
-def _can_reuse_everything(out_dir: Path, previous: dict | None, fingerprint: str) -> bool:
+def _can_reuse_everything(out_dir: Path, previous: dict | None, fingerprint: str,
+                          owned: dict | None = None) -> bool:
     return bool(previous and previous.get("input_fingerprint") == fingerprint
-                and all((out_dir / n).exists() for n in REUSED_WHOLE))
+                and all((out_dir / n).exists() and (owned is None or n in owned)
+                        for n in REUSED_WHOLE))
 
 
-def reuse_previous_outputs(cfg: Config, out_dir: Path, tmp: Path, previous: dict) -> Run:
+def reuse_previous_outputs(cfg: Config, out_dir: Path, tmp: Path, previous: dict,
+                           owned: dict | None = None) -> Run:
     """Publish the previous outputs again when no input changed at all.
 
     Nothing is read or computed: the layers, CSVs and report are copied, the
@@ -480,8 +570,8 @@ def reuse_previous_outputs(cfg: Config, out_dir: Path, tmp: Path, previous: dict
     for name in REUSED_WHOLE:
         shutil.copy2(out_dir / name, tmp / name)
     pause_for_test("write")
-    for f in out_dir.iterdir():
-        if f.suffix in (".fgb", ".parquet"):
+    for f in sorted(out_dir.iterdir()):
+        if f.suffix in (".fgb", ".parquet") and (owned is None or f.name in owned):
             shutil.copy2(f, tmp / f.name)
     when = previous.get("finished_utc", "?")
     html = (tmp / "report.html").read_text(encoding="utf-8")
@@ -506,6 +596,10 @@ def reuse_previous_outputs(cfg: Config, out_dir: Path, tmp: Path, previous: dict
     run = Run(cfg)
     run.counts = counts
     run.timings_s = record["timings_s"]
+    lines = list(record.get("rejected_power_lines") or [])
+    run.extra_tables["json"] = {"rejected_power_lines": lines,
+                                "defaults_used": record.get("defaults_used", {})}
+    log_rejected_lines(lines)
     return run
 
 
