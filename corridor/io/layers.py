@@ -268,12 +268,16 @@ def id_text(values: pd.Series) -> pd.Series:
 
 
 def _feature_ids(gdf: gpd.GeoDataFrame, id_col: str | None) -> pd.Series:
+    """Feature ids as text; a feature without one is ``#<row>``, its row number in the
+    layer as read (0 first), also when ``gdf`` holds only some rows of it (one asset kind)."""
+    rows = (gdf.index.to_numpy() if pd.api.types.is_integer_dtype(gdf.index)
+            else np.arange(len(gdf)))
     if id_col is None:
-        return pd.Series([f"#{i}" for i in range(len(gdf))], index=gdf.index)
+        return pd.Series([f"#{i}" for i in rows], index=gdf.index, dtype="string")
     out = id_text(gdf[id_col])
     missing = out.isna().to_numpy()
     out = out.astype(object)
-    out[missing] = [f"#{i}" for i in np.flatnonzero(missing)]
+    out[missing] = [f"#{i}" for i in rows[missing]]
     return out.astype("string")
 
 
