@@ -49,10 +49,11 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
     "limit_set": (str, "-", "iec_en", "Limit set: a name in config/limits/ or a path.", None),
     "arrangements": (str, "path", "arrangements.toml", "Tower and conductor arrangements"
                      " file, relative to the config file.", None),
-    "use_kind_defaults": (bool, "-", True, "Missing asset attributes (NULL, blank or an absent"
-                          " field) take the kind's default (with a warning, counted in run.json)"
-                          " instead of rejecting the feature. A present but invalid value always"
-                          " rejects the feature.", None),
+    "use_kind_defaults": (bool, "-", True, "Missing asset values (NULL or blank) take the"
+                          " kind's default (with a warning, counted in run.json) instead of"
+                          " rejecting the feature. A field the layer lacks always takes the"
+                          " default (counted too); a present but invalid value always rejects"
+                          " the feature.", None),
     "accept_rejected_lines": (bool, "-", False, "A rejected power line does not change the exit"
                               " code: set it only when leaving such lines out is intended. The"
                               " report still names every rejected line.", None),
