@@ -306,8 +306,14 @@ def _table(raw: dict, key: str, where: str, problems: list[str]) -> dict:
     value = raw.get(key, {})
     if isinstance(value, dict):
         return value
-    problems.append(f"{where}: expected a table, got {value!r}")
+    problems.append(f"{where}: expected a table, got {_short(value)}")
     return {}
+
+
+def _short(value: Any, limit: int = 60) -> str:
+    """``repr(value)``, cut to ``limit`` characters for a message."""
+    text = repr(value)
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
@@ -528,7 +534,8 @@ def load_config(path: str | Path) -> Config:
                 continue
             value = [float(v) for v in value]
         elif not isinstance(value, typ) or (typ is not bool and isinstance(value, bool)):
-            problems.append(f"{name}: run.{key}: expected {typ.__name__} [{unit}], got {value!r}")
+            problems.append(f"{name}: run.{key}: expected {typ.__name__} [{unit}], got"
+                            f" {_short(value)}")
             continue
         if unit == "path" and "\0" in value:
             problems.append(f"{name}: run.{key}: contains a NUL byte: {value!r}")
@@ -606,7 +613,7 @@ def load_config(path: str | Path) -> Config:
         raw_assets = [raw_assets]
     if not isinstance(raw_assets, list):
         problems.append(f"{name}: layers.assets: expected [[layers.assets]] tables, got"
-                        f" {raw_assets!r}")
+                        f" {_short(raw_assets)}")
         raw_assets = []
     elif not raw_assets:
         problems.append(f"{name}: layers.assets: at least one asset layer is required")

@@ -371,3 +371,21 @@ def test_empty_run_crs_with_feet_inputs_picks_utm(scenario):
     inputs = _read(scenario, cfg)
     assert inputs.crs.to_epsg() == 32633
     assert inputs.crs.axis_info[0].unit_name == "metre"
+
+
+def test_rejected_lines_and_assets_logged_at_warning(scenario, caplog):
+    """Issue 12: rejected power lines and assets reach the log at WARNING (shown under -q)."""
+    import logging
+
+    lines = _lines_with(scenario)
+    lines["KV"] = [220.0, 0.0, 220.0]  # L2: 0 kV is below the 1 kV floor of the schema
+    assets = scenario.asset_frame()
+    assets["POST_OHM"] = ["many"]
+    assets = gpd.GeoDataFrame(pd.concat([scenario.asset_frame(), assets.assign(AID="F2")],
+                                        ignore_index=True), crs=assets.crs)
+    cfg = scenario.build(lines=lines, assets=assets)
+    with caplog.at_level(logging.WARNING, logger="corridor"):
+        _read(scenario, cfg)
+    msgs = [r.getMessage() for r in caplog.records if r.levelno == logging.WARNING]
+    assert any("power line L2 rejected" in m and "KV" in m for m in msgs), msgs
+    assert any("asset F2 rejected" in m and "POST_OHM" in m and "many" in m for m in msgs), msgs

@@ -690,7 +690,11 @@ def read_inputs(cfg: Config) -> Inputs:
             counts[role] = len(frame)
     for row in rejected.by_role("power_lines"):
         log.warning("power line %s rejected (layer %s, field '%s'): %s; the screen leaves it"
-                    " out", row["feature_id"], row["layer"], row["field"], row["reason"])
+                    " out and is incomplete", row["feature_id"], row["layer"], row["field"],
+                    row["reason"])
+    for row in rejected.by_role("assets"):
+        log.warning("asset %s rejected (layer %s, field '%s'): %s; it is not screened",
+                    row["feature_id"], row["layer"], row["field"], row["reason"])
     return Inputs(crs, lines, assets, optional["soil"], optional["grounds"], optional["towers"],
                   rejected, counts, warnings, defaults_used)
 
