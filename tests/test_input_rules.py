@@ -389,3 +389,13 @@ def test_rejected_lines_and_assets_logged_at_warning(scenario, caplog):
     msgs = [r.getMessage() for r in caplog.records if r.levelno == logging.WARNING]
     assert any("power line L2 rejected" in m and "KV" in m for m in msgs), msgs
     assert any("asset F2 rejected" in m and "POST_OHM" in m and "many" in m for m in msgs), msgs
+
+
+def test_missing_asset_kind_is_named_missing(scenario):
+    assets = scenario.asset_frame()
+    assets = gpd.GeoDataFrame(pd.concat([assets, assets.assign(AID="F2", KIND=None)],
+                                        ignore_index=True), crs=assets.crs)
+    inputs = _read(scenario, scenario.build(assets=assets))
+    (row,) = inputs.rejected.by_role("assets")
+    assert (row["feature_id"], row["field"]) == ("F2", "KIND")
+    assert row["reason"].startswith("missing asset kind (allowed: ")

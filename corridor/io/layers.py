@@ -717,9 +717,11 @@ def _read_assets(src, cfg, crs, rejected, warnings, allow, raw,
         id_col = _id_column(raw, src, "asset_id")
         ids = _feature_ids(raw, id_col)
         for i in np.flatnonzero(bad_kind.to_numpy()):
+            kind = kinds.iloc[i]
+            what = "missing asset kind" if pd.isna(kind) or kind == "" else \
+                f"unknown asset kind {kind!r}"
             rejected.add(src.label, ids.iloc[i], src.fields.get("asset_kind", "asset_kind"),
-                         f"unknown asset kind {kinds.iloc[i]!r}"
-                         f" (allowed: {', '.join(ASSET_KINDS)})", "assets")
+                         f"{what} (allowed: {', '.join(ASSET_KINDS)})", "assets")
     for kind in ASSET_KINDS:
         part = raw[(kinds == kind).fillna(False).to_numpy(dtype=bool)]
         if len(part) == 0:
