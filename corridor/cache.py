@@ -552,8 +552,8 @@ def finish_merged_run(cfg: Config, inputs: Inputs, run, merged: dict) -> None:
                 gpos.setdefault(fid, i)
         rej = rej.iloc[np.argsort([gpos.get(str(f), len(gpos)) for f in rej["feature_id"]],
                                   kind="stable")]
-        rows = [{k: r[k] for k in ("layer", "feature_id", "field", "reason")}
-                for r in rej.to_dict("records")]
+        rows = [{**{k: r[k] for k in ("layer", "feature_id", "field", "reason")},
+                 "role": "grounds"} for r in rej.to_dict("records")]  # grounding items only
     inputs.rejected.rows.extend(rows)
     counts = merged.get(_COUNTS)
     run.asset_counts = counts

@@ -9,6 +9,7 @@ naming the file and key.
 from __future__ import annotations
 
 import math
+import stat
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -29,8 +30,10 @@ from corridor.schema import (
 # name: (type, unit, default, meaning, (low, high) or None)
 RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] = {
     "output_dir": (str, "path", "out", "Output folder, relative to the config file.", None),
-    "crs": (str, "-", "", "Metric projected CRS of the run (e.g. 'EPSG:32615'); empty: the"
-            " inputs' own projected CRS, or a UTM zone chosen from geographic data.", None),
+    "crs": (str, "-", "", "Projected CRS of the run whose axes are in metres (e.g."
+            " 'EPSG:32615'); a CRS in feet or degrees is refused. Inputs in any CRS are"
+            " reprojected to it. Empty: the inputs' own CRS if projected in metres, else a UTM"
+            " zone chosen from the data.", None),
     "frequency_hz": (float, "Hz", 50.0, "System frequency.", (1.0, 1000.0)),
     "screening_distance_m": (float, "m", 1000.0, "Distance within which a power line is"
                              " considered to couple into an asset.", (1.0, 5000.0)),
@@ -46,9 +49,14 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
     "limit_set": (str, "-", "iec_en", "Limit set: a name in config/limits/ or a path.", None),
     "arrangements": (str, "path", "arrangements.toml", "Tower and conductor arrangements"
                      " file, relative to the config file.", None),
-    "use_kind_defaults": (bool, "-", True, "Missing or invalid asset attributes take the"
-                          " kind's default (with a warning) instead of rejecting the feature.",
-                          None),
+    "use_kind_defaults": (bool, "-", True, "Missing asset values (NULL or blank) take the"
+                          " kind's default (with a warning, counted in run.json) instead of"
+                          " rejecting the feature. A field the layer lacks always takes the"
+                          " default (counted too); a present but invalid value always rejects"
+                          " the feature.", None),
+    "accept_rejected_lines": (bool, "-", False, "A rejected power line does not change the exit"
+                              " code: set it only when leaving such lines out is intended. The"
+                              " report still names every rejected line.", None),
     "tower_span_m": (float, "m", 300.0, "Assumed tower spacing when no tower layer is given.",
                      (10.0, 2000.0)),
     "tower_zone_m": (float, "m", 100.0, "Distance from a tower within which the earth"
@@ -217,6 +225,97 @@ def _check_value(value, spec: FieldSpec) -> str | None:
     return None
 
 
+def run_crs_problem(crs) -> str | None:
+    """Why ``crs`` (a :class:`pyproj.CRS`) cannot be the run's CRS, or None.
+
+    corridor computes lengths, separations and areas in metres, so the run CRS
+    must be projected with both axes in metres. A CRS in US survey feet
+    (EPSG:2272, say) would make every length 3.28 times too large.
+    """
+    if not crs.is_projected:
+        return "not a projected CRS (its coordinates are angles); choose a projected CRS in metres"
+    units = sorted({a.unit_name for a in crs.axis_info if a.unit_conversion_factor != 1.0
+                    or a.unit_name not in ("metre", "meter")})
+    if units or not crs.axis_info:
+        unit = ", ".join(units) or "unknown"
+        return (f"its axis unit is {unit}, not the metre; corridor computes in metres: choose"
+                " a projected CRS in metres (e.g. the UTM zone of the corridor); inputs in any"
+                " CRS are reprojected to it")
+    return None
+
+
+def dataset_path_problem(path: Path) -> str | None:
+    """Why ``path`` cannot be an input dataset, or None.
+
+    A dataset is a regular file (GeoPackage, Shapefile, ...) or a folder (an
+    Esri File Geodatabase, a folder of Shapefiles). A FIFO, device or socket
+    is refused: opening one can block forever.
+    """
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        return f"file not found: {path}"
+    except (OSError, ValueError) as exc:
+        return f"cannot be read: {path}: {exc}"
+    if stat.S_ISREG(mode) or stat.S_ISDIR(mode):
+        return None
+    return (f"{path} is not a regular file or folder (a FIFO, device or socket?); corridor"
+            " reads only files and folders")
+
+
+def read_toml(path: Path, what: str, name: str | None = None) -> dict:
+    """Read a TOML file; every failure is a :class:`ConfigError` naming the file.
+
+    Parameters
+    ----------
+    path : Path
+        The file.
+    what : str
+        What the file is, for messages (``"config file"``).
+    name : str, optional
+        How messages name the file (default: the full path).
+    """
+    name = str(path) if name is None else name
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: {what} not found") from None
+    except (OSError, ValueError) as exc:
+        raise ConfigError(f"{path}: {what} cannot be read: {exc}") from None
+    if stat.S_ISDIR(mode):
+        raise ConfigError(f"{path}: is a folder, expected a TOML file")
+    if not stat.S_ISREG(mode):
+        raise ConfigError(f"{path}: {what} is not a regular file (a FIFO, device or socket?)")
+    try:
+        with open(path, "rb") as fh:
+            return tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{name}: not valid TOML: {exc}") from None
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{name}: not UTF-8 text ({exc}); TOML files are UTF-8: save it"
+                          " as UTF-8") from None
+    except RecursionError:
+        raise ConfigError(f"{name}: not valid TOML for corridor: arrays or tables nested too"
+                          " deeply") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: {what} cannot be read: {exc}") from None
+
+
+def _table(raw: dict, key: str, where: str, problems: list[str]) -> dict:
+    """``raw[key]`` when it is a table (or absent: an empty one); else a problem."""
+    value = raw.get(key, {})
+    if isinstance(value, dict):
+        return value
+    problems.append(f"{where}: expected a table, got {_short(value)}")
+    return {}
+
+
+def _short(value: Any, limit: int = 60) -> str:
+    """``repr(value)``, cut to ``limit`` characters for a message."""
+    text = repr(value)
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
 def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
            allowed_fields: set[str]) -> LayerSource | None:
     if not isinstance(raw, dict):
@@ -227,15 +326,19 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
             allowed = ", ".join(sorted(LAYER_KEYS))
             problems.append(f"{where}.{key}: unknown key (allowed: {allowed})")
     path = raw.get("path")
-    if not isinstance(path, str):
+    if not isinstance(path, str) or not path:
         problems.append(f"{where}.path: required, a string")
         return None
+    if "\0" in path:
+        problems.append(f"{where}.path: contains a NUL byte: {path!r}")
+        return None
     full = (base / path).resolve()
-    if not full.exists():
-        problems.append(f"{where}.path: file not found: {full}")
+    problem = dataset_path_problem(full)
+    if problem:
+        problems.append(f"{where}.path: {problem}")
     layer = raw.get("layer")
-    if layer is not None and not isinstance(layer, str):
-        problems.append(f"{where}.layer: expected a string")
+    if layer is not None and (not isinstance(layer, str) or "\0" in layer):
+        problems.append(f"{where}.layer: expected a layer name (a string), got {layer!r}")
         layer = None
     fields = raw.get("fields", {})
     if not isinstance(fields, dict):
@@ -247,8 +350,9 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
         if not isinstance(value, str):
             problems.append(f"{where}.fields.{key}: expected the user's field name as a string")
     kind = raw.get("kind")
-    if kind is not None and kind not in ASSET_KINDS:
+    if kind is not None and (not isinstance(kind, str) or kind not in ASSET_KINDS):
         problems.append(f"{where}.kind: {kind!r} is not one of {', '.join(ASSET_KINDS)}")
+        kind = None
     if kind is not None and role != "assets":
         problems.append(f"{where}.kind: only asset layers take a kind")
     crs = raw.get("crs")
@@ -256,9 +360,12 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
         try:
             from pyproj import CRS
 
+            if not isinstance(crs, str | int):
+                raise TypeError(crs)
             CRS.from_user_input(crs)
         except Exception:  # pyproj raises its own CRSError; any failure is the user's value
             problems.append(f"{where}.crs: {crs!r} is not a CRS pyproj understands")
+            crs = None
     return LayerSource(role, full, layer, MappingProxyType(dict(fields)), kind, crs)
 
 
@@ -274,13 +381,16 @@ def _conductor(raw: dict, where: str, problems: list[str], circuit: int, phase: 
         if value is None or isinstance(value, bool) or not isinstance(value, int | float):
             problems.append(f"{where}.{key}: expected a number")
             return math.nan
+        if not math.isfinite(value):
+            problems.append(f"{where}.{key}: expected a finite number, got {value!r}")
+            return math.nan
         return float(value)
 
     x = pick("x_m")
     h = pick("height_m")
     r = pick("radius_m")
-    gmr = pick("gmr_m", raw.get("radius_m", 0.0) * 0.7788 if isinstance(raw.get("radius_m"),
-               int | float) else None)
+    # a solid round conductor's GMR is r e^(-1/4) = 0.7788 r (textbook closed form)
+    gmr = pick("gmr_m") if "gmr_m" in raw else r * 0.7788
     res = pick("resistance_ohm_per_km")
     for name, value in (("height_m", h), ("radius_m", r), ("gmr_m", gmr),
                         ("resistance_ohm_per_km", res)):
@@ -303,18 +413,13 @@ def load_arrangements(path: Path) -> dict[str, Arrangement]:
     more ``[[arrangements.NAME.earth_wires]]``.
     """
     problems: list[str] = []
-    try:
-        with open(path, "rb") as fh:
-            raw = tomllib.load(fh)
-    except FileNotFoundError:
-        raise ConfigError(f"{path}: arrangements file not found") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    raw = read_toml(path, "arrangements file")
     out: dict[str, Arrangement] = {}
     for key in raw:
         if key != "arrangements":
             problems.append(f"{path.name}: {key}: unknown key (expected [arrangements.NAME])")
-    for name, entry in raw.get("arrangements", {}).items():
+    for name, entry in _table(raw, "arrangements", f"{path.name}: arrangements",
+                              problems).items():
         where = f"{path.name}: arrangements.{name}"
         if not isinstance(entry, dict):
             problems.append(f"{where}: expected a table")
@@ -324,10 +429,20 @@ def load_arrangements(path: Path) -> dict[str, Arrangement]:
                 problems.append(f"{where}.{key}: unknown key")
         conductors: list[Conductor] = []
         circuits = entry.get("circuits", [])
-        if not circuits:
+        if not isinstance(circuits, list):
+            problems.append(f"{where}.circuits: expected [[...circuits]] tables")
+            circuits = []
+        elif not circuits:
             problems.append(f"{where}.circuits: at least one circuit is required")
+        wires = entry.get("earth_wires", [])
+        if not isinstance(wires, list):
+            problems.append(f"{where}.earth_wires: expected [[...earth_wires]] tables")
+            wires = []
         for ci, circ in enumerate(circuits):
             cw = f"{where}.circuits[{ci}]"
+            if not isinstance(circ, dict):
+                problems.append(f"{cw}: expected a table")
+                continue
             for key in circ:
                 if key not in CIRCUIT_KEYS:
                     problems.append(f"{cw}.{key}: unknown key")
@@ -344,8 +459,11 @@ def load_arrangements(path: Path) -> dict[str, Arrangement]:
                 c = _conductor(circ, cw, problems, ci, phasing[j], j)
                 if c is not None:
                     conductors.append(c)
-        for wi, wire in enumerate(entry.get("earth_wires", [])):
+        for wi, wire in enumerate(wires):
             ww = f"{where}.earth_wires[{wi}]"
+            if not isinstance(wire, dict):
+                problems.append(f"{ww}: expected a table")
+                continue
             for key in wire:
                 if key not in EARTH_WIRE_KEYS:
                     problems.append(f"{ww}.{key}: unknown key")
@@ -371,17 +489,11 @@ def load_config(path: str | Path) -> Config:
     ConfigError
         Listing every problem, each naming the file and key.
     """
+    if "\0" in str(path):
+        raise ConfigError(f"{str(path)!r}: the config path contains a NUL byte")
     path = Path(path).resolve()
     name = path.name
-    try:
-        with open(path, "rb") as fh:
-            raw = tomllib.load(fh)
-    except FileNotFoundError:
-        raise ConfigError(f"{path}: config file not found") from None
-    except IsADirectoryError:
-        raise ConfigError(f"{path}: is a folder, expected a TOML file") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{name}: not valid TOML: {exc}") from None
+    raw = read_toml(path, "config file", name)
     problems: list[str] = []
     base = path.parent
     from corridor.registry import load_plugins
@@ -397,7 +509,7 @@ def load_config(path: str | Path) -> Config:
             problems.append(f"{name}: {key}: unknown section (allowed: {allowed})")
 
     run: dict[str, Any] = {}
-    raw_run = raw.get("run", {})
+    raw_run = _table(raw, "run", f"{name}: run", problems)
     for key in raw_run:
         if key not in RUN_SETTINGS:
             problems.append(f"{name}: run.{key}: unknown setting")
@@ -415,13 +527,18 @@ def load_config(path: str | Path) -> Config:
             continue
         if typ is list:
             ok = isinstance(value, list) and value and all(
-                isinstance(v, int | float) and not isinstance(v, bool) and v > 0 for v in value)
+                isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
+                and v > 0 for v in value)
             if not ok:
                 problems.append(f"{name}: run.{key}: expected a list of positive numbers [{unit}]")
                 continue
             value = [float(v) for v in value]
         elif not isinstance(value, typ) or (typ is not bool and isinstance(value, bool)):
-            problems.append(f"{name}: run.{key}: expected {typ.__name__} [{unit}], got {value!r}")
+            problems.append(f"{name}: run.{key}: expected {typ.__name__} [{unit}], got"
+                            f" {_short(value)}")
+            continue
+        if unit == "path" and "\0" in value:
+            problems.append(f"{name}: run.{key}: contains a NUL byte: {value!r}")
             continue
         if rng is not None and not (rng[0] <= value <= rng[1]):
             problems.append(f"{name}: run.{key}: {value} [{unit}] outside the valid range"
@@ -434,14 +551,16 @@ def load_config(path: str | Path) -> Config:
             from pyproj import CRS
 
             crs = CRS.from_user_input(run["crs"])
-            if not crs.is_projected:
-                problems.append(f"{name}: run.crs: {run['crs']} is not a projected (metric) CRS")
         except Exception:  # pyproj's CRSError; any failure here is the user's value
             problems.append(f"{name}: run.crs: {run['crs']!r} is not a CRS pyproj understands")
+        else:
+            problem = run_crs_problem(crs)
+            if problem:
+                problems.append(f"{name}: run.crs: {run['crs']}: {problem}")
 
     line_defaults: dict[str, Any] = dict(LINE_DEFAULT_KEYS)
     specs = {s.name: s for s in LINE_FIELDS}
-    for key, value in raw.get("line_defaults", {}).items():
+    for key, value in _table(raw, "line_defaults", f"{name}: line_defaults", problems).items():
         if key not in LINE_DEFAULT_KEYS:
             problems.append(f"{name}: line_defaults.{key}: unknown key")
             continue
@@ -453,7 +572,7 @@ def load_config(path: str | Path) -> Config:
         line_defaults[key] = value
 
     kind_defaults: dict[str, MappingProxyType] = {}
-    raw_defaults = raw.get("defaults", {})
+    raw_defaults = _table(raw, "defaults", f"{name}: defaults", problems)
     for kind in raw_defaults:
         if kind not in ASSET_KINDS:
             problems.append(f"{name}: defaults.{kind}: unknown asset kind"
@@ -461,7 +580,8 @@ def load_config(path: str | Path) -> Config:
     for kind in ASSET_KINDS:
         merged = dict(KIND_DEFAULTS[kind])
         kspecs = {s.name: s for s in asset_fields(kind)}
-        for key, value in raw_defaults.get(kind, {}).items():
+        for key, value in _table(raw_defaults, kind, f"{name}: defaults.{kind}",
+                                 problems).items():
             if key not in kspecs or key == "asset_id":
                 problems.append(f"{name}: defaults.{kind}.{key}: unknown field for a {kind}")
                 continue
@@ -474,7 +594,7 @@ def load_config(path: str | Path) -> Config:
             merged[key] = value
         kind_defaults[kind] = MappingProxyType(merged)
 
-    layers = raw.get("layers", {})
+    layers = _table(raw, "layers", f"{name}: layers", problems)
     for key in layers:
         if key not in LAYER_ROLES:
             problems.append(f"{name}: layers.{key}: unknown layer role"
@@ -491,7 +611,11 @@ def load_config(path: str | Path) -> Config:
     raw_assets = layers.get("assets", [])
     if isinstance(raw_assets, dict):
         raw_assets = [raw_assets]
-    if not raw_assets:
+    if not isinstance(raw_assets, list):
+        problems.append(f"{name}: layers.assets: expected [[layers.assets]] tables, got"
+                        f" {_short(raw_assets)}")
+        raw_assets = []
+    elif not raw_assets:
         problems.append(f"{name}: layers.assets: at least one asset layer is required")
     for i, entry in enumerate(raw_assets):
         src = _layer(entry, "assets", f"{name}: layers.assets[{i}]", base, problems, asset_names)

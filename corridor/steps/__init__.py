@@ -31,7 +31,7 @@ def stage_respond(run) -> None:
     rs = respond(run.config, run.inputs, run.geometry, run.coupling)
     run.response = rs
     for fid, fld, reason in rs.rejected:
-        run.inputs.rejected.add(run.config.grounds.label, fid, fld, reason)
+        run.inputs.rejected.add(run.config.grounds.label, fid, fld, reason, role="grounds")
     run.counts["grounds_rejected"] = len(rs.rejected)
     response_columns(run, rs, run.segment_table)
 
