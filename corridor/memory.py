@@ -11,14 +11,17 @@ from __future__ import annotations
 
 import ctypes
 import sys
+from collections.abc import Callable
 
-_trim = None
+#: glibc's ``malloc_trim`` once looked up; None where the C library has none.
+_trim: Callable[[int], int] | None = None
+_trim_looked_up = False
 
 
-def _load_trim():
-    global _trim
-    if _trim is None:
-        _trim = False
+def _load_trim() -> Callable[[int], int] | None:
+    global _trim, _trim_looked_up
+    if not _trim_looked_up:
+        _trim_looked_up = True
         if sys.platform.startswith("linux"):
             try:
                 # the glibc soname; ctypes.util.find_library would fork a helper
@@ -29,7 +32,7 @@ def _load_trim():
                 fn.restype = ctypes.c_int
                 _trim = fn
             except (OSError, AttributeError):  # not glibc (e.g. musl): nothing to do
-                _trim = False
+                _trim = None
     return _trim
 
 
@@ -43,7 +46,7 @@ def release_free_memory() -> bool:
         elsewhere (the call is then a no-op).
     """
     fn = _load_trim()
-    if not fn:
+    if fn is None:
         return False
     fn(0)
     return True

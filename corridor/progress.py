@@ -111,9 +111,8 @@ class Bar:
     def __enter__(self) -> Bar:
         return self
 
-    def __exit__(self, *exc) -> bool:
+    def __exit__(self, *exc: object) -> None:
         self.close()
-        return False
 
 
 def bar(label: str, total: int = 0, stream=None) -> Bar:

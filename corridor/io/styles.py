@@ -245,7 +245,8 @@ def utilization_bands(review_threshold: float = DEFAULT_REVIEW_THRESHOLD
         Lower bound inclusive, upper exclusive; None is open-ended.
     """
     t = float(review_threshold)
-    bands = [(0.0, t / 2, _RAMP_CLEAR[0], f"clear, < {t / 2:g}"),
+    bands: list[tuple[float, float | None, str, str]] = [
+             (0.0, t / 2, _RAMP_CLEAR[0], f"clear, < {t / 2:g}"),
              (t / 2, t, _RAMP_CLEAR[1], f"clear, {t / 2:g} – {t:g}"),
              (t, (t + 1) / 2, _RAMP_REVIEW[0], f"review, {t:g} – {(t + 1) / 2:g}"),
              ((t + 1) / 2, 1.0, _RAMP_REVIEW[1], f"review, {(t + 1) / 2:g} – 1")]
@@ -253,7 +254,8 @@ def utilization_bands(review_threshold: float = DEFAULT_REVIEW_THRESHOLD
     for colour, hi in _RAMP_EXCEEDS:
         label = f"exceeds, {lo:g} – {hi:g}" if hi is not None else f"exceeds, ≥ {lo:g}"
         bands.append((lo, hi, colour, label))
-        lo = hi
+        if hi is not None:
+            lo = hi
     return bands
 
 
@@ -541,17 +543,17 @@ def _write_schema(con: sqlite3.Connection, layers: Iterable[str]) -> int:
             " VALUES (?, ?, ?, ?, ?, ?, ?, ?)", [(name, *r) for r in rows])
     n = 0
     for table in layers:
-        rows = []
+        described: list[tuple[str, str, str, str, str, None, str | None]] = []
         for col in _columns(con, table):
             d = describe_column(col)
             if d is None:
                 continue
-            rows.append((table, col, col, d[0], d[1], None, _COLUMN_CONSTRAINT.get(col)))
+            described.append((table, col, col, d[0], d[1], None, _COLUMN_CONSTRAINT.get(col)))
         con.execute("DELETE FROM gpkg_data_columns WHERE table_name = ?", (table,))
         con.executemany("INSERT INTO gpkg_data_columns (table_name, column_name, name, title,"
                         " description, mime_type, constraint_name) VALUES (?, ?, ?, ?, ?, ?, ?)",
-                        rows)
-        n += len(rows)
+                        described)
+        n += len(described)
     return n
 
 

@@ -480,7 +480,7 @@ class ChainSystem:
         off[first] = -y_series
         self._diag = diag
         self._off = off
-        self._factors = None
+        self._factors: tuple[np.ndarray, ...] | None = None
 
     def _factorise(self):
         if self._factors is None:
