@@ -230,8 +230,6 @@ def last_error_path(out_dir: Path) -> Path:
 DEFAULT_IDS_LISTED = ("fault_current_start_ka", "fault_current_end_ka", "clearing_time_s",
                       "post_type", "coating_resistance_ohm_m2", "coating_type",
                       "start_termination", "end_termination")
-#: Rejected assets (and other features) logged one line each up to this many.
-REJECTED_SHOWN = 20
 
 
 def _row_role(row: dict, cfg: Config, asset_labels: set[str]) -> str:
@@ -279,19 +277,6 @@ def log_rejected_lines(lines: list[dict]) -> None:
                     r.get("field"), r.get("reason"))
 
 
-def log_rejected(summary: dict) -> None:
-    """WARNING lines for rejected power lines, assets and other features (bounded)."""
-    log_rejected_lines(summary["power_lines"])
-    for role, what in (("assets", "asset"), ("other", "feature")):
-        rows = summary[role]
-        for r in rows[:REJECTED_SHOWN]:
-            log.warning("%s %s of layer %s rejected (field '%s': %s)", what, r["feature_id"],
-                        r["layer"], r["field"], r["reason"])
-        if len(rows) > REJECTED_SHOWN:
-            log.warning("... and %d more rejected %ss (every one is in rejected.csv)",
-                        len(rows) - REJECTED_SHOWN, what)
-
-
 def defaults_used_record(inputs) -> dict:
     """run.json's ``defaults_used``: field -> count, with ids for the safety-relevant fields."""
     used = getattr(inputs, "defaults_used", None) or {}
@@ -320,7 +305,6 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     inputs = read_inputs(cfg)
     read_s = round(time.perf_counter() - t0, 4)
     rejected = rejected_summary(cfg, inputs)
-    log_rejected(rejected)
     if len(inputs.assets) == 0:
         from corridor.errors import InputError
 
