@@ -972,7 +972,8 @@ def concat_tables(frames: list[pd.DataFrame | None], crs=None) -> pd.DataFrame |
     full = _align_dtypes(full)
     if isinstance(full[0], gpd.GeoDataFrame):
         return gpd.GeoDataFrame(pd.concat(full, ignore_index=True),
-                                geometry=full[0].geometry.name, crs=crs or full[0].crs)
+                                geometry=full[0].geometry.name,
+                                crs=crs if crs is not None else full[0].crs)
     return pd.concat(full, ignore_index=True)
 
 
