@@ -699,10 +699,8 @@ class Cache:
             if name == self.generation:
                 continue
             p = self.folder / name
-            if files is None:
-                if p.is_file() and not p.is_symlink():
-                    p.unlink(missing_ok=True)
-                elif p.is_symlink():
+            if files is None:  # a plain file of the cache's (a link is removed, not followed)
+                if p.is_symlink() or p.is_file():
                     p.unlink(missing_ok=True)
                 del self.owned[name]
                 continue

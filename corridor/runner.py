@@ -106,7 +106,7 @@ def input_records(cfg: Config) -> list[dict]:
         out.append({"path": str(p), "sha256": dataset_sha256(p),
                     "modified_utc": (datetime.fromtimestamp(mtime, UTC)
                                      .isoformat(timespec="seconds") if mtime is not None
-                                     else None),
+                                     else ""),
                     "files": len(dataset_files(p))})
     return out
 

@@ -79,9 +79,13 @@ def test_geopackage_digest_sees_a_change_held_in_the_wal(tmp_path):
 
 
 def test_shm_file_does_not_enter_the_digest(tmp_path):
-    """The -shm file is an index readers write into; it holds no data."""
+    """The -shm file is an index readers write into; it holds no data. Nor does a -wal
+    file of 0 bytes (no frames), which a reader may leave behind."""
     db = tmp_path / "a.sqlite"
     db.write_bytes(b"main")
+    alone = dataset_sha256(db)
+    (tmp_path / "a.sqlite-wal").write_bytes(b"")
+    assert dataset_sha256(db) == alone
     (tmp_path / "a.sqlite-wal").write_bytes(b"frames")
     before = dataset_sha256(db)
     (tmp_path / "a.sqlite-shm").write_bytes(b"read marks 1")

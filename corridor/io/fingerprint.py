@@ -133,8 +133,9 @@ def dataset_sha256(path: str | os.PathLike) -> str:
     For a dataset that is a single regular file this is the SHA-256 of its
     bytes (what ``sha256sum`` prints). Otherwise it is the SHA-256 over, per
     file of :func:`dataset_files` (``-shm`` files excluded, see
-    :data:`HASHED_COMPANIONS`), its name relative to the dataset's folder
-    and the SHA-256 of its bytes.
+    :data:`HASHED_COMPANIONS`; a ``-wal`` or ``-journal`` file of 0 bytes holds no
+    change and is left out too), its name relative to the dataset's folder and
+    the SHA-256 of its bytes.
 
     Parameters
     ----------
@@ -147,7 +148,9 @@ def dataset_sha256(path: str | os.PathLike) -> str:
     """
     p = Path(path)
     shm = p.name + "-shm"
-    files = [f for f in dataset_files(p) if f.name != shm]
+    companions = {p.name + s for s in HASHED_COMPANIONS}
+    files = [f for f in dataset_files(p)
+             if f.name != shm and not (f.name in companions and _size(f) == 0)]
     if len(files) == 1 and files[0] == p and _is_regular(p):
         return file_sha256(p)
     base = p if _is_dir(p) else p.parent
@@ -163,6 +166,13 @@ def dataset_sha256(path: str | os.PathLike) -> str:
         h.update(file_sha256(f).encode())
         h.update(b"\x1e")
     return h.hexdigest()
+
+
+def _size(path: Path) -> int | None:
+    try:
+        return os.stat(path).st_size
+    except OSError:
+        return None
 
 
 def dataset_modified(path: str | os.PathLike) -> float | None:
