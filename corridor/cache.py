@@ -546,11 +546,17 @@ class Cache:
                          " this file lists; safe to delete as a whole",
                 "generation": self.generation, "owned": self.owned}
         tmp = self.folder / f".{MARKER}.tmp-{os.getpid()}-{secrets.token_hex(4)}"
-        with open(tmp, "x", encoding="utf-8") as fh:
-            fh.write(json.dumps(data, indent=1))
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, self.manifest_path)
+        fh = open(tmp, "x", encoding="utf-8")  # "x": a new file, never someone else's
+        try:
+            with fh:
+                fh.write(json.dumps(data, indent=1))
+                fh.flush()
+                os.fsync(fh.fileno())
+            os.replace(tmp, self.manifest_path)
+        except BaseException:
+            with contextlib.suppress(OSError):
+                tmp.unlink()
+            raise
 
     # - index -
     def _load_index(self) -> dict:
