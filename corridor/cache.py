@@ -321,7 +321,7 @@ MARKER = "corridor-cache.json"
 #: Key of the manifest that marks a folder as corridor's cache (value: :data:`FORMAT`).
 MARKER_KEY = "corridor_cache"
 #: How per-asset checksums are made; a cache made another way is recomputed.
-CHECKSUM = f"pandas-hash-v1-{pd.__version__}"
+CHECKSUM = f"rows-v2-pandas-{pd.__version__}"
 _GEN_NAME = re.compile(r"^g[0-9a-f]+-\d+(-\d+)?$")
 _LEGACY_TMP = re.compile(r"^index\.json\.tmp-\d+$")
 _MANIFEST_TMP = re.compile(rf"^\.{re.escape(MARKER)}\.tmp-\d+-[0-9a-f]+$")
@@ -361,41 +361,62 @@ def read_table(path: Path, meta: dict) -> pd.DataFrame:
     return _restore_dtypes(frame.reset_index(drop=True), meta["dtypes"])
 
 
-def _column_hashes(frame: pd.DataFrame) -> np.ndarray:
-    """Per row and column a 64-bit hash of the value (rows x columns, uint64)."""
-    cols = []
-    for c in frame.columns:
-        s = frame[c]
-        if isinstance(s.dtype, gpd.array.GeometryDtype):
-            wkb = shapely.to_wkb(np.asarray(s.array, dtype=object), output_dimension=3)
-            cols.append(pd.util.hash_array(np.asarray(wkb, dtype=object)))
-        else:
-            cols.append(pd.util.hash_pandas_object(s, index=False).to_numpy(np.uint64))
-    if not cols:
-        return np.zeros((len(frame), 0), np.uint64)
-    return np.ascontiguousarray(np.column_stack(cols).astype(np.uint64))
+_M1 = np.uint64(0xBF58476D1CE4E5B9)
+_M2 = np.uint64(0x94D049BB133111EB)
+_S30, _S27, _S31 = np.uint64(30), np.uint64(27), np.uint64(31)
+
+
+def _mix64(x: np.ndarray) -> np.ndarray:
+    """The SplitMix64 finaliser (Steele, Lea, Flood 2014) on a uint64 array (wraps)."""
+    x = x ^ (x >> _S30)
+    x = x * _M1
+    x = x ^ (x >> _S27)
+    x = x * _M2
+    return x ^ (x >> _S31)
+
+
+def _value_hashes(s: pd.Series) -> np.ndarray:
+    """A 64-bit hash of each value of a column (uint64)."""
+    if isinstance(s.dtype, gpd.array.GeometryDtype):
+        wkb = shapely.to_wkb(np.asarray(s.array, dtype=object), output_dimension=3)
+        return pd.util.hash_array(np.asarray(wkb, dtype=object))
+    if isinstance(s.dtype, np.dtype) and s.dtype.kind in "fiub":
+        v = s.to_numpy()
+        if v.dtype.itemsize != 8:
+            v = v.astype(np.float64 if v.dtype.kind == "f" else np.int64)
+        return _mix64(np.ascontiguousarray(v).view(np.uint64))
+    return pd.util.hash_pandas_object(s, index=False).to_numpy(np.uint64)
+
+
+def _row_hashes(frame: pd.DataFrame) -> np.ndarray:
+    """A 64-bit hash of each row: every value, in column order (uint64)."""
+    acc = np.zeros(len(frame), np.uint64)
+    for i in range(frame.shape[1]):
+        salt = np.uint64((0x9E3779B97F4A7C15 * (i + 1)) % (1 << 64))
+        acc = _mix64(acc ^ (_value_hashes(frame.iloc[:, i]) + salt))
+    return acc
 
 
 def asset_checksums(frame: pd.DataFrame) -> dict[str, tuple[int, str]]:
     """Row count and checksum of each asset's rows of a table, by asset id (as str).
 
     The checksum is a SHA-256 (first 32 hex digits) over the column names and
-    dtypes and a 64-bit hash of every value of the asset's rows, in row order:
-    a changed value, type, row or row order changes it.
+    dtypes and a 64-bit hash of each of the asset's rows (every value), in row
+    order: a changed value, type, row or row order changes it.
     """
     if frame is None or len(frame) == 0:
         return {}
     header = "\x1f".join(f"{c}:{frame[c].dtype}" for c in frame.columns).encode()
-    values = _column_hashes(frame)
+    rows_h = _row_hashes(frame)
     codes, uniques = pd.factorize(frame["asset_id"].astype(str).to_numpy(dtype=object))
     order = np.argsort(codes, kind="stable")
     bounds = np.searchsorted(codes[order], np.arange(len(uniques) + 1))
+    sorted_h = rows_h[order]
     out = {}
     for k, aid in enumerate(uniques):
-        rows = order[bounds[k]:bounds[k + 1]]
         h = hashlib.sha256(header)
-        h.update(values[rows].tobytes())
-        out[str(aid)] = (int(len(rows)), h.hexdigest()[:32])
+        h.update(sorted_h[bounds[k]:bounds[k + 1]].tobytes())
+        out[str(aid)] = (int(bounds[k + 1] - bounds[k]), h.hexdigest()[:32])
     return out
 
 
