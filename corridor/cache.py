@@ -322,6 +322,9 @@ MARKER = "corridor-cache.json"
 MARKER_KEY = "corridor_cache"
 #: How per-asset checksums are made; a cache made another way is recomputed.
 CHECKSUM = f"rows-v2-pandas-{pd.__version__}"
+#: Files a desktop's file manager leaves in any folder it shows: a folder holding only
+#: these counts as empty (they are never deleted).
+DESKTOP_FILES = frozenset({".DS_Store", "Thumbs.db", "desktop.ini", ".directory"})
 _GEN_NAME = re.compile(r"^g[0-9a-f]+-\d+(-\d+)?$")
 _LEGACY_TMP = re.compile(r"^index\.json\.tmp-\d+$")
 _MANIFEST_TMP = re.compile(rf"^\.{re.escape(MARKER)}\.tmp-\d+-[0-9a-f]+$")
@@ -483,8 +486,8 @@ class Cache:
             self._read_manifest()
             return
         entries = sorted(p.name for p in self.folder.iterdir())
-        if not entries:
-            return
+        if not [e for e in entries if e not in DESKTOP_FILES]:
+            return  # empty (or only a file manager's view settings): taken, never touched
         legacy = self._legacy_layout(entries)
         if legacy is not None:
             self.owned = legacy
@@ -685,7 +688,7 @@ class Cache:
         existed = self.folder.exists()
         self.folder.mkdir(parents=True, exist_ok=True)
         if existed and not self.manifest_path.exists() and not self.owned:
-            leftover = [p.name for p in self.folder.iterdir()]
+            leftover = [p.name for p in self.folder.iterdir() if p.name not in DESKTOP_FILES]
             if leftover:  # something appeared since the folder was checked
                 raise OSError(f"folder holds files corridor did not write: {leftover[:5]}")
         gen = f"g{int(time.time() * 1000):x}-{os.getpid()}"

@@ -312,6 +312,19 @@ def test_cache_deletes_only_its_own_files(tmp_path, cli, capsys):
     assert sorted(p.name for p in gen.iterdir()) == ["mine.csv"]  # its own files went
 
 
+def test_empty_folder_is_taken_and_desktop_files_kept(tmp_path, cli, capsys):
+    cfg = make(tmp_path / "e", cache="c")
+    cache = tmp_path / "e" / "c"
+    cache.mkdir()
+    (cache / ".DS_Store").write_bytes(b"view settings")
+    assert run(cli, capsys, cfg)[0] == 0
+    make(tmp_path / "e", cache="c", post_ohm={"F4": 5.0})
+    rc, err, record = run(cli, capsys, cfg)
+    assert rc == 0 and "WARNING" not in err, err
+    assert record["counts"]["assets_from_cache"] == len(OFFSETS_M) - 1
+    assert (cache / ".DS_Store").read_bytes() == b"view settings"
+
+
 def test_previous_cache_format_is_taken_over(tmp_path, cli, capsys):
     """A cache of format 1 (index.json and generation folders, no manifest) is corridor's:
     it is taken over, recomputed and replaced."""
@@ -456,3 +469,42 @@ def test_dask_run_carries_every_per_asset_table(tmp_path):
         assert_same_rows(tables[name], table, name)
     assert_same_rows(merged.segment_table_after_grounding, local.segment_table_after_grounding,
                      "segment_table_after_grounding")
+
+
+def test_asset_checksums_survive_parquet_and_see_every_change(tmp_path):
+    """Parquet keeps float64 bits, integers, booleans, text, nulls and WKB geometry as
+    written (Apache Parquet format specification): checksums of a table read back equal
+    those of the table written; a changed value, dtype, row or row order changes them."""
+    import geopandas as gpd
+    import numpy as np
+    from shapely.geometry import LineString, Point
+
+    from corridor.cache import asset_checksums, read_table, write_table
+
+    frame = gpd.GeoDataFrame({
+        "asset_id": ["A", "A", "B", "C"],
+        "v": [1.5, np.nan, -0.0, 1e300],
+        "n": np.array([1, 2, 3, 4], dtype=np.int64),
+        "ok": [True, False, True, False],
+        "label": ["x", None, "z", ""],
+    }, geometry=[Point(0, 0), LineString([(0, 0), (1, 1)]), None, Point(1, 2)],
+        crs="EPSG:32633")
+    meta = write_table(frame, tmp_path / "t.parquet")
+    back = read_table(tmp_path / "t.parquet", meta)
+    base = asset_checksums(frame)
+    assert asset_checksums(back) == base
+    assert {a: n for a, (n, _) in base.items()} == {"A": 2, "B": 1, "C": 1}
+
+    def changed(f) -> set[str]:
+        now = asset_checksums(f)
+        return {a for a in base if now.get(a) != base[a]}
+
+    flipped = frame.copy()
+    flipped.loc[0, "v"] = 1.5000000000000002  # the next float64 after 1.5
+    assert changed(flipped) == {"A"}
+    assert changed(frame.iloc[[1, 0, 2, 3]].reset_index(drop=True)) == {"A"}
+    assert changed(frame.drop(index=3).reset_index(drop=True)) == {"C"}
+    assert changed(frame.astype({"n": "float64"})) == {"A", "B", "C"}
+    moved = frame.copy()
+    moved.loc[3, "geometry"] = Point(1, 2.000001)
+    assert changed(moved) == {"C"}
