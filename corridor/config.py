@@ -100,6 +100,9 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
                  " output folder.", None),
 }
 
+#: The example tower arrangements shipped with corridor (package data).
+PACKAGED_ARRANGEMENTS = Path(__file__).resolve().parent / "data" / "arrangements.toml"
+
 LINE_DEFAULT_KEYS = {
     "load_current_a": 400.0,
     "residual_current_pct": 5.0,
@@ -630,6 +633,9 @@ def load_config(path: str | Path) -> Config:
 
     arrangements: dict[str, Arrangement] = {}
     arr_path = (base / run.get("arrangements", "arrangements.toml")).resolve()
+    if "arrangements" not in raw_run and not arr_path.is_file():
+        # no arrangements named and none beside the config: the shipped examples
+        arr_path = PACKAGED_ARRANGEMENTS
     try:
         arrangements = load_arrangements(arr_path)
     except ConfigError as exc:

@@ -76,7 +76,7 @@ def _write_scenario(folder: Path, separation_m: float = 50.0) -> Path:
     """An 8 km power line and a 3 km water main parallel to its middle."""
     import tomllib
 
-    with open(REPO / "config" / "arrangements.toml", "rb") as fh:
+    with open(REPO / "corridor" / "data" / "arrangements.toml", "rb") as fh:
         arrangement = next(iter(tomllib.load(fh)["arrangements"]))
     gpkg = folder / "water.gpkg"
     lines = gpd.GeoDataFrame(
@@ -88,7 +88,7 @@ def _write_scenario(folder: Path, separation_m: float = 50.0) -> Path:
                               (X0_M + 5500.0, Y0_M + separation_m)])], crs=CRS)
     pyogrio.write_dataframe(lines, gpkg, layer="lines", driver="GPKG")
     pyogrio.write_dataframe(mains, gpkg, layer="mains", driver="GPKG")
-    shutil.copy(REPO / "config" / "arrangements.toml", folder / "arrangements.toml")
+    shutil.copy(REPO / "corridor" / "data" / "arrangements.toml", folder / "arrangements.toml")
     cfg = folder / "run.toml"
     cfg.write_text(textwrap.dedent(f"""\
         [run]

@@ -1,6 +1,6 @@
 """Limit sets: loading, validation and evaluation of the criteria.
 
-A limit set is a TOML file in ``config/limits/`` (schema in the header of each
+A limit set is a TOML file in ``corridor/data/limits/`` (schema in the header of each
 shipped file and in :data:`METHODS`). :func:`load_limit_set` reads one into an
 immutable, validated :class:`LimitSet`; :func:`evaluate` judges per-segment
 quantities against every criterion of the set at once, vectorised over
@@ -63,8 +63,9 @@ COMPUTED_QUANTITIES = (
     "emf_fault_v",
 )
 
-#: Directory of the shipped limit sets, relative to the repository.
-DEFAULT_SEARCH_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
+#: Directory of the shipped limit sets: package data (``corridor/data/limits``),
+#: so that an installed wheel carries them.
+DEFAULT_SEARCH_DIR = Path(__file__).resolve().parents[1] / "data" / "limits"
 
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_]*$")
 
@@ -469,8 +470,8 @@ def load_limit_set(name_or_path: str | Path, overrides: Mapping | None = None, *
         ``{"criteria": {"touch_fault": {"body_weight_kg": 70}}}``. Tables
         merge key by key; any other value replaces the file's.
     search_dir : str or Path, optional
-        Directory holding named sets. Default: ``config/limits`` of the
-        repository.
+        Directory holding named sets. Default: the shipped sets in
+        ``corridor/data/limits``.
 
     Returns
     -------

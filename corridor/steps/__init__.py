@@ -7,14 +7,17 @@ Each stage is ``fn(run)``: it reads what earlier stages left on the
 from __future__ import annotations
 
 import logging
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from corridor.limits.limit_sets import DEFAULT_SEARCH_DIR
+
 log = logging.getLogger(__name__)
 
-LIMITS_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
+#: The shipped limit sets (package data); kept here for the callers that import it
+#: from the steps.
+LIMITS_DIR = DEFAULT_SEARCH_DIR
 
 
 def stage_couple(run) -> None:

@@ -18,7 +18,7 @@ from corridor.limits.limit_sets import (
     load_limit_set,
 )
 
-CONFIG_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
+CONFIG_DIR = Path(__file__).resolve().parents[2] / "corridor" / "data" / "limits"
 SHIPPED = ("iec_en", "ieee_na")
 
 # Words that name a source or mark the provenance of a value (project rule).
