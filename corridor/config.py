@@ -59,7 +59,7 @@ class LayerSource:
     kind : str or None
         Asset kind for every feature of an asset layer; None reads the kind
         from the ``asset_kind`` field.
-    crs : str or None
+    crs : str, int or None
         CRS to declare for a layer that carries none.
     """
 
@@ -68,7 +68,7 @@ class LayerSource:
     layer: str | None
     fields: FrozenMap
     kind: str | None = None
-    crs: str | None = None
+    crs: str | int | None = None
 
     @property
     def label(self) -> str:
@@ -537,6 +537,7 @@ def load_config(path: str | Path) -> Config:
 
     if problems:
         raise ConfigError(problems)
+    assert power_lines is not None  # a missing or bad power-line layer is a problem above
     run_settings = RunSettings(**run)
     resolved = {
         "run": run_settings.as_dict(),
