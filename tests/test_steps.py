@@ -15,8 +15,8 @@ import pyogrio
 import pytest
 
 from corridor.cli import main
-from corridor.settings import RUN_SETTINGS
 from corridor.errors import ConfigError
+from corridor.settings import RUN_SETTINGS
 from corridor.steps.catalog import STEPS, StepCancelled, get_step, run_step, step_names
 
 REPO = Path(__file__).resolve().parents[1]
