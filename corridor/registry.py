@@ -118,10 +118,6 @@ class Registry:
         """Every field spec of an asset of kind ``name``: the common ones, then its own."""
         return COMMON_ASSET_FIELDS + tuple(self.kind(name).fields)
 
-    def line_constant_model(self, name: str) -> LineConstantFn:
-        """The line-constant callable of kind ``name``."""
-        return self.kind(name).line_constants
-
     def add_asset_kind(self, name: str, fields: Iterable, defaults: Mapping,
                        line_constants: LineConstantFn,
                        terminations: tuple[str, str] = ("open", "open"),
