@@ -15,7 +15,8 @@ Schema
     ``review_threshold`` (float, 0 < x < 1, default 0.5): utilization from
     which a segment is classed ``"review"`` rather than ``"clear"``.
 ``[criteria.<name>]``, one table per criterion
-    ``applies_to`` (list of asset kinds: pipeline, fence, rail, telecom),
+    ``applies_to`` (list of asset kinds: the built-in pipeline, fence, rail,
+    telecom, or the kinds the caller names, plugins' included),
     ``case`` (``"normal"``, ``"fault"``, ``"capacitive"`` or
     ``"conductive"``), ``quantity`` (name of the per-segment quantity judged,
     e.g. ``v_normal_v``), ``method`` (a key of :data:`METHODS`), optional
