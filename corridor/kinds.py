@@ -82,7 +82,7 @@ class RadiusFrom:
     """Where a kind's equivalent radius for electric-field coupling comes from.
 
     radius [m] = ``factor`` × the asset's ``column`` (``missing`` where the
-    value is missing), e.g. half the diameter of a pipe.
+    value is missing), e.g. half the diameter of a pipe (docs/methods.md §3.2).
     """
 
     column: str
@@ -119,12 +119,13 @@ class AssetKind:
     coated : bool
         Capability: a coated metal pipe. The coating stress (fault voltage
         plus earth potential rise) and the AC current density at a coating
-        holiday are judged, and a ground proposed on a cathodically
+        holiday (docs/methods.md §6.1, §6.8) are judged, and a ground proposed on a cathodically
         protected asset (``cathodic_protection`` true) connects through a
         DC decoupling device.
     section_emf : bool
         Capability: judged by the longitudinal EMF summed between its
-        grounded ends (the ITU-T Directives' quantity for telecom lines).
+        grounded ends (the ITU-T Directives' quantity for telecom lines,
+        docs/methods.md §6.6).
     radius : RadiusFrom or None
         Capability: equivalent radius for electric-field coupling; None
         takes :data:`DEFAULT_RADIUS_M`.
