@@ -138,11 +138,9 @@ def check(cfg) -> int:
     except InputError as exc:
         problems.extend(exc.problems)
     try:
-        from corridor.limits.limit_sets import load_limit_set
-        from corridor.steps import LIMITS_DIR
+        from corridor.steps import load_config_limit_set
 
-        load_limit_set(cfg.run["limit_set"], dict(cfg.limit_overrides) or None,
-                       search_dir=LIMITS_DIR)
+        load_config_limit_set(cfg)
     except CorridorError as exc:
         problems.extend(getattr(exc, "problems", [str(exc)]))
     empty: list[str] = []
