@@ -59,24 +59,6 @@ def _input_files(cfg: Config) -> list[Path]:
     return seen
 
 
-def pause_for_test(point: str) -> None:
-    """Test hook: sleep at a named point when ``CORRIDOR_TEST_PAUSE_AT`` names it.
-
-    ``CORRIDOR_TEST_PAUSE_AT`` is a comma list of points (``compute``, ``write``,
-    ``publish``: before the journal, ``move``: after each file moved into place);
-    ``CORRIDOR_TEST_PAUSE_FILE``, if set, is created on arrival so a
-    test knows the run is there; ``CORRIDOR_TEST_PAUSE_S`` is the sleep [s]
-    (default 60).
-    """
-    points = os.environ.get("CORRIDOR_TEST_PAUSE_AT", "")
-    if point not in [p.strip() for p in points.split(",") if p.strip()]:
-        return
-    marker = os.environ.get("CORRIDOR_TEST_PAUSE_FILE")
-    if marker:
-        Path(marker).write_text(point, encoding="utf-8")
-    time.sleep(float(os.environ.get("CORRIDOR_TEST_PAUSE_S", "60")))
-
-
 def cache_folder(cfg: Config, out_dir: Path) -> Path | None:
     """The cache folder of a run (``run.cache_dir``), or None for no cache."""
     value = str(cfg.run.get("cache_dir", "auto"))
@@ -118,7 +100,6 @@ def _write_gpkg(run: Run, path: Path) -> None:
 
     write_layer(run.exposure_table, path, "exposures")
     write_layer(run.segment_table, path, "segments")
-    pause_for_test("write")
     layers = ["exposures", "segments"]
     for name, table in run.extra_tables.items():
         if hasattr(table, "geometry") and name.startswith("layer:"):
@@ -171,7 +152,6 @@ def write_outputs(run: Run, out_dir: Path, previous: dict | None = None,
                 shutil.copy2(fmt_file, out_dir / fmt_file.name)
         reused = True
         log.info("inputs unchanged since the previous run: its layers are reused")
-        pause_for_test("write")
     else:
         _write_gpkg(run, paths["gpkg"])
         write_extra_formats(run, out_dir, formats)
@@ -289,14 +269,6 @@ def rejected_summary(cfg: Config, inputs) -> dict:
             "assets": parts["assets"], "other": parts["other"]}
 
 
-def log_rejected_lines(lines: list[dict]) -> None:
-    """One WARNING per rejected power line: its exposures are not assessed."""
-    for r in lines:
-        log.warning("power line %s REJECTED (field '%s': %s): the voltages it induces are"
-                    " NOT assessed; the results are incomplete", r.get("line_id"),
-                    r.get("field"), r.get("reason"))
-
-
 def defaults_used_record(inputs) -> dict:
     """run.json's ``defaults_used``: field -> count, with ids for the safety-relevant fields."""
     used = getattr(inputs, "defaults_used", None) or {}
@@ -331,7 +303,6 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
         raise InputError(["asset layers: no usable asset features; every one was rejected:"]
                          + [f"layer {r['layer']}: feature {r['feature_id']}: field"
                             f" '{r['field']}': {r['reason']}" for r in inputs.rejected.rows])
-    pause_for_test("compute")
     progress.stage("compute", 2, total)
     t1 = time.perf_counter()
     keys = cache_mod.asset_keys(cfg, inputs)
@@ -435,16 +406,16 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
         log.info("corridor run of %s into %s (PID %d)", cfg.path, out_dir, os.getpid())
         previous = _previous_record(out_dir) if "run.json" in owned_before else None
         fingerprint = input_fingerprint(cfg)
-        if _can_reuse_everything(out_dir, previous, fingerprint, owned_before):
-            run = reuse_previous_outputs(cfg, out_dir, staging, previous, owned_before)
-        else:
-            run = screen(cfg, out_dir, stages, final_stages)
-            extra = dict(run.extra_tables.get("json", {}))
-            extra["input_fingerprint"] = fingerprint
-            run.extra_tables["json"] = extra
-            reuse = out_dir if inputs_unchanged(run, previous) else None
-            write_outputs(run, staging, previous, reuse_from=reuse,
-                          reuse_names=set(owned_before))
+        run = screen(cfg, out_dir, stages, final_stages)
+        extra = dict(run.extra_tables.get("json", {}))
+        extra["input_fingerprint"] = fingerprint
+        unchanged = bool(previous and previous.get("input_fingerprint") == fingerprint
+                         and inputs_unchanged(run, previous))
+        if unchanged:  # every asset came from the cache and no input changed
+            extra["changes"] = {**extra.get("changes", {}), "unchanged_inputs": True}
+        run.extra_tables["json"] = extra
+        write_outputs(run, staging, previous, reuse_from=out_dir if unchanged else None,
+                      reuse_names=set(owned_before))
         log.info("assets recomputed: %d, from cache: %d; outputs complete, publishing",
                  run.counts.get("assets_recomputed", 0),
                  run.counts.get("assets_from_cache", 0))
@@ -520,79 +491,18 @@ def input_fingerprint(cfg: Config) -> str:
     import hashlib
 
     from corridor import __version__
-    from corridor.cache import _limit_files, code_fingerprint
+    from corridor.cache import code_fingerprint, limit_files
     from corridor.io.fingerprint import dataset_sha256
     from corridor.registry import registry
 
     h = hashlib.sha256()
-    for p in [*_input_files(cfg), *_limit_files(cfg)]:
+    for p in [*_input_files(cfg), *limit_files(cfg)]:
         h.update(str(p).encode("utf-8", "surrogateescape"))
         h.update(dataset_sha256(p).encode())
     h.update(__version__.encode())
     h.update(code_fingerprint().encode())
     h.update(registry.fingerprint().encode())
     return h.hexdigest()
-
-
-#: Files a run with unchanged inputs copies from the previous run as they are.
-REUSED_WHOLE = (*REUSABLE_OUTPUTS, "report.html")
-
-
-def _can_reuse_everything(out_dir: Path, previous: dict | None, fingerprint: str,
-                          owned: dict | None = None) -> bool:
-    return bool(previous and previous.get("input_fingerprint") == fingerprint
-                and all((out_dir / n).exists() and (owned is None or n in owned)
-                        for n in REUSED_WHOLE))
-
-
-def reuse_previous_outputs(cfg: Config, out_dir: Path, tmp: Path, previous: dict,
-                           owned: dict | None = None) -> Run:
-    """Publish the previous outputs again when no input changed at all.
-
-    Nothing is read or computed: the layers, CSVs and report are copied, the
-    report's change section and ``changes.csv`` say that nothing changed, and
-    run.json records the new run (same results, new time).
-    """
-    import re
-
-    from corridor.changes import COLUMNS
-
-    t0 = time.perf_counter()
-    pause_for_test("compute")
-    for name in REUSED_WHOLE:
-        shutil.copy2(out_dir / name, tmp / name)
-    pause_for_test("write")
-    for f in sorted(out_dir.iterdir()):
-        if f.suffix in (".fgb", ".parquet") and (owned is None or f.name in owned):
-            shutil.copy2(f, tmp / f.name)
-    when = previous.get("finished_utc", "?")
-    html = (tmp / "report.html").read_text(encoding="utf-8")
-    html = re.sub(r'<div id="changes">.*?</div>',
-                  '<div id="changes"><h3>Change since the last run</h3>'
-                  f"<p>Previous run finished {when}. No input changed since; the results"
-                  " are those of that run.</p></div>", html, count=1, flags=re.S)
-    (tmp / "report.html").write_text(html, encoding="utf-8")
-    write_csv(pd.DataFrame(columns=COLUMNS), tmp / "changes.csv")
-    record = dict(previous)
-    counts = dict(record.get("counts", {}))
-    counts.update({"assets_recomputed": 0, "outputs_reused": 1,
-                   "assets_from_cache": int(counts.get("assets", 0))})
-    record.update({
-        "finished_utc": datetime.now(UTC).isoformat(timespec="seconds"),
-        "counts": counts,
-        "timings_s": {"reuse": round(time.perf_counter() - t0, 4)},
-        "changes": {"unchanged_inputs": True, "previous_finished_utc": when, "rows": 0},
-    })
-    write_json(record, tmp / "run.json")
-    log.info("no input changed since the run of %s: its outputs are published again", when)
-    run = Run(cfg)
-    run.counts = counts
-    run.timings_s = record["timings_s"]
-    lines = list(record.get("rejected_power_lines") or [])
-    run.extra_tables["json"] = {"rejected_power_lines": lines,
-                                "defaults_used": record.get("defaults_used", {})}
-    log_rejected_lines(lines)
-    return run
 
 
 def _previous_record(out_dir: Path) -> dict | None:

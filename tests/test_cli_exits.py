@@ -52,7 +52,7 @@ def test_rejected_power_line_exits_5_after_publishing(tmp_path, cli, capsys):
     # nothing changed: the previous outputs are published again, with the same exit code
     assert cli(["run", str(path), "-q"]) == 5
     err = capsys.readouterr().err
-    assert "power line L2 REJECTED" in err
+    assert "power line L2 rejected (layer power_lines.gpkg:power_lines, field 'KV')" in err
     record = json.loads((tmp_path / "out" / "run.json").read_text(encoding="utf-8"))
     assert record["counts"]["outputs_reused"] == 1
     assert record["counts"]["rejected_power_lines"] == 1
