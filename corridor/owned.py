@@ -278,7 +278,7 @@ def staging_path(out_dir: Path) -> Path:
 
 def make_staging(out_dir: Path) -> Path:
     """Create the (marked) staging folder of this process inside ``out_dir``."""
-    from corridor.lock import _start_tick
+    from corridor.lock import process_start_tick
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -287,7 +287,7 @@ def make_staging(out_dir: Path) -> Path:
         remove_staging(path)
     path.mkdir()
     marker = {"pid": os.getpid(), "host": socket.gethostname(),
-              "start_tick": _start_tick(os.getpid()),
+              "start_tick": process_start_tick(os.getpid()),
               "created_utc": datetime.now(UTC).isoformat(timespec="seconds")}
     _write_json_synced(marker, path / STAGING_MARKER)
     return path

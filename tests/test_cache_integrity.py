@@ -401,9 +401,9 @@ def test_asset_keys_ignore_unknown_references_and_compare_ids_as_text():
     any key (nor raise); an integer id names the asset whose id is that text."""
     import dataclasses
 
-    from corridor.cache import asset_keys
     from corridor.config import load_config
     from corridor.io.layers import read_inputs
+    from corridor.keys import asset_keys
 
     cfg = load_config(Path(__file__).resolve().parents[1] / "config" / "demo.toml")
     inputs = read_inputs(cfg)

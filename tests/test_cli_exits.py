@@ -99,7 +99,7 @@ def test_rejected_assets_are_warned_under_quiet_with_a_bound(tmp_path, cli, caps
 
 
 def test_defaults_used_lists_ids_of_safety_fields_only():
-    from corridor.runner import defaults_used_record
+    from corridor.pipeline import defaults_used_record
 
     inputs = SimpleNamespace(defaults_used={"clearing_time_s": ["F1", "F2"],
                                             "post_type": ["F3"], "height_m": ["F1"]})

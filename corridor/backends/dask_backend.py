@@ -258,7 +258,7 @@ def _work_folder(cfg: Config, work_dir: Path | None) -> Path:
 
 def _code_identity() -> tuple[str, str]:
     from corridor import __version__
-    from corridor.cache import code_fingerprint
+    from corridor.keys import code_fingerprint
 
     return __version__, code_fingerprint()
 

@@ -33,9 +33,9 @@ from tests.helpers import hooks  # noqa: E402
 def patch(point: str, marker: str, sleep_s: float) -> None:
     """Patch the production function that runs at ``point`` (see the module docstring)."""
     if point == "compute":
-        from corridor import cache
+        from corridor import keys
 
-        cache.asset_keys = hooks.pause_before(cache.asset_keys, marker, point, sleep_s)
+        keys.asset_keys = hooks.pause_before(keys.asset_keys, marker, point, sleep_s)
     elif point == "write":
         from corridor import report
 
