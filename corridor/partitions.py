@@ -51,6 +51,8 @@ PER_ASSET_TABLES: dict[str, tuple] = {
     "grounding_sites": ("extra:csv:grounding_sites.csv", "asset_id", None),
     # the grounding stage's segment voltages with the proposed grounds (report profiles)
     "after_grounding": ("segment_table_after_grounding", "input", None),
+    # the permitted value of every criterion per segment (report profiles)
+    "limits": ("limits_table", "input", None),
 }
 #: Internal per-asset tables: rows of ``rejected.csv`` found while computing an asset
 #: (grounding items) and the asset's geometry counts.

@@ -97,6 +97,10 @@ class Run:
     #: Per-asset pair and section counts of a run merged from partitions or the
     #: cache, which keeps no :class:`Geometry` (``asset_id``, ``pairs``, ``sections``).
     asset_counts: pd.DataFrame | None = None
+    #: Permitted value of every criterion on every segment, as the assess step found it
+    #: (``asset_id``, ``segment_index``, ``permitted_<criterion>``): the report's profiles
+    #: present it (:func:`limits_frame`); a per-asset table, cached and merged.
+    limits_table: pd.DataFrame | None = None
 
 
 class _Timer:
@@ -255,11 +259,29 @@ def compute(cfg: Config, inputs: Inputs, stages: dict | None = None,
     for name, fn in (stages or {}).items():
         with _Timer(run, name, step_log_level):
             fn(run)
+    run.limits_table = limits_frame(run)
     run.counts["segments"] = len(run.geometry.segments)
     run.counts["pairs"] = len(run.geometry.pairs)
     run.counts["sections"] = len(run.geometry.sections)
     run.counts["exposures"] = len(run.geometry.exposures)
     return run
+
+
+def limits_frame(run: Run) -> pd.DataFrame | None:
+    """Per segment, the permitted value of each criterion the assess step judged it by.
+
+    Taken from ``run.assessment["permitted"]`` (rows of ``run.segment_table`` as the
+    per-asset stages left it); None when no assess step ran.
+    """
+    res = run.assessment
+    t = run.segment_table
+    if not isinstance(res, dict) or "permitted" not in res or t is None:
+        return None
+    frame = pd.DataFrame({"asset_id": t["asset_id"].to_numpy(dtype=object),
+                          "segment_index": t["segment_index"].to_numpy(np.int64)})
+    for name, values in res["permitted"].items():
+        frame[f"permitted_{name}"] = np.broadcast_to(np.asarray(values, float), len(t))
+    return frame
 
 
 def finalize(run: Run, stages: dict | None = None) -> Run:

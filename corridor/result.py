@@ -58,6 +58,10 @@ class Result:
     after_grounding : GeoDataFrame or None
         Segment voltages with the proposed grounds in place (not written; the
         report's profiles): ``steps/ground.py``.
+    limits : DataFrame or None
+        Permitted value of every criterion per segment (not written; the
+        report's profiles present it): :func:`corridor.pipeline.limits_frame`
+        from the assess step's evaluation.
     changes : DataFrame or None
         Rows of ``changes.csv``: :func:`corridor.changes.compare`.
     rejected : DataFrame
@@ -79,6 +83,7 @@ class Result:
     sites: gpd.GeoDataFrame | None = None
     grounding_sites: pd.DataFrame | None = None
     after_grounding: gpd.GeoDataFrame | None = None
+    limits: pd.DataFrame | None = None
     changes: pd.DataFrame | None = None
     record: dict = field(default_factory=dict)
     extra_layers: dict[str, gpd.GeoDataFrame] = field(default_factory=dict)
@@ -122,7 +127,7 @@ def result_of(run) -> Result:
         rejected=run.inputs.rejected.frame(),
         hazards=taken[STEP_KEYS["hazards"]], assets=taken[STEP_KEYS["assets"]],
         sites=taken[STEP_KEYS["sites"]], grounding_sites=taken[STEP_KEYS["grounding_sites"]],
-        after_grounding=run.segment_table_after_grounding,
+        after_grounding=run.segment_table_after_grounding, limits=run.limits_table,
         changes=taken[STEP_KEYS["changes"]],
         record=dict(taken[STEP_KEYS["record"]] or {}),
         extra_layers=layers, extra_csv=csvs)

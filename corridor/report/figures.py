@@ -277,34 +277,29 @@ def criterion_of(run, label: str):
 def _governing_values(run, crit, idx: np.ndarray):
     """Judged quantity and permitted value of one criterion on segments ``idx``.
 
-    The limit set is evaluated again on just these rows of the segment table,
-    so the values line up with the table whatever order earlier stages left
-    ``run.assessment`` in; a criterion's permitted value may vary per segment
-    (clearing time, soil, coating).
+    Both as the run computed them: the quantity from the segment table, the
+    permitted value (which may vary per segment: clearing time, soil, coating)
+    from ``run.limits_table`` (:func:`corridor.pipeline.limits_frame`), matched by
+    asset and segment index. Without that table, the permitted value is the
+    quantity over its ratio.
     """
     if crit is None:
         return None, None
     t = run.segment_table
     sub = t.iloc[idx]
-    try:
-        from corridor.steps.assess import assess
-
-        cats = {}
-        assets = run.inputs.assets
-        if "coating_type" in assets:
-            by_id = dict(zip(assets["asset_id"], assets["coating_type"].astype(str),
-                             strict=False))
-            cats["coating_type"] = sub["asset_id"].map(by_id).fillna("").to_numpy(str)
-        res = assess(run.limit_set, sub, cats)
-        permitted = np.asarray(res["permitted"][crit.name], float)
-        q = res["quantities"].get(crit.quantity)
-        q = None if q is None else np.abs(np.asarray(q, float))
+    q = (np.abs(sub[crit.quantity].to_numpy(float)) if crit.quantity in t else None)
+    limits = getattr(run, "limits_table", None)
+    col = f"permitted_{crit.name}"
+    if limits is not None and col in limits:
+        where = pd.MultiIndex.from_arrays([limits["asset_id"].astype(str),
+                                           limits["segment_index"].to_numpy(np.int64)])
+        want = pd.MultiIndex.from_arrays([sub["asset_id"].astype(str),
+                                          sub["segment_index"].to_numpy(np.int64)])
+        pos = where.get_indexer(want)
+        permitted = np.where(pos >= 0, limits[col].to_numpy(float)[np.maximum(pos, 0)], np.nan)
         return q, permitted
-    except (KeyError, AttributeError, ValueError) as exc:
-        log.debug("limit not re-evaluated for the profile (%s); using ratios", exc)
     ratio_col = f"ratio_{crit.name}"
-    if crit.quantity in t and ratio_col in t:
-        q = np.abs(sub[crit.quantity].to_numpy(float))
+    if q is not None and ratio_col in t:
         r = sub[ratio_col].to_numpy(float)
         ok = np.isfinite(r) & (r > 0)
         permitted = np.full(len(idx), np.nan)
