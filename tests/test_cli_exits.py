@@ -141,7 +141,7 @@ def test_check_fails_when_no_power_line_is_usable(tmp_path, cli, capsys):
 ], ids=["enospc", "eacces", "gdal-text"])
 def test_disk_full_or_no_permission_exits_2_with_the_cause(tmp_path, cli, capsys,
                                                            monkeypatch, failure):
-    import corridor.runner as runner
+    import corridor.io.write as writer
 
     path = make(tmp_path)
     assert cli(["run", str(path), "-q"]) == 0
@@ -152,7 +152,7 @@ def test_disk_full_or_no_permission_exits_2_with_the_cause(tmp_path, cli, capsys
     def refuse(*a, **kw):
         raise failure
 
-    monkeypatch.setattr(runner, "write_csv", refuse)
+    monkeypatch.setattr(writer, "write_csv", refuse)
     capsys.readouterr()
     assert cli(["run", str(path), "-q"]) == 2
     err = capsys.readouterr().err
