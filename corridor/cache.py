@@ -245,8 +245,9 @@ class Cache:
             elif files is None:
                 self.owned[name] = None
             elif isinstance(files, list):
-                self.owned[name] = [f for f in files if _plain_name(f)]
-                damaged |= len(self.owned[name]) != len(files)
+                kept = [f for f in files if _plain_name(f)]
+                self.owned[name] = kept
+                damaged |= len(kept) != len(files)
             else:
                 damaged = True
         gen = data.get("generation")

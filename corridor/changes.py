@@ -123,7 +123,7 @@ def _config_diff(before: dict, after: dict, prefix: str = "") -> list[str]:
 def _line_causes(line_ids: list[str], prev_lines: dict, cur_lines: dict) -> list[str]:
     out = []
     for lid in line_ids:
-        cur, old = cur_lines.get(lid), prev_lines.get(lid)
+        cur, old = cur_lines[lid], prev_lines.get(lid)  # every line in reach is current
         if old is None:
             out.append(f"line {lid} now in reach (new line)")
             continue

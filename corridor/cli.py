@@ -59,7 +59,7 @@ import traceback
 from pathlib import Path
 
 from corridor import __version__
-from corridor.errors import CorridorError
+from corridor.errors import CorridorError, attached_log
 
 EXIT_OK, EXIT_EXCEEDANCE, EXIT_INPUT, EXIT_INTERNAL, EXIT_LOCKED = 0, 1, 2, 3, 4
 EXIT_LINE_REJECTED = 5
@@ -115,9 +115,9 @@ def _console(args) -> None:
     handler.addFilter(FileOnly())
     root = logging.getLogger("corridor")
     root.setLevel(logging.DEBUG)
-    for old in [h for h in root.handlers if getattr(h, "_corridor_console", False)]:
+    # a second call (tests, an embedding program) replaces the console handler of the first
+    for old in [h for h in root.handlers if isinstance(h, progress.ConsoleHandler)]:
         root.removeHandler(old)
-    handler._corridor_console = True
     root.addHandler(handler)
 
 
@@ -351,7 +351,7 @@ def main(argv: list[str] | None = None) -> int:
     except CorridorError as exc:
         for line in getattr(exc, "problems", [str(exc)]):
             print(f"corridor: error: {line}", file=sys.stderr)
-        where = getattr(exc, "corridor_log", None)
+        where = attached_log(exc)
         if where is not None:
             print(f"corridor: log of the failed run: {where}", file=sys.stderr)
         return EXIT_INPUT
@@ -365,7 +365,7 @@ def main(argv: list[str] | None = None) -> int:
             print("corridor: nothing was published; previous outputs left in place",
                   file=sys.stderr)
             return EXIT_INPUT
-        where = getattr(exc, "corridor_log", None)
+        where = attached_log(exc)
         if where is None:
             where = _write_crash_log(out, traceback.format_exc())
         print(f"corridor: internal error ({type(exc).__name__}); previous outputs left in"

@@ -6,6 +6,13 @@ the file system refusing a write (disk full, read-only, no permission), which
 :func:`storage_problem` recognises and the CLI reports as exit code 2 too.
 """
 
+from __future__ import annotations
+
+from pathlib import Path
+
+#: Attribute under which an exception carries the path of its failed run's saved log.
+_LOG_ATTRIBUTE = "corridor_log"
+
 
 class CorridorError(Exception):
     """Base class for errors caused by the user's config or input."""
@@ -77,6 +84,24 @@ class StorageError(CorridorError):
             problems = [problems]
         self.problems = list(problems)
         super().__init__("\n".join(self.problems))
+
+
+def attach_log(exc: BaseException, path: Path) -> None:
+    """Record on ``exc`` where the log of the failed run was saved.
+
+    Any exception may carry it (the run's own errors, a library's, an interrupt);
+    the CLI prints it with the error (:func:`attached_log`). An exception type
+    that takes no attributes is left as it is.
+    """
+    try:
+        setattr(exc, _LOG_ATTRIBUTE, path)
+    except AttributeError:
+        pass
+
+
+def attached_log(exc: BaseException) -> Path | None:
+    """The saved log of the failed run that raised ``exc`` (:func:`attach_log`), or None."""
+    return getattr(exc, _LOG_ATTRIBUTE, None)
 
 
 def _storage_errnos() -> frozenset[int]:

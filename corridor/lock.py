@@ -291,9 +291,8 @@ class OutputLock:
         self.acquire()
         return self
 
-    def __exit__(self, *exc) -> bool:
+    def __exit__(self, *exc: object) -> None:
         self.release()
-        return False
 
 
 def break_lock(out_dir: Path, force: bool = False) -> tuple[str, bool]:

@@ -168,13 +168,13 @@ def plan_partitions(geometries: np.ndarray, segment_length_m: float,
 def column_kinds(frame: pd.DataFrame) -> dict[str, tuple[str, object]]:
     """Per column: dtype and, for object columns, the missing-value sentinel used
     (None when any value is None, else NaN); the geometry column is left out."""
-    out = {}
+    out: dict[str, tuple[str, object]] = {}
     geom = frame.geometry.name if isinstance(frame, gpd.GeoDataFrame) else None
     for col in frame.columns:
         if col == geom:
             continue
         dt = str(frame[col].dtype)
-        sentinel = np.nan
+        sentinel: float | None = np.nan
         if dt == "object":
             for v in frame[col]:
                 if v is None:
@@ -315,7 +315,7 @@ def order_rows(frame: pd.DataFrame, name: str, asset_pos: dict) -> pd.DataFrame:
 
 def compute_rejections(sub_inputs, rows: list[dict]) -> pd.DataFrame:
     """Rejections made while computing, attached to their asset (grounding items)."""
-    asset_of = {}
+    asset_of: dict[str, str] = {}
     g = sub_inputs.grounds
     if g is not None and len(g):
         for fid, aid in zip(g["feature_id"].astype(str), g["asset_id"].astype(str), strict=True):
@@ -330,7 +330,8 @@ def _orphan_ground_rejections(cfg: Config, inputs: Inputs) -> pd.DataFrame:
     a subset never sees them (:func:`corridor.pipeline.subset_inputs` drops them)."""
     g = inputs.grounds
     cols = ["asset_id", "layer", "feature_id", "field", "reason"]
-    if g is None or len(g) == 0:
+    # (grounding items are read only from a configured grounds layer)
+    if g is None or len(g) == 0 or cfg.grounds is None:
         return pd.DataFrame(columns=cols, dtype=object)
     known = set(inputs.assets["asset_id"].astype(str))
     bad = ~g["asset_id"].astype(str).isin(known).to_numpy()
@@ -374,7 +375,7 @@ def finish_merged_run(cfg: Config, inputs: Inputs, run, merged: dict) -> None:
     rows = []
     if rej is not None and len(rej):
         g = inputs.grounds
-        gpos = {}
+        gpos: dict[str, int] = {}
         if g is not None:
             for i, fid in enumerate(g["feature_id"].astype(str)):
                 gpos.setdefault(fid, i)
@@ -436,12 +437,12 @@ def concat_tables(frames: list[pd.DataFrame | None], crs=None) -> pd.DataFrame |
     crs : optional
         CRS of the geometry of a GeoDataFrame result.
     """
-    frames = [f for f in frames if f is not None]
-    if not frames:
+    present = [f for f in frames if f is not None]
+    if not present:
         return None
-    full = [f for f in frames if len(f)]
+    full = [f for f in present if len(f)]
     if not full:
-        return frames[-1]
+        return present[-1]
     if len(full) == 1:
         return full[0]
     full = _align_dtypes(full)

@@ -286,8 +286,10 @@ def limits_frame(run: Run) -> pd.DataFrame | None:
 
 def finalize(run: Run, stages: dict | None = None) -> Run:
     """Run-wide steps on the per-asset results: ids, ranks, summary layers."""
-    ids = pd.Index(run.inputs.assets["asset_id"].astype(str))
-    t = run.segment_table
+    inputs, t = run.inputs, run.segment_table
+    if inputs is None or t is None:
+        raise ValueError("finalize: the run has not been read and computed")
+    ids = pd.Index(inputs.assets["asset_id"].astype(str))
     key = np.lexsort((t["segment_index"].to_numpy(), ids.get_indexer(t["asset_id"])))
     if np.array_equal(key, np.arange(len(t))):  # merged runs arrive in order: no copy
         t = t.reset_index(drop=True)
@@ -298,8 +300,8 @@ def finalize(run: Run, stages: dict | None = None) -> Run:
     for name, fn in (stages or {}).items():
         with _Timer(run, name):
             fn(run)
-    run.counts.update(run.inputs.counts)
-    run.counts["rejected"] = len(run.inputs.rejected.rows)
+    run.counts.update(inputs.counts)
+    run.counts["rejected"] = len(inputs.rejected.rows)
     return run
 
 

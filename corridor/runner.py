@@ -28,7 +28,7 @@ from pathlib import Path
 
 from corridor import owned as owned_mod
 from corridor.config import Config
-from corridor.errors import CorridorError, StorageError, storage_problem
+from corridor.errors import CorridorError, StorageError, attach_log, storage_problem
 from corridor.io.provenance import input_fingerprint, inputs_unchanged
 from corridor.io.write import write_outputs
 from corridor.lock import LockError, OutputLock
@@ -117,10 +117,11 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
         if cause is None:
             raise
         raise StorageError(f"output folder {out_dir}: {cause}") from exc
-    handler: logging.Handler | None = logging.FileHandler(staging / LOG_NAME, encoding="utf-8")
-    handler.setLevel(logging.DEBUG)
-    handler.setFormatter(logging.Formatter(LOG_FORMAT))
-    root.addHandler(handler)
+    file_handler = logging.FileHandler(staging / LOG_NAME, encoding="utf-8")
+    file_handler.setLevel(logging.DEBUG)
+    file_handler.setFormatter(logging.Formatter(LOG_FORMAT))
+    root.addHandler(file_handler)
+    handler: logging.Handler | None = file_handler
     if root.level == logging.NOTSET or root.level > logging.DEBUG:
         root.setLevel(logging.DEBUG)
     published = False
@@ -146,8 +147,8 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
                             " taken over while this run computed (`corridor unlock`?); its"
                             " outputs are not published")
         # the log file closes before the files move, so the manifest's record of it holds
-        root.removeHandler(handler)
-        handler.close()
+        root.removeHandler(file_handler)
+        file_handler.close()
         handler = None
         owned_mod.commit(out_dir, staging, owned_before)
         published = True
@@ -179,13 +180,11 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
             except OSError:
                 target = None
         if target is not None:
-            try:
-                exc.corridor_log = target
-            except AttributeError:
-                pass
+            attach_log(exc, target)
         if cause is not None and not isinstance(exc, CorridorError):
             err = StorageError(f"output folder {out_dir}: {cause}")
-            err.corridor_log = target
+            if target is not None:
+                attach_log(err, target)
             raise err from exc
         raise
     finally:

@@ -18,11 +18,9 @@ assets are in the run (:func:`corridor.pipeline.subset_inputs`).
 
 from __future__ import annotations
 
-import dataclasses
 import functools
 import logging
 from pathlib import Path
-from types import MappingProxyType
 
 from corridor.config import RUN_SETTINGS, Config
 from corridor.errors import ConfigError
@@ -94,12 +92,10 @@ def override_run(cfg: Config, **settings) -> Config:
     Raises
     ------
     ConfigError
-        A name that is not a run setting.
+        A name that is not a run setting, or an invalid value.
     """
     unknown = [k for k in settings if k not in RUN_SETTINGS]
     if unknown:
         raise ConfigError([f"{cfg.path.name}: run.{k}: unknown setting" for k in unknown])
-    run = cfg.run.replace(**settings)
-    resolved = dict(cfg.resolved)
-    resolved["run"] = {**dict(resolved.get("run", {})), **settings}
-    return dataclasses.replace(cfg, run=run, resolved=MappingProxyType(resolved))
+    # Config.with_run keeps ``resolved`` a FrozenMap, so the copy pickles (dask workers)
+    return cfg.with_run(**settings)

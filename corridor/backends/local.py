@@ -136,7 +136,8 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
         with lock:
             done[0] += 1
             log.info("partition %d/%d done: %d assets, %d segments in %.1f s", done[0],
-                     len(parts), len(index), len(run.segment_table),
+                     len(parts), len(index),
+                     0 if run.segment_table is None else len(run.segment_table),
                      time.perf_counter() - t_part)
             bar.update()
         return out

@@ -23,6 +23,7 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 import shapely
@@ -470,7 +471,8 @@ def build_exposures(pairs: Pairs, segments: Segments, eq_sep_m: np.ndarray) -> E
     xs = np.insert(segments.x0_m[seg], ends + 1, segments.x1_m[seg[ends]])
     ys = np.insert(segments.y0_m[seg], ends + 1, segments.y1_m[seg[ends]])
     idx = np.insert(run, ends + 1, np.arange(n_runs))
-    geoms = shapely.linestrings(np.column_stack([xs, ys]), indices=idx)
+    # with indices, an array of lines (the stubs also allow a single LineString)
+    geoms = cast(np.ndarray, shapely.linestrings(np.column_stack([xs, ys]), indices=idx))
     first_seg = seg[starts]
     last_seg = seg[ends]
     return Exposures(

@@ -7,6 +7,7 @@ no Python loop per feature or per segment.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 import shapely
@@ -47,7 +48,9 @@ class Segments:
         """Segments as shapely LineStrings."""
         coords = np.stack([np.column_stack([self.x0_m, self.y0_m]),
                            np.column_stack([self.x1_m, self.y1_m])], axis=1)
-        return shapely.linestrings(coords)
+        # a stack of coordinate pairs gives an array of lines; the stubs cannot tell the
+        # array's dimensions and allow a single LineString too
+        return cast(np.ndarray, shapely.linestrings(coords))
 
     def take(self, index: np.ndarray) -> Segments:
         return Segments(*(getattr(self, f)[index] for f in (

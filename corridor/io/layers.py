@@ -456,8 +456,8 @@ def _clean_geometry(gdf, src, ids, rejected, warnings, keep_mask, types) -> np.n
             log.warning(msg)
         elif types != LINEAR_TYPES and not shapely.is_valid(geoms[i]):
             fixed = shapely.make_valid(geoms[i])
-            polys = shapely.get_parts(fixed)
-            polys = [p for p in polys if p.geom_type in ("Polygon", "MultiPolygon")]
+            polys = [p for p in shapely.get_parts(fixed)
+                     if p.geom_type in ("Polygon", "MultiPolygon")]
             if polys:
                 geoms[i] = shapely.union_all(polys)
                 msg = f"layer {src.label}: feature {ids.iloc[i]}: invalid polygon repaired"
@@ -483,7 +483,7 @@ def _within_extent(out: gpd.GeoDataFrame, src: LayerSource, crs: CRS,
         return out
     x0, y0, x1, y1 = run_extent(crs)
     pts, idx = shapely.get_coordinates(out.geometry.to_numpy(), return_index=True)
-    finite = np.isfinite(pts).all(axis=1)
+    finite = np.all(np.isfinite(pts), axis=1)
     inside = finite.copy()
     inside[finite] = ((pts[finite, 0] >= x0) & (pts[finite, 0] <= x1)
                       & (pts[finite, 1] >= y0) & (pts[finite, 1] <= y1))
@@ -507,8 +507,9 @@ def _within_extent(out: gpd.GeoDataFrame, src: LayerSource, crs: CRS,
     return out[keep]
 
 
-def _read_layer(src: LayerSource, specs: tuple[Spec, ...], defaults: dict, id_field: str,
-                types: tuple[str, ...], crs: CRS, rejected: Rejected, warnings: list[str],
+def _read_layer(src: LayerSource, specs: tuple[Spec, ...], defaults: dict,
+                id_field: str | None, types: tuple[str, ...], crs: CRS, rejected: Rejected,
+                warnings: list[str],
                 allow_defaults: bool, gdf: gpd.GeoDataFrame | None = None,
                 label_field: str | None = None,
                 defaults_used: dict[str, list[str]] | None = None) -> gpd.GeoDataFrame:
@@ -533,11 +534,12 @@ def _read_layer(src: LayerSource, specs: tuple[Spec, ...], defaults: dict, id_fi
         id_col = _id_column(gdf, src, label_field) or id_col
     ids = _feature_ids(gdf, id_col)
     keep = np.ones(len(gdf), bool)
-    if id_field and _id_column(gdf, src, id_field) is None:
-        raise InputError(f"layer {src.label}: id field '{src.fields.get(id_field, id_field)}'"
-                         f" (corridor field '{id_field}') is missing")
     if id_field:
         key_col = _id_column(gdf, src, id_field)
+        if key_col is None:
+            raise InputError(f"layer {src.label}: id field"
+                             f" '{src.fields.get(id_field, id_field)}' (corridor field"
+                             f" '{id_field}') is missing")
         raw_ids = id_text(gdf[key_col])
         what = {"grounds": "asset id", "towers": "line id"}.get(src.role, "id")
         for i in np.flatnonzero(raw_ids.isna().to_numpy()):
@@ -670,7 +672,7 @@ def read_inputs(cfg: Config) -> Inputs:
                                              defaults_used))
         except InputError as exc:
             problems.extend(exc.problems)
-    optional = {}
+    optional: dict[str, gpd.GeoDataFrame | None] = {}
     for role, specs, id_field, types in (
             ("soil", SOIL_FIELDS, None, ("Polygon", "MultiPolygon")),
             ("grounds", GROUND_FIELDS, "asset_id", ("Point",)),

@@ -87,7 +87,7 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
 
     reused = reuse_from is not None and all((reuse_from / n).exists() and ours(n)
                                             for n in REUSABLE_OUTPUTS)
-    if reused:
+    if reused and reuse_from is not None:
         for name in REUSABLE_OUTPUTS:
             shutil.copy2(reuse_from / name, out_dir / name)
         for fmt_file in sorted(reuse_from.iterdir()):

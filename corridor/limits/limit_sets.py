@@ -411,6 +411,7 @@ def _validate(raw, path, override_paths, asset_kinds):
     problems = list(dict.fromkeys(problems))
     if problems:
         raise LimitSetError(problems)
+    assert meta is not None  # a missing [meta] table is a problem above
     logger.debug("loaded limit set %s from %s (%d criteria)", meta["name"], path,
                  len(criteria))
     return LimitSet(name=meta["name"], description=meta["description"],

@@ -215,7 +215,8 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
             if idx is None or not len(idx):
                 continue
             s_idx = site_groups.get(r["asset_id"])
-            s_rows = sites_df.iloc[s_idx] if s_idx is not None else None
+            s_rows = (sites_df.iloc[s_idx] if s_idx is not None and sites_df is not None
+                      else None)
             crit = criterion_of(run, r.get("governing", ""))
             desc = f" — {crit.description}" if crit is not None and crit.description else ""
             body.append(f'<figure class="profile" id="profile-{i + 1}">')

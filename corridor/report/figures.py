@@ -6,6 +6,7 @@ from __future__ import annotations
 import io
 import logging
 import re
+from typing import TYPE_CHECKING
 
 import matplotlib as mpl
 import numpy as np
@@ -17,6 +18,9 @@ from matplotlib.colors import BoundaryNorm, ListedColormap
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter, NullLocator
+
+if TYPE_CHECKING:
+    from matplotlib.typing import RcKeyType
 
 from corridor.io.styles import (
     HAZARD_COLOURS,
@@ -37,7 +41,7 @@ _LIMIT_COLOUR = "#1a1a1a"
 _JUDGED_COLOUR = "#6b46c1"
 _SEPARATION_COLOUR = "#8a8a8a"
 
-_RC = {
+_RC: dict[RcKeyType, object] = {
     "svg.fonttype": "none",  # text stays text: small files, crisp in the browser
     "font.family": "sans-serif",
     "font.size": 9.0,

@@ -60,9 +60,13 @@ def unit_of(column: str) -> str:
     return "" if m is None or m.group(1) == "-" else m.group(1)
 
 
-def _header(column: str) -> str:
+def _title(column: str) -> str:
     d = describe_column(column)
-    title = d[0] if d else column.replace("_", " ")
+    return d[0] if d else column.replace("_", " ")
+
+
+def _header(column: str) -> str:
+    title = _title(column)
     unit = unit_of(column)
     return f"{esc(title)} [{esc(unit)}]" if unit else esc(title)
 
@@ -79,7 +83,7 @@ def html_table(frame: pd.DataFrame, columns: list[str], caption: str = "",
     """An HTML table of ``columns`` (those present), numbers formatted."""
     cols = [c for c in columns if c in frame.columns]
     head = "".join(
-        f"<th>{_header(c) if c not in km else esc(describe_column(c)[0]) + ' [km]'}</th>"
+        f"<th>{_header(c) if c not in km else esc(_title(c)) + ' [km]'}</th>"
         for c in cols)
     rows = []
     data = {c: frame[c].to_numpy() for c in cols}

@@ -370,15 +370,15 @@ def run_step(name: str, config_path: str | Path, inputs: Mapping[str, str | Path
 
     spec = get_step(name)
     cfg = _apply(load_config(config_path), spec, dict(params or {}))
-    inputs = {k: Path(v) for k, v in (inputs or {}).items()}
-    for key in inputs:
+    input_paths = {k: Path(v) for k, v in (inputs or {}).items()}
+    for key in input_paths:
         if key not in spec.from_saved:
             can = [s.name for s in STEPS.values() if key in s.from_saved]
             raise ConfigError(f"step {name}: cannot start from a saved {key!r} layer; it reads"
                               f" the config's layers (steps that can: {', '.join(can)})")
     out_dir = Path(outputs_dir) if outputs_dir is not None else cfg.output_dir / "steps"
     out_dir = out_dir.resolve()
-    ctx = StepContext(cfg, MappingProxyType(inputs), out_dir,
+    ctx = StepContext(cfg, MappingProxyType(input_paths), out_dir,
                       progress or (lambda fraction, message: None), cancel or (lambda: False))
     t0 = time.perf_counter()
     outputs, counts = spec.run(ctx)
@@ -388,7 +388,7 @@ def run_step(name: str, config_path: str | Path, inputs: Mapping[str, str | Path
     else:
         written = _write(outputs, spec, out_dir)
         record = {"step": spec.name, "config_file": str(cfg.path),
-                  "inputs": {k: str(v) for k, v in inputs.items()},
+                  "inputs": {k: str(v) for k, v in input_paths.items()},
                   "parameters": {p.name: cfg.run.as_dict()[p.name] for p in spec.parameters},
                   "counts": counts, "elapsed_s": round(time.perf_counter() - t0, 3),
                   "outputs": {k: str(v) for k, v in written.items()}, "versions": versions()}

@@ -249,7 +249,8 @@ def site_ids(asset_ids, chainage_m) -> list[str]:
         segments) are told apart by ``/2``, ``/3``… in the order given.
     """
     ch = np.floor(np.asarray(chainage_m, float) + 0.5)
-    out, seen = [], {}
+    out: list[str] = []
+    seen: dict[str, int] = {}
     for aid, c in zip(asset_ids, ch, strict=True):
         base = f"{aid}@{int(c)}" if np.isfinite(c) else f"{aid}@?"
         k = seen.get(base, 0) + 1
@@ -260,7 +261,7 @@ def site_ids(asset_ids, chainage_m) -> list[str]:
 
 def _lines_per_asset(t, feat, n_assets) -> list[str]:
     """';'-joined ids of the lines in reach of, or faulting onto, each asset."""
-    out = [set() for _ in range(n_assets)]
+    out: list[set[str]] = [set() for _ in range(n_assets)]
     for col in ("line_id", "fault_line_id"):
         v = t[col].to_numpy(dtype=object)
         has = v != ""
@@ -318,7 +319,8 @@ def _case_column(case, fault_case, columns_of_asset):
         return 0
     if case == "capacitive":
         return 1
-    hit = np.flatnonzero(columns_of_asset == fault_case) if fault_case >= 0 else []
+    hit = (np.flatnonzero(columns_of_asset == fault_case) if fault_case >= 0
+           else np.empty(0, np.int64))
     return 2 + int(hit[0]) if len(hit) else 0
 
 

@@ -164,7 +164,7 @@ def place_items(inputs, seg, chain_start, tolerance_m):
     n_nodes = len(seg) + len(chain_start)
     node_shunt = np.zeros(n_nodes, complex)
     brk = np.zeros(len(seg), bool)
-    rejected = []
+    rejected: list[tuple[str, str, str]] = []
     g = inputs.grounds
     if g is None or len(g) == 0:
         return node_shunt, brk, rejected

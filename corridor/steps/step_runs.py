@@ -210,14 +210,11 @@ def _run_ground(ctx):
     return out, dict(run.counts)
 
 
-def _rank_table(t):
+def _rank_table(t, cfg):
     from corridor.pipeline import Run
     from corridor.steps import stage_rank
 
-    class _Cfg:  # stage_rank only reads the table and the (already loaded) limit set
-        pass
-
-    run = Run(config=_Cfg())
+    run = Run(config=cfg)  # stage_rank reads only the table and the (loaded) limit set
     run.limit_set = object()
     run.segment_table = t
     stage_rank(run)
@@ -232,7 +229,7 @@ def _run_rank(ctx):
             _check(ctx, 0.3, "assess")
             t, _ = _assess_saved(ctx, t)
         _check(ctx, 0.7, "rank")
-        t, counts = _rank_table(t.copy())
+        t, counts = _rank_table(t.copy(), ctx.config)
         return {"segments": t}, {"segments": len(t), **counts}
     run = _compute_through(ctx, "ground")
     _check(ctx, 0.95, "rank")
