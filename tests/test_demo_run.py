@@ -66,12 +66,13 @@ def test_demo_findings(demo):
     assert t.loc[t["asset_id"] == "FN-MILL-3", "ratio_steady_state_voltage"].max() >= 1
     # a telecom cable under fault (ITU-T 430/650 V)
     assert t.loc[t["asset_id"] == "TC-VALE-3", "ratio_telecom_fault"].max() >= 1
-    # an insulated fence with capacitive pickup: high open-circuit voltage, little current
+    # a fence on wet wooden posts (5 kΩ each) is no insulator (issue 15): its posts drain the
+    # capacitive charge, and the low source impedance they give turns its fault voltage into
+    # a touch hazard of about 10 times the limit (issue 15's measurement)
     ridge = t[t["asset_id"] == "FN-RIDGE-2"]
-    assert ridge["v_capacitive_open_v"].max() > 100.0
-    assert ridge["i_capacitive_short_ma"].max() < 5.0
-    assert ridge["capacitive_source_impedance_ohm"].min() > 1e4
-    assert a.loc["FN-RIDGE-2", "hazard_class"] != "exceeds"
+    assert ridge["v_capacitive_open_v"].max() < 1.0
+    assert a.loc["FN-RIDGE-2", "hazard_class"] == "exceeds"
+    assert 5.0 < a.loc["FN-RIDGE-2", "worst_utilization"] < 20.0
     # a metal-post fence is grounded at every post: almost no capacitive voltage
     assert t.loc[t["asset_id"] == "FN-HOLLOW-1", "v_capacitive_open_v"].max() < 1.0
 

@@ -29,14 +29,16 @@ __all__ = [
     "ExposureFault",
     "FaultEmf",
     "asset_mutual_impedance",
+    "circuit_phase_currents",
     "conductor_currents",
     "earth_wire_currents",
     "emf_per_m",
     "exposure_fault_emf",
     "fault_emf_per_m",
     "impedance_matrix",
-    "normal_phase_currents",
+    "outage_weights",
     "screening_factor",
+    "worst_normal_emf",
 ]
 
 _PHASE_ANGLE_RAD = {"A": 0.0, "B": -2.0 * np.pi / 3.0, "C": 2.0 * np.pi / 3.0}
@@ -49,6 +51,7 @@ def impedance_matrix(
     conductor_resistance_ohm_per_m,
     soil_resistivity_ohm_m,
     frequency_hz,
+    soil_layers=None,
 ):
     """Primitive series impedance matrix of n earth-return conductors.
 
@@ -61,9 +64,12 @@ def impedance_matrix(
     conductor_resistance_ohm_per_m : array_like, shape (n,)
         AC resistance (complex internal impedance also accepted) [Ω/m].
     soil_resistivity_ohm_m : float
-        Soil resistivity [Ω·m].
+        Soil resistivity [Ω·m] (two-layer soil: the top layer's).
     frequency_hz : float
         Frequency [Hz].
+    soil_layers : dict, optional
+        ``bottom_resistivity_ohm_m`` and ``top_thickness_m`` of a two-layer
+        soil (docs/methods.md §9); None: homogeneous.
 
     Returns
     -------
@@ -89,8 +95,11 @@ def impedance_matrix(
     n = x.size
     iu, ju = np.triu_indices(n, 1)
     dx = np.abs(x[iu] - x[ju])
-    z_off = earth_return.mutual_impedance(h[iu], h[ju], dx, soil_resistivity_ohm_m, frequency_hz)
-    z_diag = earth_return.self_impedance(h, gmr, res, soil_resistivity_ohm_m, frequency_hz)
+    layers = soil_layers or {}
+    z_off = earth_return.mutual_impedance(h[iu], h[ju], dx, soil_resistivity_ohm_m, frequency_hz,
+                                          **layers)
+    z_diag = earth_return.self_impedance(h, gmr, res, soil_resistivity_ohm_m, frequency_hz,
+                                         **layers)
     z = np.zeros((n, n), dtype=complex)
     z[iu, ju] = z_off
     z[ju, iu] = z_off
@@ -135,54 +144,6 @@ def earth_wire_currents(z_matrix, phase_index, earth_wire_index, phase_currents_
     return -np.linalg.solve(z[np.ix_(s, s)], z[np.ix_(s, p)] @ ip)
 
 
-def normal_phase_currents(load_current_a_per_circuit, phasing, residual_current_pct=0.0):
-    """Phase current phasors of one or more three-phase circuits in normal load.
-
-    Parameters
-    ----------
-    load_current_a_per_circuit : array_like, shape (n_circuits,)
-        rms load current of each circuit [A].
-    phasing : sequence of str
-        Per circuit, the phase carried by its three conductors in conductor
-        order, e.g. ``"ABC"``, ``"CBA"``, ``"BCA"``.
-    residual_current_pct : array_like
-        Residual (earth-return) current in percent of the load current,
-        scalar or per circuit [%].
-
-    Returns
-    -------
-    ndarray of complex, shape (3·n_circuits,)
-        Conductor current phasors in conductor order [A].
-
-    Notes
-    -----
-    Phase A at 0°, B at −120°, C at +120° (positive sequence). The residual
-    current I_r = pct/100·I_load is the *total* current returning through
-    the earth (I_r = 3I0); each conductor carries I_r/3 in phase with A.
-
-    References
-    ----------
-    .. [1] ITU-T Directives concerning the protection of telecommunication
-       lines against harmful effects from electric power lines, vol. II
-       (residual current of unbalanced load, memory).
-    """
-    load = np.atleast_1d(np.asarray(load_current_a_per_circuit, float))
-    if isinstance(phasing, str):
-        phasing = [phasing]
-    if len(phasing) != load.size:
-        raise ValueError("one phasing string per circuit is required")
-    pct = np.broadcast_to(np.asarray(residual_current_pct, float), load.shape)
-    out = np.empty(3 * load.size, dtype=complex)
-    for c, code in enumerate(phasing):
-        code = code.upper()
-        if sorted(code) != ["A", "B", "C"]:
-            raise ValueError(f"phasing {code!r} must be a permutation of 'ABC'")
-        residual = pct[c] / 100.0 * load[c] / 3.0
-        for i, ph in enumerate(code):
-            out[3 * c + i] = load[c] * np.exp(1j * _PHASE_ANGLE_RAD[ph]) + residual
-    return out
-
-
 class ConductorCurrents(NamedTuple):
     """Result of :func:`conductor_currents`."""
 
@@ -203,6 +164,8 @@ def conductor_currents(
     phase_currents_a,
     soil_resistivity_ohm_m,
     frequency_hz,
+    bottom_resistivity_ohm_m=None,
+    top_thickness_m=None,
 ):
     """Currents of every conductor of one line, earth wires included.
 
@@ -216,11 +179,14 @@ def conductor_currents(
         Conductors carrying phases and earth wires grounded at every tower.
     phase_currents_a : array_like, shape (n_cases, n_phase)
         Normal-load phase currents, one row per case (e.g. per line sharing
-        the cross-section), from :func:`normal_phase_currents` [A].
+        the cross-section), from :func:`circuit_phase_currents` [A].
     soil_resistivity_ohm_m : array_like, shape (n_soil,)
-        Soil resistivities to evaluate [Ω·m].
+        Soil resistivities to evaluate [Ω·m] (two-layer soils: the top layer's).
     frequency_hz : float
         Frequency [Hz].
+    bottom_resistivity_ohm_m, top_thickness_m : array_like, shape (n_soil,), optional
+        Two-layer soils: ρ₂ [Ω·m] and the top layer's thickness [m]; NaN or
+        None: homogeneous (docs/methods.md §9).
 
     Returns
     -------
@@ -250,9 +216,15 @@ def conductor_currents(
     n_c = x.size
     normal = np.zeros((len(rhos), len(ip), n_c), complex)
     fault = np.zeros((len(rhos), p.size, n_c), complex)
+    layered = bottom_resistivity_ohm_m is not None
+    if layered:
+        rho2 = np.broadcast_to(np.asarray(bottom_resistivity_ohm_m, float), rhos.shape)
+        t_top = np.broadcast_to(np.asarray(top_thickness_m, float), rhos.shape)
     for ri, rho in enumerate(rhos):
+        layers = ({"bottom_resistivity_ohm_m": rho2[ri], "top_thickness_m": t_top[ri]}
+                  if layered else None)
         z = impedance_matrix(x, conductor_height_m, conductor_gmr_m,
-                             conductor_resistance_ohm_per_m, rho, frequency_hz)
+                             conductor_resistance_ohm_per_m, rho, frequency_hz, layers)
         for c in range(len(ip)):
             normal[ri, c, p] = ip[c]
             if s.size:
@@ -271,6 +243,8 @@ def asset_mutual_impedance(
     asset_height_m,
     soil_resistivity_ohm_m,
     frequency_hz,
+    bottom_resistivity_ohm_m=None,
+    top_thickness_m=None,
 ):
     """Mutual impedance between each conductor of a line and each asset section.
 
@@ -282,9 +256,11 @@ def asset_mutual_impedance(
         Asset position in the same cross-section frame [m]; height ≤ 0 for
         buried assets (treated as surface).
     soil_resistivity_ohm_m : array_like, shape (n_pairs,) or scalar
-        Soil resistivity per pair [Ω·m].
+        Soil resistivity per pair [Ω·m] (two-layer soil: the top layer's).
     frequency_hz : float
         Frequency [Hz].
+    bottom_resistivity_ohm_m, top_thickness_m : array_like, shape (n_pairs,), optional
+        Two-layer soil per pair (docs/methods.md §9); None or NaN: homogeneous.
 
     Returns
     -------
@@ -305,8 +281,16 @@ def asset_mutual_impedance(
     xa = np.atleast_1d(np.asarray(asset_offset_m, float))
     ha = np.broadcast_to(np.asarray(asset_height_m, float), xa.shape)
     rho = np.broadcast_to(np.asarray(soil_resistivity_ohm_m, float), xa.shape)
+    layers = {}
+    if bottom_resistivity_ohm_m is not None:
+        layers = {
+            "bottom_resistivity_ohm_m": np.broadcast_to(
+                np.asarray(bottom_resistivity_ohm_m, float), xa.shape)[:, None],
+            "top_thickness_m": np.broadcast_to(np.asarray(top_thickness_m, float),
+                                               xa.shape)[:, None],
+        }
     return earth_return.mutual_impedance(
-        h[None, :], ha[:, None], x[None, :] - xa[:, None], rho[:, None], frequency_hz)
+        h[None, :], ha[:, None], x[None, :] - xa[:, None], rho[:, None], frequency_hz, **layers)
 
 
 def emf_per_m(z_conductor_asset_ohm_per_m, conductor_currents_a):
@@ -487,7 +471,7 @@ def exposure_fault_emf(section_emf_v, section_unscreened_emf_v, exposure_of_sect
 
 
 class CircuitCurrents(NamedTuple):
-    """Result of :func:`_circuit_phase_currents`: one row per circuit."""
+    """Result of :func:`circuit_phase_currents`: one row per circuit."""
 
     #: Positive-sequence load currents of each circuit alone, shape
     #: (n_circuits, 3·n_circuits) [A]; the other circuits' conductors carry 0.
@@ -497,7 +481,7 @@ class CircuitCurrents(NamedTuple):
     residual_a: np.ndarray
 
 
-def _circuit_phase_currents(load_current_a_per_circuit, phasing, residual_current_pct=0.0,
+def circuit_phase_currents(load_current_a_per_circuit, phasing, residual_current_pct=0.0,
                             flow_direction=1.0, phase_offset_deg=0.0):
     """Phase currents of each circuit of a line on its own, balanced and residual parts.
 
@@ -560,7 +544,7 @@ def _circuit_phase_currents(load_current_a_per_circuit, phasing, residual_curren
     return CircuitCurrents(balanced, residual)
 
 
-def _outage_weights(load_current_a_per_circuit):
+def outage_weights(load_current_a_per_circuit):
     """Loading scenarios of a line: as given, and each circuit out of service in turn.
 
     Parameters
@@ -596,7 +580,7 @@ def _outage_weights(load_current_a_per_circuit):
 
 
 class WorstNormalEmf(NamedTuple):
-    """Result of :func:`_worst_normal_emf`."""
+    """Result of :func:`worst_normal_emf`."""
 
     #: Worst-case |EMF| of each segment over the unknowns [V].
     emf_v: np.ndarray
@@ -607,7 +591,7 @@ class WorstNormalEmf(NamedTuple):
     governing_scenario: np.ndarray
 
 
-def _worst_normal_emf(segment, line, group, emf_v, residual_emf_v, n_segments):
+def worst_normal_emf(segment, line, group, emf_v, residual_emf_v, n_segments):
     """Worst-case normal-load EMF per segment over unknown directions, angles and outages.
 
     Parameters

@@ -69,6 +69,15 @@ class Coupling:
     capacitive_current_a: np.ndarray
     earth_potential_fault_v: np.ndarray
     segment_fault_current_a: np.ndarray  # largest fault current of a line in reach
+    #: Normal-load scenario that governs each segment: "as given" or "outage <line> circuit <n>".
+    normal_governing: np.ndarray | None = None
+    #: Components of the normal-load EMF whose relative angles are unknown, sparse per
+    #: (component, segment): segment, slot (component's column, per asset) and EMF [V].
+    normal_component_segment: np.ndarray | None = None
+    normal_component_slot: np.ndarray | None = None
+    normal_component_emf_v: np.ndarray | None = None
+    #: Plain-language statement of what was unknown and how it was bounded.
+    normal_assumption: str = ""
 
 
 def _complex_bincount(index, values, n):
@@ -91,6 +100,102 @@ def _arrangement_arrays(arr):
     return x, h, r, gmr, res, phase_idx, ew_idx, phasing
 
 
+@dataclass
+class LineLoading:
+    """Per-circuit normal loading of every line and the N−1 outage scenarios.
+
+    Attributes
+    ----------
+    circuit_load_a, circuit_direction, circuit_offset_deg : list of ndarray, per line
+        Load current [A], flow direction (+1 along the digitised direction, −1
+        against) and phase-angle offset [deg] of each circuit, the line's own
+        direction and offset folded in where they are given.
+    group : ndarray of int, per line
+        Phase group: 0 for lines whose flow direction and phase offset are both
+        given (one common reference), a group of its own for every other line
+        (relative direction and angle unknown: the worst case over them).
+    known : ndarray of bool, per line
+        Direction and angle given.
+    weights : ndarray, shape (n_lines, n_scenarios, max_circuits)
+        Circuit weights per scenario (:func:`corridor.physics.induction.outage_weights`);
+        scenario 0 is the loading as given, rows a line lacks repeat it.
+    n_scenarios : int
+    """
+
+    circuit_load_a: list
+    circuit_direction: list
+    circuit_offset_deg: list
+    group: np.ndarray
+    known: np.ndarray
+    weights: np.ndarray
+    n_scenarios: int
+
+
+def _per_circuit(lines, li, field, n, default):
+    """Per-circuit values of a line field: ``"400;300"``, one number for all, or missing."""
+    from corridor.errors import InputError
+
+    if field not in lines:
+        return np.full(n, default, float)
+    raw = lines[field].iloc[li]
+    if raw is None or (isinstance(raw, float) and not np.isfinite(raw)):
+        return np.full(n, default, float)
+    parts = [p.strip() for p in str(raw).replace(",", ";").split(";") if p.strip()]
+    try:
+        values = np.array([float(p) for p in parts])
+    except ValueError:
+        raise InputError(f"power_lines: line {lines['line_id'].iloc[li]!r}, field {field}:"
+                         f" {raw!r} is not a number or a ';'-separated list of numbers") from None
+    if values.size == 1:
+        values = np.full(n, values[0])
+    if values.size != n:
+        raise InputError(f"power_lines: line {lines['line_id'].iloc[li]!r}, field {field}:"
+                         f" {values.size} values for {n} circuits")
+    return values
+
+
+def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
+    """Per-circuit loading of every line, its phase group and the outage scenarios.
+
+    Line fields (all optional): ``circuit_load_current_a``, ``circuit_flow_direction``
+    and ``circuit_phase_offset_deg`` (one value or ``"a;b"`` per circuit; defaults
+    ``load_current_a``, +1 and 0), ``flow_direction`` (±1) and ``phase_offset_deg``
+    against the common reference. Where the line's direction or offset is missing it
+    is unknown, and the coupling takes the worst case over it (docs/methods.md §8).
+    Run setting ``outage_scenario`` (default true): also evaluate each circuit of a
+    multi-circuit line out of service with the others carrying the line's total.
+    """
+    n_lines = len(lines)
+    load = lines["load_current_a"].to_numpy(float)
+    arr_names = lines["arrangement"].to_numpy(dtype=object)
+    direction = (lines["flow_direction"].to_numpy(float) if "flow_direction" in lines
+                 else np.full(n_lines, np.nan))
+    offset = (lines["phase_offset_deg"].to_numpy(float) if "phase_offset_deg" in lines
+              else np.full(n_lines, np.nan))
+    known = np.isfinite(direction) & np.isfinite(offset)
+    group = np.where(known, 0, 1 + np.arange(n_lines))
+    outage = bool(cfg.run.get("outage_scenario", True))
+    max_nc = max(n_circuits_by_arrangement.values(), default=1)
+    n_scen = 1 + max_nc if (outage and max_nc > 1) else 1
+    weights = np.ones((n_lines, n_scen, max_nc))
+    loads, dirs, offs = [], [], []
+    for li in range(n_lines):
+        nc = n_circuits_by_arrangement.get(arr_names[li], 1)
+        c_load = _per_circuit(lines, li, "circuit_load_current_a", nc, load[li])
+        c_dir = _per_circuit(lines, li, "circuit_flow_direction", nc, 1.0)
+        c_off = _per_circuit(lines, li, "circuit_phase_offset_deg", nc, 0.0)
+        line_dir = direction[li] if np.isfinite(direction[li]) else 1.0
+        line_off = offset[li] if np.isfinite(offset[li]) else 0.0
+        loads.append(c_load)
+        dirs.append(c_dir * line_dir)
+        offs.append(c_off + line_off)
+        if n_scen > 1 and nc > 1:
+            w = induction.outage_weights(c_load)
+            weights[li, :len(w), :nc] = w
+    return LineLoading(loads, dirs, offs, group, known, weights, n_scen)
+
+
+
 def couple(cfg, inputs, geo) -> Coupling:
     """Compute the coupling quantities of every asset segment.
 
@@ -111,6 +216,13 @@ def couple(cfg, inputs, geo) -> Coupling:
     sec_line = pairs.line[sec.pair]
     sec_asset = seg.feature[sec_seg]
     rho = geo.soil_resistivity_ohm_m[sec_seg]
+    # two-layer soil (bottom resistivity, top thickness) per segment, NaN: homogeneous
+    rho2_seg = getattr(geo, "soil_bottom_resistivity_ohm_m", None)
+    t_seg = getattr(geo, "soil_top_thickness_m", None)
+    layered = (rho2_seg is not None and t_seg is not None
+               and bool(np.any(np.isfinite(rho2_seg) & np.isfinite(t_seg))))
+    rho2 = np.asarray(rho2_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
+    t_top = np.asarray(t_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
     asset_h = assets["height_m"].to_numpy(float)[sec_asset]
     # position along the line and fault current at each section
     line_len = geo.edges.line_length_m
@@ -124,6 +236,11 @@ def couple(cfg, inputs, geo) -> Coupling:
     i_fault = if_start[sec_line] + (if_end[sec_line] - if_start[sec_line]) * frac
 
     emf_normal_sec = np.zeros(len(sec), complex)
+    loading = line_loading(cfg, lines, {n: a.n_circuits for n, a in cfg.arrangements.items()})
+    n_scen = loading.n_scenarios
+    # per section: balanced and residual EMF of its line in each loading scenario [V]
+    bal_sec = np.zeros((len(sec), n_scen), complex)
+    res_sec = np.zeros((len(sec), n_scen), complex)
     cap_sec = np.zeros(len(sec), complex)
     # fault EMF per section per candidate phase (up to 6 phases per arrangement)
     max_phases = max((len(_arrangement_arrays(a)[5]) for a in cfg.arrangements.values()),
@@ -131,7 +248,6 @@ def couple(cfg, inputs, geo) -> Coupling:
     fault_sec = np.zeros((len(sec), max_phases), complex)
     fault_unscreened = np.zeros((len(sec), max_phases), complex)
     phase_labels = np.full((len(lines), max_phases), "", dtype=object)
-    load = lines["load_current_a"].to_numpy(float)
     resid = lines["residual_current_pct"].to_numpy(float)
     kv = lines["voltage_kv"].to_numpy(float)
     arr_names = lines["arrangement"].to_numpy(dtype=object)
@@ -151,17 +267,39 @@ def couple(cfg, inputs, geo) -> Coupling:
         if not in_arr.any():
             continue
         idx = np.flatnonzero(in_arr)
-        # conductor currents per unique soil: normal load per line, unit faults
-        rhos, inv = np.unique(rho[idx], return_inverse=True)
+        # conductor currents per unique soil: each circuit's balanced and residual load
+        # currents on their own (the EMF is linear in them), unit faults
+        soil_key = np.stack([rho[idx], np.nan_to_num(rho2[idx], nan=-1.0),
+                             np.nan_to_num(t_top[idx], nan=-1.0)])
+        soils, inv = np.unique(soil_key, axis=1, return_inverse=True)
+        inv = inv.ravel()
+        soil_layers = {}
+        if layered:
+            soil_layers = {"bottom_resistivity_ohm_m": np.where(soils[1] > 0, soils[1], np.nan),
+                           "top_thickness_m": np.where(soils[2] > 0, soils[2], np.nan)}
         line_local = {li: i for i, li in enumerate(line_rows)}
-        ip_all = np.array([
-            induction.normal_phase_currents(np.full(arr.n_circuits, load[li]), phasing,
-                                            resid[li]) for li in line_rows])
-        currents = induction.conductor_currents(x, h, gmr, res, p_idx, s_idx, ip_all, rhos, f)
+        nc = arr.n_circuits
+        cases = []
+        for li in line_rows:
+            cc = induction.circuit_phase_currents(
+                loading.circuit_load_a[li][:nc], phasing, resid[li],
+                loading.circuit_direction[li][:nc], loading.circuit_offset_deg[li][:nc])
+            cases.append(np.vstack([cc.balanced_a, cc.residual_a]))
+        ip_all = np.vstack(cases)  # (n_lines·2·nc, n_phase)
+        currents = induction.conductor_currents(x, h, gmr, res, p_idx, s_idx, ip_all, soils[0],
+                                                f, **soil_layers)
         li_local = np.array([line_local[v] for v in sec_line[idx]])
-        zma = induction.asset_mutual_impedance(x, h, sec.offset_m[idx], asset_h[idx], rho[idx], f)
-        e_normal = induction.emf_per_m(zma, currents.normal_a[inv, li_local])
-        emf_normal_sec[idx] = e_normal * sec.projected_length_m[idx]
+        sec_layers = ({"bottom_resistivity_ohm_m": rho2[idx], "top_thickness_m": t_top[idx]}
+                      if layered else {})
+        zma = induction.asset_mutual_impedance(x, h, sec.offset_m[idx], asset_h[idx], rho[idx], f,
+                                               **sec_layers)
+        rows = li_local[:, None] * 2 * nc + np.arange(2 * nc)[None, :]
+        e_cases = induction.emf_per_m(zma, currents.normal_a[inv[:, None], rows])
+        e_cases = e_cases * sec.projected_length_m[idx, None]  # (n_idx, 2·nc) [V]
+        weights = loading.weights[sec_line[idx]][:, :, :nc]  # (n_idx, n_scen, nc)
+        bal_sec[idx] = np.einsum("psc,pc->ps", weights, e_cases[:, :nc])
+        res_sec[idx] = np.einsum("psc,pc->ps", weights, e_cases[:, nc:])
+        emf_normal_sec[idx] = bal_sec[idx, 0] + res_sec[idx, 0]
         fe = induction.fault_emf_per_m(zma, currents.fault_per_unit[inv], p_idx, i_fault[idx])
         fault_sec[idx, :len(p_idx)] = fe.emf_v_per_m * sec.projected_length_m[idx, None]
         fault_unscreened[idx, :len(p_idx)] = (fe.unscreened_emf_v_per_m
@@ -182,6 +320,13 @@ def couple(cfg, inputs, geo) -> Coupling:
                 cap_sec[sel] = cc.short_circuit_current_a_per_m * seg_len * share
 
     segment_emf_normal = _complex_bincount(sec_seg, emf_normal_sec, n_seg)
+    normal = worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading, n_seg,
+                               lines["line_id"].to_numpy(dtype=object))
+    # the EMF columns carry the worst case over the unknowns, with the phase of the loading
+    # as given (the response solves the components separately: Coupling.normal_*)
+    as_given = np.abs(segment_emf_normal)
+    segment_emf_normal = np.where(as_given > 0, segment_emf_normal / np.where(
+        as_given > 0, as_given, 1.0), 1.0) * normal.emf_v
     cap_seg = _complex_bincount(sec_seg, cap_sec, n_seg)
 
     # fault cases: one per (asset, line) pair with any exposure
@@ -219,7 +364,81 @@ def couple(cfg, inputs, geo) -> Coupling:
         capacitive_current_a=cap_seg,
         earth_potential_fault_v=epr,
         segment_fault_current_a=seg_fault_current,
+        normal_governing=normal.governing,
+        normal_component_segment=normal.component_segment,
+        normal_component_slot=normal.component_slot,
+        normal_component_emf_v=normal.component_emf_v,
+        normal_assumption=normal.assumption,
     )
+
+
+@dataclass
+class WorstNormal:
+    """Result of :func:`worst_case_normal`."""
+
+    emf_v: np.ndarray  # worst |EMF| per segment [V]
+    governing: np.ndarray  # scenario label per segment
+    component_segment: np.ndarray
+    component_slot: np.ndarray
+    component_emf_v: np.ndarray
+    assumption: str
+
+
+def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: LineLoading,
+                      n_seg, line_ids) -> WorstNormal:
+    """Worst-case normal-load EMF per segment and its independent components.
+
+    The worst |EMF| over unknown relative directions and angles and over the N−1 outage
+    scenarios comes from :func:`corridor.physics.induction.worst_normal_emf` (closed form:
+    Σ over phase groups of |group phasor sum| + Σ over lines of |residual|). The
+    components (each phase group's balanced EMF, each line's residual EMF, in the
+    segment's governing scenario) are what the response solves one by one: the worst
+    voltage at a node is then Σ |V_component| (docs/methods.md §8).
+    """
+    worst = induction.worst_normal_emf(sec_seg, sec_line, loading.group[sec_line], bal_sec,
+                                       res_sec, n_seg)
+    n_sec = len(sec_seg)
+    # scenario of each section: the governing outage where it concerns the section's line
+    gov_line = np.where(worst.governing_entry >= 0,
+                        sec_line[np.maximum(worst.governing_entry, 0)] if n_sec else -1, -1)
+    scen = np.where(gov_line[sec_seg] == sec_line, worst.governing_scenario[sec_seg], 0)
+    rows = np.arange(n_sec)
+    bal = bal_sec[rows, scen] if n_sec else np.zeros(0, complex)
+    res = res_sec[rows, scen] if n_sec else np.zeros(0, complex)
+    governing = np.full(n_seg, "as given", dtype=object)
+    for k in np.flatnonzero(worst.governing_entry >= 0):
+        governing[k] = (f"outage {line_ids[gov_line[k]]} circuit"
+                        f" {int(worst.governing_scenario[k])}")
+    # components: (asset, phase group) balanced, (asset, line) residual
+    n_lines = len(loading.group)
+    comp_key = np.concatenate([sec_asset.astype(np.int64) * (2 * n_lines + 2)
+                               + loading.group[sec_line],
+                               sec_asset.astype(np.int64) * (2 * n_lines + 2) + n_lines + 1
+                               + sec_line])
+    values = np.concatenate([bal, res])
+    segs = np.concatenate([sec_seg, sec_seg])
+    comps, comp_of = np.unique(comp_key, return_inverse=True)
+    comp_of = comp_of.ravel()
+    entry_key = comp_of.astype(np.int64) * max(n_seg, 1) + segs
+    entries, entry_of = np.unique(entry_key, return_inverse=True)
+    emf = _complex_bincount(entry_of.ravel(), values, len(entries))
+    entry_comp = entries // max(n_seg, 1)
+    entry_seg = entries % max(n_seg, 1)
+    comp_asset = comps // (2 * n_lines + 2)
+    first = np.searchsorted(comp_asset, comp_asset, side="left")
+    slot = (np.arange(len(comps)) - first)[entry_comp]
+    unknown = int(np.sum(~loading.known))
+    assumption = (
+        "Normal load: the flow direction and phase angle of each line relative to the others"
+        " are taken as unknown unless the line gives flow_direction and phase_offset_deg"
+        f" ({unknown} of {n_lines} lines without them), and the residual current's angle is"
+        " unknown; EMFs and voltages are the worst case over these angles (sum of magnitudes"
+        " of the independent parts)."
+        + (" Each circuit of a multi-circuit line is also taken out of service in turn, the"
+           " others carrying the line's total, and the worse case is kept."
+           if loading.n_scenarios > 1 else ""))
+    return WorstNormal(worst.emf_v, governing, entry_seg.astype(np.int64),
+                       slot.astype(np.int64), emf, assumption)
 
 
 def _asset_radius(assets) -> np.ndarray:

@@ -25,7 +25,7 @@ S_IDX = [3]
 def _line_emf(offsets_m, phasing="ABC", direction=1.0, offset_deg=0.0, x=X, load=400.0,
               pct=5.0):
     """Balanced and residual EMF per metre of the line on assets at ``offsets_m``."""
-    cc = ind._circuit_phase_currents([load], [phasing], pct, direction, offset_deg)
+    cc = ind.circuit_phase_currents([load], [phasing], pct, direction, offset_deg)
     cases = np.vstack([cc.balanced_a, cc.residual_a])
     cur = ind.conductor_currents(x, H, GMR, RES, P_IDX, S_IDX, cases, [100.0], 50.0)
     z = ind.asset_mutual_impedance(x, H, offsets_m, -1.5, 100.0, 50.0)
@@ -44,7 +44,7 @@ def test_two_lines_of_unknown_direction_and_angle_give_the_sum_of_magnitudes():
     seg = np.r_[np.arange(n), np.arange(n)]
     line = np.r_[np.zeros(n, int), np.ones(n, int)]
     zero = np.zeros(2 * n, complex)
-    worst = ind._worst_normal_emf(seg, line, line, np.r_[e1, e2], zero, n)
+    worst = ind.worst_normal_emf(seg, line, line, np.r_[e1, e2], zero, n)
     np.testing.assert_allclose(worst.emf_v, np.abs(e1) + np.abs(e2), rtol=1e-12)
     # brute force over the relative angle, 3600 steps: the closed form is the maximum
     psi = np.linspace(0, 2 * np.pi, 3601)
@@ -62,7 +62,7 @@ def test_given_relative_angle_gives_the_phasor_sum():
     n = len(off)
     seg = np.r_[np.arange(n), np.arange(n)]
     line = np.r_[np.zeros(n, int), np.ones(n, int)]
-    worst = ind._worst_normal_emf(seg, line, np.zeros(2 * n, int), np.r_[e1, e2],
+    worst = ind.worst_normal_emf(seg, line, np.zeros(2 * n, int), np.r_[e1, e2],
                                   np.zeros(2 * n, complex), n)
     np.testing.assert_allclose(worst.emf_v, np.abs(e1 + e2), rtol=1e-12)
 
@@ -80,7 +80,7 @@ def test_residual_of_unknown_angle_adds_its_magnitude():
     # Closed form: max over the residual's angle of |E + e^{jψ}R| = |E| + |R|.
     e = np.array([3.0 + 1j, 0.5 - 2j])
     r = np.array([0.2 + 0.4j, 1.0 + 0j])
-    worst = ind._worst_normal_emf([0, 1], [0, 0], [0, 0], e, r, 2)
+    worst = ind.worst_normal_emf([0, 1], [0, 0], [0, 0], e, r, 2)
     np.testing.assert_allclose(worst.emf_v, np.abs(e) + np.abs(r), rtol=1e-14)
     psi = np.linspace(0, 2 * np.pi, 7201)
     brute = np.abs(e[:, None] + np.exp(1j * psi) * r[:, None]).max(axis=1)
@@ -89,12 +89,12 @@ def test_residual_of_unknown_angle_adds_its_magnitude():
 
 def test_outage_weights_carry_the_line_total():
     # One circuit out, the other carries the line's total (issue's 345 kV example: 2 × 400 A).
-    w = ind._outage_weights([400.0, 400.0])
+    w = ind.outage_weights([400.0, 400.0])
     np.testing.assert_array_equal(w, [[1, 1], [0, 2], [2, 0]])
-    w3 = ind._outage_weights([300.0, 200.0, 100.0])
+    w3 = ind.outage_weights([300.0, 200.0, 100.0])
     load = np.array([300.0, 200.0, 100.0])
     np.testing.assert_allclose((w3 * load).sum(axis=1), 600.0)
-    assert ind._outage_weights([500.0]).shape == (1, 1)
+    assert ind.outage_weights([500.0]).shape == (1, 1)
 
 
 def test_outage_scenario_is_kept_when_worse():
@@ -106,15 +106,15 @@ def test_outage_scenario_is_kept_when_worse():
     res = np.r_[np.full(6, 0.06), 2.0] / 1000.0
     p, s = list(range(6)), [6]
     load = np.array([400.0, 400.0])
-    cc = ind._circuit_phase_currents(load, ["ABC", "CBA"], 0.0)
+    cc = ind.circuit_phase_currents(load, ["ABC", "CBA"], 0.0)
     cur = ind.conductor_currents(x, h, gmr, res, p, s, cc.balanced_a, [100.0], 50.0)
     off = np.array([60.0, 200.0])
     z = ind.asset_mutual_impedance(x, h, off, -1.5, 100.0, 50.0)
     per_circuit = np.stack([ind.emf_per_m(z, np.broadcast_to(cur.normal_a[0, c], (2, 7)))
                             for c in range(2)], axis=1)  # (n_seg, n_circuit)
-    w = ind._outage_weights(load)
+    w = ind.outage_weights(load)
     scen = per_circuit @ w.T  # (n_seg, n_scenarios)
-    worst = ind._worst_normal_emf([0, 1], [0, 0], [0, 0], scen, np.zeros_like(scen), 2)
+    worst = ind.worst_normal_emf([0, 1], [0, 0], [0, 0], scen, np.zeros_like(scen), 2)
     expected = np.abs(scen).max(axis=1)
     np.testing.assert_allclose(worst.emf_v, expected, rtol=1e-12)
     assert np.all(np.abs(scen[:, 1:]).max(axis=1) > 2 * np.abs(scen[:, 0]))
@@ -150,8 +150,8 @@ def test_reversing_or_relabelling_a_line_never_lowers_the_worst_case(offsets, li
     n = len(off)
     seg = np.r_[np.arange(n), np.arange(n)]
     line = np.r_[np.zeros(n, int), np.ones(n, int)]
-    w0 = ind._worst_normal_emf(seg, line, line, np.r_[e1, base2], np.r_[r1, rb2], n).emf_v
-    w1 = ind._worst_normal_emf(seg, line, line, np.r_[e1, alt2], np.r_[r1, ra2], n).emf_v
+    w0 = ind.worst_normal_emf(seg, line, line, np.r_[e1, base2], np.r_[r1, rb2], n).emf_v
+    w1 = ind.worst_normal_emf(seg, line, line, np.r_[e1, alt2], np.r_[r1, ra2], n).emf_v
     assert np.all(w1 >= w0 * (1 - 1e-9))
     assert np.all(w0 >= w1 * (1 - 1e-9))
 
@@ -159,7 +159,7 @@ def test_reversing_or_relabelling_a_line_never_lowers_the_worst_case(offsets, li
 def test_known_angle_and_direction_can_cancel():
     # With everything given, two opposite lines cancel: the phasor sum, not the worst case.
     e = np.array([1.0 + 1j, -(1.0 + 1j)])
-    w = ind._worst_normal_emf([0, 0], [0, 1], [0, 0], e, np.zeros(2, complex), 1)
+    w = ind.worst_normal_emf([0, 0], [0, 1], [0, 0], e, np.zeros(2, complex), 1)
     assert w.emf_v[0] == pytest.approx(0.0, abs=1e-15)
-    w = ind._worst_normal_emf([0, 0], [0, 1], [0, 1], e, np.zeros(2, complex), 1)
+    w = ind.worst_normal_emf([0, 0], [0, 1], [0, 1], e, np.zeros(2, complex), 1)
     assert w.emf_v[0] == pytest.approx(2 * np.sqrt(2))
