@@ -45,7 +45,8 @@ def test_pipeline_peaks_at_joint_and_exposure_ends(demo):
     ch = (p["chainage_m"] + p["length_m"] / 2).to_numpy()
     v = p["v_normal_v"].to_numpy()
     joint_m = np.hypot(5000, 1730) + 4500  # IJ1 at (4500, -70) in the demo generator
-    assert abs(ch[np.argmax(v)] - joint_m) <= 60.0
+    # (the two segments either side of the peak node share its voltage: either may be first)
+    assert np.min(np.abs(ch[v >= v.max() * (1 - 1e-9)] - joint_m)) <= 60.0
     # the 70 m parallel run begins at chainage 5291 m and ends near 14.3 km
     peaks = [ch[i] for i in range(1, len(v) - 1) if v[i] >= v[i - 1] and v[i] >= v[i + 1]]
     for end_m in (np.hypot(5000, 1730), np.hypot(5000, 1730) + 9000):
