@@ -822,8 +822,10 @@ def _worst_exposures(run) -> pd.DataFrame:
 
 _ASSUMPTIONS = [
     "Steady-state phasors at the run frequency; |V| is the magnitude to remote earth.",
-    "Earth-return coupling from Carson's equations (Sunde's surface form for buried assets)"
-    " in homogeneous soil, one resistivity per segment from the soil layer or the default.",
+    "Earth-return coupling from Carson's equations (Sunde's surface form for buried assets),"
+    " in homogeneous or two-layer soil (Sunde's layered kernel) per segment from the soil"
+    " layer or the default; holiday density, foot resistance, electrodes and earth potential"
+    " use the local (or top-layer) resistivity.",
     "Oblique exposures are split until the end separations differ by at most a factor of 3,"
     " each section taking the geometric-mean separation (ITU-T Directives practice).",
     "One earth fault at a time; each segment takes its worst case. Earth-wire screening is"
@@ -1019,8 +1021,12 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
         body.append(_table(crows, list(crows.columns), f"{ls.name}: {len(crows)} criteria"))
         body.append("</section>")
 
+    run_assumptions = list(_ASSUMPTIONS)
+    extra_json = run.extra_tables.get("json", {}) if hasattr(run, "extra_tables") else {}
+    if isinstance(extra_json, dict) and extra_json.get("normal_load_assumption"):
+        run_assumptions.insert(1, str(extra_json["normal_load_assumption"]))
     body.append('<section id="assumptions"><h2>Method and assumptions</h2><ul>'
-                + "".join(f"<li>{_esc(a)}</li>" for a in _ASSUMPTIONS) + "</ul></section>")
+                + "".join(f"<li>{_esc(a)}</li>" for a in run_assumptions) + "</ul></section>")
     body.append(f"<footer>{_esc(SAFETY_CAUTION)}</footer>")
 
     doc = ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"

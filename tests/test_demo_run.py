@@ -124,3 +124,13 @@ def test_determinism(demo):
     pd.testing.assert_frame_equal(
         pd.DataFrame(demo.extra_tables["layer:sites"].drop(columns="geometry")),
         pd.DataFrame(again.extra_tables["layer:sites"].drop(columns="geometry")))
+
+
+def test_normal_load_worst_case_is_stated_and_named(demo):
+    # Issue 15: unknown directions and angles give the worst case, run.json says so, and the
+    # governing loading scenario is an output column.
+    text = demo.extra_tables["json"]["normal_load_assumption"]
+    assert "worst case" in text and "out of service" in text
+    scen = demo.segment_table["normal_scenario"].astype(str)
+    assert scen.isin(["as given"]).any() or scen.str.startswith("outage ").any()
+    assert (scen.eq("as given") | scen.str.startswith("outage ")).all()

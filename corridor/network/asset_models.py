@@ -301,7 +301,8 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
         Distance between posts [m].
     post_resistance_ohm : array_like
         Resistance to earth of one post [Ω], whatever its material; NaN takes
-        the material's typical value, :data:`TYPICAL_POST_RESISTANCE_OHM`.
+        the material's typical value, :data:`TYPICAL_POST_RESISTANCE_OHM`; inf
+        (wires on insulators) leaves the capacitance alone.
     post_type : array_like of str
         ``"metal"`` or ``"wood"``. Every post leaks: a wet wooden post is no
         insulator (a few kΩ, from memory).
@@ -355,7 +356,7 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
     r_post = np.asarray(post_resistance_ohm, dtype=float)
     typical = np.where(kind == "wood", TYPICAL_POST_RESISTANCE_OHM["wood"],
                        TYPICAL_POST_RESISTANCE_OHM["metal"])
-    r_post = np.where(np.isfinite(r_post), r_post, typical)
+    r_post = np.where(np.isnan(r_post), typical, r_post)  # inf: posts on insulators
     if np.any(r_post <= 0) or np.any(spacing <= 0):
         raise InputError("post_resistance_ohm and post_spacing_m: must be > 0")
     y = 1.0 / (r_post * spacing) + 1j * omega * wire_capacitance(height_m, r_w)

@@ -63,6 +63,9 @@ def response_columns(run, rs, t) -> None:
     t["emf_normal_v_per_km"] = emf_n / length_km
     t["emf_fault_v_per_km"] = emf_f / length_km
     t["emf_normal_v"] = emf_n
+    governing = getattr(cp, "normal_governing", None)
+    t["normal_scenario"] = (np.asarray(governing, dtype=object)[sel] if governing is not None
+                            else np.full(len(t), "as given", dtype=object))
     t["emf_fault_v"] = emf_f
     t["v_normal_v"] = rs.v_normal_v
     t["i_normal_a"] = rs.i_normal_a

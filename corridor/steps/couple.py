@@ -76,8 +76,6 @@ class Coupling:
     normal_component_segment: np.ndarray | None = None
     normal_component_slot: np.ndarray | None = None
     normal_component_emf_v: np.ndarray | None = None
-    #: Plain-language statement of what was unknown and how it was bounded.
-    normal_assumption: str = ""
 
 
 def _complex_bincount(index, values, n):
@@ -196,6 +194,29 @@ def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
 
 
 
+def normal_load_assumption(cfg, lines) -> str:
+    """Plain-language statement of the normal-load unknowns and how they are bounded.
+
+    For run.json (``normal_load_assumption``) and the report (docs/methods.md §8).
+    """
+    n_lines = len(lines)
+    given = np.zeros(n_lines, bool)
+    if "flow_direction" in lines and "phase_offset_deg" in lines:
+        given = (np.isfinite(lines["flow_direction"].to_numpy(float))
+                 & np.isfinite(lines["phase_offset_deg"].to_numpy(float)))
+    text = ("Normal load: the flow direction and phase angle of each power line relative to"
+            " the others are unknown unless the line gives flow_direction and phase_offset_deg"
+            f" ({int(n_lines - given.sum())} of {n_lines} lines give neither or only one), and"
+            " the residual current's angle is unknown; the normal-load EMF, voltage and current"
+            " are the worst case over these angles (the sum of the magnitudes of the"
+            " independent parts).")
+    if bool(cfg.run.get("outage_scenario", True)):
+        text += (" Each circuit of a multi-circuit line is also taken out of service in turn,"
+                 " the others carrying the line's total load; the worse case is kept and named"
+                 " in the column normal_scenario.")
+    return text
+
+
 def couple(cfg, inputs, geo) -> Coupling:
     """Compute the coupling quantities of every asset segment.
 
@@ -253,6 +274,8 @@ def couple(cfg, inputs, geo) -> Coupling:
     arr_names = lines["arrangement"].to_numpy(dtype=object)
     is_above = asset_h > 0.0
     asset_radius = _asset_radius(assets)[sec_asset]
+    wire_count = _bonded_wire_count(assets)[sec_asset]
+    share = section_share(pairs, sec)
 
     for name in sorted(set(arr_names)):
         arr = cfg.arrangements[name]
@@ -311,13 +334,11 @@ def couple(cfg, inputs, geo) -> Coupling:
                 sel = above[sec_line[above] == li]
                 v_ph = capacitive.phase_to_earth_voltages(kv[li], conductor_phase)
                 cc = capacitive.capacitive_coupling(
-                    x, h, r, v_ph, sec.offset_m[sel], asset_h[sel], asset_radius[sel], f)
-                # the current a section drives scales with its length along the line
+                    x, h, r, v_ph, sec.offset_m[sel], asset_h[sel], asset_radius[sel], f,
+                    asset_wire_count=wire_count[sel], asset_wire_spacing_m=FENCE_WIRE_SPACING_M)
+                # the current a section drives scales with its share of the segment
                 seg_len = seg.length_m[sec_seg[sel]]
-                pair_proj = np.abs(pairs.projected_length_m[sec.pair[sel]])
-                share = np.abs(sec.projected_length_m[sel]) / np.where(pair_proj > 0, pair_proj,
-                                                                       1.0)
-                cap_sec[sel] = cc.short_circuit_current_a_per_m * seg_len * share
+                cap_sec[sel] = cc.short_circuit_current_a_per_m * seg_len * share[sel]
 
     segment_emf_normal = _complex_bincount(sec_seg, emf_normal_sec, n_seg)
     normal = worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading, n_seg,
@@ -368,7 +389,6 @@ def couple(cfg, inputs, geo) -> Coupling:
         normal_component_segment=normal.component_segment,
         normal_component_slot=normal.component_slot,
         normal_component_emf_v=normal.component_emf_v,
-        normal_assumption=normal.assumption,
     )
 
 
@@ -381,7 +401,6 @@ class WorstNormal:
     component_segment: np.ndarray
     component_slot: np.ndarray
     component_emf_v: np.ndarray
-    assumption: str
 
 
 def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: LineLoading,
@@ -427,18 +446,44 @@ def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: L
     comp_asset = comps // (2 * n_lines + 2)
     first = np.searchsorted(comp_asset, comp_asset, side="left")
     slot = (np.arange(len(comps)) - first)[entry_comp]
-    unknown = int(np.sum(~loading.known))
-    assumption = (
-        "Normal load: the flow direction and phase angle of each line relative to the others"
-        " are taken as unknown unless the line gives flow_direction and phase_offset_deg"
-        f" ({unknown} of {n_lines} lines without them), and the residual current's angle is"
-        " unknown; EMFs and voltages are the worst case over these angles (sum of magnitudes"
-        " of the independent parts)."
-        + (" Each circuit of a multi-circuit line is also taken out of service in turn, the"
-           " others carrying the line's total, and the worse case is kept."
-           if loading.n_scenarios > 1 else ""))
     return WorstNormal(worst.emf_v, governing, entry_seg.astype(np.int64),
-                       slot.astype(np.int64), emf, assumption)
+                       slot.astype(np.int64), emf)
+
+
+def section_share(pairs, sec) -> np.ndarray:
+    """Each section's share of its segment's length, continuous in the crossing angle.
+
+    A section's share is its part of the pair's projected length; a segment at exactly
+    90° to the line projects to nothing, and there the share is the section's part of
+    the separation range the segment spans (the limit of the projected share as the
+    angle tends to 90°, up to the separation floor near a crossing), so the capacitive
+    pickup of a perpendicular segment does not drop to zero (issue 15).
+    """
+    n_pairs = len(pairs)
+    pair_proj = np.abs(pairs.projected_length_m[sec.pair])
+    dsep = np.abs(sec.separation_end_m - sec.separation_start_m)
+    tot = np.bincount(sec.pair, weights=dsep, minlength=n_pairs)[sec.pair]
+    count = np.bincount(sec.pair, minlength=n_pairs)[sec.pair]
+    by_sep = np.where(tot > 0, dsep / np.where(tot > 0, tot, 1.0), 1.0 / np.maximum(count, 1))
+    projects = pair_proj > 1e-9
+    return np.where(projects, np.abs(sec.projected_length_m) / np.where(projects, pair_proj,
+                                                                         1.0), by_sep)
+
+
+#: Vertical spacing of bonded fence wires for the electric-field bundle [m] (common
+#: practice; the induction model uses the same, asset_models.FENCE_WIRE_SPACING_M).
+FENCE_WIRE_SPACING_M = 0.3
+
+
+def _bonded_wire_count(assets) -> np.ndarray:
+    """Bonded wires of each asset for the electric-field coupling (fences: wire_count)."""
+    kind = assets["asset_kind"].to_numpy(dtype=object)
+    out = np.ones(len(assets), np.int64)
+    if "wire_count" in assets:
+        wc = assets["wire_count"].to_numpy(float)
+        out = np.where((kind == "fence") & np.isfinite(wc) & (wc >= 1),
+                       np.nan_to_num(wc, nan=1.0), 1).astype(np.int64)
+    return out
 
 
 def _asset_radius(assets) -> np.ndarray:

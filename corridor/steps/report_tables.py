@@ -133,6 +133,10 @@ def stage_tables(run) -> None:
     missing = not_assessed_criteria(run)
     extra = dict(run.extra_tables.get("json", {}))
     extra["not_assessed"] = missing
+    # the normal-load worst case over unknown directions and angles (docs/methods.md §8)
+    from corridor.steps.couple import normal_load_assumption
+
+    extra["normal_load_assumption"] = normal_load_assumption(run.config, run.inputs.lines)
     run.extra_tables["json"] = extra
     run.counts["criteria_not_assessed"] = len(missing)
     for row in missing:
