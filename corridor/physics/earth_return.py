@@ -26,7 +26,7 @@ import functools
 import math
 
 import numpy as np
-from scipy import interpolate, ndimage, special
+from scipy import ndimage, special
 
 from corridor.physics.constants import EULER_GAMMA, MU0_H_PER_M
 
@@ -529,6 +529,8 @@ class _TwoLayerTable:
         n_d = round(8 * math.log10(self.D_MAX_M / self.D_MIN_M)) + 1
         self.log_d = np.linspace(math.log(self.D_MIN_M), math.log(self.D_MAX_M), n_d)
         self.theta = np.linspace(0.0, 0.5 * math.pi, 17)
+        from scipy import interpolate  # heavy import, only where a soil has two layers
+
         values = _two_layer_rows(np.broadcast_to(np.exp(self.log_d), (len(self.theta), n_d)),
                                  self.theta, self.m1sq, self.m2sq, self.thickness_m,
                                  self.reference_bottom).T

@@ -647,24 +647,25 @@ def worst_normal_emf(segment, line, group, emf_v, residual_emf_v, n_segments):
     if len(seg) == 0:
         return WorstNormalEmf(out, gov_entry, gov_scen)
     # one entry per (segment, line)
-    key = np.stack([seg, lin])
-    uniq, first, inv = np.unique(key, axis=1, return_index=True, return_inverse=True)
+    n_line = int(lin.max()) + 1
+    key = seg * n_line + lin
+    uniq, first, inv = np.unique(key, return_index=True, return_inverse=True)
     inv = inv.ravel()
-    n_u = uniq.shape[1]
+    n_u = len(uniq)
     eu = np.zeros((n_u, n_scen), complex)
     ru = np.zeros((n_u, n_scen), complex)
     for s in range(n_scen):
         eu[:, s] = _complex_bincount(inv, e[:, s], n_u)
         ru[:, s] = _complex_bincount(inv, r[:, s], n_u)
-    useg = uniq[0]
+    useg = uniq // n_line
     ugrp = grp[first]
     # group phasor sums per (segment, group), as given
-    gkey = np.stack([useg, ugrp])
-    _g_uniq, g_inv = np.unique(gkey, axis=1, return_inverse=True)
+    n_grp = int(ugrp.max()) + 1
+    g_uniq, g_inv = np.unique(useg * n_grp + ugrp, return_inverse=True)
     g_inv = g_inv.ravel()
-    n_g = _g_uniq.shape[1]
+    n_g = len(g_uniq)
     g_sum = _complex_bincount(g_inv, eu[:, 0], n_g)
-    out = (np.bincount(_g_uniq[0], weights=np.abs(g_sum), minlength=n_segments)
+    out = (np.bincount(g_uniq // n_grp, weights=np.abs(g_sum), minlength=n_segments)
            + np.bincount(useg, weights=np.abs(ru[:, 0]), minlength=n_segments))
     if n_scen > 1:
         gs = g_sum[g_inv][:, None]

@@ -292,9 +292,13 @@ def couple(cfg, inputs, geo) -> Coupling:
         idx = np.flatnonzero(in_arr)
         # conductor currents per unique soil: each circuit's balanced and residual load
         # currents on their own (the EMF is linear in them), unit faults
-        soil_key = np.stack([rho[idx], np.nan_to_num(rho2[idx], nan=-1.0),
-                             np.nan_to_num(t_top[idx], nan=-1.0)])
-        soils, inv = np.unique(soil_key, axis=1, return_inverse=True)
+        if layered:
+            soil_key = np.stack([rho[idx], np.nan_to_num(rho2[idx], nan=-1.0),
+                                 np.nan_to_num(t_top[idx], nan=-1.0)])
+            soils, inv = np.unique(soil_key, axis=1, return_inverse=True)
+        else:  # homogeneous soils: a 1-D unique is much faster
+            rhos, inv = np.unique(rho[idx], return_inverse=True)
+            soils = rhos[None, :]
         inv = inv.ravel()
         soil_layers = {}
         if layered:
