@@ -93,6 +93,13 @@ def response_columns(run, rs, t) -> None:
     t["i_capacitive_body_ma"] = np.where(above, rs.i_capacitive_body_ma, 0.0)
     t["capacitive_source_impedance_ohm"] = np.where(above, rs.capacitive_source_impedance_ohm,
                                                     np.nan)
+    # DC (cathodic-protection) current density of a pipeline where the operator gives it,
+    # for ISO 18086's combined criteria (corridor.steps.assess)
+    assets = run.inputs.assets
+    if "dc_current_density_a_per_m2" in assets:
+        j_dc = assets["dc_current_density_a_per_m2"].to_numpy(float)
+        t["dc_current_density_a_per_m2"] = np.where(
+            kind == "pipeline", j_dc[run.geometry.segments.feature[sel]], np.nan)
     t["emf_section_normal_v"] = np.where(kind == "telecom", rs.emf_section_normal_v, np.nan)
     t["emf_section_fault_v"] = np.where(kind == "telecom", rs.emf_section_fault_v, np.nan)
 
