@@ -469,7 +469,7 @@ def telecom_line_constants(conductor_radius_m, height_m, soil_resistivity_ohm_m,
 
 
 #: Sheath groundings that let a sheath current flow along the exposure.
-_SHEATH_CURRENT_PATH = {"both_ends": True, "one_end": False, "isolated": False}
+SHEATH_CURRENT_PATH = {"both_ends": True, "one_end": False, "isolated": False}
 
 
 def _sheath_screening_factor(sheath_resistance_ohm_per_m, sheath_radius_m, height_m,
@@ -535,7 +535,7 @@ def _sheath_screening_factor(sheath_resistance_ohm_per_m, sheath_radius_m, heigh
     length = np.asarray(exposure_length_m, dtype=float)
     r_e = np.asarray(end_resistance_ohm, dtype=float)
     grounding = np.asarray(sheath_grounding)
-    unknown = ~np.isin(grounding, list(_SHEATH_CURRENT_PATH))
+    unknown = ~np.isin(grounding, list(SHEATH_CURRENT_PATH))
     if unknown.any():
         raise InputError(f"sheath grounding: unknown labels {sorted(set(grounding[unknown]))}")
     if np.any(r_s <= 0):
@@ -543,7 +543,7 @@ def _sheath_screening_factor(sheath_resistance_ohm_per_m, sheath_radius_m, heigh
     z_e = earth_return.self_impedance(height_m, sheath_radius_m, 0.0, soil_resistivity_ohm_m,
                                       frequency_hz, **(soil_layers or {}))
     k = np.abs((r_s * length + 2 * r_e) / ((r_s + z_e) * length + 2 * r_e))
-    path = np.vectorize(_SHEATH_CURRENT_PATH.get, otypes=[bool])(grounding)
+    path = np.vectorize(SHEATH_CURRENT_PATH.get, otypes=[bool])(grounding)
     return np.where(path & (length > 0), k, 1.0)
 
 

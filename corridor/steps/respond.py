@@ -122,10 +122,37 @@ def _rail_constants(s):
 
 
 def _telecom_constants(s):
-    """Telecom pair against earth; the EMF is scaled by the sheath screening factor."""
+    """Telecom pair against earth; the EMF is scaled by the sheath screening factor.
+
+    With ``sheath_resistance_ohm_per_km`` the factor is computed from the sheath
+    (:func:`asset_models._sheath_screening_factor`, ITU-T K.14; docs/methods.md §10) over
+    the cable's length between its end grounds (``termination_resistance_ohm``);
+    otherwise the input ``screening_factor`` is used. A sheath isolated or grounded at one
+    end only (``sheath_grounding``, default the cable's ``cable_grounding``) carries no
+    current and screens nothing: factor 1 whatever the input says.
+    """
     lc = asset_models.telecom_line_constants(s.column("conductor_radius_m", 0.01), s.height_m,
                                              s.soil_resistivity_ohm_m, s.frequency_hz)
-    return lc.z_ohm_per_m, lc.y_s_per_m, s.column("screening_factor", 1.0)
+    grounding = s.column("cable_grounding", "both_ends").astype(str)
+    if "sheath_grounding" in s.assets:
+        given = s.column("sheath_grounding", "").astype(str)
+        grounding = np.where(np.isin(given, list(asset_models.SHEATH_CURRENT_PATH)), given,
+                             grounding)
+    grounding = np.where(np.isin(grounding, list(asset_models.SHEATH_CURRENT_PATH)), grounding,
+                         "both_ends")
+    factor = s.column("screening_factor", 1.0).astype(float)
+    r_sheath = s.column("sheath_resistance_ohm_per_km", np.nan).astype(float) / 1000.0
+    has = np.isfinite(r_sheath) & (r_sheath > 0)
+    if has.any():
+        length = np.asarray(s.assets.geometry.length, float)[s.feature]
+        computed = asset_models._sheath_screening_factor(
+            np.where(has, r_sheath, 1.0), s.column("sheath_radius_m", 0.01),
+            s.height_m, s.soil_resistivity_ohm_m, s.frequency_hz, grounding, length,
+            s.column("termination_resistance_ohm", 10.0))
+        factor = np.where(has, computed, factor)
+    no_path = ~np.vectorize(asset_models.SHEATH_CURRENT_PATH.get, otypes=[bool])(grounding)
+    factor = np.where(no_path, 1.0, factor)
+    return lc.z_ohm_per_m, lc.y_s_per_m, factor
 
 
 #: Line-constant models of the built-in kinds (plugins register theirs in
