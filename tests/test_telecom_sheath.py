@@ -9,9 +9,9 @@ import geopandas as gpd
 import numpy as np
 from shapely.geometry import LineString
 
+from corridor.kinds import _telecom_constants
 from corridor.network import asset_models as am
 from corridor.registry import KindSegments
-from corridor.steps.respond import _telecom_constants
 
 
 def _segments(rows):
