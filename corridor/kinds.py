@@ -53,6 +53,10 @@ class KindSegments:
         The run's asset table (one row per asset, every kind).
     feature : ndarray of int, shape (n,)
         Row of ``assets`` each segment belongs to.
+    soil_layers : dict or None
+        Two-layer soil under each segment (``bottom_resistivity_ohm_m``,
+        ``top_thickness_m``, NaN where homogeneous; ``soil_resistivity_ohm_m`` is then
+        the top layer's), for the earth-return self impedance (docs/methods.md §9).
     """
 
     kind: str
@@ -61,6 +65,7 @@ class KindSegments:
     height_m: np.ndarray
     assets: Any
     feature: np.ndarray
+    soil_layers: dict | None = None
 
     def __len__(self) -> int:
         return len(self.feature)
@@ -161,7 +166,8 @@ def _pipeline_constants(s: KindSegments):
         s.column("diameter_m", 0.508), s.column("wall_thickness_m", 0.0095),
         s.column("coating_resistance_ohm_m2", 1e5), s.height_m, s.soil_resistivity_ohm_m,
         s.frequency_hz, steel_relative_permeability=s.column("steel_relative_permeability",
-                                                             300.0))
+                                                             300.0),
+        soil_layers=s.soil_layers)
 
 
 def _fence_constants(s: KindSegments):
@@ -170,14 +176,14 @@ def _fence_constants(s: KindSegments):
         s.column("wire_count", 4).astype(np.int64), s.column("wire_radius_m", 0.00125),
         s.column("post_spacing_m", 3.0), s.column("post_resistance_ohm", 100.0),
         s.column("post_type", "metal").astype(str), s.height_m, s.soil_resistivity_ohm_m,
-        s.frequency_hz)
+        s.frequency_hz, soil_layers=s.soil_layers)
 
 
 def _rail_constants(s: KindSegments):
     """Railway track (:func:`asset_models.rail_line_constants`)."""
     return asset_models.rail_line_constants(
         s.column("ballast_resistance_ohm_km", 5.0), s.column("rail_resistance_ohm_per_km", 0.03),
-        s.soil_resistivity_ohm_m, s.frequency_hz)
+        s.soil_resistivity_ohm_m, s.frequency_hz, soil_layers=s.soil_layers)
 
 
 def _telecom_constants(s: KindSegments):
@@ -191,7 +197,8 @@ def _telecom_constants(s: KindSegments):
     current and screens nothing: factor 1 whatever the input says.
     """
     lc = asset_models.telecom_line_constants(s.column("conductor_radius_m", 0.01), s.height_m,
-                                             s.soil_resistivity_ohm_m, s.frequency_hz)
+                                             s.soil_resistivity_ohm_m, s.frequency_hz,
+                                             soil_layers=s.soil_layers)
     paths = asset_models.SHEATH_CURRENT_PATH
     grounding = s.column("cable_grounding", "both_ends").astype(str)
     if "sheath_grounding" in s.assets:
@@ -206,7 +213,7 @@ def _telecom_constants(s: KindSegments):
         computed = asset_models._sheath_screening_factor(
             np.where(has, r_sheath, 1.0), s.column("sheath_radius_m", 0.01),
             s.height_m, s.soil_resistivity_ohm_m, s.frequency_hz, grounding, length,
-            s.column("termination_resistance_ohm", 10.0))
+            s.column("termination_resistance_ohm", 10.0), soil_layers=s.soil_layers)
         factor = np.where(has, computed, factor)
     no_path = ~np.vectorize(paths.get, otypes=[bool])(grounding)
     return lc.z_ohm_per_m, lc.y_s_per_m, np.where(no_path, 1.0, factor)

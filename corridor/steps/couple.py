@@ -141,6 +141,8 @@ def _per_circuit(lines, li, field, n, default):
     if raw is None or (isinstance(raw, float) and not np.isfinite(raw)):
         return np.full(n, default, float)
     parts = [p.strip() for p in str(raw).replace(",", ";").split(";") if p.strip()]
+    if not parts:
+        return np.full(n, default, float)
     try:
         values = np.array([float(p) for p in parts])
     except ValueError:
@@ -567,7 +569,8 @@ def earth_potential(cfg, inputs, geo, total_len: np.ndarray) -> np.ndarray:
     if_s = lines["fault_current_start_ka"].to_numpy(float)[p_line] * 1000.0
     if_e = lines["fault_current_end_ka"].to_numpy(float)[p_line] * 1000.0
     i_tower = cfg.run.tower_current_share * (if_s + (if_e - if_s) * frac)
-    rho = geo.soil_resistivity_ohm_m[p_seg]
+    # the earth potential near a footing senses the top metres: the local soil (§9)
+    rho = getattr(geo, "local_resistivity_ohm_m", geo.soil_resistivity_ohm_m)[p_seg]
     best = np.zeros(len(p_seg))
     for off in (-1, 0):
         k = np.clip(base + off, 0, len(t_line) - 1)

@@ -86,7 +86,7 @@ def chain_layout(seg) -> np.ndarray:
 _col = asset_column
 
 
-def line_constants(cfg, assets, seg, soil_ohm_m):
+def line_constants(cfg, assets, seg, soil_ohm_m, soil_layers=None):
     """Series impedance and shunt admittance of every segment.
 
     Each kind's segments go to the kind's model in the registry
@@ -115,9 +115,11 @@ def line_constants(cfg, assets, seg, soil_ohm_m):
         if name not in present:
             continue
         sel = kind == name
+        layers = ({k: np.asarray(v, float)[sel] for k, v in soil_layers.items()}
+                  if soil_layers else None)
         out = registry.kind(name).line_constants(KindSegments(
             kind=name, frequency_hz=f, soil_resistivity_ohm_m=soil_ohm_m[sel],
-            height_m=h[sel], assets=assets, feature=a[sel]))
+            height_m=h[sel], assets=assets, feature=a[sel], soil_layers=layers))
         if len(out) not in (2, 3):
             raise ConfigError(f"line-constant model of {name!r}: expected (z, y) or"
                               f" (z, y, emf_scale), got {len(out)} values")
@@ -258,7 +260,12 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
     seg = geo.segments
     n_seg = len(seg)
     chain_start = chain_layout(seg)
-    z, y, scale = line_constants(cfg, inputs.assets, seg, geo.soil_resistivity_ohm_m)
+    layers = None
+    bottom = getattr(geo, "soil_bottom_resistivity_ohm_m", None)
+    thick = getattr(geo, "soil_top_thickness_m", None)
+    if bottom is not None and thick is not None and np.isfinite(bottom).any():
+        layers = {"bottom_resistivity_ohm_m": bottom, "top_thickness_m": thick}
+    z, y, scale = line_constants(cfg, inputs.assets, seg, geo.soil_resistivity_ohm_m, layers)
     y_start, y_end = terminations(inputs.assets, seg, chain_start, z, y)
     node_shunt, brk, rejected = place_items(inputs, seg, chain_start,
                                             max(cfg.run.segment_length_m, 25.0))
