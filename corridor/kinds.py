@@ -18,6 +18,7 @@ from types import MappingProxyType
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from corridor import schema
 from corridor.network import asset_models
@@ -170,11 +171,20 @@ def _pipeline_constants(s: KindSegments):
         soil_layers=s.soil_layers)
 
 
+def _post_resistance_ohm(s: KindSegments) -> np.ndarray:
+    """Post resistance per segment: NaN (typical for the material) where missing, inf kept
+    (wires on insulators)."""
+    if "post_resistance_ohm" not in s.assets:
+        return np.full(len(s), np.nan)
+    values = pd.to_numeric(s.assets["post_resistance_ohm"], errors="coerce").to_numpy(float)
+    return values[s.feature]
+
+
 def _fence_constants(s: KindSegments):
     """Wire fence (:func:`asset_models.fence_line_constants`)."""
     return asset_models.fence_line_constants(
         s.column("wire_count", 4).astype(np.int64), s.column("wire_radius_m", 0.00125),
-        s.column("post_spacing_m", 3.0), s.column("post_resistance_ohm", 100.0),
+        s.column("post_spacing_m", 3.0), _post_resistance_ohm(s),
         s.column("post_type", "metal").astype(str), s.height_m, s.soil_resistivity_ohm_m,
         s.frequency_hz, soil_layers=s.soil_layers)
 

@@ -94,9 +94,10 @@ BUILTIN_KIND_FIELDS: dict[str, tuple[FieldSpec, ...]] = {
     "fence": (
         FieldSpec("post_type", "str", choices=("metal", "wood"), doc="Post material."),
         FieldSpec("post_spacing_m", "float", low=0.5, high=50.0, doc="Distance between posts [m]."),
-        FieldSpec("post_resistance_ohm", "float", low=0.1, high=float("inf"),
+        FieldSpec("post_resistance_ohm", "float", default=_UNKNOWN, low=0.1, high=float("inf"),
                   doc="Resistance to earth of one post, any material [Ω]; inf for wires on"
-                      " insulators."),
+                      " insulators; empty: typical for the material (metal 100 Ω, wet wood"
+                      " 5 kΩ, from memory; docs/methods.md §10)."),
         FieldSpec("wire_count", "int", low=1, high=20, doc="Number of longitudinal wires [-]."),
         FieldSpec("wire_radius_m", "float", low=0.0005, high=0.02, doc="Wire radius [m]."),
     ),
@@ -169,7 +170,6 @@ BUILTIN_KIND_DEFAULTS: dict[str, dict[str, object]] = {
         "termination_resistance_ohm": 50.0,  # a driven end post (common practice)
         "post_type": "metal",
         "post_spacing_m": 3.0,  # common practice for farm fences
-        "post_resistance_ohm": 100.0,  # a driven steel post in 100 Ω·m soil (from memory)
         "wire_count": 4,
         "wire_radius_m": 0.00125,  # 2.5 mm wire (common practice)
     },
