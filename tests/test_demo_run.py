@@ -58,7 +58,7 @@ def test_pipeline_peaks_at_joint_and_exposure_ends(demo):
 
 
 def test_demo_findings(demo):
-    a = demo.extra_tables["layer:assets"].set_index("asset_id")
+    a = demo.assets.set_index("asset_id")
     t = demo.segment_table
     # a pipeline under fault
     assert a.loc["MBL-12", "worst_utilization"] >= 1
@@ -88,7 +88,7 @@ def test_buried_assets_get_no_capacitive_pickup(demo):
 def test_ranks_are_a_permutation_and_ordered(demo):
     t = demo.segment_table
     assert sorted(t["rank"]) == list(range(1, len(t) + 1))
-    h = demo.extra_tables["layer:hazards"]
+    h = demo.hazards
     assert (np.diff(h["utilization"].to_numpy()) <= 0).all()
 
 
@@ -109,7 +109,7 @@ def test_no_feature_lost(demo):
     src = ROOT / "sample_layers" / "brackenford_vale.gpkg"
     n_in = sum(len(gpd.read_file(src, layer=name)) for name in
                ("pipelines", "rails", "fences", "telecom"))
-    a = demo.extra_tables["layer:assets"]
+    a = demo.assets
     rejected = pd.DataFrame(demo.inputs.rejected.rows)
     assert len(a) + (len(rejected[rejected["layer"].str.contains("pipelines|rails|fences|"
                                                                    "telecom")])
@@ -122,15 +122,14 @@ def test_determinism(demo):
     pd.testing.assert_frame_equal(demo.segment_table.drop(columns="geometry"),
                                   again.segment_table.drop(columns="geometry"))
     pd.testing.assert_frame_equal(
-        pd.DataFrame(demo.extra_tables["layer:sites"].drop(columns="geometry")),
-        pd.DataFrame(again.extra_tables["layer:sites"].drop(columns="geometry")))
+        pd.DataFrame(demo.sites.drop(columns="geometry")),
+        pd.DataFrame(again.sites.drop(columns="geometry")))
 
 
 def test_normal_load_worst_case_is_stated_and_named(demo):
     # Issue 15: unknown directions and angles give the worst case, run.json says so, and the
     # governing loading scenario is an output column.
-    text = demo.extra_tables["json"]["normal_load_assumption"]
+    text = demo.record["normal_load_assumption"]
     assert "worst case" in text and "out of service" in text
     scen = demo.segment_table["normal_scenario"].astype(str)
-    assert scen.isin(["as given"]).any() or scen.str.startswith("outage ").any()
     assert (scen.eq("as given") | scen.str.startswith("outage ")).all()

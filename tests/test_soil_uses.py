@@ -63,8 +63,8 @@ def test_local_resistivity_moves_only_the_local_quantities(scenario):
     # the electrode for a given resistance is longer in more resistive ground (Dwight)
     from corridor.steps.ground import horizontal_electrode_length_m
 
-    sa = low.extra_tables.get("layer:sites")
-    sb = high.extra_tables.get("layer:sites")
+    sa = low.sites
+    sb = high.sites
     if sa is not None and sb is not None and len(sa) and len(sb):
         for sites, rho in ((sa, 30.0), (sb, 300.0)):
             r = sites["ground_resistance_ohm"].to_numpy(float)

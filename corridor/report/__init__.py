@@ -110,9 +110,9 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
     ----------
     run : corridor.pipeline.Run
         A run through every stage (segment table with ``utilization``,
-        ``hazard_class``, ``rank``; ``extra_tables["layer:assets"]``;
+        ``hazard_class``, ``rank``; ``assets``;
         ``limit_set`` and ``assessment`` from the assess stage).
-        ``extra_tables["layer:sites"]`` (points with ``asset_id``,
+        ``sites`` (points with ``asset_id``,
         ``chainage_m`` [m] and optionally ``v_before_v``, ``v_after_v`` [V])
         and ``extra_tables["changes"]`` are drawn when present.
     out_dir : Path
@@ -137,9 +137,9 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
     out_dir.mkdir(parents=True, exist_ok=True)
     ls = getattr(run, "limit_set", None)
     thr = ls.review_threshold if ls is not None else DEFAULT_REVIEW_THRESHOLD
-    assets = run.extra_tables.get("layer:assets")
+    assets = run.assets
     assets_df = None if assets is None else pd.DataFrame(assets.drop(columns="geometry"))
-    sites = run.extra_tables.get("layer:sites")
+    sites = run.sites
     sites_df = None if sites is None else pd.DataFrame(sites.drop(columns="geometry",
                                                                   errors="ignore"))
     t = run.segment_table
@@ -248,10 +248,10 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
         body.append("</section>")
 
     run_assumptions = list(_ASSUMPTIONS)
-    extra_json = run.extra_tables.get("json", {}) if hasattr(run, "extra_tables") else {}
-    if isinstance(extra_json, dict) and extra_json.get("normal_load_assumption"):
+    record = getattr(run, "record", None) or {}
+    if isinstance(record, dict) and record.get("normal_load_assumption"):
         # the normal-load worst case over unknown directions and angles (docs/methods.md §8)
-        run_assumptions.insert(1, str(extra_json["normal_load_assumption"]))
+        run_assumptions.insert(1, str(record["normal_load_assumption"]))
     body.append('<section id="assumptions"><h2>Method and assumptions</h2><ul>'
                 + "".join(f"<li>{esc(a)}</li>" for a in run_assumptions) + "</ul></section>")
     body.append(f"<footer>{esc(SAFETY_CAUTION)}</footer>")

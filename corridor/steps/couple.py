@@ -176,7 +176,7 @@ def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
               else np.full(n_lines, np.nan))
     known = np.isfinite(direction) & np.isfinite(offset)
     group = np.where(known, 0, 1 + np.arange(n_lines))
-    outage = bool(cfg.run.get("outage_scenario", True))
+    outage = bool(cfg.run.outage_scenario)
     max_nc = max(n_circuits_by_arrangement.values(), default=1)
     n_scen = 1 + max_nc if (outage and max_nc > 1) else 1
     weights = np.ones((n_lines, n_scen, max_nc))
@@ -214,7 +214,7 @@ def normal_load_assumption(cfg, lines) -> str:
             " the residual current's angle is unknown; the normal-load EMF, voltage and current"
             " are the worst case over these angles (the sum of the magnitudes of the"
             " independent parts).")
-    if bool(cfg.run.get("outage_scenario", True)):
+    if bool(cfg.run.outage_scenario):
         text += (" Each circuit of a multi-circuit line is also taken out of service in turn,"
                  " the others carrying the line's total load; the worse case is kept and named"
                  " in the column normal_scenario.")
