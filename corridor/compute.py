@@ -59,7 +59,22 @@ class Geometry:
     pair_equivalent_separation_m: np.ndarray
     exposures: Exposures
     nearest: np.ndarray  # per segment: index into pairs, -1 where no line in reach
-    soil_resistivity_ohm_m: np.ndarray  # per segment
+    #: Per segment: the soil's top layer (or the homogeneous value), for the earth return.
+    soil_resistivity_ohm_m: np.ndarray
+    #: Per segment, NaN where the soil is homogeneous: resistivity below the top layer [Ω·m]
+    #: and the top layer's thickness [m] (docs/methods.md §9).
+    soil_bottom_resistivity_ohm_m: np.ndarray | None = None
+    soil_top_thickness_m: np.ndarray | None = None
+    #: Per segment: the soil at the asset's depth (local value, else the top layer), for the
+    #: local quantities: holiday density, foot resistance, electrodes, earth potential.
+    soil_local_resistivity_ohm_m: np.ndarray | None = None
+
+    @property
+    def local_resistivity_ohm_m(self) -> np.ndarray:
+        """Resistivity for the local quantities (the top layer where no local value)."""
+        if self.soil_local_resistivity_ohm_m is None:
+            return self.soil_resistivity_ohm_m
+        return self.soil_local_resistivity_ohm_m
 
 
 @dataclass
@@ -129,14 +144,49 @@ def stage_geometry(cfg: Config, inputs: Inputs) -> Geometry:
     sections = split_sections(pairs, s.min_separation_m, s.oblique_ratio)
     eq = equivalent_separation(sections, len(pairs))
     exposures = build_exposures(pairs, segments, eq)
-    if inputs.soil is not None:
-        soil = value_at_midpoints(segments, inputs.soil.geometry.to_numpy(),
-                                  inputs.soil["soil_resistivity_ohm_m"].to_numpy(float),
-                                  s.default_soil_resistivity_ohm_m)
-    else:
-        soil = np.full(len(segments), s.default_soil_resistivity_ohm_m)
+    soil = soil_per_segment(inputs, segments, s.default_soil_resistivity_ohm_m)
     return Geometry(segments, edges, pairs, sections, eq, exposures,
-                    nearest_line(pairs, len(segments)), soil)
+                    nearest_line(pairs, len(segments)), *soil)
+
+
+def soil_per_segment(inputs: Inputs, segments, default_ohm_m: float):
+    """Top (or homogeneous), bottom, top thickness and local resistivity per segment.
+
+    Each segment takes the soil polygon under its midpoint (docs/methods.md §9). A polygon
+    with ``top_resistivity_ohm_m`` uses it over ``soil_resistivity_ohm_m``; a two-layer soil
+    needs ``bottom_resistivity_ohm_m`` and ``top_thickness_m``; ``local_resistivity_ohm_m``
+    (else the top layer) serves the local quantities.
+    """
+    n = len(segments)
+    top = np.full(n, float(default_ohm_m))
+    bottom = np.full(n, np.nan)
+    thick = np.full(n, np.nan)
+    local = np.full(n, np.nan)
+    soil = inputs.soil
+    if soil is not None and len(soil):
+        poly = value_at_midpoints(segments, soil.geometry.to_numpy(),
+                                  np.arange(len(soil), dtype=float), -1.0).astype(np.int64)
+        has = poly >= 0
+        p = np.where(has, poly, 0)
+
+        def column(name):
+            if name not in soil:
+                return np.full(n, np.nan)
+            values = pd.to_numeric(soil[name], errors="coerce").to_numpy(float)
+            return np.where(has, values[p], np.nan)
+
+        hom = column("soil_resistivity_ohm_m")
+        given_top = column("top_resistivity_ohm_m")
+        top = np.where(np.isfinite(given_top), given_top,
+                       np.where(np.isfinite(hom), hom, top))
+        bottom = column("bottom_resistivity_ohm_m")
+        thick = column("top_thickness_m")
+        layered = np.isfinite(bottom) & np.isfinite(thick) & (thick > 0)
+        bottom = np.where(layered, bottom, np.nan)
+        thick = np.where(layered, thick, np.nan)
+        local = column("local_resistivity_ohm_m")
+    local = np.where(np.isfinite(local), local, top)
+    return top, bottom, thick, local
 
 
 def segment_frame(inputs: Inputs, geo: Geometry) -> gpd.GeoDataFrame:
@@ -170,7 +220,14 @@ def segment_frame(inputs: Inputs, geo: Geometry) -> gpd.GeoDataFrame:
         "projected_length_m": pick(np.abs(p.projected_length_m)),
         "exposure_class": cls,
         "lines_in_reach": in_reach.astype(np.int64),
-        "soil_resistivity_ohm_m": geo.soil_resistivity_ohm_m,
+        # the local quantities' soil (docs/methods.md §9); the earth return's layers beside it
+        "soil_resistivity_ohm_m": geo.local_resistivity_ohm_m,
+        "top_resistivity_ohm_m": geo.soil_resistivity_ohm_m,
+        "bottom_resistivity_ohm_m": (geo.soil_bottom_resistivity_ohm_m
+                                     if geo.soil_bottom_resistivity_ohm_m is not None
+                                     else np.full(len(seg), np.nan)),
+        "top_thickness_m": (geo.soil_top_thickness_m if geo.soil_top_thickness_m is not None
+                            else np.full(len(seg), np.nan)),
     })
     return gpd.GeoDataFrame(frame, geometry=seg.geometries(), crs=inputs.crs)
 

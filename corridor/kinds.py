@@ -18,6 +18,7 @@ from types import MappingProxyType
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from corridor import schema
 from corridor.network import asset_models
@@ -53,6 +54,10 @@ class KindSegments:
         The run's asset table (one row per asset, every kind).
     feature : ndarray of int, shape (n,)
         Row of ``assets`` each segment belongs to.
+    soil_layers : dict or None
+        Two-layer soil under each segment (``bottom_resistivity_ohm_m``,
+        ``top_thickness_m``, NaN where homogeneous; ``soil_resistivity_ohm_m`` is then
+        the top layer's), for the earth-return self impedance (docs/methods.md §9).
     """
 
     kind: str
@@ -61,6 +66,7 @@ class KindSegments:
     height_m: np.ndarray
     assets: Any
     feature: np.ndarray
+    soil_layers: dict | None = None
 
     def __len__(self) -> int:
         return len(self.feature)
@@ -161,30 +167,66 @@ def _pipeline_constants(s: KindSegments):
         s.column("diameter_m", 0.508), s.column("wall_thickness_m", 0.0095),
         s.column("coating_resistance_ohm_m2", 1e5), s.height_m, s.soil_resistivity_ohm_m,
         s.frequency_hz, steel_relative_permeability=s.column("steel_relative_permeability",
-                                                             300.0))
+                                                             300.0),
+        soil_layers=s.soil_layers)
+
+
+def _post_resistance_ohm(s: KindSegments) -> np.ndarray:
+    """Post resistance per segment: NaN (typical for the material) where missing, inf kept
+    (wires on insulators)."""
+    if "post_resistance_ohm" not in s.assets:
+        return np.full(len(s), np.nan)
+    values = pd.to_numeric(s.assets["post_resistance_ohm"], errors="coerce").to_numpy(float)
+    return values[s.feature]
 
 
 def _fence_constants(s: KindSegments):
     """Wire fence (:func:`asset_models.fence_line_constants`)."""
     return asset_models.fence_line_constants(
         s.column("wire_count", 4).astype(np.int64), s.column("wire_radius_m", 0.00125),
-        s.column("post_spacing_m", 3.0), s.column("post_resistance_ohm", 100.0),
+        s.column("post_spacing_m", 3.0), _post_resistance_ohm(s),
         s.column("post_type", "metal").astype(str), s.height_m, s.soil_resistivity_ohm_m,
-        s.frequency_hz)
+        s.frequency_hz, soil_layers=s.soil_layers)
 
 
 def _rail_constants(s: KindSegments):
     """Railway track (:func:`asset_models.rail_line_constants`)."""
     return asset_models.rail_line_constants(
         s.column("ballast_resistance_ohm_km", 5.0), s.column("rail_resistance_ohm_per_km", 0.03),
-        s.soil_resistivity_ohm_m, s.frequency_hz)
+        s.soil_resistivity_ohm_m, s.frequency_hz, soil_layers=s.soil_layers)
 
 
 def _telecom_constants(s: KindSegments):
-    """Telecom pair against earth; the EMF is scaled by the sheath screening factor."""
+    """Telecom pair against earth; the EMF is scaled by the sheath screening factor.
+
+    With ``sheath_resistance_ohm_per_km`` the factor is computed from the sheath
+    (:func:`asset_models._sheath_screening_factor`, ITU-T K.14; docs/methods.md §10) over
+    the cable's length between its end grounds (``termination_resistance_ohm``);
+    otherwise the input ``screening_factor`` is used. A sheath isolated or grounded at one
+    end only (``sheath_grounding``, default the cable's ``cable_grounding``) carries no
+    current and screens nothing: factor 1 whatever the input says.
+    """
     lc = asset_models.telecom_line_constants(s.column("conductor_radius_m", 0.01), s.height_m,
-                                             s.soil_resistivity_ohm_m, s.frequency_hz)
-    return lc.z_ohm_per_m, lc.y_s_per_m, s.column("screening_factor", 1.0)
+                                             s.soil_resistivity_ohm_m, s.frequency_hz,
+                                             soil_layers=s.soil_layers)
+    paths = asset_models.SHEATH_CURRENT_PATH
+    grounding = s.column("cable_grounding", "both_ends").astype(str)
+    if "sheath_grounding" in s.assets:
+        given = s.column("sheath_grounding", "").astype(str)
+        grounding = np.where(np.isin(given, list(paths)), given, grounding)
+    grounding = np.where(np.isin(grounding, list(paths)), grounding, "both_ends")
+    factor = s.column("screening_factor", 1.0).astype(float)
+    r_sheath = s.column("sheath_resistance_ohm_per_km", np.nan).astype(float) / 1000.0
+    has = np.isfinite(r_sheath) & (r_sheath > 0)
+    if has.any():
+        length = np.asarray(s.assets.geometry.length, float)[s.feature]
+        computed = asset_models._sheath_screening_factor(
+            np.where(has, r_sheath, 1.0), s.column("sheath_radius_m", 0.01),
+            s.height_m, s.soil_resistivity_ohm_m, s.frequency_hz, grounding, length,
+            s.column("termination_resistance_ohm", 10.0), soil_layers=s.soil_layers)
+        factor = np.where(has, computed, factor)
+    no_path = ~np.vectorize(paths.get, otypes=[bool])(grounding)
+    return lc.z_ohm_per_m, lc.y_s_per_m, np.where(no_path, 1.0, factor)
 
 
 def builtin_kinds() -> dict[str, AssetKind]:

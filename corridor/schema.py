@@ -17,6 +17,8 @@ FieldSpec = Spec
 
 #: The asset kinds corridor ships with; plugins add more (:mod:`corridor.registry`).
 BUILTIN_ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
+#: Default of an optional number whose absence means "not known" (never a value).
+_UNKNOWN = float("nan")
 TERMINATIONS = ("open", "grounded", "continuing")
 
 LINE_FIELDS: tuple[FieldSpec, ...] = (
@@ -38,6 +40,23 @@ LINE_FIELDS: tuple[FieldSpec, ...] = (
               doc="Fault clearing time [s]."),
     FieldSpec("high_reliability", "bool", default=False,
               doc="True for a high-reliability line in the sense of the ITU-T Directives."),
+    # Normal-load loading per circuit and against the other lines (docs/methods.md §2.3, §8).
+    # Missing means unknown: the coupling takes the worst case over it.
+    FieldSpec("circuit_load_current_a", "str", default="",
+              doc="Load current of each circuit, one number or one per circuit separated by"
+                  " ';' [A rms]; empty: load_current_a on every circuit."),
+    FieldSpec("circuit_flow_direction", "str", default="",
+              doc="Power-flow direction of each circuit against the digitised direction,"
+                  " +1 or -1, one value or one per circuit separated by ';'; empty: +1."),
+    FieldSpec("circuit_phase_offset_deg", "str", default="",
+              doc="Phase-angle offset of each circuit against the line's own [deg], one value"
+                  " or one per circuit separated by ';'; empty: 0."),
+    FieldSpec("flow_direction", "float", default=_UNKNOWN, low=-1.0, high=1.0,
+              doc="Power-flow direction of the line against its digitised direction (+1 or -1)"
+                  " in the common reference; empty: unknown (worst case)."),
+    FieldSpec("phase_offset_deg", "float", default=_UNKNOWN, low=-360.0, high=360.0,
+              doc="Phase-angle offset of the line against the common reference [deg], e.g."
+                  " 30 across a transformer; empty: unknown (worst case)."),
 )
 
 COMMON_ASSET_FIELDS: tuple[FieldSpec, ...] = (
@@ -64,12 +83,21 @@ BUILTIN_KIND_FIELDS: dict[str, tuple[FieldSpec, ...]] = {
                   doc="True where the pipeline is cathodically protected."),
         FieldSpec("coating_type", "str", choices=("pe", "fbe", "bitumen"),
                   doc="Coating family, selects the coating-stress limit."),
+        FieldSpec("dc_current_density_a_per_m2", "float", default=_UNKNOWN, low=0.0, high=1000.0,
+                  doc="DC (cathodic-protection) current density at a holiday or coupon, where"
+                      " the operator has it [A/m²]; for ISO 18086's combined criteria."),
+        FieldSpec("dc_on_potential_v", "float", default=_UNKNOWN, low=-5.0, high=1.0,
+                  doc="DC on-potential of the pipe against a Cu/CuSO4 reference [V], where the"
+                      " operator has it (recorded; ISO 18086's 10 V variant is a limit-set"
+                      " override)."),
     ),
     "fence": (
         FieldSpec("post_type", "str", choices=("metal", "wood"), doc="Post material."),
         FieldSpec("post_spacing_m", "float", low=0.5, high=50.0, doc="Distance between posts [m]."),
-        FieldSpec("post_resistance_ohm", "float", low=0.1, high=1e6,
-                  doc="Resistance to earth of one metal post [Ω]."),
+        FieldSpec("post_resistance_ohm", "float", default=_UNKNOWN, low=0.1, high=float("inf"),
+                  doc="Resistance to earth of one post, any material [Ω]; inf for wires on"
+                      " insulators; empty: typical for the material (metal 100 Ω, wet wood"
+                      " 5 kΩ, from memory; docs/methods.md §10)."),
         FieldSpec("wire_count", "int", low=1, high=20, doc="Number of longitudinal wires [-]."),
         FieldSpec("wire_radius_m", "float", low=0.0005, high=0.02, doc="Wire radius [m]."),
     ),
@@ -86,12 +114,30 @@ BUILTIN_KIND_FIELDS: dict[str, tuple[FieldSpec, ...]] = {
                   doc="Where the conductor pair is grounded."),
         FieldSpec("conductor_radius_m", "float", low=0.0001, high=0.05,
                   doc="Equivalent radius of the cable [m]."),
+        FieldSpec("sheath_resistance_ohm_per_km", "float", default=_UNKNOWN, low=0.001, high=1000.0,
+                  doc="Longitudinal resistance of the metal sheath [Ω/km]; given, the screening"
+                      " factor is computed (ITU-T K.14)."),
+        FieldSpec("sheath_grounding", "str", default="",
+                  choices=("", "one_end", "both_ends", "isolated"),
+                  doc="Where the sheath is grounded; empty: as cable_grounding."),
+        FieldSpec("sheath_radius_m", "float", default=0.01, low=0.001, high=0.1,
+                  doc="Mean radius of the sheath [m]."),
     ),
 }
 
 SOIL_FIELDS: tuple[FieldSpec, ...] = (
     FieldSpec("soil_resistivity_ohm_m", "float", low=0.1, high=1e5,
               doc="Homogeneous soil resistivity [Ω·m]."),
+    # Two-layer soil and the soil at the asset's depth (docs/methods.md §9); empty: homogeneous.
+    FieldSpec("top_resistivity_ohm_m", "float", default=_UNKNOWN, low=0.1, high=1e5,
+              doc="Resistivity of the top layer of a two-layer soil [Ω·m]."),
+    FieldSpec("top_thickness_m", "float", default=_UNKNOWN, low=0.01, high=1e4,
+              doc="Thickness of the top layer [m]."),
+    FieldSpec("bottom_resistivity_ohm_m", "float", default=_UNKNOWN, low=0.1, high=1e5,
+              doc="Resistivity below the top layer [Ω·m]."),
+    FieldSpec("local_resistivity_ohm_m", "float", default=_UNKNOWN, low=0.1, high=1e5,
+              doc="Resistivity at the asset's depth, for holiday current density, foot"
+                  " resistance, electrodes and earth potential [Ω·m]; empty: the top layer."),
 )
 
 GROUND_FIELDS: tuple[FieldSpec, ...] = (
@@ -124,7 +170,6 @@ BUILTIN_KIND_DEFAULTS: dict[str, dict[str, object]] = {
         "termination_resistance_ohm": 50.0,  # a driven end post (common practice)
         "post_type": "metal",
         "post_spacing_m": 3.0,  # common practice for farm fences
-        "post_resistance_ohm": 100.0,  # a driven steel post in 100 Ω·m soil (from memory)
         "wire_count": 4,
         "wire_radius_m": 0.00125,  # 2.5 mm wire (common practice)
     },

@@ -255,6 +255,10 @@ class RunSettings:
         " (5-30 %, docs/methods.md §4, from memory).", low=0.0, high=1.0)
     footing_radius_m: float = setting(1.0, "m", "Equivalent hemispherical radius of a tower"
                                       " footing.", low=0.05, high=50.0)
+    outage_scenario: bool = setting(
+        True, "-", "Normal load: also take each circuit of a multi-circuit line out of"
+        " service in turn, the others carrying the line's total, and keep the worse case"
+        " (docs/methods.md §8).")
     grounding_menu_ohm: tuple[float, ...] = setting(
         (10.0, 5.0, 2.0, 1.0), "Ω", "Ground resistances the grounding design may choose,"
         " easiest first.", dtype="float_list")

@@ -45,7 +45,8 @@ def test_pipeline_peaks_at_joint_and_exposure_ends(demo):
     ch = (p["chainage_m"] + p["length_m"] / 2).to_numpy()
     v = p["v_normal_v"].to_numpy()
     joint_m = np.hypot(5000, 1730) + 4500  # IJ1 at (4500, -70) in the demo generator
-    assert abs(ch[np.argmax(v)] - joint_m) <= 60.0
+    # (the two segments either side of the peak node share its voltage: either may be first)
+    assert np.min(np.abs(ch[v >= v.max() * (1 - 1e-9)] - joint_m)) <= 60.0
     # the 70 m parallel run begins at chainage 5291 m and ends near 14.3 km
     peaks = [ch[i] for i in range(1, len(v) - 1) if v[i] >= v[i - 1] and v[i] >= v[i + 1]]
     for end_m in (np.hypot(5000, 1730), np.hypot(5000, 1730) + 9000):
@@ -66,12 +67,13 @@ def test_demo_findings(demo):
     assert t.loc[t["asset_id"] == "FN-MILL-3", "ratio_steady_state_voltage"].max() >= 1
     # a telecom cable under fault (ITU-T 430/650 V)
     assert t.loc[t["asset_id"] == "TC-VALE-3", "ratio_telecom_fault"].max() >= 1
-    # an insulated fence with capacitive pickup: high open-circuit voltage, little current
+    # a fence on wet wooden posts (5 kΩ each) is no insulator (issue 15): its posts drain the
+    # capacitive charge, and the low source impedance they give turns its fault voltage into
+    # a touch hazard of about 10 times the limit (issue 15's measurement)
     ridge = t[t["asset_id"] == "FN-RIDGE-2"]
-    assert ridge["v_capacitive_open_v"].max() > 100.0
-    assert ridge["i_capacitive_short_ma"].max() < 5.0
-    assert ridge["capacitive_source_impedance_ohm"].min() > 1e4
-    assert a.loc["FN-RIDGE-2", "hazard_class"] != "exceeds"
+    assert ridge["v_capacitive_open_v"].max() < 1.0
+    assert a.loc["FN-RIDGE-2", "hazard_class"] == "exceeds"
+    assert 5.0 < a.loc["FN-RIDGE-2", "worst_utilization"] < 20.0
     # a metal-post fence is grounded at every post: almost no capacitive voltage
     assert t.loc[t["asset_id"] == "FN-HOLLOW-1", "v_capacitive_open_v"].max() < 1.0
 
@@ -122,3 +124,12 @@ def test_determinism(demo):
     pd.testing.assert_frame_equal(
         pd.DataFrame(demo.sites.drop(columns="geometry")),
         pd.DataFrame(again.sites.drop(columns="geometry")))
+
+
+def test_normal_load_worst_case_is_stated_and_named(demo):
+    # Issue 15: unknown directions and angles give the worst case, run.json says so, and the
+    # governing loading scenario is an output column.
+    text = demo.record["normal_load_assumption"]
+    assert "worst case" in text and "out of service" in text
+    scen = demo.segment_table["normal_scenario"].astype(str)
+    assert (scen.eq("as given") | scen.str.startswith("outage ")).all()

@@ -39,7 +39,10 @@ def _fence(scenario, rows):
                         "END_OHM": []}
     for aid, offset_m, posts, end in rows:
         geoms.append(LineString([(X0_M + 300, Y0_M + offset_m), (X0_M + 3700, Y0_M + offset_m)]))
-        for k, v in zip(attrs, (aid, "fence", 100.0, posts, end, 20.0), strict=True):
+        # a wet wooden post leaks a few kΩ (from memory, docs/methods.md §10), a driven
+        # steel post about 100 Ω (from memory)
+        post_ohm = 5000.0 if posts == "wood" else 100.0
+        for k, v in zip(attrs, (aid, "fence", post_ohm, posts, end, 20.0), strict=True):
             attrs[k].append(v)
     return gpd.GeoDataFrame(attrs, geometry=geoms, crs="EPSG:32633")
 

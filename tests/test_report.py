@@ -193,9 +193,12 @@ def test_defaults_counted_per_field_with_ids_of_safety_fields(demo_run, tmp_path
 
 
 def test_not_assessed_criteria_are_loud(text, demo_run):
-    # ieee_na's step_fault and ac_corrosion_ratio judge quantities no stage computes
+    # ieee_na's step_fault judges a quantity no stage computes. (ac_corrosion_ratio, the
+    # ISO 18086 "or" combination with the DC density, is judged where J_ac < 30 A/m² passes
+    # on its own, so on the demo it is assessed on some segments; where J_ac alone fails
+    # and J_dc is missing, ac_corrosion_density's fallback to J_ac/30 exceeds.)
     missing = demo_run.record["not_assessed"]
-    assert [r["criterion"] for r in missing] == ["step_fault", "ac_corrosion_ratio"]
+    assert [r["criterion"] for r in missing] == ["step_fault"]
     banner = text[text.index('id="not-assessed"'):]
     banner = banner[:banner.index("</div>")]
     assert text.index('id="not-assessed"') < text.index('id="summary"')
@@ -203,7 +206,7 @@ def test_not_assessed_criteria_are_loud(text, demo_run):
     for r in missing:
         assert r["label"] in banner and html.escape(r["reason"]) in banner
     limits = text[text.index('id="limits"'):text.index('id="assumptions"')]
-    assert limits.count("NOT ASSESSED") == 2
+    assert limits.count("NOT ASSESSED") == 1
 
 
 def _chromium(args: list[str], tmp_path: Path) -> subprocess.CompletedProcess:

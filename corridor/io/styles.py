@@ -97,7 +97,10 @@ GLOSSARY: dict[str, tuple[str, str]] = {
                             " per unit length [V/km]."),
     "emf_fault_v_per_km": ("EMF, fault", "Longitudinal EMF induced by the worst earth fault"
                            " per unit length [V/km]."),
-    "emf_normal_v": ("EMF over segment, normal load", "Longitudinal EMF over the segment [V]."),
+    "emf_normal_v": ("EMF over segment, normal load", "Longitudinal EMF over the segment [V];"
+                     " the worst case over unknown flow directions and phase angles."),
+    "normal_scenario": ("Normal-load scenario", "Loading that governs the normal-load EMF:"
+                        " as given, or one circuit of a line out of service."),
     "emf_fault_v": ("EMF over segment, fault", "Longitudinal EMF over the segment [V]."),
     "emf_section_normal_v": ("Section EMF, normal load", "Longitudinal EMF summed between the"
                              " cable's grounded ends (telecom) [V]."),

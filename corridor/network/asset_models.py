@@ -56,6 +56,14 @@ PE_RELATIVE_PERMITTIVITY = 2.3
 MIN_WIRE_HEIGHT_M = 0.1
 #: Vertical spacing of fence wires for the bundle's geometric mean radius [m] [practice].
 FENCE_WIRE_SPACING_M = 0.3
+#: Resistance to earth of one post when none is given, by material [Ω]: a driven
+#: steel post in 100 Ω·m soil about 100 Ω [memory]; a wooden post is no insulator
+#: when wet, a few kΩ per post (1–10 kΩ; a dry, treated post can exceed 100 kΩ)
+#: [memory]. The wet value is the one a screen takes [practice].
+TYPICAL_POST_RESISTANCE_OHM = {"metal": 100.0, "wood": 5000.0}
+#: Distance between the centres of the two rails of standard-gauge track [m]:
+#: 1435 mm gauge plus a 72 mm rail head [memory].
+RAIL_CENTRE_SPACING_M = 1.507
 #: Track-to-earth (ballast) resistance of ballasted track, 2–20 Ω·km [memory].
 BALLAST_RESISTANCE_OHM_KM = 5.0
 #: A 0.6 mm copper pair, both wires in parallel: ρ_Cu/(2·π·(0.3 mm)²) [Ω/m]
@@ -186,7 +194,8 @@ def pipeline_line_constants(diameter_m, wall_thickness_m, coating_resistance_ohm
                             steel_relative_permeability=PIPE_STEEL_RELATIVE_PERMEABILITY,
                             steel_resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
                             coating_thickness_m=PE_COATING_THICKNESS_M,
-                            coating_relative_permittivity=PE_RELATIVE_PERMITTIVITY):
+                            coating_relative_permittivity=PE_RELATIVE_PERMITTIVITY,
+                            soil_layers=None):
     """Line constants of a coated buried steel pipeline.
 
     Parameters
@@ -210,6 +219,10 @@ def pipeline_line_constants(diameter_m, wall_thickness_m, coating_resistance_ohm
     coating_thickness_m, coating_relative_permittivity : array_like, optional
         See :func:`coating_capacitance`; pass ``coating_thickness_m=None`` to
         leave the coating capacitance out.
+    soil_layers : dict, optional
+        ``bottom_resistivity_ohm_m`` and ``top_thickness_m`` of a two-layer
+        soil for the earth-return impedance (``soil_resistivity_ohm_m`` is
+        then the top layer's).
 
     Returns
     -------
@@ -247,7 +260,7 @@ def pipeline_line_constants(diameter_m, wall_thickness_m, coating_resistance_ohm
         relative_permeability=steel_relative_permeability, frequency_hz=frequency_hz,
         wall_thickness_m=wall_thickness_m)
     z_earth = earth_return.self_impedance(height_m, d / 2, 0.0, soil_resistivity_ohm_m,
-                                          frequency_hz)
+                                          frequency_hz, **(soil_layers or {}))
     return LineConstants(np.asarray(z_int + z_earth, dtype=complex),
                          np.asarray(y, dtype=complex))
 
@@ -274,7 +287,8 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
                          post_type, height_m, soil_resistivity_ohm_m, frequency_hz,
                          wire_spacing_m=FENCE_WIRE_SPACING_M,
                          wire_resistivity_ohm_m=STEEL_RESISTIVITY_OHM_M,
-                         wire_relative_permeability=WIRE_STEEL_RELATIVE_PERMEABILITY):
+                         wire_relative_permeability=WIRE_STEEL_RELATIVE_PERMEABILITY,
+                         soil_layers=None):
     """Line constants of a wire fence (wires bonded, treated as one conductor).
 
     Parameters
@@ -286,10 +300,12 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
     post_spacing_m : array_like
         Distance between posts [m].
     post_resistance_ohm : array_like
-        Resistance to earth of one metal post [Ω].
+        Resistance to earth of one post [Ω], whatever its material; NaN takes
+        the material's typical value, :data:`TYPICAL_POST_RESISTANCE_OHM`; inf
+        (wires on insulators) leaves the capacitance alone.
     post_type : array_like of str
-        ``"metal"`` (every post grounds the wires) or ``"wood"`` (no leakage
-        except at grounds the caller places as node shunts).
+        ``"metal"`` or ``"wood"``. Every post leaks: a wet wooden post is no
+        insulator (a few kΩ, from memory).
     height_m : array_like
         Height of the fence wires [m].
     soil_resistivity_ohm_m : array_like
@@ -301,6 +317,9 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
         [m]; default 0.3 m [practice].
     wire_resistivity_ohm_m, wire_relative_permeability : array_like, optional
         See :func:`wire_internal_impedance`.
+    soil_layers : dict, optional
+        Two-layer soil for the earth-return impedance (see
+        :func:`pipeline_line_constants`).
 
     Returns
     -------
@@ -311,9 +330,10 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
     -----
     z = Z_int/n + Z_earth(h, GMR of the n collinear wires), Z_earth from
     :func:`corridor.physics.earth_return.self_impedance`;
-    metal posts: y = 1/(R_post·spacing) + jωC (the posts smeared along the
-    line, fine while the post spacing is ≪ 1/|γ|); wooden posts: y = jωC,
-    with C from :func:`wire_capacitance` of one wire at the fence height.
+    y = 1/(R_post·spacing) + jωC for posts of any material (the posts
+    smeared along the line, fine while the post spacing is ≪ 1/|γ|), with C
+    from :func:`wire_capacitance` of one wire at the fence height
+    (docs/methods.md §5.7, §10).
 
     References
     ----------
@@ -331,17 +351,20 @@ def fence_line_constants(wire_count, wire_radius_m, post_spacing_m, post_resista
                                     wire_relative_permeability) / n
     gmr_m = _collinear_bundle_gmr_m(n, r_w, np.asarray(wire_spacing_m, dtype=float))
     z = z_int + earth_return.self_impedance(height_m, gmr_m, 0.0, soil_resistivity_ohm_m,
-                                            frequency_hz)
+                                            frequency_hz, **(soil_layers or {}))
     spacing = np.asarray(post_spacing_m, dtype=float)
     r_post = np.asarray(post_resistance_ohm, dtype=float)
-    metal = kind == "metal"
-    g_posts = np.where(metal, 1.0 / np.where(metal, r_post * spacing, 1.0), 0.0)
-    y = g_posts + 1j * omega * wire_capacitance(height_m, r_w)
+    typical = np.where(kind == "wood", TYPICAL_POST_RESISTANCE_OHM["wood"],
+                       TYPICAL_POST_RESISTANCE_OHM["metal"])
+    r_post = np.where(np.isnan(r_post), typical, r_post)  # inf: posts on insulators
+    if np.any(r_post <= 0) or np.any(spacing <= 0):
+        raise InputError("post_resistance_ohm and post_spacing_m: must be > 0")
+    y = 1.0 / (r_post * spacing) + 1j * omega * wire_capacitance(height_m, r_w)
     return LineConstants(np.asarray(z, dtype=complex), np.asarray(y, dtype=complex))
 
 
 def rail_line_constants(ballast_resistance_ohm_km, rail_resistance_ohm_per_km,
-                        soil_resistivity_ohm_m, frequency_hz):
+                        soil_resistivity_ohm_m, frequency_hz, soil_layers=None):
     """Line constants of a railway track (both rails in parallel).
 
     Parameters
@@ -353,9 +376,12 @@ def rail_line_constants(ballast_resistance_ohm_km, rail_resistance_ohm_per_km,
         Resistance of the two rails in parallel [Ω/km]; raises the
         resistive part of the internal impedance where it is larger.
     soil_resistivity_ohm_m : array_like
-        Soil resistivity [Ω·m].
+        Soil resistivity [Ω·m] (two-layer soil: the top layer's).
     frequency_hz : float
         Frequency [Hz].
+    soil_layers : dict, optional
+        ``bottom_resistivity_ohm_m`` and ``top_thickness_m`` of a two-layer
+        soil, passed to :func:`corridor.physics.earth_return.self_impedance`.
 
     Returns
     -------
@@ -366,14 +392,21 @@ def rail_line_constants(ballast_resistance_ohm_km, rail_resistance_ohm_per_km,
     -----
     z = Z_int/2 (two rails in parallel, each the equivalent round conductor
     of :func:`corridor.physics.conductors.rail_equivalent`; its resistive
-    part at least ``rail_resistance_ohm_per_km``) + Z_earth of a conductor on
-    the surface with twice the rail's equivalent radius;
-    y = 1/(R_ballast·1000). At 50–60 Hz this gives about 0.1 + j0.6–0.7 Ω/km,
-    the order quoted for track–earth loops (0.15 + j0.6 Ω/km at 50 Hz) [memory].
+    part at least ``rail_resistance_ohm_per_km``) + Z_earth of the rail pair
+    on the surface, whose geometric mean radius is √(r_eq·s) with s the
+    distance between rail centres (:data:`RAIL_CENTRE_SPACING_M`);
+    y = 1/(R_ballast·1000). At 50 Hz in 100 Ω·m soil this gives about
+    0.10 + j0.53 Ω/km, the order measured on single tracks (Hill and
+    Carpenter 1993; values from memory).
 
     References
     ----------
     .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems, 1968.
+    .. [2] R. J. Hill, D. C. Carpenter, "Rail track distributed transmission
+       line impedance and admittance: theoretical modeling and experimental
+       results", IEEE Trans. Vehicular Technology 42(2), 225–241, 1993.
+    .. [3] J. D. Glover, M. S. Sarma, T. Overbye, Power System Analysis and
+       Design, ch. 4 (geometric mean radius of a two-conductor bundle).
     """
     r_b = np.asarray(ballast_resistance_ohm_km, dtype=float)
     if np.any(r_b <= 0):
@@ -382,8 +415,9 @@ def rail_line_constants(ballast_resistance_ohm_km, rail_resistance_ohm_per_km,
     z_int = rail.internal_impedance_ohm_per_m / 2
     z_int = z_int + np.maximum(np.asarray(rail_resistance_ohm_per_km, dtype=float) / 1000.0
                                - z_int.real, 0.0)
-    z_earth = earth_return.self_impedance(0.0, rail.equivalent_radius_m * 2.0, 0.0,
-                                          soil_resistivity_ohm_m, frequency_hz)
+    pair_gmr_m = math.sqrt(rail.equivalent_radius_m * RAIL_CENTRE_SPACING_M)
+    z_earth = earth_return.self_impedance(0.0, pair_gmr_m, 0.0, soil_resistivity_ohm_m,
+                                          frequency_hz, **(soil_layers or {}))
     z = np.asarray(z_int + z_earth, dtype=complex)
     y = 1.0 / (r_b * 1000.0) + 0j
     z, y = np.broadcast_arrays(z, y)
@@ -392,7 +426,7 @@ def rail_line_constants(ballast_resistance_ohm_km, rail_resistance_ohm_per_km,
 
 def telecom_line_constants(conductor_radius_m, height_m, soil_resistivity_ohm_m, frequency_hz,
                            conductor_resistance_ohm_per_m=PAIR_RESISTANCE_OHM_PER_M,
-                           capacitance_f_per_m=CABLE_CAPACITANCE_F_PER_M):
+                           capacitance_f_per_m=CABLE_CAPACITANCE_F_PER_M, soil_layers=None):
     """Line constants of a telecom pair against earth (longitudinal circuit).
 
     Parameters
@@ -410,6 +444,9 @@ def telecom_line_constants(conductor_radius_m, height_m, soil_resistivity_ohm_m,
         0.6 mm copper pair, 0.030 Ω/m [practice].
     capacitance_f_per_m : array_like, optional
         Capacitance of the pair to sheath/earth [F/m]; default 80 nF/km [memory].
+    soil_layers : dict, optional
+        Two-layer soil for the earth-return impedance (see
+        :func:`pipeline_line_constants`).
 
     Returns
     -------
@@ -424,10 +461,90 @@ def telecom_line_constants(conductor_radius_m, height_m, soil_resistivity_ohm_m,
     """
     omega = _omega(frequency_hz)
     z = np.asarray(conductor_resistance_ohm_per_m, dtype=float) + earth_return.self_impedance(
-        height_m, conductor_radius_m, 0.0, soil_resistivity_ohm_m, frequency_hz)
+        height_m, conductor_radius_m, 0.0, soil_resistivity_ohm_m, frequency_hz,
+        **(soil_layers or {}))
     y = 1j * omega * np.asarray(capacitance_f_per_m, dtype=float)
     z, y = np.broadcast_arrays(np.asarray(z, dtype=complex), np.asarray(y, dtype=complex))
     return LineConstants(z.copy(), y.copy())
+
+
+#: Sheath groundings that let a sheath current flow along the exposure.
+SHEATH_CURRENT_PATH = {"both_ends": True, "one_end": False, "isolated": False}
+
+
+def _sheath_screening_factor(sheath_resistance_ohm_per_m, sheath_radius_m, height_m,
+                             soil_resistivity_ohm_m, frequency_hz, sheath_grounding,
+                             exposure_length_m, end_resistance_ohm=0.0, soil_layers=None):
+    """Screening factor of a telecom cable's metal sheath (magnitude) [-].
+
+    Parameters
+    ----------
+    sheath_resistance_ohm_per_m : array_like
+        Longitudinal resistance of the sheath (screen, armour) [Ω/m].
+    sheath_radius_m : array_like
+        Mean radius of the sheath [m].
+    height_m : array_like
+        Height of the cable [m]; negative is burial depth (taken at the surface).
+    soil_resistivity_ohm_m : array_like
+        Soil resistivity [Ω·m] (two-layer soil: the top layer's).
+    frequency_hz : float
+        Frequency [Hz].
+    sheath_grounding : array_like of str
+        ``"both_ends"``, ``"one_end"`` or ``"isolated"``.
+    exposure_length_m : array_like
+        Length of the sheath between its grounds [m].
+    end_resistance_ohm : array_like, optional
+        Resistance to earth of each end ground [Ω] (default 0: ideal grounds).
+    soil_layers : dict, optional
+        Two-layer soil for the earth-return impedance.
+
+    Returns
+    -------
+    ndarray
+        |k| [-]: 1 where no sheath current can flow (isolated or grounded at
+        one end only: an isolated sheath screens nothing).
+
+    Notes
+    -----
+    A sheath grounded at both ends carries I_s = E·L/(Z_s·L + 2R_e), with
+    Z_s = R_s + Z_e its earth-return self impedance and Z_e the external part
+    (:func:`corridor.physics.earth_return.self_impedance` at the sheath
+    radius). The cores inside share the sheath's external field, so their
+    mutual impedance with the sheath is Z_e, and they see
+    E·[1 − Z_e·L/(Z_s·L + 2R_e)]:
+
+        k = (R_s·L + 2R_e) / (Z_s·L + 2R_e)     → R_s/Z_s for ideal end grounds.
+
+    This is the screening factor of a metallic sheath treated in ITU-T
+    Recommendation K.14, "Provision of a metallic screen in plastic-sheathed
+    cables" (which names the sheath resistance, the insulation of the outer
+    covering and the cable length as the parameters; the closed form here is
+    derived, with the ITU-T form k = R_s/|R_s + jωL_s| from memory as its
+    ideal-ground limit). A magnetic (steel-armoured) sheath screens better
+    than this non-magnetic form, so the value is conservative for it.
+
+    References
+    ----------
+    .. [1] ITU-T Recommendation K.14, Provision of a metallic screen in
+       plastic-sheathed cables (Blue Book vol. IX, 1988).
+    .. [2] ITU-T Directives concerning the protection of telecommunication
+       lines against harmful effects from electric power lines, vol. II
+       (screening factors; from memory).
+    """
+    r_s = np.asarray(sheath_resistance_ohm_per_m, dtype=float)
+    length = np.asarray(exposure_length_m, dtype=float)
+    r_e = np.asarray(end_resistance_ohm, dtype=float)
+    grounding = np.asarray(sheath_grounding)
+    unknown = ~np.isin(grounding, list(SHEATH_CURRENT_PATH))
+    if unknown.any():
+        raise InputError(f"sheath grounding: unknown labels {sorted(set(grounding[unknown]))}")
+    if np.any(r_s <= 0):
+        raise InputError("sheath_resistance_ohm_per_km: must be > 0")
+    z_e = earth_return.self_impedance(height_m, sheath_radius_m, 0.0, soil_resistivity_ohm_m,
+                                      frequency_hz, **(soil_layers or {}))
+    k = np.abs((r_s * length + 2 * r_e) / ((r_s + z_e) * length + 2 * r_e))
+    path = np.vectorize(SHEATH_CURRENT_PATH.get, otypes=[bool])(grounding)
+    return np.where(path & (length > 0), k, 1.0)
 
 
 # --------------------------------------------------------------------------

@@ -111,6 +111,9 @@ def capacitive_coupling(
     asset_height_m,
     asset_radius_m,
     frequency_hz,
+    *,
+    asset_wire_count=1,
+    asset_wire_spacing_m=0.3,
 ):
     """Open-circuit voltage and short-circuit current of assets near a line.
 
@@ -122,11 +125,17 @@ def capacitive_coupling(
         Complex phase-to-earth voltages, 0 for earth wires [V].
     asset_offset_m, asset_height_m : array_like, shape (n_pairs,)
         Asset position [m]; assets with height ≤ 0 (buried, on the ground)
-        are screened by the earth and get zero.
+        are screened by the earth and get zero. For a bundle, the height of
+        its middle.
     asset_radius_m : array_like, shape (n_pairs,) or scalar
         Asset (wire, rail, pipe) radius [m].
     frequency_hz : float
         Frequency [Hz].
+    asset_wire_count : array_like of int, shape (n_pairs,) or scalar, optional
+        Number of bonded wires of the asset (a fence's wires), one above the
+        other; default 1.
+    asset_wire_spacing_m : array_like, shape (n_pairs,) or scalar, optional
+        Vertical spacing of those wires [m]; default 0.3 m (common practice).
 
     Returns
     -------
@@ -136,12 +145,17 @@ def capacitive_coupling(
 
     Notes
     -----
-    With the asset w added to the system,
-    [P_cc P_cw; P_wc P_ww]·[q_c; q_w] = [V_c; V_w].
-    Open circuit (q_w = 0): V_oc = P_wc·P_cc⁻¹·V_c.
-    Grounded (V_w = 0): by the Schur complement S = P_ww − P_wc P_cc⁻¹ P_cw,
-    q_w = −V_oc/S and I_sc = jω·q_w. The line voltages are held, so the
-    asset does not disturb q_c in the open-circuit case.
+    With the asset's wires w added to the system,
+    [P_cc P_cw; P_wc P_ww]·[q_c; q_w] = [V_c; V_w·1].
+    Eliminating q_c with the line voltages held:
+    S·q_w = V_w·1 − v,  v = P_wc·P_cc⁻¹·V_c,  S = P_ww − P_wc·P_cc⁻¹·P_cw.
+    Grounded bundle (V_w = 0): q_w = −S⁻¹v, I_sc = jω·1ᵀq_w.
+    Floating bundle (1ᵀq_w = 0): V_oc = 1ᵀS⁻¹v / 1ᵀS⁻¹1.
+    One wire reduces to V_oc = v, q = −v/S (docs/methods.md §3.2). The n wires
+    sit at h + (k − (n−1)/2)·s, raised together where the lowest would come
+    closer to the ground than 5 cm. Bonded wires pick up more current than
+    one, but less than n times as much: they screen one another
+    (docs/methods.md §10).
 
     References
     ----------
@@ -157,12 +171,33 @@ def capacitive_coupling(
     xa = np.atleast_1d(np.asarray(asset_offset_m, float))
     ha = np.broadcast_to(np.asarray(asset_height_m, float), xa.shape)
     ra = np.broadcast_to(np.asarray(asset_radius_m, float), xa.shape)
+    n_w = np.broadcast_to(np.asarray(asset_wire_count, np.int64), xa.shape)
+    spacing = np.broadcast_to(np.asarray(asset_wire_spacing_m, float), xa.shape)
+    if np.any(n_w < 1):
+        raise ValueError("asset_wire_count: must be >= 1")
     above = ha > 0
-    hw = np.where(above, ha, 1.0)
-    dx = xa[:, None] - xc[None, :]
-    p_wc = _K_M_PER_F * np.log(np.hypot(dx, hw[:, None] + hc) / np.hypot(dx, hw[:, None] - hc))
-    p_ww = _K_M_PER_F * np.log(2 * hw / ra)
-    v_oc = p_wc @ q_c
-    schur = p_ww - np.einsum("pi,ij,pj->p", p_wc, p_inv, p_wc)
-    i_sc = 1j * 2 * np.pi * frequency_hz * (-v_oc / schur)
-    return CapacitiveCoupling(np.where(above, v_oc, 0), np.where(above, i_sc, 0))
+    v_oc = np.zeros(xa.shape, complex)
+    i_sc = np.zeros(xa.shape, complex)
+    omega = 2 * np.pi * frequency_hz
+    for n in np.unique(n_w[above]):
+        sel = np.flatnonzero(above & (n_w == n))
+        k = np.arange(n) - 0.5 * (n - 1)
+        hw = ha[sel, None] + k[None, :] * spacing[sel, None]  # (p, n)
+        lowest = np.maximum(0.05, 2 * ra[sel])[:, None]
+        hw = hw + np.maximum(lowest - hw[:, :1], 0.0)
+        r = ra[sel, None, None]
+        dx = xa[sel, None, None] - xc[None, None, :]
+        p_wc = _K_M_PER_F * np.log(np.hypot(dx, hw[:, :, None] + hc)
+                                   / np.hypot(dx, hw[:, :, None] - hc))  # (p, n, n_c)
+        dh_sum = hw[:, :, None] + hw[:, None, :]
+        dh_diff = np.abs(hw[:, :, None] - hw[:, None, :])
+        eye = np.eye(n, dtype=bool)[None]
+        p_ww = _K_M_PER_F * np.log(dh_sum / np.where(eye, r, np.where(eye, 1.0, dh_diff)))
+        v = p_wc @ q_c  # (p, n)
+        schur = p_ww - np.einsum("pic,cd,pjd->pij", p_wc, p_inv, p_wc)
+        s_inv = np.linalg.inv(schur)  # real, symmetric positive definite, n ≤ a few
+        s_inv_v = np.einsum("pij,pj->p", s_inv, v)
+        s_inv_1 = s_inv.sum(axis=(1, 2))
+        v_oc[sel] = s_inv_v / s_inv_1
+        i_sc[sel] = 1j * omega * (-s_inv_v)
+    return CapacitiveCoupling(v_oc, i_sc)

@@ -29,14 +29,16 @@ __all__ = [
     "ExposureFault",
     "FaultEmf",
     "asset_mutual_impedance",
+    "circuit_phase_currents",
     "conductor_currents",
     "earth_wire_currents",
     "emf_per_m",
     "exposure_fault_emf",
     "fault_emf_per_m",
     "impedance_matrix",
-    "normal_phase_currents",
+    "outage_weights",
     "screening_factor",
+    "worst_normal_emf",
 ]
 
 _PHASE_ANGLE_RAD = {"A": 0.0, "B": -2.0 * np.pi / 3.0, "C": 2.0 * np.pi / 3.0}
@@ -49,6 +51,7 @@ def impedance_matrix(
     conductor_resistance_ohm_per_m,
     soil_resistivity_ohm_m,
     frequency_hz,
+    soil_layers=None,
 ):
     """Primitive series impedance matrix of n earth-return conductors.
 
@@ -61,9 +64,12 @@ def impedance_matrix(
     conductor_resistance_ohm_per_m : array_like, shape (n,)
         AC resistance (complex internal impedance also accepted) [Ω/m].
     soil_resistivity_ohm_m : float
-        Soil resistivity [Ω·m].
+        Soil resistivity [Ω·m] (two-layer soil: the top layer's).
     frequency_hz : float
         Frequency [Hz].
+    soil_layers : dict, optional
+        ``bottom_resistivity_ohm_m`` and ``top_thickness_m`` of a two-layer
+        soil (docs/methods.md §9); None: homogeneous.
 
     Returns
     -------
@@ -89,8 +95,11 @@ def impedance_matrix(
     n = x.size
     iu, ju = np.triu_indices(n, 1)
     dx = np.abs(x[iu] - x[ju])
-    z_off = earth_return.mutual_impedance(h[iu], h[ju], dx, soil_resistivity_ohm_m, frequency_hz)
-    z_diag = earth_return.self_impedance(h, gmr, res, soil_resistivity_ohm_m, frequency_hz)
+    layers = soil_layers or {}
+    z_off = earth_return.mutual_impedance(h[iu], h[ju], dx, soil_resistivity_ohm_m, frequency_hz,
+                                          **layers)
+    z_diag = earth_return.self_impedance(h, gmr, res, soil_resistivity_ohm_m, frequency_hz,
+                                         **layers)
     z = np.zeros((n, n), dtype=complex)
     z[iu, ju] = z_off
     z[ju, iu] = z_off
@@ -135,54 +144,6 @@ def earth_wire_currents(z_matrix, phase_index, earth_wire_index, phase_currents_
     return -np.linalg.solve(z[np.ix_(s, s)], z[np.ix_(s, p)] @ ip)
 
 
-def normal_phase_currents(load_current_a_per_circuit, phasing, residual_current_pct=0.0):
-    """Phase current phasors of one or more three-phase circuits in normal load.
-
-    Parameters
-    ----------
-    load_current_a_per_circuit : array_like, shape (n_circuits,)
-        rms load current of each circuit [A].
-    phasing : sequence of str
-        Per circuit, the phase carried by its three conductors in conductor
-        order, e.g. ``"ABC"``, ``"CBA"``, ``"BCA"``.
-    residual_current_pct : array_like
-        Residual (earth-return) current in percent of the load current,
-        scalar or per circuit [%].
-
-    Returns
-    -------
-    ndarray of complex, shape (3·n_circuits,)
-        Conductor current phasors in conductor order [A].
-
-    Notes
-    -----
-    Phase A at 0°, B at −120°, C at +120° (positive sequence). The residual
-    current I_r = pct/100·I_load is the *total* current returning through
-    the earth (I_r = 3I0); each conductor carries I_r/3 in phase with A.
-
-    References
-    ----------
-    .. [1] ITU-T Directives concerning the protection of telecommunication
-       lines against harmful effects from electric power lines, vol. II
-       (residual current of unbalanced load, memory).
-    """
-    load = np.atleast_1d(np.asarray(load_current_a_per_circuit, float))
-    if isinstance(phasing, str):
-        phasing = [phasing]
-    if len(phasing) != load.size:
-        raise ValueError("one phasing string per circuit is required")
-    pct = np.broadcast_to(np.asarray(residual_current_pct, float), load.shape)
-    out = np.empty(3 * load.size, dtype=complex)
-    for c, code in enumerate(phasing):
-        code = code.upper()
-        if sorted(code) != ["A", "B", "C"]:
-            raise ValueError(f"phasing {code!r} must be a permutation of 'ABC'")
-        residual = pct[c] / 100.0 * load[c] / 3.0
-        for i, ph in enumerate(code):
-            out[3 * c + i] = load[c] * np.exp(1j * _PHASE_ANGLE_RAD[ph]) + residual
-    return out
-
-
 class ConductorCurrents(NamedTuple):
     """Result of :func:`conductor_currents`."""
 
@@ -203,6 +164,8 @@ def conductor_currents(
     phase_currents_a,
     soil_resistivity_ohm_m,
     frequency_hz,
+    bottom_resistivity_ohm_m=None,
+    top_thickness_m=None,
 ):
     """Currents of every conductor of one line, earth wires included.
 
@@ -216,11 +179,14 @@ def conductor_currents(
         Conductors carrying phases and earth wires grounded at every tower.
     phase_currents_a : array_like, shape (n_cases, n_phase)
         Normal-load phase currents, one row per case (e.g. per line sharing
-        the cross-section), from :func:`normal_phase_currents` [A].
+        the cross-section), from :func:`circuit_phase_currents` [A].
     soil_resistivity_ohm_m : array_like, shape (n_soil,)
-        Soil resistivities to evaluate [Ω·m].
+        Soil resistivities to evaluate [Ω·m] (two-layer soils: the top layer's).
     frequency_hz : float
         Frequency [Hz].
+    bottom_resistivity_ohm_m, top_thickness_m : array_like, shape (n_soil,), optional
+        Two-layer soils: ρ₂ [Ω·m] and the top layer's thickness [m]; NaN or
+        None: homogeneous (docs/methods.md §9).
 
     Returns
     -------
@@ -250,9 +216,15 @@ def conductor_currents(
     n_c = x.size
     normal = np.zeros((len(rhos), len(ip), n_c), complex)
     fault = np.zeros((len(rhos), p.size, n_c), complex)
+    layered = bottom_resistivity_ohm_m is not None
+    if layered:
+        rho2 = np.broadcast_to(np.asarray(bottom_resistivity_ohm_m, float), rhos.shape)
+        t_top = np.broadcast_to(np.asarray(top_thickness_m, float), rhos.shape)
     for ri, rho in enumerate(rhos):
+        layers = ({"bottom_resistivity_ohm_m": rho2[ri], "top_thickness_m": t_top[ri]}
+                  if layered else None)
         z = impedance_matrix(x, conductor_height_m, conductor_gmr_m,
-                             conductor_resistance_ohm_per_m, rho, frequency_hz)
+                             conductor_resistance_ohm_per_m, rho, frequency_hz, layers)
         for c in range(len(ip)):
             normal[ri, c, p] = ip[c]
             if s.size:
@@ -271,6 +243,8 @@ def asset_mutual_impedance(
     asset_height_m,
     soil_resistivity_ohm_m,
     frequency_hz,
+    bottom_resistivity_ohm_m=None,
+    top_thickness_m=None,
 ):
     """Mutual impedance between each conductor of a line and each asset section.
 
@@ -282,9 +256,11 @@ def asset_mutual_impedance(
         Asset position in the same cross-section frame [m]; height ≤ 0 for
         buried assets (treated as surface).
     soil_resistivity_ohm_m : array_like, shape (n_pairs,) or scalar
-        Soil resistivity per pair [Ω·m].
+        Soil resistivity per pair [Ω·m] (two-layer soil: the top layer's).
     frequency_hz : float
         Frequency [Hz].
+    bottom_resistivity_ohm_m, top_thickness_m : array_like, shape (n_pairs,), optional
+        Two-layer soil per pair (docs/methods.md §9); None or NaN: homogeneous.
 
     Returns
     -------
@@ -305,8 +281,16 @@ def asset_mutual_impedance(
     xa = np.atleast_1d(np.asarray(asset_offset_m, float))
     ha = np.broadcast_to(np.asarray(asset_height_m, float), xa.shape)
     rho = np.broadcast_to(np.asarray(soil_resistivity_ohm_m, float), xa.shape)
+    layers = {}
+    if bottom_resistivity_ohm_m is not None:
+        layers = {
+            "bottom_resistivity_ohm_m": np.broadcast_to(
+                np.asarray(bottom_resistivity_ohm_m, float), xa.shape)[:, None],
+            "top_thickness_m": np.broadcast_to(np.asarray(top_thickness_m, float),
+                                               xa.shape)[:, None],
+        }
     return earth_return.mutual_impedance(
-        h[None, :], ha[:, None], x[None, :] - xa[:, None], rho[:, None], frequency_hz)
+        h[None, :], ha[:, None], x[None, :] - xa[:, None], rho[:, None], frequency_hz, **layers)
 
 
 def emf_per_m(z_conductor_asset_ohm_per_m, conductor_currents_a):
@@ -481,3 +465,221 @@ def exposure_fault_emf(section_emf_v, section_unscreened_emf_v, exposure_of_sect
     bare_total = _complex_bincount(idx, e0[rows, worst[idx]], n_exposures)
     k = screening_factor(totals[np.arange(n_exposures), worst], bare_total)
     return ExposureFault(worst, e[rows, worst[idx]], k)
+
+
+# -- Normal load: per-circuit currents, outage scenarios, worst case over unknowns ------
+
+
+class CircuitCurrents(NamedTuple):
+    """Result of :func:`circuit_phase_currents`: one row per circuit."""
+
+    #: Positive-sequence load currents of each circuit alone, shape
+    #: (n_circuits, 3·n_circuits) [A]; the other circuits' conductors carry 0.
+    balanced_a: np.ndarray
+    #: Residual (earth-return) current of each circuit alone, I_r/3 on each of
+    #: its conductors, same shape [A].
+    residual_a: np.ndarray
+
+
+def circuit_phase_currents(load_current_a_per_circuit, phasing, residual_current_pct=0.0,
+                            flow_direction=1.0, phase_offset_deg=0.0):
+    """Phase currents of each circuit of a line on its own, balanced and residual parts.
+
+    Parameters
+    ----------
+    load_current_a_per_circuit : array_like, shape (n_circuits,)
+        rms load current of each circuit [A].
+    phasing : sequence of str
+        Per circuit, the phases of its three conductors in conductor order
+        (``"ABC"``, ``"CBA"``, ...).
+    residual_current_pct : array_like
+        Residual current in percent of each circuit's load [%], scalar or per circuit.
+    flow_direction : array_like
+        +1 where the circuit's power flows in the line's digitised direction,
+        −1 against it; scalar or per circuit.
+    phase_offset_deg : array_like
+        Phase-angle offset of the circuit's phase A against the common
+        reference [deg] (for example 30° across a transformer); scalar or per
+        circuit.
+
+    Returns
+    -------
+    CircuitCurrents
+        Balanced and residual conductor currents of each circuit alone [A].
+
+    Notes
+    -----
+    I_k = s·I_L·e^{j(φ_k + δ)} (balanced, φ = 0°, −120°, +120° for A, B, C)
+    and s·(I_r/3)·e^{jδ} (residual, I_r = pct/100·I_L), with s the flow
+    direction and δ the offset (docs/methods.md §2.3). The EMF is linear in
+    these currents, so any loading of the line (an outage, another split of
+    the load) is a weighted sum of the rows.
+
+    References
+    ----------
+    .. [1] ITU-T Directives concerning the protection of telecommunication
+       lines against harmful effects from electric power lines, vol. II
+       (residual current of unbalanced load; from memory).
+    """
+    load = np.atleast_1d(np.asarray(load_current_a_per_circuit, float))
+    if isinstance(phasing, str):
+        phasing = [phasing]
+    n = load.size
+    if len(phasing) != n:
+        raise ValueError("one phasing string per circuit is required")
+    pct = np.broadcast_to(np.asarray(residual_current_pct, float), load.shape)
+    sign = np.broadcast_to(np.asarray(flow_direction, float), load.shape)
+    shift = np.exp(1j * np.deg2rad(np.broadcast_to(np.asarray(phase_offset_deg, float),
+                                                   load.shape)))
+    balanced = np.zeros((n, 3 * n), complex)
+    residual = np.zeros((n, 3 * n), complex)
+    for c, code in enumerate(phasing):
+        code = code.upper()
+        if sorted(code) != ["A", "B", "C"]:
+            raise ValueError(f"phasing {code!r} must be a permutation of 'ABC'")
+        factor = sign[c] * shift[c]
+        for i, ph in enumerate(code):
+            balanced[c, 3 * c + i] = factor * load[c] * np.exp(1j * _PHASE_ANGLE_RAD[ph])
+            residual[c, 3 * c + i] = factor * pct[c] / 100.0 * load[c] / 3.0
+    return CircuitCurrents(balanced, residual)
+
+
+def outage_weights(load_current_a_per_circuit):
+    """Loading scenarios of a line: as given, and each circuit out of service in turn.
+
+    Parameters
+    ----------
+    load_current_a_per_circuit : array_like, shape (n_circuits,)
+        rms load current of each circuit [A].
+
+    Returns
+    -------
+    ndarray, shape (n_scenarios, n_circuits)
+        Weight of each circuit's current in each scenario [-]. Row 0 is the
+        loading as given (all ones). For a line of two or more circuits, row
+        1 + c has circuit c out of service and the others carrying the line's
+        total load, shared in proportion to their own loads.
+
+    Notes
+    -----
+    With one circuit out, the line's total current I_tot = Σ I_c flows in the
+    others: weight I_tot/(I_tot − I_c) on each remaining circuit. A single
+    circuit line has only row 0.
+    """
+    load = np.atleast_1d(np.asarray(load_current_a_per_circuit, float))
+    n = load.size
+    rows = [np.ones(n)]
+    total = load.sum()
+    if n > 1:
+        for c in range(n):
+            rest = total - load[c]
+            w = np.full(n, total / rest if rest > 0 else 0.0)
+            w[c] = 0.0
+            rows.append(w)
+    return np.array(rows)
+
+
+class WorstNormalEmf(NamedTuple):
+    """Result of :func:`worst_normal_emf`."""
+
+    #: Worst-case |EMF| of each segment over the unknowns [V].
+    emf_v: np.ndarray
+    #: Entry (row of the input) whose outage scenario governs each segment,
+    #: −1 where the loading as given governs.
+    governing_entry: np.ndarray
+    #: Scenario column of that entry (0: as given).
+    governing_scenario: np.ndarray
+
+
+def worst_normal_emf(segment, line, group, emf_v, residual_emf_v, n_segments):
+    """Worst-case normal-load EMF per segment over unknown directions, angles and outages.
+
+    Parameters
+    ----------
+    segment, line : array_like of int, shape (n_entries,)
+        Segment and line of each entry; entries of the same (segment, line)
+        are summed first (for example the sections of a segment).
+    group : array_like of int, shape (n_entries,)
+        Phase group of the entry's line. Lines of one group have known
+        relative flow directions and phase angles: their EMFs add as phasors.
+        Different groups have unknown relative direction and angle.
+    emf_v : array_like of complex, shape (n_entries,) or (n_entries, n_scenarios)
+        EMF of the balanced load currents (earth-wire currents included) [V];
+        column 0 is the loading as given, further columns the line's outage
+        scenarios (repeat column 0 where a line has fewer scenarios).
+    residual_emf_v : array_like of complex, same shape as ``emf_v``
+        EMF of the line's residual current (earth-wire share included) [V];
+        its angle is unknown.
+    n_segments : int
+        Number of segments.
+
+    Returns
+    -------
+    WorstNormalEmf
+        Worst |EMF| per segment and the scenario that governs it.
+
+    Notes
+    -----
+    For phasors with unknown relative angles, max over the angles of
+    |Σ_g e^{jψ_g}·G_g| = Σ_g |G_g| (all aligned; the triangle inequality is
+    then an equality). An unknown flow direction is the special case ψ = π.
+    The residual currents' angles are unknown too, so they add Σ_k |R_k|:
+
+        |E|_worst = Σ_groups |Σ_{k∈g} E_k| + Σ_lines |R_k|        (docs/methods.md §8)
+
+    Outages (N−1: one circuit of one line at a time): replacing line k's
+    (E_k, R_k) by its scenario c changes the total by
+    Δ = |G_g − E_k + E_k^c| − |G_g| + |R_k^c| − |R_k|; the worst scenario is
+    the largest Δ > 0 of the segment. No enumeration over angles is needed.
+    """
+    seg = np.asarray(segment, np.int64)
+    lin = np.asarray(line, np.int64)
+    grp = np.asarray(group, np.int64)
+    e = np.asarray(emf_v, complex)
+    r = np.asarray(residual_emf_v, complex)
+    if e.ndim == 1:
+        e = e[:, None]
+        r = r[:, None]
+    n_scen = e.shape[1]
+    out = np.zeros(n_segments)
+    gov_entry = np.full(n_segments, -1, np.int64)
+    gov_scen = np.zeros(n_segments, np.int64)
+    if len(seg) == 0:
+        return WorstNormalEmf(out, gov_entry, gov_scen)
+    # one entry per (segment, line)
+    n_line = int(lin.max()) + 1
+    key = seg * n_line + lin
+    uniq, first, inv = np.unique(key, return_index=True, return_inverse=True)
+    inv = inv.ravel()
+    n_u = len(uniq)
+    eu = np.zeros((n_u, n_scen), complex)
+    ru = np.zeros((n_u, n_scen), complex)
+    for s in range(n_scen):
+        eu[:, s] = _complex_bincount(inv, e[:, s], n_u)
+        ru[:, s] = _complex_bincount(inv, r[:, s], n_u)
+    useg = uniq // n_line
+    ugrp = grp[first]
+    # group phasor sums per (segment, group), as given
+    n_grp = int(ugrp.max()) + 1
+    g_uniq, g_inv = np.unique(useg * n_grp + ugrp, return_inverse=True)
+    g_inv = g_inv.ravel()
+    n_g = len(g_uniq)
+    g_sum = _complex_bincount(g_inv, eu[:, 0], n_g)
+    out = (np.bincount(g_uniq // n_grp, weights=np.abs(g_sum), minlength=n_segments)
+           + np.bincount(useg, weights=np.abs(ru[:, 0]), minlength=n_segments))
+    if n_scen > 1:
+        gs = g_sum[g_inv][:, None]
+        delta = (np.abs(gs - eu[:, :1] + eu) - np.abs(gs)
+                 + np.abs(ru) - np.abs(ru[:, :1]))
+        delta[:, 0] = 0.0
+        best_col = np.argmax(delta, axis=1)
+        best = delta[np.arange(n_u), best_col]
+        seg_best = np.zeros(n_segments)
+        np.maximum.at(seg_best, useg, best)
+        out = out + seg_best
+        # the entry that attains it (any one where ties)
+        hit = (best > 0) & (best >= seg_best[useg])
+        rows = np.flatnonzero(hit)
+        gov_entry[useg[rows]] = first[rows]
+        gov_scen[useg[rows]] = best_col[rows]
+    return WorstNormalEmf(out, gov_entry, gov_scen)

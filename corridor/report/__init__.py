@@ -48,8 +48,10 @@ log = logging.getLogger(__name__)
 
 _ASSUMPTIONS = [
     "Steady-state phasors at the run frequency; |V| is the magnitude to remote earth.",
-    "Earth-return coupling from Carson's equations (Sunde's surface form for buried assets)"
-    " in homogeneous soil, one resistivity per segment from the soil layer or the default.",
+    "Earth-return coupling from Carson's equations (Sunde's surface form for buried assets),"
+    " in homogeneous or two-layer soil (Sunde's layered kernel) per segment from the soil"
+    " layer or the default; holiday density, foot resistance, electrodes and earth potential"
+    " use the local (or top-layer) resistivity.",
     "Oblique exposures are split until the end separations differ by at most a factor of 3,"
     " each section taking the geometric-mean separation (ITU-T Directives practice).",
     "One earth fault at a time; each segment takes its worst case. Earth-wire screening is"
@@ -246,8 +248,13 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
         body.append(html_table(crows, list(crows.columns), f"{ls.name}: {len(crows)} criteria"))
         body.append("</section>")
 
+    run_assumptions = list(_ASSUMPTIONS)
+    record = getattr(run, "record", None) or {}
+    if isinstance(record, dict) and record.get("normal_load_assumption"):
+        # the normal-load worst case over unknown directions and angles (docs/methods.md §8)
+        run_assumptions.insert(1, str(record["normal_load_assumption"]))
     body.append('<section id="assumptions"><h2>Method and assumptions</h2><ul>'
-                + "".join(f"<li>{esc(a)}</li>" for a in _ASSUMPTIONS) + "</ul></section>")
+                + "".join(f"<li>{esc(a)}</li>" for a in run_assumptions) + "</ul></section>")
     body.append(f"<footer>{esc(SAFETY_CAUTION)}</footer>")
 
     doc = ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"

@@ -36,13 +36,15 @@ from __future__ import annotations
 
 import numpy as np
 
+from corridor.limits.ac_corrosion import iso18086_utilization
 from corridor.limits.criteria import ac_current_density_a_per_m2
 from corridor.limits.limit_sets import COMPUTED_QUANTITIES, evaluate
 from corridor.steps.columns import kinds_with
 
-#: Segment-table columns handed to the limit set as they are (the rest of
-#: :data:`corridor.limits.limit_sets.COMPUTED_QUANTITIES` is derived here).
-QUANTITIES = tuple(q for q in COMPUTED_QUANTITIES if q != "ac_density_a_per_m2")
+#: Quantities derived here from the segment table (the rest of
+#: :data:`corridor.limits.limit_sets.COMPUTED_QUANTITIES` are its columns as they are).
+DERIVED = ("ac_density_a_per_m2", "iso18086_density_ratio", "iso18086_density_ratio_with_dc")
+QUANTITIES = tuple(q for q in COMPUTED_QUANTITIES if q not in DERIVED)
 
 
 def derived_quantities(table) -> dict[str, np.ndarray]:
@@ -50,10 +52,20 @@ def derived_quantities(table) -> dict[str, np.ndarray]:
     kind = table["asset_kind"].to_numpy(dtype=object)
     coated = kinds_with(kind, "coated")
     out = {name: table[name].to_numpy(float) for name in QUANTITIES if name in table}
-    out["ac_density_a_per_m2"] = np.where(
+    j_ac = np.where(
         coated, ac_current_density_a_per_m2(table["v_normal_v"].to_numpy(float),
                                           table["soil_resistivity_ohm_m"].to_numpy(float)),
         np.nan)
+    out["ac_density_a_per_m2"] = j_ac
+    # ISO 18086 clause 7: J_ac < 30 A/m², or J_dc < 1 A/m², or J_ac/J_dc < 3, joined by "or"
+    # (corridor.limits.ac_corrosion). Without J_dc the alternatives cannot be credited: the
+    # first quantity falls back to J_ac alone (a J_ac at or above 30 A/m² exceeds), the
+    # second stays empty there, so the run lists it as not assessed (docs/methods.md §10).
+    j_dc = (table["dc_current_density_a_per_m2"].to_numpy(float)
+            if "dc_current_density_a_per_m2" in table else np.full(len(table), np.nan))
+    strict = np.where(coated, iso18086_utilization(j_ac, j_dc), np.nan)
+    out["iso18086_density_ratio_with_dc"] = strict
+    out["iso18086_density_ratio"] = np.where(np.isnan(strict) & coated, j_ac / 30.0, strict)
     return out
 
 

@@ -52,6 +52,10 @@ def response_columns(run, rs, t) -> None:
     t["emf_normal_v_per_km"] = emf_n / length_km
     t["emf_fault_v_per_km"] = emf_f / length_km
     t["emf_normal_v"] = emf_n
+    # the normal-load loading that governs the worst case (docs/methods.md §8)
+    governing = getattr(cp, "normal_governing", None)
+    t["normal_scenario"] = (np.asarray(governing, dtype=object)[sel] if governing is not None
+                            else np.full(len(t), "as given", dtype=object))
     t["emf_fault_v"] = emf_f
     t["v_normal_v"] = rs.v_normal_v
     t["i_normal_a"] = rs.i_normal_a
@@ -80,6 +84,13 @@ def response_columns(run, rs, t) -> None:
     t["i_capacitive_body_ma"] = np.where(above, rs.i_capacitive_body_ma, 0.0)
     t["capacitive_source_impedance_ohm"] = np.where(above, rs.capacitive_source_impedance_ohm,
                                                     np.nan)
+    # DC (cathodic-protection) current density where the operator gives it, for ISO 18086's
+    # combined criteria (corridor.steps.assess)
+    assets = run.inputs.assets
+    if "dc_current_density_a_per_m2" in assets:
+        j_dc = assets["dc_current_density_a_per_m2"].to_numpy(float)
+        t["dc_current_density_a_per_m2"] = np.where(
+            coated, j_dc[run.geometry.segments.feature[sel]], np.nan)
     t["emf_section_normal_v"] = np.where(section, rs.emf_section_normal_v, np.nan)
     t["emf_section_fault_v"] = np.where(section, rs.emf_section_fault_v, np.nan)
 

@@ -71,6 +71,13 @@ class Coupling:
     capacitive_current_a: np.ndarray
     earth_potential_fault_v: np.ndarray
     segment_fault_current_a: np.ndarray  # largest fault current of a line in reach
+    #: Normal-load scenario that governs each segment: "as given" or "outage <line> circuit <n>".
+    normal_governing: np.ndarray | None = None
+    #: Components of the normal-load EMF whose relative angles are unknown, sparse per
+    #: (component, segment): segment, slot (component's column, per asset) and EMF [V].
+    normal_component_segment: np.ndarray | None = None
+    normal_component_slot: np.ndarray | None = None
+    normal_component_emf_v: np.ndarray | None = None
 
 
 def _complex_bincount(index, values, n):
@@ -93,6 +100,127 @@ def _arrangement_arrays(arr):
     return x, h, r, gmr, res, phase_idx, ew_idx, phasing
 
 
+@dataclass
+class LineLoading:
+    """Per-circuit normal loading of every line and the N−1 outage scenarios.
+
+    Attributes
+    ----------
+    circuit_load_a, circuit_direction, circuit_offset_deg : list of ndarray, per line
+        Load current [A], flow direction (+1 along the digitised direction, −1
+        against) and phase-angle offset [deg] of each circuit, the line's own
+        direction and offset folded in where they are given.
+    group : ndarray of int, per line
+        Phase group: 0 for lines whose flow direction and phase offset are both
+        given (one common reference), a group of its own for every other line
+        (relative direction and angle unknown: the worst case over them).
+    known : ndarray of bool, per line
+        Direction and angle given.
+    weights : ndarray, shape (n_lines, n_scenarios, max_circuits)
+        Circuit weights per scenario (:func:`corridor.physics.induction.outage_weights`);
+        scenario 0 is the loading as given, rows a line lacks repeat it.
+    n_scenarios : int
+    """
+
+    circuit_load_a: list
+    circuit_direction: list
+    circuit_offset_deg: list
+    group: np.ndarray
+    known: np.ndarray
+    weights: np.ndarray
+    n_scenarios: int
+
+
+def _per_circuit(lines, li, field, n, default):
+    """Per-circuit values of a line field: ``"400;300"``, one number for all, or missing."""
+    from corridor.errors import InputError
+
+    if field not in lines:
+        return np.full(n, default, float)
+    raw = lines[field].iloc[li]
+    if raw is None or (isinstance(raw, float) and not np.isfinite(raw)):
+        return np.full(n, default, float)
+    parts = [p.strip() for p in str(raw).replace(",", ";").split(";") if p.strip()]
+    if not parts:
+        return np.full(n, default, float)
+    try:
+        values = np.array([float(p) for p in parts])
+    except ValueError:
+        raise InputError(f"power_lines: line {lines['line_id'].iloc[li]!r}, field {field}:"
+                         f" {raw!r} is not a number or a ';'-separated list of numbers") from None
+    if values.size == 1:
+        values = np.full(n, values[0])
+    if values.size != n:
+        raise InputError(f"power_lines: line {lines['line_id'].iloc[li]!r}, field {field}:"
+                         f" {values.size} values for {n} circuits")
+    return values
+
+
+def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
+    """Per-circuit loading of every line, its phase group and the outage scenarios.
+
+    Line fields (all optional): ``circuit_load_current_a``, ``circuit_flow_direction``
+    and ``circuit_phase_offset_deg`` (one value or ``"a;b"`` per circuit; defaults
+    ``load_current_a``, +1 and 0), ``flow_direction`` (±1) and ``phase_offset_deg``
+    against the common reference. Where the line's direction or offset is missing it
+    is unknown, and the coupling takes the worst case over it (docs/methods.md §8).
+    Run setting ``outage_scenario`` (default true): also evaluate each circuit of a
+    multi-circuit line out of service with the others carrying the line's total.
+    """
+    n_lines = len(lines)
+    load = lines["load_current_a"].to_numpy(float)
+    arr_names = lines["arrangement"].to_numpy(dtype=object)
+    direction = (lines["flow_direction"].to_numpy(float) if "flow_direction" in lines
+                 else np.full(n_lines, np.nan))
+    offset = (lines["phase_offset_deg"].to_numpy(float) if "phase_offset_deg" in lines
+              else np.full(n_lines, np.nan))
+    known = np.isfinite(direction) & np.isfinite(offset)
+    group = np.where(known, 0, 1 + np.arange(n_lines))
+    outage = bool(cfg.run.outage_scenario)
+    max_nc = max(n_circuits_by_arrangement.values(), default=1)
+    n_scen = 1 + max_nc if (outage and max_nc > 1) else 1
+    weights = np.ones((n_lines, n_scen, max_nc))
+    loads, dirs, offs = [], [], []
+    for li in range(n_lines):
+        nc = n_circuits_by_arrangement.get(arr_names[li], 1)
+        c_load = _per_circuit(lines, li, "circuit_load_current_a", nc, load[li])
+        c_dir = _per_circuit(lines, li, "circuit_flow_direction", nc, 1.0)
+        c_off = _per_circuit(lines, li, "circuit_phase_offset_deg", nc, 0.0)
+        line_dir = direction[li] if np.isfinite(direction[li]) else 1.0
+        line_off = offset[li] if np.isfinite(offset[li]) else 0.0
+        loads.append(c_load)
+        dirs.append(c_dir * line_dir)
+        offs.append(c_off + line_off)
+        if n_scen > 1 and nc > 1:
+            w = induction.outage_weights(c_load)
+            weights[li, :len(w), :nc] = w
+    return LineLoading(loads, dirs, offs, group, known, weights, n_scen)
+
+
+
+def normal_load_assumption(cfg, lines) -> str:
+    """Plain-language statement of the normal-load unknowns and how they are bounded.
+
+    For run.json (``normal_load_assumption``) and the report (docs/methods.md §8).
+    """
+    n_lines = len(lines)
+    given = np.zeros(n_lines, bool)
+    if "flow_direction" in lines and "phase_offset_deg" in lines:
+        given = (np.isfinite(lines["flow_direction"].to_numpy(float))
+                 & np.isfinite(lines["phase_offset_deg"].to_numpy(float)))
+    text = ("Normal load: the flow direction and phase angle of each power line relative to"
+            " the others are unknown unless the line gives flow_direction and phase_offset_deg"
+            f" ({int(n_lines - given.sum())} of {n_lines} lines give neither or only one), and"
+            " the residual current's angle is unknown; the normal-load EMF, voltage and current"
+            " are the worst case over these angles (the sum of the magnitudes of the"
+            " independent parts).")
+    if bool(cfg.run.outage_scenario):
+        text += (" Each circuit of a multi-circuit line is also taken out of service in turn,"
+                 " the others carrying the line's total load; the worse case is kept and named"
+                 " in the column normal_scenario.")
+    return text
+
+
 def couple(cfg, inputs, geo) -> Coupling:
     """Compute the coupling quantities of every asset segment.
 
@@ -113,6 +241,13 @@ def couple(cfg, inputs, geo) -> Coupling:
     sec_line = pairs.line[sec.pair]
     sec_asset = seg.feature[sec_seg]
     rho = geo.soil_resistivity_ohm_m[sec_seg]
+    # two-layer soil (bottom resistivity, top thickness) per segment, NaN: homogeneous
+    rho2_seg = getattr(geo, "soil_bottom_resistivity_ohm_m", None)
+    t_seg = getattr(geo, "soil_top_thickness_m", None)
+    layered = (rho2_seg is not None and t_seg is not None
+               and bool(np.any(np.isfinite(rho2_seg) & np.isfinite(t_seg))))
+    rho2 = np.asarray(rho2_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
+    t_top = np.asarray(t_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
     asset_h = assets["height_m"].to_numpy(float)[sec_asset]
     # position along the line and fault current at each section
     line_len = geo.edges.line_length_m
@@ -126,6 +261,11 @@ def couple(cfg, inputs, geo) -> Coupling:
     i_fault = if_start[sec_line] + (if_end[sec_line] - if_start[sec_line]) * frac
 
     emf_normal_sec = np.zeros(len(sec), complex)
+    loading = line_loading(cfg, lines, {n: a.n_circuits for n, a in cfg.arrangements.items()})
+    n_scen = loading.n_scenarios
+    # per section: balanced and residual EMF of its line in each loading scenario [V]
+    bal_sec = np.zeros((len(sec), n_scen), complex)
+    res_sec = np.zeros((len(sec), n_scen), complex)
     cap_sec = np.zeros(len(sec), complex)
     # fault EMF per section per candidate phase (up to 6 phases per arrangement)
     max_phases = max((len(_arrangement_arrays(a)[5]) for a in cfg.arrangements.values()),
@@ -133,12 +273,13 @@ def couple(cfg, inputs, geo) -> Coupling:
     fault_sec = np.zeros((len(sec), max_phases), complex)
     fault_unscreened = np.zeros((len(sec), max_phases), complex)
     phase_labels = np.full((len(lines), max_phases), "", dtype=object)
-    load = lines["load_current_a"].to_numpy(float)
     resid = lines["residual_current_pct"].to_numpy(float)
     kv = lines["voltage_kv"].to_numpy(float)
     arr_names = lines["arrangement"].to_numpy(dtype=object)
     is_above = asset_h > 0.0
     asset_radius = _asset_radius(assets)[sec_asset]
+    wire_count = _bonded_wire_count(assets)[sec_asset]
+    share = section_share(pairs, sec)
 
     for name in sorted(set(arr_names)):
         arr = cfg.arrangements[name]
@@ -153,17 +294,43 @@ def couple(cfg, inputs, geo) -> Coupling:
         if not in_arr.any():
             continue
         idx = np.flatnonzero(in_arr)
-        # conductor currents per unique soil: normal load per line, unit faults
-        rhos, inv = np.unique(rho[idx], return_inverse=True)
+        # conductor currents per unique soil: each circuit's balanced and residual load
+        # currents on their own (the EMF is linear in them), unit faults
+        if layered:
+            soil_key = np.stack([rho[idx], np.nan_to_num(rho2[idx], nan=-1.0),
+                                 np.nan_to_num(t_top[idx], nan=-1.0)])
+            soils, inv = np.unique(soil_key, axis=1, return_inverse=True)
+        else:  # homogeneous soils: a 1-D unique is much faster
+            rhos, inv = np.unique(rho[idx], return_inverse=True)
+            soils = rhos[None, :]
+        inv = inv.ravel()
+        soil_layers = {}
+        if layered:
+            soil_layers = {"bottom_resistivity_ohm_m": np.where(soils[1] > 0, soils[1], np.nan),
+                           "top_thickness_m": np.where(soils[2] > 0, soils[2], np.nan)}
         line_local = {li: i for i, li in enumerate(line_rows)}
-        ip_all = np.array([
-            induction.normal_phase_currents(np.full(arr.n_circuits, load[li]), phasing,
-                                            resid[li]) for li in line_rows])
-        currents = induction.conductor_currents(x, h, gmr, res, p_idx, s_idx, ip_all, rhos, f)
+        nc = arr.n_circuits
+        cases = []
+        for li in line_rows:
+            cc = induction.circuit_phase_currents(
+                loading.circuit_load_a[li][:nc], phasing, resid[li],
+                loading.circuit_direction[li][:nc], loading.circuit_offset_deg[li][:nc])
+            cases.append(np.vstack([cc.balanced_a, cc.residual_a]))
+        ip_all = np.vstack(cases)  # (n_lines·2·nc, n_phase)
+        currents = induction.conductor_currents(x, h, gmr, res, p_idx, s_idx, ip_all, soils[0],
+                                                f, **soil_layers)
         li_local = np.array([line_local[v] for v in sec_line[idx]])
-        zma = induction.asset_mutual_impedance(x, h, sec.offset_m[idx], asset_h[idx], rho[idx], f)
-        e_normal = induction.emf_per_m(zma, currents.normal_a[inv, li_local])
-        emf_normal_sec[idx] = e_normal * sec.projected_length_m[idx]
+        sec_layers = ({"bottom_resistivity_ohm_m": rho2[idx], "top_thickness_m": t_top[idx]}
+                      if layered else {})
+        zma = induction.asset_mutual_impedance(x, h, sec.offset_m[idx], asset_h[idx], rho[idx], f,
+                                               **sec_layers)
+        rows = li_local[:, None] * 2 * nc + np.arange(2 * nc)[None, :]
+        e_cases = induction.emf_per_m(zma, currents.normal_a[inv[:, None], rows])
+        e_cases = e_cases * sec.projected_length_m[idx, None]  # (n_idx, 2·nc) [V]
+        weights = loading.weights[sec_line[idx]][:, :, :nc]  # (n_idx, n_scen, nc)
+        bal_sec[idx] = np.einsum("psc,pc->ps", weights, e_cases[:, :nc])
+        res_sec[idx] = np.einsum("psc,pc->ps", weights, e_cases[:, nc:])
+        emf_normal_sec[idx] = bal_sec[idx, 0] + res_sec[idx, 0]
         fe = induction.fault_emf_per_m(zma, currents.fault_per_unit[inv], p_idx, i_fault[idx])
         fault_sec[idx, :len(p_idx)] = fe.emf_v_per_m * sec.projected_length_m[idx, None]
         fault_unscreened[idx, :len(p_idx)] = (fe.unscreened_emf_v_per_m
@@ -175,15 +342,20 @@ def couple(cfg, inputs, geo) -> Coupling:
                 sel = above[sec_line[above] == li]
                 v_ph = capacitive.phase_to_earth_voltages(kv[li], conductor_phase)
                 cc = capacitive.capacitive_coupling(
-                    x, h, r, v_ph, sec.offset_m[sel], asset_h[sel], asset_radius[sel], f)
-                # the current a section drives scales with its length along the line
+                    x, h, r, v_ph, sec.offset_m[sel], asset_h[sel], asset_radius[sel], f,
+                    asset_wire_count=wire_count[sel], asset_wire_spacing_m=FENCE_WIRE_SPACING_M)
+                # the current a section drives scales with its share of the segment
                 seg_len = seg.length_m[sec_seg[sel]]
-                pair_proj = np.abs(pairs.projected_length_m[sec.pair[sel]])
-                share = np.abs(sec.projected_length_m[sel]) / np.where(pair_proj > 0, pair_proj,
-                                                                       1.0)
-                cap_sec[sel] = cc.short_circuit_current_a_per_m * seg_len * share
+                cap_sec[sel] = cc.short_circuit_current_a_per_m * seg_len * share[sel]
 
     segment_emf_normal = _complex_bincount(sec_seg, emf_normal_sec, n_seg)
+    normal = worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading, n_seg,
+                               lines["line_id"].to_numpy(dtype=object))
+    # the EMF columns carry the worst case over the unknowns, with the phase of the loading
+    # as given (the response solves the components separately: Coupling.normal_*)
+    as_given = np.abs(segment_emf_normal)
+    segment_emf_normal = np.where(as_given > 0, segment_emf_normal / np.where(
+        as_given > 0, as_given, 1.0), 1.0) * normal.emf_v
     cap_seg = _complex_bincount(sec_seg, cap_sec, n_seg)
 
     # fault cases: one per (asset, line) pair with any exposure
@@ -221,7 +393,105 @@ def couple(cfg, inputs, geo) -> Coupling:
         capacitive_current_a=cap_seg,
         earth_potential_fault_v=epr,
         segment_fault_current_a=seg_fault_current,
+        normal_governing=normal.governing,
+        normal_component_segment=normal.component_segment,
+        normal_component_slot=normal.component_slot,
+        normal_component_emf_v=normal.component_emf_v,
     )
+
+
+@dataclass
+class WorstNormal:
+    """Result of :func:`worst_case_normal`."""
+
+    emf_v: np.ndarray  # worst |EMF| per segment [V]
+    governing: np.ndarray  # scenario label per segment
+    component_segment: np.ndarray
+    component_slot: np.ndarray
+    component_emf_v: np.ndarray
+
+
+def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: LineLoading,
+                      n_seg, line_ids) -> WorstNormal:
+    """Worst-case normal-load EMF per segment and its independent components.
+
+    The worst |EMF| over unknown relative directions and angles and over the N−1 outage
+    scenarios comes from :func:`corridor.physics.induction.worst_normal_emf` (closed form:
+    Σ over phase groups of |group phasor sum| + Σ over lines of |residual|). The
+    components (each phase group's balanced EMF, each line's residual EMF, in the
+    segment's governing scenario) are what the response solves one by one: the worst
+    voltage at a node is then Σ |V_component| (docs/methods.md §8).
+    """
+    worst = induction.worst_normal_emf(sec_seg, sec_line, loading.group[sec_line], bal_sec,
+                                       res_sec, n_seg)
+    n_sec = len(sec_seg)
+    # scenario of each section: the governing outage where it concerns the section's line
+    gov_line = np.where(worst.governing_entry >= 0,
+                        sec_line[np.maximum(worst.governing_entry, 0)] if n_sec else -1, -1)
+    scen = np.where(gov_line[sec_seg] == sec_line, worst.governing_scenario[sec_seg], 0)
+    rows = np.arange(n_sec)
+    bal = bal_sec[rows, scen] if n_sec else np.zeros(0, complex)
+    res = res_sec[rows, scen] if n_sec else np.zeros(0, complex)
+    governing = np.full(n_seg, "as given", dtype=object)
+    for k in np.flatnonzero(worst.governing_entry >= 0):
+        governing[k] = (f"outage {line_ids[gov_line[k]]} circuit"
+                        f" {int(worst.governing_scenario[k])}")
+    # components: (asset, phase group) balanced, (asset, line) residual
+    n_lines = len(loading.group)
+    comp_key = np.concatenate([sec_asset.astype(np.int64) * (2 * n_lines + 2)
+                               + loading.group[sec_line],
+                               sec_asset.astype(np.int64) * (2 * n_lines + 2) + n_lines + 1
+                               + sec_line])
+    values = np.concatenate([bal, res])
+    segs = np.concatenate([sec_seg, sec_seg])
+    comps, comp_of = np.unique(comp_key, return_inverse=True)
+    comp_of = comp_of.ravel()
+    entry_key = comp_of.astype(np.int64) * max(n_seg, 1) + segs
+    entries, entry_of = np.unique(entry_key, return_inverse=True)
+    emf = _complex_bincount(entry_of.ravel(), values, len(entries))
+    entry_comp = entries // max(n_seg, 1)
+    entry_seg = entries % max(n_seg, 1)
+    comp_asset = comps // (2 * n_lines + 2)
+    first = np.searchsorted(comp_asset, comp_asset, side="left")
+    slot = (np.arange(len(comps)) - first)[entry_comp]
+    return WorstNormal(worst.emf_v, governing, entry_seg.astype(np.int64),
+                       slot.astype(np.int64), emf)
+
+
+def section_share(pairs, sec) -> np.ndarray:
+    """Each section's share of its segment's length, continuous in the crossing angle.
+
+    A section's share is its part of the pair's projected length; a segment at exactly
+    90° to the line projects to nothing, and there the share is the section's part of
+    the separation range the segment spans (the limit of the projected share as the
+    angle tends to 90°, up to the separation floor near a crossing), so the capacitive
+    pickup of a perpendicular segment does not drop to zero (issue 15).
+    """
+    n_pairs = len(pairs)
+    pair_proj = np.abs(pairs.projected_length_m[sec.pair])
+    dsep = np.abs(sec.separation_end_m - sec.separation_start_m)
+    tot = np.bincount(sec.pair, weights=dsep, minlength=n_pairs)[sec.pair]
+    count = np.bincount(sec.pair, minlength=n_pairs)[sec.pair]
+    by_sep = np.where(tot > 0, dsep / np.where(tot > 0, tot, 1.0), 1.0 / np.maximum(count, 1))
+    projects = pair_proj > 1e-9
+    return np.where(projects, np.abs(sec.projected_length_m) / np.where(projects, pair_proj,
+                                                                         1.0), by_sep)
+
+
+#: Vertical spacing of bonded fence wires for the electric-field bundle [m] (common
+#: practice; the induction model uses the same, asset_models.FENCE_WIRE_SPACING_M).
+FENCE_WIRE_SPACING_M = 0.3
+
+
+def _bonded_wire_count(assets) -> np.ndarray:
+    """Bonded wires of each asset for the electric-field coupling (fences: wire_count)."""
+    kind = assets["asset_kind"].to_numpy(dtype=object)
+    out = np.ones(len(assets), np.int64)
+    if "wire_count" in assets:
+        wc = assets["wire_count"].to_numpy(float)
+        out = np.where((kind == "fence") & np.isfinite(wc) & (wc >= 1),
+                       np.nan_to_num(wc, nan=1.0), 1).astype(np.int64)
+    return out
 
 
 def _asset_radius(assets) -> np.ndarray:
@@ -299,7 +569,8 @@ def earth_potential(cfg, inputs, geo, total_len: np.ndarray) -> np.ndarray:
     if_s = lines["fault_current_start_ka"].to_numpy(float)[p_line] * 1000.0
     if_e = lines["fault_current_end_ka"].to_numpy(float)[p_line] * 1000.0
     i_tower = cfg.run.tower_current_share * (if_s + (if_e - if_s) * frac)
-    rho = geo.soil_resistivity_ohm_m[p_seg]
+    # the earth potential near a footing senses the top metres: the local soil (§9)
+    rho = getattr(geo, "local_resistivity_ohm_m", geo.soil_resistivity_ohm_m)[p_seg]
     best = np.zeros(len(p_seg))
     for off in (-1, 0):
         k = np.clip(base + off, 0, len(t_line) - 1)

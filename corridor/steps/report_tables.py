@@ -132,6 +132,10 @@ def stage_tables(run) -> None:
     run.assets = assets_layer(run)
     missing = not_assessed_criteria(run)
     run.record["not_assessed"] = missing
+    # the normal-load worst case over unknown directions and angles (docs/methods.md §8)
+    from corridor.steps.couple import normal_load_assumption
+
+    run.record["normal_load_assumption"] = normal_load_assumption(run.config, run.inputs.lines)
     run.counts["criteria_not_assessed"] = len(missing)
     for row in missing:
         log.warning("criterion %s NOT ASSESSED on %d segments: %s", row["label"],

@@ -86,7 +86,7 @@ def chain_layout(seg) -> np.ndarray:
 _col = asset_column
 
 
-def line_constants(cfg, assets, seg, soil_ohm_m):
+def line_constants(cfg, assets, seg, soil_ohm_m, soil_layers=None):
     """Series impedance and shunt admittance of every segment.
 
     Each kind's segments go to the kind's model in the registry
@@ -115,9 +115,11 @@ def line_constants(cfg, assets, seg, soil_ohm_m):
         if name not in present:
             continue
         sel = kind == name
+        layers = ({k: np.asarray(v, float)[sel] for k, v in soil_layers.items()}
+                  if soil_layers else None)
         out = registry.kind(name).line_constants(KindSegments(
             kind=name, frequency_hz=f, soil_resistivity_ohm_m=soil_ohm_m[sel],
-            height_m=h[sel], assets=assets, feature=a[sel]))
+            height_m=h[sel], assets=assets, feature=a[sel], soil_layers=layers))
         if len(out) not in (2, 3):
             raise ConfigError(f"line-constant model of {name!r}: expected (z, y) or"
                               f" (z, y, emf_scale), got {len(out)} values")
@@ -228,10 +230,13 @@ class ResponseModel:
     injection_a: np.ndarray  # (n_nodes, 2 + n_fault_columns) node currents
     fault_column_case: np.ndarray  # (n_assets, n_fault_columns)
     rejected: list
+    #: Normal-load components of unknown relative angle (one column each, after the
+    #: fault columns): the worst voltage is the sum of their magnitudes.
+    n_normal_slots: int = 0
 
     @property
     def n_fault_columns(self) -> int:
-        return self.rhs_v.shape[1] - 2
+        return self.rhs_v.shape[1] - 2 - self.n_normal_slots
 
     def subset(self, assets: np.ndarray | None):
         """Global segment and node indices of the chains of ``assets`` (None: all)."""
@@ -255,7 +260,12 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
     seg = geo.segments
     n_seg = len(seg)
     chain_start = chain_layout(seg)
-    z, y, scale = line_constants(cfg, inputs.assets, seg, geo.soil_resistivity_ohm_m)
+    layers = None
+    bottom = getattr(geo, "soil_bottom_resistivity_ohm_m", None)
+    thick = getattr(geo, "soil_top_thickness_m", None)
+    if bottom is not None and thick is not None and np.isfinite(bottom).any():
+        layers = {"bottom_resistivity_ohm_m": bottom, "top_thickness_m": thick}
+    z, y, scale = line_constants(cfg, inputs.assets, seg, geo.soil_resistivity_ohm_m, layers)
     y_start, y_end = terminations(inputs.assets, seg, chain_start, z, y)
     node_shunt, brk, rejected = place_items(inputs, seg, chain_start,
                                             max(cfg.run.segment_length_m, 25.0))
@@ -272,19 +282,25 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
         grp_first = np.searchsorted(sa, sa, side="left")
         rank[order] = np.arange(len(sa)) - grp_first
     n_fcol = int(rank.max()) + 1 if len(case_asset) else 0
-    rhs = np.zeros((n_seg, 2 + n_fcol), complex)
+    slot = getattr(coup, "normal_component_slot", None)
+    n_slot = int(slot.max()) + 1 if slot is not None and len(slot) else 0
+    rhs = np.zeros((n_seg, 2 + n_fcol + n_slot), complex)
     rhs[:, 0] = coup.segment_emf_normal_v * scale
+    if n_slot:
+        comp_seg = coup.normal_component_segment
+        np.add.at(rhs, (comp_seg, 2 + n_fcol + slot),
+                  coup.normal_component_emf_v * scale[comp_seg])
     col_case = np.full((n_assets, n_fcol), -1, np.int64)
     if n_fcol:
         col_case[case_asset, rank] = np.arange(len(case_asset))
         rhs[coup.fault_seg, 2 + rank[coup.fault_case_of_entry]] = coup.fault_emf_v
-        rhs[:, 2:] *= scale[:, None]
-    inj = np.zeros((n_seg + n_chain, 2 + n_fcol), complex)
+        rhs[:, 2:2 + n_fcol] *= scale[:, None]
+    inj = np.zeros((n_seg + n_chain, 2 + n_fcol + n_slot), complex)
     half = 0.5 * coup.capacitive_current_a
     np.add.at(inj[:, 1], start_node, half)
     np.add.at(inj[:, 1], start_node + 1, half)
     return ResponseModel(seg.length_m, z, y, brk, seg.feature, chain_start, chain_of_seg,
-                         y_start, y_end, node_shunt, rhs, inj, col_case, rejected)
+                         y_start, y_end, node_shunt, rhs, inj, col_case, rejected, n_slot)
 
 
 def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
@@ -335,14 +351,26 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
     system = ChainSystem(batch)
     rhs = part(model.rhs_v, seg_idx)
     n_fcol = model.n_fault_columns
-    sol = system.solve(rhs, node_current_a=part(model.injection_a, node_idx), current_cases=[0])
+    slots = 2 + n_fcol + np.arange(model.n_normal_slots)
+    sol = system.solve(rhs, node_current_a=part(model.injection_a, node_idx),
+                       current_cases=[0, *slots.tolist()])
     feat = part(model.feature, seg_idx)
 
     v_n = sol.segment_voltage_v[:, 0]
     i_n = sol.segment_current_a[:, 0]
+    normal_node_v = sol.node_voltage_v[:, 0]
+    if len(slots):
+        # worst case over the components' unknown relative angles: Σ |V_j| per node
+        # (docs/methods.md §8); currents likewise at each segment end
+        normal_node_v = np.abs(sol.node_voltage_v[:, slots]).sum(axis=1)
+        first = np.arange(n_seg) + chain_of_seg
+        v_n = np.maximum(normal_node_v[first], normal_node_v[first + 1])
+        i_n = np.maximum(np.abs(sol.segment_current_start_a[:, slots]).sum(axis=1),
+                         np.abs(sol.segment_current_end_a[:, slots]).sum(axis=1))
     v_cap = sol.segment_voltage_v[:, 1]
+    fcols = slice(2, 2 + n_fcol)
     if n_fcol:
-        vf_all = sol.segment_voltage_v[:, 2:]
+        vf_all = sol.segment_voltage_v[:, fcols]
         best = np.argmax(vf_all, axis=1)
         v_f = vf_all[np.arange(n_seg), best]
         i_f = system.currents_at(sol.node_voltage_v, rhs, 2 + best)
@@ -357,9 +385,9 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
     # source impedance at each chain's peak (normal, capacitive, fault), one solve
     # (a chain no fault reaches peaks at its first node, whatever else is in the run,
     # so results stay independent of the other assets)
-    fault_mag = (np.abs(sol.node_voltage_v[:, 2:]).max(axis=1) if n_fcol
+    fault_mag = (np.abs(sol.node_voltage_v[:, fcols]).max(axis=1) if n_fcol
                  else np.zeros(batch.n_nodes))
-    peaks = [system.peak_node(sol.node_voltage_v[:, 0]),
+    peaks = [system.peak_node(normal_node_v),
              system.peak_node(sol.node_voltage_v[:, 1]), system.peak_node(fault_mag)]
     zth = system.thevenin_impedance(np.stack(peaks, axis=1))
     zth_n = zth[:, 0][chain_of_seg]
@@ -379,8 +407,9 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
         return np.abs(re + 1j * im)
 
     if n_seg:
-        emf_sec_n = chain_sum(rhs[:, 0])[chain_of_seg]
-        emf_sec_f = (chain_sum(rhs[:, 2:]).max(axis=1)[chain_of_seg] if n_fcol
+        emf_sec_n = (chain_sum(rhs[:, slots]).sum(axis=1)[chain_of_seg] if len(slots)
+                     else chain_sum(rhs[:, 0])[chain_of_seg])
+        emf_sec_f = (chain_sum(rhs[:, fcols]).max(axis=1)[chain_of_seg] if n_fcol
                      else np.zeros(n_seg))
     else:
         emf_sec_n = emf_sec_f = np.zeros(0)
@@ -393,9 +422,9 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
         normal_source_impedance_ohm=zn,
         emf_section_normal_v=emf_sec_n, emf_section_fault_v=emf_sec_f,
         node_voltage_normal_v=sol.node_voltage_v[:, 0],
-        node_voltage_fault_v=sol.node_voltage_v[:, 2:],
+        node_voltage_fault_v=sol.node_voltage_v[:, fcols],
         chain_start=chain_start, system=system, segment_emf_normal_v=rhs[:, 0],
-        fault_rhs=rhs[:, 2:], fault_column_case=model.fault_column_case,
+        fault_rhs=rhs[:, fcols], fault_column_case=model.fault_column_case,
         node_shunt_s=node_shunt, rejected=model.rejected,
         fault_source_impedance_ohm=np.abs(zth_f), touch_loading=loading,
         node_voltage_all_v=sol.node_voltage_v, chain_of_segment=chain_of_seg,

@@ -197,16 +197,25 @@ def test_capacitive_criterion_judges_available_current(name):
 
 @pytest.mark.parametrize("name", SHIPPED)
 def test_iso18086_thresholds(name):
-    # ISO 18086:2019 clause 6 (from memory): 15 V, 30 A/m2, J_ac/J_dc 3.
+    # ISO 18086:2019 (from memory): 15 V (clause 6 in the files); clause 7: J_ac < 30 A/m2, or
+    # J_dc < 1 A/m2, or J_ac/J_dc < 3, joined by "or" (corridor.limits.ac_corrosion).
+    from corridor.limits.ac_corrosion import iso18086_utilization
+
     ls = load_limit_set(name, search_dir=CONFIG_DIR)
     assert ls["ac_corrosion_voltage"].params["value"] == 15.0
-    assert ls["ac_corrosion_density"].params["value"] == 30.0
-    assert ls["ac_corrosion_ratio"].params["value"] == 3.0
-    out = _eval(ls, ["pipeline"] * 3,
-                {"ac_density_a_per_m2": np.array([29.0, 30.0, 10.0]),
-                 "ac_dc_density_ratio": np.array([1.0, 1.0, 3.5])})
-    assert list(out["hazard_class"]) == ["review", "exceeds", "exceeds"]
-    assert out["governing"][2] == "ac_corrosion_ratio:normal"
+    assert ls["ac_corrosion_density"].params["value"] == 1.0
+    assert ls["ac_corrosion_ratio"].params["value"] == 1.0
+    assert ls["ac_corrosion_ratio"].needs == ("dc_current_density_a_per_m2",)
+    j_ac = np.array([29.0, 30.0, 80.0, 80.0])
+    j_dc = np.array([np.nan, np.nan, 40.0, 10.0])
+    strict = iso18086_utilization(j_ac, j_dc)
+    fallback = np.where(np.isnan(strict), j_ac / 30.0, strict)
+    out = _eval(ls, ["pipeline"] * 4, {"iso18086_density_ratio": fallback,
+                                       "iso18086_density_ratio_with_dc": strict})
+    # 29 A/m2 passes alone; 30 A/m2 without J_dc exceeds (the alternatives cannot be
+    # credited); 80 A/m2 with J_ac/J_dc = 2 passes by the ratio; with 8 it exceeds
+    assert list(out["hazard_class"]) == ["review", "exceeds", "review", "exceeds"]
+    assert np.isnan(out["ratios"]["ac_corrosion_ratio"][1])
     # The 10 V variant is an override away.
     ls10 = load_limit_set(name, {"criteria": {"ac_corrosion_voltage": {"value": 10.0}}},
                           search_dir=CONFIG_DIR)

@@ -12,6 +12,8 @@ import pytest
 from corridor.errors import InputError
 from corridor.network import asset_models as am
 from corridor.network.response import matched_termination_admittance, propagation_constant
+from corridor.physics import conductors
+from corridor.physics import earth_return as er
 from corridor.physics.constants import EPS0_F_PER_M, MU0_H_PER_M
 
 STEEL_OHM_M, PIPE_MU_R = 1.7e-7, 300.0
@@ -161,17 +163,61 @@ def test_fence_series_impedance_is_bundle_over_carson_earth(frequency_hz, r_ohm_
 
 
 def test_fence_admittance_by_post_type():
-    # Metal posts: y = 1/(R_post·spacing) (posts smeared along the line, common
-    # practice); both: jωC with C = 2πε0/ln(2h/r) of a wire above a conducting
-    # earth (method of images, Glover/Sarma/Overbye ch. 4).
+    # Every post leaks through its resistance, whatever the material: y = 1/(R_post·spacing)
+    # (posts smeared along the line, common practice) + jωC with C = 2πε0/ln(2h/r) of a
+    # wire above a conducting earth (method of images, Glover/Sarma/Overbye ch. 4).
+    # A wet wooden post is no insulator: a few kΩ (from memory, docs/methods.md §10).
     h, r_w, f_hz = 1.5, 1.25e-3, 50.0
-    lc = am.fence_line_constants(4, r_w, [3.0, 3.0], [100.0, 100.0], ["metal", "wood"],
+    lc = am.fence_line_constants(4, r_w, [3.0, 3.0], [100.0, 5000.0], ["metal", "wood"],
                                  h, 100.0, f_hz)
-    np.testing.assert_allclose(lc.y_s_per_m.real, [1 / 300.0, 0.0], rtol=1e-12)
+    np.testing.assert_allclose(lc.y_s_per_m.real, [1 / 300.0, 1 / 15000.0], rtol=1e-12)
     c = 2 * math.pi * EPS0_F_PER_M / math.log(2 * h / r_w)
     np.testing.assert_allclose(lc.y_s_per_m.imag, 2 * math.pi * f_hz * c, rtol=1e-12)
+    # Missing resistance: the material's typical value (metal 100 Ω, wet wood 5 kΩ; memory)
+    lc = am.fence_line_constants(4, r_w, 3.0, [np.nan, np.nan], ["metal", "wood"], h, 100.0,
+                                 f_hz)
+    np.testing.assert_allclose(lc.y_s_per_m.real, [1 / 300.0, 1 / 15000.0], rtol=1e-12)
     with pytest.raises(InputError):
         am.fence_line_constants(4, r_w, 3.0, 100.0, "plastic", h, 100.0, f_hz)
+    with pytest.raises(InputError):
+        am.fence_line_constants(4, r_w, 3.0, 0.0, "wood", h, 100.0, f_hz)
+
+
+def test_rail_pair_uses_the_geometric_mean_radius_of_two_rails():
+    # GMR of two conductors of radius r_eq at centre distance s: √(r_eq·s) (Glover, Sarma,
+    # Overbye ch. 4); s = 1.507 m for standard gauge (1435 mm + 72 mm head, from memory).
+    rail = conductors.rail_equivalent(frequency_hz=50.0)
+    lc = am.rail_line_constants(5.0, 0.0, 100.0, 50.0)
+    gmr = math.sqrt(rail.equivalent_radius_m * 1.507)
+    earth = _gonen_earth_return(gmr, 100.0, 50.0, 0.0493, 0.1447)
+    np.testing.assert_allclose(lc.z_ohm_per_m - rail.internal_impedance_ohm_per_m / 2, earth,
+                               rtol=1e-3)
+    # Single-track loop impedance at 50 Hz: of the order 0.1–0.2 + j0.5–0.7 Ω/km as measured
+    # by R. J. Hill and D. C. Carpenter, IEEE Trans. Vehicular Technology 42(2), 1993 (the
+    # values from memory).
+    z_km = complex(lc.z_ohm_per_m) * 1000
+    assert 0.06 < z_km.real < 0.25
+    assert 0.45 < z_km.imag < 0.75
+
+
+def test_sheath_screening_factor():
+    # k = (R_s·L + 2R_e)/(Z_s·L + 2R_e) (derived; ITU-T K.14 names the sheath resistance,
+    # the grounding and the length as the parameters); ideal grounds: R_s/Z_s, the ITU-T
+    # form R_s/|R_s + jωL_s| (from memory). An isolated sheath screens nothing.
+    r_s = 1.0e-3  # 1 Ω/km, a lead or thin aluminium sheath (common practice)
+    z_e = complex(er.self_impedance(-0.8, 0.02, 0.0, 100.0, 50.0))
+    k = am._sheath_screening_factor(r_s, 0.02, -0.8, 100.0, 50.0,
+                                    ["both_ends", "one_end", "isolated"], 5000.0)
+    assert k[0] == pytest.approx(abs(r_s / (r_s + z_e)), rel=1e-12)
+    np.testing.assert_array_equal(k[1:], [1.0, 1.0])
+    # a 1 Ω/km sheath: about 0.8–0.9, the order the input default 0.8 assumed (from memory)
+    assert 0.75 < k[0] < 0.95
+    # end grounds of 10 Ω weaken the screening, less so on a longer exposure
+    short, long_ = am._sheath_screening_factor(r_s, 0.02, -0.8, 100.0, 50.0, "both_ends",
+                                               [1000.0, 20000.0], 10.0)
+    assert k[0] < long_ < short < 1.0
+    with pytest.raises(InputError):
+        am._sheath_screening_factor(r_s, 0.02, -0.8, 100.0, 50.0, "bonded", 1000.0)
 
 
 def test_wire_capacitance_range_and_floor():

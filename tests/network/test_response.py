@@ -264,11 +264,11 @@ def test_conservation_kcl_with_grounds_and_terminations():
 
 
 def test_short_isolated_fence_tiny_shunt():
-    # A short fence on wooden posts, open both ends, only jωC (≈ 7 pF/m) to
-    # earth: γL → 0 and the Sunde closed form tends to V_end = E·L/2
-    # (the line floats at the mid-point potential). The next term is
+    # A short fence with its wires on insulators (post resistance infinite), open both
+    # ends, only jωC (≈ 7 pF/m) to earth: γL → 0 and the Sunde closed form tends to
+    # V_end = E·L/2 (the line floats at the mid-point potential). The next term is
     # (γL)²/12 ≈ 1e-9 here, so rtol 1e-6.
-    z, y = fence_line_constants(4, 1.25e-3, 3.0, 100.0, "wood", 1.5, 100.0, FREQ_HZ)
+    z, y = fence_line_constants(4, 1.25e-3, 3.0, np.inf, "wood", 1.5, 100.0, FREQ_HZ)
     length_m = 200.0
     _, sol = _uniform_chain(length_m, 50.0, z, y)
     half = E_V_PER_M * length_m / 2

@@ -13,6 +13,13 @@ from corridor.physics import induction as ind
 from tests.physics.reference import carson_impedance_matrix
 
 FT_M = 0.3048
+
+
+def _normal(load, phasing, pct):
+    """All circuits of a line together: the sum of their balanced and residual rows."""
+    cc = ind.circuit_phase_currents(load, phasing, pct)
+    return (cc.balanced_a + cc.residual_a).sum(axis=0)
+
 MILE_M = 1609.344
 
 
@@ -73,7 +80,7 @@ def test_earth_wire_current_makes_earth_wire_voltage_zero():
     # Source: Kersting §4.1 (grounded neutral: zero voltage drop along it) — conservation
     # check on the currents production uses, in two soils.
     x, h, gmr, r = _kersting_example_4_1()
-    i_p = ind.normal_phase_currents([400.0], ["ABC"], 10.0)
+    i_p = _normal([400.0], ["ABC"], 10.0)
     cur = ind.conductor_currents(x, h, gmr, r, [0, 1, 2], [3], i_p[None, :], [100.0, 10.0], 60.0)
     for ri, rho in enumerate([100.0, 10.0]):
         z = ind.impedance_matrix(x, h, gmr, r, rho, 60.0)
@@ -85,10 +92,10 @@ def test_earth_wire_current_makes_earth_wire_voltage_zero():
     np.testing.assert_array_equal(cur.fault_per_unit[0, :, :3], np.eye(3))  # 1 A on one phase
 
 
-def test_normal_phase_currents_balanced_and_residual():
+def test_circuit_phase_currents_balanced_and_residual():
     # Source: definition (positive sequence A 0°, B −120°, C +120°; residual = total
     # earth-return current, common practice).
-    i = ind.normal_phase_currents([100.0, 200.0], ["ABC", "CBA"], [0.0, 15.0])
+    i = _normal([100.0, 200.0], ["ABC", "CBA"], [0.0, 15.0])
     assert abs(i[:3].sum()) < 1e-9  # balanced: sums to zero
     assert i[3:].sum() == pytest.approx(0.15 * 200.0, rel=1e-12)  # residual 15 %
     a = np.exp(2j * np.pi / 3)
@@ -118,7 +125,7 @@ def test_balanced_currents_cancel_earth_terms_in_low_frequency_regime():
     # −j(ωμ0/2π)Σ I_k ln(1/d_k), independent of soil resistivity (Carson 1926).
     x = np.array([-5.0, 5.0, 0.0])
     h = np.array([20.0, 20.0, 20.0 + 5.0 * np.sqrt(3.0)])
-    i = ind.normal_phase_currents([1000.0], ["ABC"], 0.0)
+    i = _normal([1000.0], ["ABC"], 0.0)
     xa = np.array([0.0, 3.0])
     ha = np.array([20.0 + 5.0 / np.sqrt(3.0), 12.0])  # circumcentre and a second point
     d = np.hypot(x[None, :] - xa[:, None], h[None, :] - ha[:, None])
