@@ -286,7 +286,7 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
     n_slot = int(slot.max()) + 1 if slot is not None and len(slot) else 0
     rhs = np.zeros((n_seg, 2 + n_fcol + n_slot), complex)
     rhs[:, 0] = coup.segment_emf_normal_v * scale
-    if n_slot:
+    if n_slot and slot is not None:  # (n_slot > 0 only with a slot array)
         comp_seg = coup.normal_component_segment
         np.add.at(rhs, (comp_seg, 2 + n_fcol + slot),
                   coup.normal_component_emf_v * scale[comp_seg])
