@@ -671,3 +671,225 @@ class ChainSystem:
         hit = np.flatnonzero(mag == chain_max[self.batch.node_chain])
         _, first_hit = np.unique(self.batch.node_chain[hit], return_index=True)
         return hit[first_hit]
+
+
+# --------------------------------------------------------------------------
+# Fault-position scan by superposition
+# --------------------------------------------------------------------------
+@dataclass(frozen=True)
+class _FaultScan:
+    """Result of :func:`_scan_fault_positions`.
+
+    Attributes
+    ----------
+    segment_voltage_v : ndarray of float, shape (n_segments,)
+        Worst max(|V_start|, |V_end|) of each segment over every case and
+        fault position [V]; 0 where no case reaches the segment.
+    segment_current_a : ndarray of float, shape (n_segments,)
+        max(|I_start|, |I_end|) of the segment for the governing case and
+        position [A].
+    segment_case, segment_position : ndarray of int, shape (n_segments,)
+        Governing case and index of its fault position (-1: none).
+    chain_case, chain_position : ndarray of int, shape (n_chains,)
+        Case and position giving the largest |V| anywhere on the chain (-1: none).
+    chain_node_voltage_v : ndarray of complex, shape (n_nodes,)
+        Node voltages of each chain for its governing case and position [V]
+        (0 on chains no case reaches).
+    segment_emf_v : ndarray of complex, shape (n_segments,)
+        Segment EMF of each chain's governing case and position [V].
+    """
+
+    segment_voltage_v: np.ndarray
+    segment_current_a: np.ndarray
+    segment_case: np.ndarray
+    segment_position: np.ndarray
+    chain_case: np.ndarray
+    chain_position: np.ndarray
+    chain_node_voltage_v: np.ndarray
+    segment_emf_v: np.ndarray
+
+
+def _fault_scan_columns(section_case, section_position_m, case_group, case_positions_m):
+    """Band of each section and solve-column layout of the cases.
+
+    A case with P fault positions x_0 < … < x_{P−1} cuts its sections into
+    P + 1 bands (band b: the sections with exactly b positions at or before
+    them). Cases of one group (one asset) take consecutive columns; groups
+    share columns.
+
+    Returns
+    -------
+    band : ndarray of int, per section
+    n_positions : ndarray of int, per case
+    offset : ndarray of int, per case (first column of the case)
+    n_columns : int
+    """
+    pos = np.asarray(case_positions_m, float)
+    n_case = pos.shape[0]
+    n_positions = np.isfinite(pos).sum(axis=1).astype(np.int64)
+    with np.errstate(invalid="ignore"):
+        band = (pos[section_case] <= np.asarray(section_position_m, float)[:, None]).sum(axis=1)
+    width = n_positions + 1
+    group = np.asarray(case_group, np.int64)
+    order = np.lexsort((np.arange(n_case), group))
+    offset = np.zeros(n_case, np.int64)
+    if n_case:
+        w_sorted = width[order]
+        cum = np.cumsum(w_sorted) - w_sorted
+        g_sorted = group[order]
+        first = np.searchsorted(g_sorted, g_sorted, side="left")
+        offset[order] = cum - cum[first]
+    n_columns = int((offset + width).max()) if n_case else 0
+    return band.astype(np.int64), n_positions, offset, n_columns
+
+
+def _scan_fault_positions(system, section_segment, section_case, section_position_m,
+                          section_emf_v_per_a, case_group, case_positions_m,
+                          case_current_start_a, case_current_end_a):
+    """Worst voltage and current of every segment over fault positions, by superposition.
+
+    Parameters
+    ----------
+    system : ChainSystem
+        The factorised chains.
+    section_segment : array_like of int, shape (n_sections,)
+        Segment of each EMF-carrying section.
+    section_case : array_like of int, shape (n_sections,)
+        Fault case (faulted line and phase on one asset) of each section.
+    section_position_m : array_like of float, shape (n_sections,)
+        Position of the section along the faulted line, from its start [m].
+    section_emf_v_per_a : array_like of complex, shape (n_sections,)
+        EMF of the section along the chain direction per ampere of fault
+        current flowing along the line from its start towards its end,
+        earth-wire screening included [V/A].
+    case_group : array_like of int, shape (n_cases,)
+        Group of each case; the sections of cases of different groups must lie
+        on different chains (e.g. the asset of the case).
+    case_positions_m : array_like of float, shape (n_cases, n_max)
+        Fault positions of each case along the line, increasing, padded with
+        NaN [m].
+    case_current_start_a, case_current_end_a : array_like of complex, shape (n_cases, n_max)
+        For a fault at each position, the current fed from the line's start
+        (flowing towards the fault, i.e. along the line) and from its end
+        (flowing towards the fault, against the line) [A]; padding ignored.
+
+    Returns
+    -------
+    _FaultScan
+
+    Notes
+    -----
+    For a fault at x the section EMF is e·I_A(x) where the section lies
+    before x and −e·I_B(x) beyond it (docs/methods.md §8). Node voltages are
+    linear in the EMF (§11): with V_b the response to the unit EMFs of band
+    b (one solve column per band, from the kept factorisation), the fault at
+    position k gives
+
+        V(k) = I_A(x_k)·Σ_{b ≤ k} V_b − I_B(x_k)·Σ_{b > k} V_b,
+
+    evaluated for every position at once from the cumulative sum over the
+    case's band columns. The segment currents follow in the same way from the
+    cumulated EMFs.
+
+    References
+    ----------
+    .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
+       Dover, 1968 (linear response, superposition).
+    .. [2] LAPACK Users' Guide, 3rd ed., SIAM, 1999 (one factorisation, many
+       right-hand sides).
+    """
+    batch = system.batch
+    n_seg, n_nodes, n_chain = batch.n_segments, batch.n_nodes, batch.n_chains
+    sec_seg = np.asarray(section_segment, np.int64)
+    sec_case = np.asarray(section_case, np.int64)
+    emf = np.asarray(section_emf_v_per_a, complex)
+    i_a = np.asarray(case_current_start_a, complex)
+    i_b = np.asarray(case_current_end_a, complex)
+    band, n_pos, offset, n_col = _fault_scan_columns(sec_case, section_position_m, case_group,
+                                                     case_positions_m)
+    none = _FaultScan(np.zeros(n_seg), np.zeros(n_seg), np.full(n_seg, -1),
+                      np.full(n_seg, -1), np.full(n_chain, -1), np.full(n_chain, -1),
+                      np.zeros(n_nodes, complex), np.zeros(n_seg, complex))
+    if n_col == 0 or sec_seg.size == 0:
+        return none
+    # which case owns each column on each chain (chains of one group share the layout)
+    seg_chain = np.repeat(np.arange(n_chain), np.diff(np.r_[batch.chain_start, n_seg]))
+    chain_group = np.full(n_chain, -1, np.int64)
+    chain_group[seg_chain[sec_seg]] = np.asarray(case_group, np.int64)[sec_case]
+    groups, group_of_chain = np.unique(chain_group, return_inverse=True)
+    col_case = np.full((len(groups), n_col), -1, np.int64)
+    case_group_index = np.searchsorted(groups, np.asarray(case_group, np.int64))
+    reach = np.isin(np.asarray(case_group, np.int64), groups)
+    for c in np.flatnonzero(reach):  # one row per case: a short loop over cases
+        col_case[case_group_index[c], offset[c]:offset[c] + n_pos[c] + 1] = c
+    # unit responses of the bands: one solve
+    col = offset[sec_case] + band
+    unit_emf = np.zeros((n_seg, n_col), complex)
+    np.add.at(unit_emf, (sec_seg, col), emf)
+    first = batch.segment_start_node
+    push = unit_emf * system.injection_s[:, None]
+    rhs = system._new_rhs(n_col)
+    rhs[first] -= push
+    rhs[first + 1] += push
+    unit_v = system._solve_rhs(rhs)
+    # per node / segment: the column layout of its chain
+    node_chain = batch.node_chain
+    node_cc = col_case[group_of_chain[node_chain]]  # (n_nodes, n_col)
+    seg_cc = col_case[group_of_chain[seg_chain]]
+    v_scan = _combine_bands(unit_v, node_cc, offset, n_pos, i_a, i_b)
+    e_scan = _combine_bands(unit_emf, seg_cc, offset, n_pos, i_a, i_b)
+    valid_seg = _valid_columns(seg_cc, offset, n_pos)
+    v_abs = np.abs(v_scan)
+    seg_v = np.maximum(v_abs[first], v_abs[first + 1])
+    seg_v = np.where(valid_seg, seg_v, -1.0)
+    best = np.argmax(seg_v, axis=1)
+    rows = np.arange(n_seg)
+    worst = seg_v[rows, best]
+    reached = worst >= 0
+    seg_case = np.where(reached, seg_cc[rows, best], -1)
+    seg_pos = np.where(reached, best - offset[np.maximum(seg_case, 0)], -1)
+    current = np.where(reached, system.currents_at(v_scan, e_scan, best), 0.0)
+    # per chain: the column of the largest |V| on the chain
+    valid_node = _valid_columns(node_cc, offset, n_pos)
+    node_mag = np.where(valid_node, v_abs, -1.0)
+    chain_best = np.maximum.reduceat(node_mag, batch.chain_first_node, axis=0)
+    chain_col = np.argmax(chain_best, axis=1)
+    chain_ok = chain_best[np.arange(n_chain), chain_col] >= 0
+    chain_cc = col_case[group_of_chain]
+    chain_case = np.where(chain_ok, chain_cc[np.arange(n_chain), chain_col], -1)
+    chain_pos = np.where(chain_ok, chain_col - offset[np.maximum(chain_case, 0)], -1)
+    node_v = np.where(chain_ok[node_chain], v_scan[np.arange(n_nodes), chain_col[node_chain]],
+                      0.0)
+    seg_e = np.where(chain_ok[seg_chain], e_scan[rows, chain_col[seg_chain]], 0.0)
+    return _FaultScan(np.maximum(worst, 0.0), current, seg_case, seg_pos, chain_case,
+                      chain_pos, node_v, seg_e)
+
+
+def _valid_columns(cc, offset, n_pos):
+    """True where a column is a fault position of its case (not the last band)."""
+    c = np.maximum(cc, 0)
+    k = np.arange(cc.shape[1])[None, :] - offset[c]
+    return (cc >= 0) & (k < n_pos[c])
+
+
+def _combine_bands(unit, cc, offset, n_pos, i_a, i_b):
+    """Values for each fault position from the band responses (rows: nodes or segments).
+
+    Column j of a row holds, for the case c owning j and position k = j − offset_c,
+    I_A(k)·Σ_{b ≤ k} unit_b − I_B(k)·Σ_{b ≤ P} unit_b + I_B(k)·Σ_{b ≤ k} unit_b.
+    """
+    n_row, n_col = unit.shape
+    cum = np.zeros((n_row, n_col + 1), complex)
+    np.cumsum(unit, axis=1, out=cum[:, 1:])
+    c = np.maximum(cc, 0)
+    start = offset[c]
+    k = np.arange(n_col)[None, :] - start
+    rows = np.arange(n_row)[:, None]
+    base = cum[rows, start]
+    upto = cum[:, 1:] - base
+    total = cum[rows, start + n_pos[c] + 1] - base
+    kk = np.clip(k, 0, i_a.shape[1] - 1)
+    ia = np.where(cc >= 0, i_a[c, kk], 0.0)
+    ib = np.where(cc >= 0, i_b[c, kk], 0.0)
+    out = (ia + ib) * upto - ib * total
+    return np.where(_valid_columns(cc, offset, n_pos), out, 0.0)
