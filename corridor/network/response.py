@@ -791,6 +791,10 @@ def _scan_fault_positions(system, section_segment, section_case, section_positio
     case's band columns. The segment currents follow in the same way from the
     cumulated EMFs.
 
+    Memory: the chains are taken in blocks of about
+    ``_SCAN_BLOCK_ENTRIES`` (nodes × columns) each; a block other than the
+    whole system is factorised on its own (the chains are independent).
+
     References
     ----------
     .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
@@ -803,27 +807,89 @@ def _scan_fault_positions(system, section_segment, section_case, section_positio
     sec_seg = np.asarray(section_segment, np.int64)
     sec_case = np.asarray(section_case, np.int64)
     emf = np.asarray(section_emf_v_per_a, complex)
+    group = np.asarray(case_group, np.int64)
     i_a = np.asarray(case_current_start_a, complex)
     i_b = np.asarray(case_current_end_a, complex)
-    band, n_pos, offset, n_col = _fault_scan_columns(sec_case, section_position_m, case_group,
-                                                     case_positions_m)
-    none = _FaultScan(np.zeros(n_seg), np.zeros(n_seg), np.full(n_seg, -1),
-                      np.full(n_seg, -1), np.full(n_chain, -1), np.full(n_chain, -1),
-                      np.zeros(n_nodes, complex), np.zeros(n_seg, complex))
-    if n_col == 0 or sec_seg.size == 0:
-        return none
-    # which case owns each column on each chain (chains of one group share the layout)
-    seg_chain = np.repeat(np.arange(n_chain), np.diff(np.r_[batch.chain_start, n_seg]))
-    chain_group = np.full(n_chain, -1, np.int64)
-    chain_group[seg_chain[sec_seg]] = np.asarray(case_group, np.int64)[sec_case]
-    groups, group_of_chain = np.unique(chain_group, return_inverse=True)
-    col_case = np.full((len(groups), n_col), -1, np.int64)
-    case_group_index = np.searchsorted(groups, np.asarray(case_group, np.int64))
-    reach = np.isin(np.asarray(case_group, np.int64), groups)
-    for c in np.flatnonzero(reach):  # one row per case: a short loop over cases
-        col_case[case_group_index[c], offset[c]:offset[c] + n_pos[c] + 1] = c
-    # unit responses of the bands: one solve
+    out = _FaultScan(np.zeros(n_seg), np.zeros(n_seg), np.full(n_seg, -1, np.int64),
+                     np.full(n_seg, -1, np.int64), np.full(n_chain, -1, np.int64),
+                     np.full(n_chain, -1, np.int64), np.zeros(n_nodes, complex),
+                     np.zeros(n_seg, complex))
+    if sec_seg.size == 0:
+        return out
+    band, n_pos, offset, _ = _fault_scan_columns(sec_case, section_position_m, group,
+                                                 case_positions_m)
     col = offset[sec_case] + band
+    # the column layout of each group: which case owns each column
+    seg_chain = batch.segment_chain
+    chain_group = np.full(n_chain, -1, np.int64)
+    chain_group[seg_chain[sec_seg]] = group[sec_case]
+    groups = np.unique(group)
+    group_width = np.zeros(len(groups), np.int64)
+    g_of_case = np.searchsorted(groups, group)
+    np.maximum.at(group_width, g_of_case, offset + n_pos + 1)
+    col_case = np.full((len(groups) + 1, max(int(group_width.max()), 1)), -1, np.int64)
+    for c in range(len(group)):  # a short loop over cases
+        col_case[g_of_case[c], offset[c]:offset[c] + n_pos[c] + 1] = c
+    chain_g = np.where(chain_group >= 0, np.searchsorted(groups, chain_group), len(groups))
+    chain_width = np.where(chain_group >= 0, group_width[np.minimum(chain_g, len(groups) - 1)],
+                           0)
+    # sections by chain, for slicing per block
+    order = np.argsort(sec_seg, kind="stable")
+    sec_seg, col, emf = sec_seg[order], col[order], emf[order]
+    chain_nodes = np.diff(np.r_[batch.chain_first_node, n_nodes])
+    for c0, c1 in _scan_blocks(chain_nodes, chain_width):
+        width = int(chain_width[c0:c1].max())
+        if width == 0:
+            continue
+        s0 = int(batch.chain_start[c0])
+        s1 = int(batch.chain_start[c1]) if c1 < n_chain else n_seg
+        n0, n1 = s0 + c0, s1 + c1
+        sub = system if (c0 == 0 and c1 == n_chain) else _sub_system(batch, c0, c1)
+        lo, hi = np.searchsorted(sec_seg, [s0, s1])
+        _scan_block(sub, sec_seg[lo:hi] - s0, col[lo:hi], emf[lo:hi], width,
+                    col_case[chain_g[c0:c1], :width], offset, n_pos, i_a, i_b, out,
+                    (s0, s1, n0, n1, c0, c1))
+    return out
+
+
+#: Nodes × solve columns handled at once by the fault scan (16 bytes each, a few
+#: arrays of this size live at a time).
+_SCAN_BLOCK_ENTRIES = 1_000_000
+
+
+def _scan_blocks(chain_nodes, chain_width):
+    """Contiguous chain ranges whose nodes × widest column layout stay near the budget."""
+    blocks = []
+    start, nodes, width = 0, 0, 0
+    for c in range(len(chain_nodes)):
+        w = max(width, int(chain_width[c]))
+        if c > start and (nodes + chain_nodes[c]) * w > _SCAN_BLOCK_ENTRIES:
+            blocks.append((start, c))
+            start, nodes, w = c, 0, int(chain_width[c])
+        nodes += int(chain_nodes[c])
+        width = w
+    blocks.append((start, len(chain_nodes)))
+    return blocks
+
+
+def _sub_system(batch, c0, c1):
+    """The :class:`ChainSystem` of chains c0..c1−1 alone (chains are independent)."""
+    s0 = int(batch.chain_start[c0])
+    s1 = int(batch.chain_start[c1]) if c1 < batch.n_chains else batch.n_segments
+    n0, n1 = s0 + c0, s1 + c1
+    return ChainSystem(ChainBatch(
+        batch.segment_length_m[s0:s1], batch.series_impedance_ohm_per_m[s0:s1],
+        batch.shunt_admittance_s_per_m[s0:s1], batch.chain_start[c0:c1] - s0,
+        batch.node_shunt_admittance_s[n0:n1], batch.segment_break[s0:s1],
+        batch.start_termination_admittance_s[c0:c1], batch.end_termination_admittance_s[c0:c1]))
+
+
+def _scan_block(system, sec_seg, col, emf, n_col, chain_cc, offset, n_pos, i_a, i_b, out,
+                where):
+    """Scan the chains of one block; write into ``out`` at the block's global ranges."""
+    s0, s1, n0, n1, c0, c1 = where
+    batch = system.batch
+    n_seg, n_nodes, n_chain = batch.n_segments, batch.n_nodes, batch.n_chains
     unit_emf = np.zeros((n_seg, n_col), complex)
     np.add.at(unit_emf, (sec_seg, col), emf)
     first = batch.segment_start_node
@@ -831,38 +897,42 @@ def _scan_fault_positions(system, section_segment, section_case, section_positio
     rhs = system._new_rhs(n_col)
     rhs[first] -= push
     rhs[first + 1] += push
+    del push
     unit_v = system._solve_rhs(rhs)
-    # per node / segment: the column layout of its chain
     node_chain = batch.node_chain
-    node_cc = col_case[group_of_chain[node_chain]]  # (n_nodes, n_col)
-    seg_cc = col_case[group_of_chain[seg_chain]]
+    seg_chain = batch.segment_chain
+    node_cc = chain_cc[node_chain]
+    seg_cc = chain_cc[seg_chain]
     v_scan = _combine_bands(unit_v, node_cc, offset, n_pos, i_a, i_b)
+    del unit_v
     e_scan = _combine_bands(unit_emf, seg_cc, offset, n_pos, i_a, i_b)
-    valid_seg = _valid_columns(seg_cc, offset, n_pos)
+    del unit_emf
     v_abs = np.abs(v_scan)
     seg_v = np.maximum(v_abs[first], v_abs[first + 1])
-    seg_v = np.where(valid_seg, seg_v, -1.0)
+    seg_v[~_valid_columns(seg_cc, offset, n_pos)] = -1.0
     best = np.argmax(seg_v, axis=1)
     rows = np.arange(n_seg)
     worst = seg_v[rows, best]
     reached = worst >= 0
-    seg_case = np.where(reached, seg_cc[rows, best], -1)
-    seg_pos = np.where(reached, best - offset[np.maximum(seg_case, 0)], -1)
-    current = np.where(reached, system.currents_at(v_scan, e_scan, best), 0.0)
-    # per chain: the column of the largest |V| on the chain
-    valid_node = _valid_columns(node_cc, offset, n_pos)
-    node_mag = np.where(valid_node, v_abs, -1.0)
-    chain_best = np.maximum.reduceat(node_mag, batch.chain_first_node, axis=0)
+    case = np.where(reached, seg_cc[rows, best], -1)
+    out.segment_voltage_v[s0:s1] = np.maximum(worst, 0.0)
+    out.segment_case[s0:s1] = case
+    out.segment_position[s0:s1] = np.where(reached, best - offset[np.maximum(case, 0)], -1)
+    out.segment_current_a[s0:s1] = np.where(reached, system.currents_at(v_scan, e_scan, best),
+                                            0.0)
+    # per chain: the column of the largest |V| anywhere on the chain
+    v_abs[~_valid_columns(node_cc, offset, n_pos)] = -1.0
+    chain_best = np.maximum.reduceat(v_abs, batch.chain_first_node, axis=0)
     chain_col = np.argmax(chain_best, axis=1)
     chain_ok = chain_best[np.arange(n_chain), chain_col] >= 0
-    chain_cc = col_case[group_of_chain]
-    chain_case = np.where(chain_ok, chain_cc[np.arange(n_chain), chain_col], -1)
-    chain_pos = np.where(chain_ok, chain_col - offset[np.maximum(chain_case, 0)], -1)
-    node_v = np.where(chain_ok[node_chain], v_scan[np.arange(n_nodes), chain_col[node_chain]],
-                      0.0)
-    seg_e = np.where(chain_ok[seg_chain], e_scan[rows, chain_col[seg_chain]], 0.0)
-    return _FaultScan(np.maximum(worst, 0.0), current, seg_case, seg_pos, chain_case,
-                      chain_pos, node_v, seg_e)
+    c_case = np.where(chain_ok, chain_cc[np.arange(n_chain), chain_col], -1)
+    out.chain_case[c0:c1] = c_case
+    out.chain_position[c0:c1] = np.where(chain_ok, chain_col - offset[np.maximum(c_case, 0)],
+                                         -1)
+    out.chain_node_voltage_v[n0:n1] = np.where(
+        chain_ok[node_chain], v_scan[np.arange(n_nodes), chain_col[node_chain]], 0.0)
+    out.segment_emf_v[s0:s1] = np.where(chain_ok[seg_chain],
+                                        e_scan[rows, chain_col[seg_chain]], 0.0)
 
 
 def _valid_columns(cc, offset, n_pos):
@@ -885,9 +955,9 @@ def _combine_bands(unit, cc, offset, n_pos, i_a, i_b):
     start = offset[c]
     k = np.arange(n_col)[None, :] - start
     rows = np.arange(n_row)[:, None]
-    base = cum[rows, start]
+    base = cum[rows, np.minimum(start, n_col)]
     upto = cum[:, 1:] - base
-    total = cum[rows, start + n_pos[c] + 1] - base
+    total = cum[rows, np.minimum(start + n_pos[c] + 1, n_col)] - base
     kk = np.clip(k, 0, i_a.shape[1] - 1)
     ia = np.where(cc >= 0, i_a[c, kk], 0.0)
     ib = np.where(cc >= 0, i_b[c, kk], 0.0)

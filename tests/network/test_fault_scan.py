@@ -95,11 +95,13 @@ def test_fault_at_the_line_start_gives_the_one_direction_end_voltage():
     assert scan.segment_voltage_v.max() == pytest.approx(want, rel=1e-6)
 
 
-def test_scan_equals_direct_solves_for_several_assets_and_lines():
+@pytest.mark.parametrize("block_entries", [1_000_000, 50])
+def test_scan_equals_direct_solves_for_several_assets_and_lines(monkeypatch, block_entries):
     # Reference computation: for each segment's governing case and position, the EMF of that
     # fault written out explicitly and solved directly (no superposition). Two chains of
     # one asset group with two lines (cases 0, 1) and a second asset (case 2) share the
-    # solve columns.
+    # solve columns; with a tiny block budget every chain is scanned in its own block.
+    monkeypatch.setattr(response, "_SCAN_BLOCK_ENTRIES", block_entries)
     rng = np.random.default_rng(3)
     seg_len = np.full(65, 80.0)
     y = np.r_[np.full(25, _pipe_admittance(2e4)), np.full(20, _pipe_admittance(3e3)),
