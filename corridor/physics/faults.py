@@ -49,6 +49,7 @@ _A = np.exp(2j * np.pi / 3)
 #: from 1e-9 S (a source of 1 GΩ: absent) to 1e4 S (0.1 mΩ: an infinite bus).
 _LOG_Y_MIN, _LOG_Y_MAX = np.log(1e-9), np.log(1e4)
 _BISECTION_STEPS = 64
+_NEWTON_STEPS = 40
 
 
 def _kron_reduce(z_matrix, phase_index, earth_wire_index):
@@ -275,8 +276,9 @@ def _source_admittances(fault_current_start_a, fault_current_end_a, phase_voltag
     Unknowns: |Z1_A| and |Z1_B|. For a fault at A,
     I_f(0) = 3E/(2·Z1_th + Z0_th) with Zk_th = Zk_A ∥ (Zk_B + Zk_line), and
     likewise at B. |I_f(0)| grows with |Y1_A| at fixed B and falls slightly
-    as B's source weakens; the pair is found by nested bisection on ln|Y1|
-    (64 steps each, relative precision far below 1e-12). If even an absent
+    as B's source weakens. The pair is found by Newton's method on ln|Y1_A|,
+    ln|Y1_B| from the fits of each source alone, to |ln(I/I_given)| < 1e-12;
+    where that fails, by nested bisection on ln|Y1| (64 steps each). If even an absent
     source at one terminal (its current then comes only through the line)
     gives more than the given current there, the two values are
     inconsistent: that source is set to zero and the other one fitted alone;
@@ -311,23 +313,45 @@ def _source_admittances(fault_current_start_a, fault_current_end_a, phase_voltag
     def current_a(log_ya, log_yb):
         return _terminal_fault_current(log_ya, log_yb, ang_a, ang_b, k_a, k_b, z1, z0, e)
 
-    # outer bisection on B, inner on A: I_B rises with |Y_B| even with A refitted
-    lo = np.full(shape, _LOG_Y_MIN)
-    hi = np.full(shape, _LOG_Y_MAX)
-    for _ in range(_BISECTION_STEPS):
-        mid = 0.5 * (lo + hi)
-        high = current_b(fit_a(mid), mid) > i_b
-        hi = np.where(high, mid, hi)
-        lo = np.where(high, lo, mid)
-    log_yb = 0.5 * (lo + hi)
-    log_ya = fit_a(log_yb)
-    # inconsistent pairs: B alone through the line already exceeds I_B, or A does at A
-    b_absent = current_b(fit_a(absent), absent) > i_b
+    # each source alone (the other absent): bounds, starting point and consistency check
     a_alone = fit_a(absent)
-    log_yb_alone = _fit_terminal(i_b, absent, ang_b, ang_a, k_b, k_a, z1, z0, e)
-    a_absent = current_a(absent, log_yb_alone) > i_a
+    b_alone = _fit_terminal(i_b, absent, ang_b, ang_a, k_b, k_a, z1, z0, e)
+    b_absent = current_b(a_alone, absent) > i_b
+    a_absent = current_a(absent, b_alone) > i_a
+    # both sources: Newton's method on ln|Y1| of the two, from the single-source fits
+    log_ya, log_yb = a_alone.copy(), b_alone.copy()
+    for _ in range(_NEWTON_STEPS):
+        r_a = np.log(current_a(log_ya, log_yb) / i_a)
+        r_b = np.log(current_b(log_ya, log_yb) / i_b)
+        if np.all(np.abs(r_a) + np.abs(r_b) < 1e-14):
+            break
+        h = 1e-7
+        daa = (np.log(current_a(log_ya + h, log_yb) / i_a) - r_a) / h
+        dab = (np.log(current_a(log_ya, log_yb + h) / i_a) - r_a) / h
+        dba = (np.log(current_b(log_ya + h, log_yb) / i_b) - r_b) / h
+        dbb = (np.log(current_b(log_ya, log_yb + h) / i_b) - r_b) / h
+        det = daa * dbb - dab * dba
+        ok = np.abs(det) > 1e-300
+        det = np.where(ok, det, 1.0)
+        step_a = np.clip(np.where(ok, (dbb * r_a - dab * r_b) / det, 0.0), -2.0, 2.0)
+        step_b = np.clip(np.where(ok, (daa * r_b - dba * r_a) / det, 0.0), -2.0, 2.0)
+        log_ya = np.clip(log_ya - step_a, _LOG_Y_MIN, _LOG_Y_MAX)
+        log_yb = np.clip(log_yb - step_b, _LOG_Y_MIN, _LOG_Y_MAX)
+    miss = ((np.abs(np.log(current_a(log_ya, log_yb) / i_a)) > 1e-12)
+            | (np.abs(np.log(current_b(log_ya, log_yb) / i_b)) > 1e-12)) & ~(a_absent | b_absent)
+    if miss.any():  # slow but sure: bisection on B, A refitted inside (I_B rises with |Y_B|)
+        lo = np.full(shape, _LOG_Y_MIN)
+        hi = np.full(shape, _LOG_Y_MAX)
+        for _ in range(_BISECTION_STEPS):
+            mid = 0.5 * (lo + hi)
+            high = current_b(fit_a(mid), mid) > i_b
+            hi = np.where(high, mid, hi)
+            lo = np.where(high, lo, mid)
+        mid = 0.5 * (lo + hi)
+        log_yb = np.where(miss, mid, log_yb)
+        log_ya = np.where(miss, fit_a(mid), log_ya)
     log_ya = np.where(b_absent, a_alone, np.where(a_absent, -np.inf, log_ya))
-    log_yb = np.where(b_absent, -np.inf, np.where(a_absent, log_yb_alone, log_yb))
+    log_yb = np.where(b_absent, -np.inf, np.where(a_absent, b_alone, log_yb))
     y1a = _admittance(log_ya, ang_a)
     y1b = _admittance(log_yb, ang_b)
     return _SourceAdmittances(y1a, y1b, y1a / k_a, y1b / k_b, ~(a_absent | b_absent))

@@ -141,10 +141,13 @@ def test_two_terminal_currents_match_a_phase_domain_network_solve(x_frac):
     (10.0, 10.0, 10.0, 10.0, 1.0, 1.0),
     (8.0, 30.0, 30.0, 8.0, 3.0, 0.6),
 ])
+@pytest.mark.parametrize("newton_steps", [40, 0])
 def test_fault_at_a_terminal_reproduces_the_given_current(i_start_ka, i_end_ka, xr_a, xr_b,
-                                                          k_a, k_b):
-    # Limit required by the source model (docs/methods.md §8): the fitted sources give, for
-    # a fault at each terminal, the single line-to-earth current given for it.
+                                                          k_a, k_b, newton_steps, monkeypatch):
+    # Limit required by the source model (docs/methods.md §8.1): the fitted sources give,
+    # for a fault at each terminal, the single line-to-earth current given for it (by
+    # Newton's method, and by the bisection it falls back on).
+    monkeypatch.setattr(faults, "_NEWTON_STEPS", newton_steps)
     length = 60e3
     z1, z0 = (0.028 + 0.31j) / 1000, (0.16 + 0.95j) / 1000
     e = 400e3 / np.sqrt(3)
