@@ -819,36 +819,32 @@ def _scan_fault_positions(system, section_segment, section_case, section_positio
     band, n_pos, offset, _ = _fault_scan_columns(sec_case, section_position_m, group,
                                                  case_positions_m)
     col = offset[sec_case] + band
-    # the column layout of each group: which case owns each column
+    # the column layout of each group: which case, position and currents each column has
+    groups, g_of_case = np.unique(group, return_inverse=True)
+    width = np.zeros(len(groups), np.int64)
+    np.maximum.at(width, g_of_case, offset + n_pos + 1)
+    layout = _ScanLayout.build(g_of_case, offset, n_pos, i_a, i_b, len(groups),
+                               int(width.max()))
     seg_chain = batch.segment_chain
-    chain_group = np.full(n_chain, -1, np.int64)
-    chain_group[seg_chain[sec_seg]] = group[sec_case]
-    groups = np.unique(group)
-    group_width = np.zeros(len(groups), np.int64)
-    g_of_case = np.searchsorted(groups, group)
-    np.maximum.at(group_width, g_of_case, offset + n_pos + 1)
-    col_case = np.full((len(groups) + 1, max(int(group_width.max()), 1)), -1, np.int64)
-    for c in range(len(group)):  # a short loop over cases
-        col_case[g_of_case[c], offset[c]:offset[c] + n_pos[c] + 1] = c
-    chain_g = np.where(chain_group >= 0, np.searchsorted(groups, chain_group), len(groups))
-    chain_width = np.where(chain_group >= 0, group_width[np.minimum(chain_g, len(groups) - 1)],
-                           0)
-    # sections by chain, for slicing per block
+    chain_g = np.full(n_chain, -1, np.int64)
+    chain_g[seg_chain[sec_seg]] = g_of_case[sec_case]
+    chain_width = np.where(chain_g >= 0, width[np.maximum(chain_g, 0)], 0)
+    # reached chains, widest first, in blocks of bounded nodes x columns
+    reached = np.flatnonzero(chain_width > 0)
+    reached = reached[np.argsort(-chain_width[reached], kind="stable")]
+    chain_nodes = np.diff(np.r_[batch.chain_first_node, n_nodes])
     order = np.argsort(sec_seg, kind="stable")
     sec_seg, col, emf = sec_seg[order], col[order], emf[order]
-    chain_nodes = np.diff(np.r_[batch.chain_first_node, n_nodes])
-    for c0, c1 in _scan_blocks(chain_nodes, chain_width):
-        width = int(chain_width[c0:c1].max())
-        if width == 0:
-            continue
-        s0 = int(batch.chain_start[c0])
-        s1 = int(batch.chain_start[c1]) if c1 < n_chain else n_seg
-        n0, n1 = s0 + c0, s1 + c1
-        sub = system if (c0 == 0 and c1 == n_chain) else _sub_system(batch, c0, c1)
-        lo, hi = np.searchsorted(sec_seg, [s0, s1])
-        _scan_block(sub, sec_seg[lo:hi] - s0, col[lo:hi], emf[lo:hi], width,
-                    col_case[chain_g[c0:c1], :width], offset, n_pos, i_a, i_b, out,
-                    (s0, s1, n0, n1, c0, c1))
+    local_seg = np.full(n_seg, -1, np.int64)
+    for chains in _scan_blocks(reached, chain_nodes, chain_width):
+        chains = np.sort(chains)
+        sub, seg_idx, node_idx = _gather_system(system, chains)
+        local_seg[seg_idx] = np.arange(len(seg_idx))
+        take = local_seg[sec_seg] >= 0
+        _scan_block(sub, local_seg[sec_seg[take]], col[take], emf[take],
+                    int(chain_width[chains].max()), chain_g[chains], layout, out,
+                    (seg_idx, node_idx, chains))
+        local_seg[seg_idx] = -1
     return out
 
 
@@ -857,39 +853,76 @@ def _scan_fault_positions(system, section_segment, section_case, section_positio
 _SCAN_BLOCK_ENTRIES = 1_000_000
 
 
-def _scan_blocks(chain_nodes, chain_width):
-    """Contiguous chain ranges whose nodes × widest column layout stay near the budget."""
-    blocks = []
-    start, nodes, width = 0, 0, 0
-    for c in range(len(chain_nodes)):
-        w = max(width, int(chain_width[c]))
-        if c > start and (nodes + chain_nodes[c]) * w > _SCAN_BLOCK_ENTRIES:
-            blocks.append((start, c))
-            start, nodes, w = c, 0, int(chain_width[c])
+@dataclass(frozen=True)
+class _ScanLayout:
+    """Per group (row) and solve column: owning case, its first and end columns, currents."""
+
+    valid: np.ndarray  # bool: the column is a fault position
+    start: np.ndarray  # first column of the owning case
+    end: np.ndarray  # one past the case's last band column
+    current_start_a: np.ndarray  # I_A at the column's position (0 where not valid)
+    current_end_a: np.ndarray
+    case: np.ndarray  # owning case (-1: none)
+    position: np.ndarray  # position index within the case (-1: none)
+
+    @classmethod
+    def build(cls, g_of_case, offset, n_pos, i_a, i_b, n_groups, n_col):
+        case = np.full((n_groups, n_col), -1, np.int64)
+        for c in range(len(g_of_case)):  # a short loop over cases
+            case[g_of_case[c], offset[c]:offset[c] + n_pos[c] + 1] = c
+        has = case >= 0
+        c = np.maximum(case, 0)
+        k = np.arange(n_col)[None, :] - offset[c]
+        valid = has & (k < n_pos[c])
+        kk = np.clip(k, 0, max(i_a.shape[1] - 1, 0))
+        return cls(valid, np.where(has, offset[c], 0), np.where(has, offset[c] + n_pos[c] + 1, 0),
+                   np.where(valid, i_a[c, kk], 0.0), np.where(valid, i_b[c, kk], 0.0),
+                   np.where(has, case, -1), np.where(valid, k, -1))
+
+
+def _scan_blocks(chains, chain_nodes, chain_width):
+    """Split ``chains`` (widest first) so that nodes × widest layout stay near the budget."""
+    blocks, start, nodes = [], 0, 0
+    for i, c in enumerate(chains):
+        if i > start and (nodes + chain_nodes[c]) * chain_width[chains[start]] > (
+                _SCAN_BLOCK_ENTRIES):
+            blocks.append(chains[start:i])
+            start, nodes = i, 0
         nodes += int(chain_nodes[c])
-        width = w
-    blocks.append((start, len(chain_nodes)))
+    if len(chains):
+        blocks.append(chains[start:])
     return blocks
 
 
-def _sub_system(batch, c0, c1):
-    """The :class:`ChainSystem` of chains c0..c1−1 alone (chains are independent)."""
-    s0 = int(batch.chain_start[c0])
-    s1 = int(batch.chain_start[c1]) if c1 < batch.n_chains else batch.n_segments
-    n0, n1 = s0 + c0, s1 + c1
-    return ChainSystem(ChainBatch(
-        batch.segment_length_m[s0:s1], batch.series_impedance_ohm_per_m[s0:s1],
-        batch.shunt_admittance_s_per_m[s0:s1], batch.chain_start[c0:c1] - s0,
-        batch.node_shunt_admittance_s[n0:n1], batch.segment_break[s0:s1],
-        batch.start_termination_admittance_s[c0:c1], batch.end_termination_admittance_s[c0:c1]))
+def _gather_system(system, chains):
+    """The :class:`ChainSystem` of the given chains alone (chains are independent).
 
-
-def _scan_block(system, sec_seg, col, emf, n_col, chain_cc, offset, n_pos, i_a, i_b, out,
-                where):
-    """Scan the chains of one block; write into ``out`` at the block's global ranges."""
-    s0, s1, n0, n1, c0, c1 = where
+    Returns the system, and the global segment and node indices of its rows.
+    """
     batch = system.batch
-    n_seg, n_nodes, n_chain = batch.n_segments, batch.n_nodes, batch.n_chains
+    if len(chains) == batch.n_chains:
+        return system, np.arange(batch.n_segments), np.arange(batch.n_nodes)
+    seg_count = np.diff(np.r_[batch.chain_start, batch.n_segments])[chains]
+    seg_first = batch.chain_start[chains]
+    seg_idx = np.repeat(seg_first - np.cumsum(seg_count) + seg_count, seg_count) + np.arange(
+        seg_count.sum())
+    node_first = batch.chain_first_node[chains]
+    node_count = seg_count + 1
+    node_idx = np.repeat(node_first - np.cumsum(node_count) + node_count, node_count) + \
+        np.arange(node_count.sum())
+    sub = ChainBatch(batch.segment_length_m[seg_idx], batch.series_impedance_ohm_per_m[seg_idx],
+                     batch.shunt_admittance_s_per_m[seg_idx], np.cumsum(seg_count) - seg_count,
+                     batch.node_shunt_admittance_s[node_idx], batch.segment_break[seg_idx],
+                     batch.start_termination_admittance_s[chains],
+                     batch.end_termination_admittance_s[chains])
+    return ChainSystem(sub), seg_idx, node_idx
+
+
+def _scan_block(system, sec_seg, col, emf, n_col, chain_g, layout, out, where):
+    """Scan the chains of one block; write into ``out`` at the block's global indices."""
+    seg_idx, node_idx, chains = where
+    batch = system.batch
+    n_seg, n_chain = batch.n_segments, batch.n_chains
     unit_emf = np.zeros((n_seg, n_col), complex)
     np.add.at(unit_emf, (sec_seg, col), emf)
     first = batch.segment_start_node
@@ -899,67 +932,83 @@ def _scan_block(system, sec_seg, col, emf, n_col, chain_cc, offset, n_pos, i_a, 
     rhs[first + 1] += push
     del push
     unit_v = system._solve_rhs(rhs)
-    node_chain = batch.node_chain
-    seg_chain = batch.segment_chain
-    node_cc = chain_cc[node_chain]
-    seg_cc = chain_cc[seg_chain]
-    v_scan = _combine_bands(unit_v, node_cc, offset, n_pos, i_a, i_b)
+    node_g = chain_g[batch.node_chain]
+    seg_g = chain_g[batch.segment_chain]
+    v_scan = _combine_bands(unit_v, node_g, layout, n_col)
     del unit_v
-    e_scan = _combine_bands(unit_emf, seg_cc, offset, n_pos, i_a, i_b)
+    cum_e = np.empty((n_seg, n_col + 1), complex)
+    cum_e[:, 0] = 0.0
+    np.cumsum(unit_emf, axis=1, out=cum_e[:, 1:])
     del unit_emf
     v_abs = np.abs(v_scan)
     seg_v = np.maximum(v_abs[first], v_abs[first + 1])
-    seg_v[~_valid_columns(seg_cc, offset, n_pos)] = -1.0
+    seg_v[~layout.valid[seg_g, :n_col]] = -1.0
     best = np.argmax(seg_v, axis=1)
     rows = np.arange(n_seg)
     worst = seg_v[rows, best]
     reached = worst >= 0
-    case = np.where(reached, seg_cc[rows, best], -1)
-    out.segment_voltage_v[s0:s1] = np.maximum(worst, 0.0)
-    out.segment_case[s0:s1] = case
-    out.segment_position[s0:s1] = np.where(reached, best - offset[np.maximum(case, 0)], -1)
-    out.segment_current_a[s0:s1] = np.where(reached, system.currents_at(v_scan, e_scan, best),
-                                            0.0)
+    out.segment_voltage_v[seg_idx] = np.maximum(worst, 0.0)
+    out.segment_case[seg_idx] = np.where(reached, layout.case[seg_g, best], -1)
+    out.segment_position[seg_idx] = np.where(reached, layout.position[seg_g, best], -1)
+    e_best = _emf_at(cum_e, seg_g, best, layout)
+    current = _segment_currents(system, v_scan[first, best], v_scan[first + 1, best], e_best)
+    out.segment_current_a[seg_idx] = np.where(reached, current, 0.0)
     # per chain: the column of the largest |V| anywhere on the chain
-    v_abs[~_valid_columns(node_cc, offset, n_pos)] = -1.0
+    v_abs[~layout.valid[node_g, :n_col]] = -1.0
     chain_best = np.maximum.reduceat(v_abs, batch.chain_first_node, axis=0)
     chain_col = np.argmax(chain_best, axis=1)
-    chain_ok = chain_best[np.arange(n_chain), chain_col] >= 0
-    c_case = np.where(chain_ok, chain_cc[np.arange(n_chain), chain_col], -1)
-    out.chain_case[c0:c1] = c_case
-    out.chain_position[c0:c1] = np.where(chain_ok, chain_col - offset[np.maximum(c_case, 0)],
-                                         -1)
-    out.chain_node_voltage_v[n0:n1] = np.where(
-        chain_ok[node_chain], v_scan[np.arange(n_nodes), chain_col[node_chain]], 0.0)
-    out.segment_emf_v[s0:s1] = np.where(chain_ok[seg_chain],
-                                        e_scan[rows, chain_col[seg_chain]], 0.0)
+    ok = chain_best[np.arange(n_chain), chain_col] >= 0
+    out.chain_case[chains] = np.where(ok, layout.case[chain_g, chain_col], -1)
+    out.chain_position[chains] = np.where(ok, layout.position[chain_g, chain_col], -1)
+    node_chain = batch.node_chain
+    out.chain_node_voltage_v[node_idx] = np.where(
+        ok[node_chain], v_scan[np.arange(batch.n_nodes), chain_col[node_chain]], 0.0)
+    seg_chain = batch.segment_chain
+    out.segment_emf_v[seg_idx] = np.where(ok[seg_chain],
+                                          _emf_at(cum_e, seg_g, chain_col[seg_chain], layout),
+                                          0.0)
 
 
-def _valid_columns(cc, offset, n_pos):
-    """True where a column is a fault position of its case (not the last band)."""
-    c = np.maximum(cc, 0)
-    k = np.arange(cc.shape[1])[None, :] - offset[c]
-    return (cc >= 0) & (k < n_pos[c])
+def _emf_at(cum_emf, row_group, column, layout):
+    """Segment EMF of one chosen column per segment from the cumulated band EMFs [V]."""
+    rows = np.arange(len(column))
+    start = layout.start[row_group, column]
+    end = layout.end[row_group, column]
+    i_a = layout.current_start_a[row_group, column]
+    i_b = layout.current_end_a[row_group, column]
+    base = cum_emf[rows, start]
+    return (i_a + i_b) * (cum_emf[rows, column + 1] - base) - i_b * (cum_emf[rows, end] - base)
 
 
-def _combine_bands(unit, cc, offset, n_pos, i_a, i_b):
+def _segment_currents(system, v_start, v_end, segment_emf_v):
+    """max(|I_start|, |I_end|) of each segment from its node voltages and EMF [A] (§5.3)."""
+    through = (v_start - v_end) * system.y_series_s + segment_emf_v * system.injection_s
+    return np.maximum(np.abs(system.y_half_s * v_start + through),
+                      np.abs(through - system.y_half_s * v_end))
+
+
+def _combine_bands(unit, row_group, layout, n_col):
     """Values for each fault position from the band responses (rows: nodes or segments).
 
-    Column j of a row holds, for the case c owning j and position k = j − offset_c,
-    I_A(k)·Σ_{b ≤ k} unit_b − I_B(k)·Σ_{b ≤ P} unit_b + I_B(k)·Σ_{b ≤ k} unit_b.
+    Column j of a row holds, for the case owning j in the row's group and its position
+    k: I_A(k)·Σ_{b ≤ k} unit_b − I_B(k)·Σ_{b > k} unit_b (0 where j is no position).
     """
-    n_row, n_col = unit.shape
-    cum = np.zeros((n_row, n_col + 1), complex)
+    n_row = unit.shape[0]
+    cum = np.empty((n_row, n_col + 1), complex)
+    cum[:, 0] = 0.0
     np.cumsum(unit, axis=1, out=cum[:, 1:])
-    c = np.maximum(cc, 0)
-    start = offset[c]
-    k = np.arange(n_col)[None, :] - start
-    rows = np.arange(n_row)[:, None]
-    base = cum[rows, np.minimum(start, n_col)]
-    upto = cum[:, 1:] - base
-    total = cum[rows, np.minimum(start + n_pos[c] + 1, n_col)] - base
-    kk = np.clip(k, 0, i_a.shape[1] - 1)
-    ia = np.where(cc >= 0, i_a[c, kk], 0.0)
-    ib = np.where(cc >= 0, i_b[c, kk], 0.0)
-    out = (ia + ib) * upto - ib * total
-    return np.where(_valid_columns(cc, offset, n_pos), out, 0.0)
+    start = np.minimum(layout.start[:, :n_col], n_col)[row_group]
+    end = np.minimum(layout.end[:, :n_col], n_col)[row_group]
+    base = np.take_along_axis(cum, start, axis=1)
+    total = np.take_along_axis(cum, end, axis=1)
+    total -= base
+    upto = cum[:, 1:]
+    upto -= base
+    del base, start, end
+    i_a = layout.current_start_a[:, :n_col][row_group]
+    i_b = layout.current_end_a[:, :n_col][row_group]
+    i_a += i_b
+    upto *= i_a
+    total *= i_b
+    upto -= total
+    return upto
