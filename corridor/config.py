@@ -51,10 +51,15 @@ RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] 
                           None),
     "tower_span_m": (float, "m", 300.0, "Assumed tower spacing when no tower layer is given.",
                      (10.0, 2000.0)),
-    "tower_zone_m": (float, "m", 100.0, "Distance from a tower within which the earth"
-                     " potential rise during a fault is computed.", (1.0, 2000.0)),
-    "tower_current_share": (float, "-", 0.2, "Share of the fault current discharged by the"
-                            " faulted tower's footing (5-30 %, METHODS.md §4, from memory).",
+    "tower_zone_m": (float, "m", 1000.0, "Largest distance from a faulted tower at which its"
+                     " earth potential is computed (the zone of influence ends sooner where"
+                     " the potential falls below tower_zone_threshold_v).", (1.0, 5000.0)),
+    "tower_zone_threshold_v": (float, "V", 50.0, "Earth potential at which a faulted tower's"
+                               " zone of influence ends, r = ρI/(2πV) (project default;"
+                               " docs/methods.md §4.5).", (0.1, 1e5)),
+    "tower_current_share": (float, "-", 0.0, "Share of the fault current discharged by the"
+                            " faulted tower's footing; 0: from the earth-wire ladder with the"
+                            " local soil and footing_radius_m (docs/methods.md §4.3).",
                             (0.0, 1.0)),
     "footing_radius_m": (float, "m", 1.0, "Equivalent hemispherical radius of a tower"
                          " footing.", (0.05, 50.0)),

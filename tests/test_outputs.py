@@ -163,18 +163,16 @@ def test_sites_have_wgs84_positions_matching_pyproj(demo_out):
 
 
 def test_run_json_lists_criteria_not_assessed(demo_out):
-    # ieee_na (config/demo.toml): step_fault needs the ground electrodes' geometry and
-    # ac_corrosion_ratio the DC current density; the demo layers carry neither
+    # ieee_na (config/demo.toml): ac_corrosion_ratio needs the DC current density, which
+    # the demo layers do not carry (step_fault is computed beside faulted towers)
     record = json.loads((demo_out / "run.json").read_text(encoding="utf-8"))
     rows = record["not_assessed"]
     assert [(r["criterion"], r["label"]) for r in rows] == [
-        ("step_fault", "step_fault:fault"), ("ac_corrosion_ratio", "ac_corrosion_ratio:normal")]
-    assert "ground_electrode_geometry" in rows[0]["reason"]
-    assert "dc_current_density_a_per_m2" in rows[1]["reason"]
-    assert record["counts"]["criteria_not_assessed"] == 2
-    # pipelines, fences and rail carry step_fault; pipelines ac_corrosion_ratio
+        ("ac_corrosion_ratio", "ac_corrosion_ratio:normal")]
+    assert "dc_current_density_a_per_m2" in rows[0]["reason"]
+    assert record["counts"]["criteria_not_assessed"] == 1
+    # pipelines carry ac_corrosion_ratio
     seg = pyogrio.read_dataframe(demo_out / "screening.gpkg", layer="segments",
                                  read_geometry=False, columns=["asset_kind"])
     kinds = seg["asset_kind"]
-    assert rows[0]["segments"] == int(kinds.isin(["pipeline", "fence", "rail"]).sum())
-    assert rows[1]["segments"] == int((kinds == "pipeline").sum())
+    assert rows[0]["segments"] == int((kinds == "pipeline").sum())

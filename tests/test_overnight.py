@@ -221,12 +221,13 @@ def test_change_report_names_line_attribute(tmp_path):
     assert set(changes["asset_id"]) == set(OFFSETS_M)
     assert changes["cause"].str.contains("line L1: fault_current_start_ka 5.0 -> 40.0",
                                          regex=False).all()
-    # the fault EMF is linear in the inducing current (Carson's equations), and the
-    # fault touch limit does not depend on it, so an 8x current gives 8x utilization;
-    # rtol 1e-5: changes.csv keeps 6 significant digits
+    # 8x the terminal fault currents: the fitted sources are 8x stronger but the line's own
+    # impedance is unchanged, so the current fed to a fault along the line rises, by less
+    # than 8x away from the terminals (docs/methods.md §8.1); the fault touch limit does
+    # not depend on it, so every fault-governed utilization rises
     fault = changes[changes["governing_after"].str.contains("fault")]
     ratio = fault["utilization_after"] / fault["utilization_before"]
-    assert len(fault) and ((ratio - 8.0).abs() < 8.0 * 1e-5).all()
+    assert len(fault) and (ratio > 1.0).all()
     assert set(changes.loc[changes["utilization_before"] < 1, "change"]) <= {"new exceedance"}
 
 

@@ -197,9 +197,9 @@ def test_defaults_counted_per_field_with_ids_of_safety_fields(demo_run, tmp_path
 
 
 def test_not_assessed_criteria_are_loud(text, demo_run):
-    # ieee_na's step_fault and ac_corrosion_ratio judge quantities no stage computes
+    # ieee_na's ac_corrosion_ratio judges a quantity no stage computes (the DC density)
     missing = demo_run.extra_tables["json"]["not_assessed"]
-    assert [r["criterion"] for r in missing] == ["step_fault", "ac_corrosion_ratio"]
+    assert [r["criterion"] for r in missing] == ["ac_corrosion_ratio"]
     banner = text[text.index('id="not-assessed"'):]
     banner = banner[:banner.index("</div>")]
     assert text.index('id="not-assessed"') < text.index('id="summary"')
@@ -207,7 +207,7 @@ def test_not_assessed_criteria_are_loud(text, demo_run):
     for r in missing:
         assert r["label"] in banner and html.escape(r["reason"]) in banner
     limits = text[text.index('id="limits"'):text.index('id="assumptions"')]
-    assert limits.count("NOT ASSESSED") == 2
+    assert limits.count("NOT ASSESSED") == 1
 
 
 def _chromium(args: list[str], tmp_path: Path) -> subprocess.CompletedProcess:

@@ -54,8 +54,10 @@ __all__ = [
     "ChainBatch",
     "ChainSolution",
     "ChainSystem",
+    "FaultScan",
     "matched_termination_admittance",
     "propagation_constant",
+    "scan_fault_positions",
 ]
 
 #: Below this |w| the break-stub ratio (1 − sech w)/w² uses its Taylor series
@@ -599,7 +601,8 @@ class ChainSystem:
         Parameters
         ----------
         node_voltage_v : ndarray of complex, shape (n_nodes, n_cases)
-        segment_emf_v : ndarray of complex, shape (n_segments, n_cases)
+        segment_emf_v : ndarray of complex, shape (n_segments, n_cases) or (n_segments,)
+            Segment EMFs of every case, or of each segment's chosen case only.
         case_of_segment : ndarray of int, shape (n_segments,)
         """
         first = self._first
@@ -607,7 +610,9 @@ class ChainSystem:
         c = np.asarray(case_of_segment, int)
         v1 = node_voltage_v[first, c]
         v2 = node_voltage_v[first + 1, c]
-        through = (v1 - v2) * self.y_series_s + segment_emf_v[seg, c] * self.injection_s
+        emf = np.asarray(segment_emf_v)
+        emf = emf[seg, c] if emf.ndim == 2 else emf
+        through = (v1 - v2) * self.y_series_s + emf * self.injection_s
         return np.maximum(np.abs(self.y_half_s * v1 + through),
                           np.abs(through - self.y_half_s * v2))
 
@@ -677,8 +682,8 @@ class ChainSystem:
 # Fault-position scan by superposition
 # --------------------------------------------------------------------------
 @dataclass(frozen=True)
-class _FaultScan:
-    """Result of :func:`_scan_fault_positions`.
+class FaultScan:
+    """Result of :func:`scan_fault_positions`.
 
     Attributes
     ----------
@@ -697,6 +702,13 @@ class _FaultScan:
         (0 on chains no case reaches).
     segment_emf_v : ndarray of complex, shape (n_segments,)
         Segment EMF of each chain's governing case and position [V].
+    segment_worst_emf_v : ndarray of complex, shape (n_segments,)
+        Segment EMF in the segment's own governing case and position [V].
+    node_voltage_worst_v : ndarray of float, shape (n_nodes,)
+        Largest |V| of each node over every case and position [V].
+    chain_emf_v : ndarray of float, shape (n_chains,)
+        Largest |Σ segment EMF| of each chain over every case and position [V]
+        (the longitudinal EMF between the chain's ends).
     """
 
     segment_voltage_v: np.ndarray
@@ -707,45 +719,32 @@ class _FaultScan:
     chain_position: np.ndarray
     chain_node_voltage_v: np.ndarray
     segment_emf_v: np.ndarray
+    segment_worst_emf_v: np.ndarray
+    node_voltage_worst_v: np.ndarray
+    chain_emf_v: np.ndarray
 
 
-def _fault_scan_columns(section_case, section_position_m, case_group, case_positions_m):
-    """Band of each section and solve-column layout of the cases.
-
-    A case with P fault positions x_0 < … < x_{P−1} cuts its sections into
-    P + 1 bands (band b: the sections with exactly b positions at or before
-    them). Cases of one group (one asset) take consecutive columns; groups
-    share columns.
-
-    Returns
-    -------
-    band : ndarray of int, per section
-    n_positions : ndarray of int, per case
-    offset : ndarray of int, per case (first column of the case)
-    n_columns : int
-    """
+def _section_bands(section_case, section_position_m, case_positions_m):
+    """Band of each section: the number of its case's fault positions at or before it."""
     pos = np.asarray(case_positions_m, float)
-    n_case = pos.shape[0]
-    n_positions = np.isfinite(pos).sum(axis=1).astype(np.int64)
-    with np.errstate(invalid="ignore"):
-        band = (pos[section_case] <= np.asarray(section_position_m, float)[:, None]).sum(axis=1)
-    width = n_positions + 1
-    group = np.asarray(case_group, np.int64)
-    order = np.lexsort((np.arange(n_case), group))
-    offset = np.zeros(n_case, np.int64)
-    if n_case:
-        w_sorted = width[order]
-        cum = np.cumsum(w_sorted) - w_sorted
-        g_sorted = group[order]
-        first = np.searchsorted(g_sorted, g_sorted, side="left")
-        offset[order] = cum - cum[first]
-    n_columns = int((offset + width).max()) if n_case else 0
-    return band.astype(np.int64), n_positions, offset, n_columns
+    n_case, n_max = pos.shape
+    n_pos = np.isfinite(pos).sum(axis=1).astype(np.int64)
+    case = np.asarray(section_case, np.int64)
+    if n_case == 0 or case.size == 0:
+        return np.zeros(case.size, np.int64), n_pos
+    # one sorted key per (case, position); positions are increasing within a case
+    span = np.nanmax(np.abs(pos)) if np.isfinite(pos).any() else 1.0
+    span = 2.0 * max(float(np.nanmax(np.abs(section_position_m))), span) + 1.0
+    ok = np.isfinite(pos)
+    keys = (np.arange(n_case)[:, None] * span + np.where(ok, pos, 0.0))[ok]
+    first = np.r_[0, np.cumsum(n_pos)[:-1]]
+    at = np.searchsorted(keys, case * span + np.asarray(section_position_m, float), side="right")
+    return at - first[case], n_pos
 
 
-def _scan_fault_positions(system, section_segment, section_case, section_position_m,
-                          section_emf_v_per_a, case_group, case_positions_m,
-                          case_current_start_a, case_current_end_a):
+def scan_fault_positions(system, section_segment, section_case, section_position_m,
+                         section_emf_v_per_a, case_positions_m, case_current_start_a,
+                         case_current_end_a):
     """Worst voltage and current of every segment over fault positions, by superposition.
 
     Parameters
@@ -762,9 +761,6 @@ def _scan_fault_positions(system, section_segment, section_case, section_positio
         EMF of the section along the chain direction per ampere of fault
         current flowing along the line from its start towards its end,
         earth-wire screening included [V/A].
-    case_group : array_like of int, shape (n_cases,)
-        Group of each case; the sections of cases of different groups must lie
-        on different chains (e.g. the asset of the case).
     case_positions_m : array_like of float, shape (n_cases, n_max)
         Fault positions of each case along the line, increasing, padded with
         NaN [m].
@@ -775,25 +771,27 @@ def _scan_fault_positions(system, section_segment, section_case, section_positio
 
     Returns
     -------
-    _FaultScan
+    FaultScan
 
     Notes
     -----
     For a fault at x the section EMF is e·I_A(x) where the section lies
-    before x and −e·I_B(x) beyond it (docs/methods.md §8). Node voltages are
-    linear in the EMF (§11): with V_b the response to the unit EMFs of band
-    b (one solve column per band, from the kept factorisation), the fault at
-    position k gives
+    before x and −e·I_B(x) beyond it (docs/methods.md §8.2). Node voltages
+    are linear in the EMF (§11): with V_b the response to the unit EMFs of
+    band b (the sections with b positions at or before them; one solve column
+    per band, from the factors), the fault at position k gives
 
-        V(k) = I_A(x_k)·Σ_{b ≤ k} V_b − I_B(x_k)·Σ_{b > k} V_b,
+        V(k) = (I_A(x_k) + I_B(x_k))·Σ_{b ≤ k} V_b − I_B(x_k)·Σ_b V_b,
 
-    evaluated for every position at once from the cumulative sum over the
-    case's band columns. The segment currents follow in the same way from the
-    cumulated EMFs.
+    for every position at once from the cumulative sum over the bands. The
+    segment currents follow in the same way from the cumulated EMFs. A chain
+    near several faulted lines is scanned once per case (a copy of the chain
+    per case), and the worst over the copies is kept.
 
-    Memory: the chains are taken in blocks of about
-    ``_SCAN_BLOCK_ENTRIES`` (nodes × columns) each; a block other than the
-    whole system is factorised on its own (the chains are independent).
+    Memory: the (chain, case) copies are taken widest first in blocks of about
+    ``_SCAN_BLOCK_ENTRIES`` (nodes × columns, a few MB: the work stays in the
+    processor's cache); a block is factorised on its own (the chains are
+    independent).
 
     References
     ----------
@@ -807,100 +805,103 @@ def _scan_fault_positions(system, section_segment, section_case, section_positio
     sec_seg = np.asarray(section_segment, np.int64)
     sec_case = np.asarray(section_case, np.int64)
     emf = np.asarray(section_emf_v_per_a, complex)
-    group = np.asarray(case_group, np.int64)
     i_a = np.asarray(case_current_start_a, complex)
     i_b = np.asarray(case_current_end_a, complex)
-    out = _FaultScan(np.zeros(n_seg), np.zeros(n_seg), np.full(n_seg, -1, np.int64),
-                     np.full(n_seg, -1, np.int64), np.full(n_chain, -1, np.int64),
-                     np.full(n_chain, -1, np.int64), np.zeros(n_nodes, complex),
-                     np.zeros(n_seg, complex))
+    out = FaultScan(np.zeros(n_seg), np.zeros(n_seg), np.full(n_seg, -1, np.int64),
+                    np.full(n_seg, -1, np.int64), np.full(n_chain, -1, np.int64),
+                    np.full(n_chain, -1, np.int64), np.zeros(n_nodes, complex),
+                    np.zeros(n_seg, complex), np.zeros(n_seg, complex), np.zeros(n_nodes),
+                    np.zeros(n_chain))
     if sec_seg.size == 0:
         return out
-    band, n_pos, offset, _ = _fault_scan_columns(sec_case, section_position_m, group,
-                                                 case_positions_m)
-    col = offset[sec_case] + band
-    # the column layout of each group: which case, position and currents each column has
-    groups, g_of_case = np.unique(group, return_inverse=True)
-    width = np.zeros(len(groups), np.int64)
-    np.maximum.at(width, g_of_case, offset + n_pos + 1)
-    layout = _ScanLayout.build(g_of_case, offset, n_pos, i_a, i_b, len(groups),
-                               int(width.max()))
+    band, n_pos = _section_bands(sec_case, section_position_m, case_positions_m)
+    # currents per case and column; 0 beyond the case's positions (those columns give 0 V)
+    n_max = i_a.shape[1]
+    ok = np.arange(n_max)[None, :] < n_pos[:, None]
+    pad = np.zeros((len(n_pos), 1), complex)  # the last band column: no position
+    sum_ab = np.hstack([np.where(ok, i_a + i_b, 0.0), pad])
+    i_b = np.hstack([np.where(ok, i_b, 0.0), pad])
+    # scan units: one copy of a chain per case with sections on it
     seg_chain = batch.segment_chain
-    chain_g = np.full(n_chain, -1, np.int64)
-    chain_g[seg_chain[sec_seg]] = g_of_case[sec_case]
-    chain_width = np.where(chain_g >= 0, width[np.maximum(chain_g, 0)], 0)
-    # reached chains, widest first, in blocks of bounded nodes x columns
-    reached = np.flatnonzero(chain_width > 0)
-    reached = reached[np.argsort(-chain_width[reached], kind="stable")]
+    unit_key = seg_chain[sec_seg] * (len(n_pos) + 1) + sec_case
+    units, unit_of_sec = np.unique(unit_key, return_inverse=True)
+    unit_chain = units // (len(n_pos) + 1)
+    unit_case = units % (len(n_pos) + 1)
+    unit_width = n_pos[unit_case] + 1
     chain_nodes = np.diff(np.r_[batch.chain_first_node, n_nodes])
-    order = np.argsort(sec_seg, kind="stable")
-    sec_seg, col, emf = sec_seg[order], col[order], emf[order]
-    local_seg = np.full(n_seg, -1, np.int64)
-    for chains in _scan_blocks(reached, chain_nodes, chain_width):
-        chains = np.sort(chains)
-        sub, seg_idx, node_idx = _gather_system(system, chains)
-        local_seg[seg_idx] = np.arange(len(seg_idx))
-        take = local_seg[sec_seg] >= 0
-        _scan_block(sub, local_seg[sec_seg[take]], col[take], emf[take],
-                    int(chain_width[chains].max()), chain_g[chains], layout, out,
-                    (seg_idx, node_idx, chains))
-        local_seg[seg_idx] = -1
+    order = np.argsort(-unit_width, kind="stable")
+    sec_order = np.argsort(unit_of_sec, kind="stable")
+    sec_unit_sorted = unit_of_sec[sec_order]
+    peak = np.full(n_chain, -1.0)  # chain peak so far, to merge copies
+    work = _Workspace()
+    for block in _scan_blocks(order, chain_nodes[unit_chain], unit_width):
+        block = np.sort(block)
+        width = int(unit_width[block].max())
+        sub, seg_idx, node_idx = _gather_system(system, unit_chain[block])
+        # sections of the block's units, mapped to the block's local segments
+        lo = np.searchsorted(sec_unit_sorted, block[0], side="left")
+        hi = np.searchsorted(sec_unit_sorted, block[-1], side="right")
+        sel = sec_order[lo:hi]
+        sel = sel[np.isin(unit_of_sec[sel], block)]
+        local_unit = np.searchsorted(block, unit_of_sec[sel])
+        seg_first = np.cumsum(chain_nodes[unit_chain[block]] - 1) - (
+            chain_nodes[unit_chain[block]] - 1)
+        local_seg = seg_first[local_unit] + (
+            sec_seg[sel] - batch.chain_start[unit_chain[block]][local_unit])
+        _scan_block(sub, local_seg, band[sel], emf[sel], width, unit_case[block],
+                    sum_ab[:, :width], i_b[:, :width], n_pos, out, peak,
+                    (seg_idx, node_idx, unit_chain[block]), work)
     return out
 
 
 #: Nodes × solve columns handled at once by the fault scan (16 bytes each, a few
 #: arrays of this size live at a time).
-_SCAN_BLOCK_ENTRIES = 1_000_000
+_SCAN_BLOCK_ENTRIES = 200_000
 
 
-@dataclass(frozen=True)
-class _ScanLayout:
-    """Per group (row) and solve column: owning case, its first and end columns, currents."""
+class _Workspace:
+    """Work arrays reused from block to block.
 
-    valid: np.ndarray  # bool: the column is a fault position
-    start: np.ndarray  # first column of the owning case
-    end: np.ndarray  # one past the case's last band column
-    current_start_a: np.ndarray  # I_A at the column's position (0 where not valid)
-    current_end_a: np.ndarray
-    case: np.ndarray  # owning case (-1: none)
-    position: np.ndarray  # position index within the case (-1: none)
+    Fresh multi-megabyte arrays for every block cost page faults that can
+    exceed the arithmetic on them; these buffers grow once and are reused.
+    """
 
-    @classmethod
-    def build(cls, g_of_case, offset, n_pos, i_a, i_b, n_groups, n_col):
-        case = np.full((n_groups, n_col), -1, np.int64)
-        for c in range(len(g_of_case)):  # a short loop over cases
-            case[g_of_case[c], offset[c]:offset[c] + n_pos[c] + 1] = c
-        has = case >= 0
-        c = np.maximum(case, 0)
-        k = np.arange(n_col)[None, :] - offset[c]
-        valid = has & (k < n_pos[c])
-        kk = np.clip(k, 0, max(i_a.shape[1] - 1, 0))
-        return cls(valid, np.where(has, offset[c], 0), np.where(has, offset[c] + n_pos[c] + 1, 0),
-                   np.where(valid, i_a[c, kk], 0.0), np.where(valid, i_b[c, kk], 0.0),
-                   np.where(has, case, -1), np.where(valid, k, -1))
+    def __init__(self):
+        self._buffers = {}
+
+    def get(self, name, shape, dtype, zero=False):
+        """A C-contiguous array of ``shape`` backed by the buffer ``name``."""
+        size = int(np.prod(shape))
+        buf = self._buffers.get(name)
+        if buf is None or buf.dtype != np.dtype(dtype) or buf.size < size:
+            buf = np.empty(max(size, 1), dtype)
+            self._buffers[name] = buf
+        arr = buf[:size].reshape(shape)
+        if zero:
+            arr.fill(0)
+        return arr
 
 
-def _scan_blocks(chains, chain_nodes, chain_width):
-    """Split ``chains`` (widest first) so that nodes × widest layout stay near the budget."""
+def _scan_blocks(units, unit_nodes, unit_width):
+    """Split ``units`` (widest first) so that nodes × widest layout stay near the budget."""
     blocks, start, nodes = [], 0, 0
-    for i, c in enumerate(chains):
-        if i > start and (nodes + chain_nodes[c]) * chain_width[chains[start]] > (
+    for i, u in enumerate(units):
+        if i > start and (nodes + unit_nodes[u]) * unit_width[units[start]] > (
                 _SCAN_BLOCK_ENTRIES):
-            blocks.append(chains[start:i])
+            blocks.append(units[start:i])
             start, nodes = i, 0
-        nodes += int(chain_nodes[c])
-    if len(chains):
-        blocks.append(chains[start:])
+        nodes += int(unit_nodes[u])
+    if len(units):
+        blocks.append(units[start:])
     return blocks
 
 
 def _gather_system(system, chains):
-    """The :class:`ChainSystem` of the given chains alone (chains are independent).
-
-    Returns the system, and the global segment and node indices of its rows.
-    """
+    """The :class:`ChainSystem` of the given chains alone (chains are independent;
+    a chain may repeat). Returns the system and the global segment and node
+    indices of its rows."""
     batch = system.batch
-    if len(chains) == batch.n_chains:
+    if len(chains) == batch.n_chains and np.array_equal(chains, np.arange(batch.n_chains)):
         return system, np.arange(batch.n_segments), np.arange(batch.n_nodes)
     seg_count = np.diff(np.r_[batch.chain_start, batch.n_segments])[chains]
     seg_first = batch.chain_start[chains]
@@ -918,97 +919,108 @@ def _gather_system(system, chains):
     return ChainSystem(sub), seg_idx, node_idx
 
 
-def _scan_block(system, sec_seg, col, emf, n_col, chain_g, layout, out, where):
-    """Scan the chains of one block; write into ``out`` at the block's global indices."""
+def _cumsum_rows(a):
+    """In-place cumulative sum down the rows of a 2-D array (fast for few, long rows)."""
+    for k in range(1, a.shape[0]):
+        a[k] += a[k - 1]
+    return a
+
+
+def _first_argmax_rows(a, best):
+    """Index of the first row where each column of ``a`` reaches ``best``."""
+    out = np.zeros(a.shape[1], np.int64)
+    for k in range(a.shape[0] - 1, -1, -1):
+        np.copyto(out, k, where=a[k] == best)
+    return out
+
+
+def _scan_block(system, sec_seg, band, emf, n_col, unit_case, sum_ab, i_b, n_pos, out, peak,
+                where, work):
+    """Scan one block of chain copies (one case each); merge into ``out`` (worst wins).
+
+    Arrays are laid out band/position first, (n_col, n_rows), so that the sums over
+    bands and the maxima over positions run along contiguous rows.
+    """
     seg_idx, node_idx, chains = where
     batch = system.batch
-    n_seg, n_chain = batch.n_segments, batch.n_chains
-    unit_emf = np.zeros((n_seg, n_col), complex)
-    np.add.at(unit_emf, (sec_seg, col), emf)
+    n_unit, n_nodes = batch.n_chains, batch.n_nodes
+    sum_ab_t = np.ascontiguousarray(sum_ab.T)  # (n_col, n_case)
+    i_b_t = np.ascontiguousarray(i_b.T)
+    # unit EMFs of the bands at each segment's start node (a chain's last node: 0)
     first = batch.segment_start_node
-    push = unit_emf * system.injection_s[:, None]
-    rhs = system._new_rhs(n_col)
-    rhs[first] -= push
-    rhs[first + 1] += push
-    del push
-    unit_v = system._solve_rhs(rhs)
-    node_g = chain_g[batch.node_chain]
-    seg_g = chain_g[batch.segment_chain]
-    v_scan = _combine_bands(unit_v, node_g, layout, n_col)
-    del unit_v
-    cum_e = np.empty((n_seg, n_col + 1), complex)
-    cum_e[:, 0] = 0.0
-    np.cumsum(unit_emf, axis=1, out=cum_e[:, 1:])
-    del unit_emf
-    v_abs = np.abs(v_scan)
-    seg_v = np.maximum(v_abs[first], v_abs[first + 1])
-    seg_v[~layout.valid[seg_g, :n_col]] = -1.0
-    best = np.argmax(seg_v, axis=1)
-    rows = np.arange(n_seg)
-    worst = seg_v[rows, best]
-    reached = worst >= 0
-    out.segment_voltage_v[seg_idx] = np.maximum(worst, 0.0)
-    out.segment_case[seg_idx] = np.where(reached, layout.case[seg_g, best], -1)
-    out.segment_position[seg_idx] = np.where(reached, layout.position[seg_g, best], -1)
-    e_best = _emf_at(cum_e, seg_g, best, layout)
-    current = _segment_currents(system, v_scan[first, best], v_scan[first + 1, best], e_best)
-    out.segment_current_a[seg_idx] = np.where(reached, current, 0.0)
-    # per chain: the column of the largest |V| anywhere on the chain
-    v_abs[~layout.valid[node_g, :n_col]] = -1.0
-    chain_best = np.maximum.reduceat(v_abs, batch.chain_first_node, axis=0)
-    chain_col = np.argmax(chain_best, axis=1)
-    ok = chain_best[np.arange(n_chain), chain_col] >= 0
-    out.chain_case[chains] = np.where(ok, layout.case[chain_g, chain_col], -1)
-    out.chain_position[chains] = np.where(ok, layout.position[chain_g, chain_col], -1)
-    node_chain = batch.node_chain
-    out.chain_node_voltage_v[node_idx] = np.where(
-        ok[node_chain], v_scan[np.arange(batch.n_nodes), chain_col[node_chain]], 0.0)
-    seg_chain = batch.segment_chain
-    out.segment_emf_v[seg_idx] = np.where(ok[seg_chain],
-                                          _emf_at(cum_e, seg_g, chain_col[seg_chain], layout),
-                                          0.0)
-
-
-def _emf_at(cum_emf, row_group, column, layout):
-    """Segment EMF of one chosen column per segment from the cumulated band EMFs [V]."""
-    rows = np.arange(len(column))
-    start = layout.start[row_group, column]
-    end = layout.end[row_group, column]
-    i_a = layout.current_start_a[row_group, column]
-    i_b = layout.current_end_a[row_group, column]
-    base = cum_emf[rows, start]
-    return (i_a + i_b) * (cum_emf[rows, column + 1] - base) - i_b * (cum_emf[rows, end] - base)
-
-
-def _segment_currents(system, v_start, v_end, segment_emf_v):
-    """max(|I_start|, |I_end|) of each segment from its node voltages and EMF [A] (§5.3)."""
-    through = (v_start - v_end) * system.y_series_s + segment_emf_v * system.injection_s
-    return np.maximum(np.abs(system.y_half_s * v_start + through),
-                      np.abs(through - system.y_half_s * v_end))
-
-
-def _combine_bands(unit, row_group, layout, n_col):
-    """Values for each fault position from the band responses (rows: nodes or segments).
-
-    Column j of a row holds, for the case owning j in the row's group and its position
-    k: I_A(k)·Σ_{b ≤ k} unit_b − I_B(k)·Σ_{b > k} unit_b (0 where j is no position).
-    """
-    n_row = unit.shape[0]
-    cum = np.empty((n_row, n_col + 1), complex)
-    cum[:, 0] = 0.0
-    np.cumsum(unit, axis=1, out=cum[:, 1:])
-    start = np.minimum(layout.start[:, :n_col], n_col)[row_group]
-    end = np.minimum(layout.end[:, :n_col], n_col)[row_group]
-    base = np.take_along_axis(cum, start, axis=1)
-    total = np.take_along_axis(cum, end, axis=1)
-    total -= base
-    upto = cum[:, 1:]
-    upto -= base
-    del base, start, end
-    i_a = layout.current_start_a[:, :n_col][row_group]
-    i_b = layout.current_end_a[:, :n_col][row_group]
-    i_a += i_b
-    upto *= i_a
-    total *= i_b
-    upto -= total
-    return upto
+    unit_emf = work.get("unit", (n_col, n_nodes + 1), complex, zero=True)
+    np.add.at(unit_emf, (band, first[sec_seg]), emf)
+    inj = np.zeros(n_nodes + 1, complex)
+    inj[first] = system.injection_s
+    v = work.get("v", (n_col, n_nodes + 1), complex)
+    np.multiply(unit_emf, inj, out=v)  # Norton current out of each start node ...
+    rhs_t = work.get("rhs", (n_col, n_nodes + 1), complex)
+    np.negative(v, out=rhs_t)
+    rhs_t[:, 1:] += v[:, :-1]  # ... into the next node
+    cum = system._solve_rhs(rhs_t.T).T  # (n_col, n_nodes), in the rhs buffer
+    _cumsum_rows(cum)  # Σ_{b ≤ k} V_b
+    node_unit = batch.node_chain
+    seg_unit = batch.segment_chain
+    case_n = unit_case[node_unit]
+    total = cum[n_pos[case_n], np.arange(n_nodes)]  # Σ_b V_b (the last band)
+    v = work.get("v", (n_col, n_nodes), complex)
+    np.take(sum_ab_t, case_n, axis=1, out=v)
+    v *= cum
+    tmp = work.get("tmp", (n_col, n_nodes), complex)
+    np.take(i_b_t, case_n, axis=1, out=tmp)
+    tmp *= total
+    v -= tmp  # columns beyond the positions give 0
+    mag = work.get("mag", (n_col, n_nodes), float)
+    np.abs(v, out=mag)
+    worst = mag.max(axis=0)
+    col = _first_argmax_rows(mag, worst)
+    # segments: the worse of their two nodes, in that node's governing column
+    w1, w2 = worst[first], worst[first + 1]
+    seg_col = np.where(w2 > w1, col[first + 1], col[first])
+    seg_w = np.maximum(w1, w2)
+    chain_e = np.add.reduceat(unit_emf[:, :n_nodes], batch.chain_first_node, axis=1)
+    cum_e = _cumsum_rows(unit_emf)  # (n_col, n_nodes + 1), segments at their start nodes
+    case_s = unit_case[seg_unit]
+    e_total = cum_e[n_pos[case_s], first]
+    e_best = (sum_ab_t[seg_col, case_s] * cum_e[seg_col, first]
+              - i_b_t[seg_col, case_s] * e_total)
+    current = system.currents_at(v.T, e_best, seg_col)
+    # a chain may be in the block more than once (one copy per case): per global
+    # segment, the copy with the largest value, then only if it beats earlier blocks
+    order = np.lexsort((seg_w, seg_idx))
+    last = np.r_[seg_idx[order][1:] != seg_idx[order][:-1], True]
+    win = order[last]
+    win = win[seg_w[win] > out.segment_voltage_v[seg_idx[win]]]
+    tgt = seg_idx[win]
+    out.segment_voltage_v[tgt] = seg_w[win]
+    out.segment_current_a[tgt] = current[win]
+    out.segment_case[tgt] = case_s[win]
+    out.segment_position[tgt] = seg_col[win]
+    out.segment_worst_emf_v[tgt] = e_best[win]
+    np.maximum.at(out.node_voltage_worst_v, node_idx, worst)
+    # per chain copy: the column of its largest |V|, its profile, its longitudinal EMF
+    unit_first = batch.chain_first_node
+    unit_max = np.maximum.reduceat(worst, unit_first)
+    hit = np.where(worst == unit_max[node_unit], np.arange(n_nodes), n_nodes)
+    unit_peak_node = np.minimum.reduceat(hit, unit_first)
+    unit_col = col[unit_peak_node]
+    _cumsum_rows(chain_e)
+    units = np.arange(n_unit)
+    chain_total = chain_e[n_pos[unit_case], units]
+    chain_emf = np.abs(sum_ab_t[:, unit_case] * chain_e - i_b_t[:, unit_case] * chain_total)
+    np.maximum.at(out.chain_emf_v, chains, chain_emf.max(axis=0))
+    unit_last = batch.chain_last_node
+    for u in range(n_unit):  # a short loop over the block's chain copies
+        c = chains[u]
+        if unit_max[u] <= peak[c]:
+            continue
+        peak[c] = unit_max[u]
+        k = unit_col[u]
+        out.chain_case[c] = unit_case[u]
+        out.chain_position[c] = k
+        out.chain_node_voltage_v[node_idx[unit_first[u]:unit_last[u] + 1]] = (
+            v[k, unit_first[u]:unit_last[u] + 1])
+        s0, s1 = batch.chain_start[u], batch.chain_start[u] + unit_last[u] - unit_first[u]
+        out.segment_emf_v[seg_idx[s0:s1]] = (
+            sum_ab_t[k, unit_case[u]] * cum_e[k, unit_first[u]:unit_last[u]]
+            - i_b_t[k, unit_case[u]] * e_total[s0:s1])

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["earth_potential_hemisphere", "horizontal_electrode_length_m"]
+__all__ = ["earth_potential_hemisphere", "footing_resistance_ohm", "horizontal_electrode_length_m",
+           "ladder_impedance_ohm", "step_voltage_hemisphere", "tower_current_share",
+           "zone_of_influence_m"]
 
 
 def earth_potential_hemisphere(current_a, soil_resistivity_ohm_m, distance_m, footing_radius_m):
@@ -86,7 +88,7 @@ def horizontal_electrode_length_m(resistance_ohm, soil_resistivity_ohm_m, depth_
     return length
 
 
-def _footing_resistance_ohm(soil_resistivity_ohm_m, footing_radius_m):
+def footing_resistance_ohm(soil_resistivity_ohm_m, footing_radius_m):
     """Resistance to remote earth of a footing taken as a hemisphere.
 
     Parameters
@@ -110,7 +112,7 @@ def _footing_resistance_ohm(soil_resistivity_ohm_m, footing_radius_m):
         2 * np.pi * np.asarray(footing_radius_m, float))
 
 
-def _ladder_impedance_ohm(span_impedance_ohm, footing_resistance_ohm):
+def ladder_impedance_ohm(span_impedance_ohm, footing_resistance_ohm):
     """Input impedance of an endless ladder of earth-wire spans and tower footings.
 
     Parameters
@@ -143,7 +145,7 @@ def _ladder_impedance_ohm(span_impedance_ohm, footing_resistance_ohm):
     return zs / 2 + np.sqrt(zs * rt + zs * zs / 4)
 
 
-def _tower_current_share(span_impedance_ohm, footing_resistance_ohm, ladders=2):
+def tower_current_share(span_impedance_ohm, footing_resistance_ohm, ladders=2):
     """Share of an earth-fault current that the faulted tower's footing discharges.
 
     Parameters
@@ -165,7 +167,7 @@ def _tower_current_share(span_impedance_ohm, footing_resistance_ohm, ladders=2):
     Notes
     -----
     The faulted tower's footing and the n ladders (each of input impedance
-    Z∞, :func:`_ladder_impedance_ohm`) share the fault current as a current
+    Z∞, :func:`ladder_impedance_ohm`) share the fault current as a current
     divider. The earth wires' inductive coupling with the faulted phase,
     which draws part of the current back along the earth wires, is
     neglected: the share is overstated, which is conservative for the earth
@@ -180,11 +182,11 @@ def _tower_current_share(span_impedance_ohm, footing_resistance_ohm, ladders=2):
     zs = np.asarray(span_impedance_ohm, complex)
     rt = np.asarray(footing_resistance_ohm, float)
     none = ~np.isfinite(zs)
-    z_inf = _ladder_impedance_ohm(np.where(none, 1.0, zs), rt) / np.asarray(ladders, float)
+    z_inf = ladder_impedance_ohm(np.where(none, 1.0, zs), rt) / np.asarray(ladders, float)
     return np.where(none, 1.0, np.abs(z_inf / (rt + z_inf)))
 
 
-def _zone_of_influence_m(current_a, soil_resistivity_ohm_m, threshold_v):
+def zone_of_influence_m(current_a, soil_resistivity_ohm_m, threshold_v):
     """Distance from a footing within which its earth potential exceeds a threshold.
 
     Parameters
@@ -210,7 +212,7 @@ def _zone_of_influence_m(current_a, soil_resistivity_ohm_m, threshold_v):
             / (2 * np.pi * np.asarray(threshold_v, float)))
 
 
-def _step_voltage_hemisphere(current_a, soil_resistivity_ohm_m, distance_m, footing_radius_m,
+def step_voltage_hemisphere(current_a, soil_resistivity_ohm_m, distance_m, footing_radius_m,
                              step_m=1.0):
     """Step voltage on the earth surface beside a hemispherical footing.
 

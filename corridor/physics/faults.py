@@ -19,11 +19,10 @@ sequence current fed from A is the current divider of its branch.
 The user gives the single line-to-earth fault current for a fault at each
 terminal (``fault_current_start_ka``, ``fault_current_end_ka``), with an X/R
 ratio and a Z0/Z1 ratio per terminal; the terminal source impedances follow
-from those two currents (:func:`_source_admittances`). See docs/methods.md
+from those two currents (:func:`source_admittances`). See docs/methods.md
 §8.
 
-Every function here is private until a production run calls it (the
-production-reach test requires every public function to be reached).
+A production run calls these through :mod:`corridor.steps.faultscan`.
 """
 
 from __future__ import annotations
@@ -31,6 +30,17 @@ from __future__ import annotations
 from typing import NamedTuple
 
 import numpy as np
+
+__all__ = [
+    "DEFAULT_SOURCE_X_OVER_R",
+    "DEFAULT_SOURCE_Z0_OVER_Z1",
+    "FaultCurrents",
+    "SourceAdmittances",
+    "kron_reduce",
+    "sequence_impedances",
+    "slg_fault_currents",
+    "source_admittances",
+]
 
 #: X/R ratio of a terminal's source impedance when none is given. Transmission
 #: sources commonly have X/R of 10-30; 10 is the lower, common screening value
@@ -52,7 +62,7 @@ _BISECTION_STEPS = 64
 _NEWTON_STEPS = 40
 
 
-def _kron_reduce(z_matrix, phase_index, earth_wire_index):
+def kron_reduce(z_matrix, phase_index, earth_wire_index):
     """Phase impedance matrix with the earth wires eliminated.
 
     Parameters
@@ -83,7 +93,7 @@ def _kron_reduce(z_matrix, phase_index, earth_wire_index):
     return z_pp - z[np.ix_(p, s)] @ np.linalg.solve(z[np.ix_(s, s)], z[np.ix_(s, p)])
 
 
-def _sequence_impedances(z_phase):
+def sequence_impedances(z_phase):
     """Positive- and zero-sequence impedance of a three-phase circuit.
 
     Parameters
@@ -111,8 +121,8 @@ def _sequence_impedances(z_phase):
     return diag - mutual, diag + 2.0 * mutual
 
 
-class _SourceAdmittances(NamedTuple):
-    """Result of :func:`_source_admittances`: sequence admittances of the terminals [S]."""
+class SourceAdmittances(NamedTuple):
+    """Result of :func:`source_admittances`: sequence admittances of the terminals [S]."""
 
     #: Positive- (= negative-) sequence source admittance of terminal A, B [S].
     y1_start_s: np.ndarray
@@ -126,8 +136,8 @@ class _SourceAdmittances(NamedTuple):
     consistent: np.ndarray
 
 
-class _FaultCurrents(NamedTuple):
-    """Result of :func:`_slg_fault_currents` (complex phasors [A])."""
+class FaultCurrents(NamedTuple):
+    """Result of :func:`slg_fault_currents` (complex phasors [A])."""
 
     #: Total fault current 3·I0.
     fault_a: np.ndarray
@@ -146,8 +156,9 @@ def _branch_admittance(y_source, z_line):
     return y_source / (1.0 + y_source * z_line)
 
 
-def _slg_fault_currents(y1_start_s, y0_start_s, y1_end_s, y0_end_s, z1_ohm_per_m, z0_ohm_per_m,
-                        length_m, position_m, phase_voltage_v, y2_start_s=None, y2_end_s=None):
+def slg_fault_currents(y1_start_s, y0_start_s, y1_end_s, y0_end_s, z1_from_start_ohm,
+                       z0_from_start_ohm, z1_to_end_ohm, z0_to_end_ohm, phase_voltage_v,
+                       y2_start_s=None, y2_end_s=None):
     """Currents of a bolted single line-to-earth fault on a line fed from both ends.
 
     Parameters
@@ -155,12 +166,11 @@ def _slg_fault_currents(y1_start_s, y0_start_s, y1_end_s, y0_end_s, z1_ohm_per_m
     y1_start_s, y0_start_s, y1_end_s, y0_end_s : array_like of complex
         Positive- and zero-sequence admittance of the source behind terminal
         A (the line's start) and B (its end) [S]; 0 for no source.
-    z1_ohm_per_m, z0_ohm_per_m : array_like of complex
-        Positive- and zero-sequence impedance of the line [Ω/m].
-    length_m : array_like
-        Line length L [m].
-    position_m : array_like
-        Fault position x from terminal A, 0 ≤ x ≤ L [m].
+    z1_from_start_ohm, z0_from_start_ohm : array_like of complex
+        Positive- and zero-sequence impedance of the line from terminal A to the
+        fault, x·z1 and x·z0 on a uniform line [Ω].
+    z1_to_end_ohm, z0_to_end_ohm : array_like of complex
+        The same from the fault to terminal B, (L − x)·z1 and (L − x)·z0 [Ω].
     phase_voltage_v : array_like
         Pre-fault phase-to-earth voltage E at the fault [V].
     y2_start_s, y2_end_s : array_like of complex, optional
@@ -169,14 +179,14 @@ def _slg_fault_currents(y1_start_s, y0_start_s, y1_end_s, y0_end_s, z1_ohm_per_m
 
     Returns
     -------
-    _FaultCurrents
+    FaultCurrents
         Fault current, faulted-phase and residual currents from each side [A];
         all inputs broadcast together.
 
     Notes
     -----
     Sequence network k seen from the fault: branch admittances
-    y_kA = Y_kA/(1 + Y_kA·x·z_k) and y_kB = Y_kB/(1 + Y_kB·(L − x)·z_k) in
+    y_kA = Y_kA/(1 + Y_kA·Z_k(A→x)) and y_kB = Y_kB/(1 + Y_kB·Z_k(x→B)) in
     parallel, Zk_th = 1/(y_kA + y_kB); the share from A is
     D_kA = y_kA/(y_kA + y_kB). Series connection of the three networks:
     I0 = E/(Z1_th + Z2_th + Z0_th), I_f = 3·I0. Faulted phase from A:
@@ -195,19 +205,18 @@ def _slg_fault_currents(y1_start_s, y0_start_s, y1_end_s, y0_end_s, z1_ohm_per_m
     y1b = np.asarray(y1_end_s, complex)
     y2a = y1a if y2_start_s is None else np.asarray(y2_start_s, complex)
     y2b = y1b if y2_end_s is None else np.asarray(y2_end_s, complex)
-    x = np.asarray(position_m, float)
-    rest = np.asarray(length_m, float) - x
-    z1 = np.asarray(z1_ohm_per_m, complex)
-    z0 = np.asarray(z0_ohm_per_m, complex)
-    b1a, b1b = _branch_admittance(y1a, x * z1), _branch_admittance(y1b, rest * z1)
-    b2a, b2b = _branch_admittance(y2a, x * z1), _branch_admittance(y2b, rest * z1)
-    b0a = _branch_admittance(np.asarray(y0_start_s, complex), x * z0)
-    b0b = _branch_admittance(np.asarray(y0_end_s, complex), rest * z0)
+    z1a = np.asarray(z1_from_start_ohm, complex)
+    z1b = np.asarray(z1_to_end_ohm, complex)
+    b1a, b1b = _branch_admittance(y1a, z1a), _branch_admittance(y1b, z1b)
+    b2a, b2b = _branch_admittance(y2a, z1a), _branch_admittance(y2b, z1b)
+    b0a = _branch_admittance(np.asarray(y0_start_s, complex), np.asarray(z0_from_start_ohm,
+                                                                         complex))
+    b0b = _branch_admittance(np.asarray(y0_end_s, complex), np.asarray(z0_to_end_ohm, complex))
     s1, s2, s0 = b1a + b1b, b2a + b2b, b0a + b0b
     i0 = np.asarray(phase_voltage_v, float) / (1.0 / s1 + 1.0 / s2 + 1.0 / s0)
     d1a, d2a, d0a = b1a / s1, b2a / s2, b0a / s0
     d1b, d2b, d0b = b1b / s1, b2b / s2, b0b / s0
-    return _FaultCurrents(3.0 * i0, i0 * (d1a + d2a + d0a), i0 * (d1b + d2b + d0b),
+    return FaultCurrents(3.0 * i0, i0 * (d1a + d2a + d0a), i0 * (d1b + d2b + d0b),
                           3.0 * i0 * d0a, 3.0 * i0 * d0b)
 
 
@@ -243,7 +252,7 @@ def _fit_terminal(target, log_y_there, angle_here, angle_there, ratio_here, rati
     return 0.5 * (lo + hi)
 
 
-def _source_admittances(fault_current_start_a, fault_current_end_a, phase_voltage_v,
+def source_admittances(fault_current_start_a, fault_current_end_a, phase_voltage_v,
                         z1_line_ohm, z0_line_ohm, x_over_r_start=DEFAULT_SOURCE_X_OVER_R,
                         x_over_r_end=DEFAULT_SOURCE_X_OVER_R,
                         z0_over_z1_start=DEFAULT_SOURCE_Z0_OVER_Z1,
@@ -268,7 +277,7 @@ def _source_admittances(fault_current_start_a, fault_current_end_a, phase_voltag
 
     Returns
     -------
-    _SourceAdmittances
+    SourceAdmittances
         Y1 (= Y2) and Y0 of each terminal's source [S], and a flag per line.
 
     Notes
@@ -354,4 +363,4 @@ def _source_admittances(fault_current_start_a, fault_current_end_a, phase_voltag
     log_yb = np.where(b_absent, -np.inf, np.where(a_absent, b_alone, log_yb))
     y1a = _admittance(log_ya, ang_a)
     y1b = _admittance(log_yb, ang_b)
-    return _SourceAdmittances(y1a, y1b, y1a / k_a, y1b / k_b, ~(a_absent | b_absent))
+    return SourceAdmittances(y1a, y1b, y1a / k_a, y1b / k_b, ~(a_absent | b_absent))

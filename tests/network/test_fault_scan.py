@@ -23,9 +23,11 @@ def _pipe_admittance(coating_ohm_m2, diameter_m=0.5):
 def _line_currents(positions_m, length_m=60e3, i_ka=20.0):
     z1, z0 = (0.03 + 0.3j) / 1000, (0.15 + 1.0j) / 1000
     e = 400e3 / np.sqrt(3)
-    src = faults._source_admittances(i_ka * 1e3, i_ka * 1e3, e, z1 * length_m, z0 * length_m)
-    got = faults._slg_fault_currents(src.y1_start_s, src.y0_start_s, src.y1_end_s,
-                                     src.y0_end_s, z1, z0, length_m, positions_m, e)
+    src = faults.source_admittances(i_ka * 1e3, i_ka * 1e3, e, z1 * length_m, z0 * length_m)
+    x = np.asarray(positions_m, float)
+    got = faults.slg_fault_currents(src.y1_start_s, src.y0_start_s, src.y1_end_s,
+                                    src.y0_end_s, x * z1, x * z0, (length_m - x) * z1,
+                                    (length_m - x) * z0, e)
     return got.residual_start_a, got.residual_end_a
 
 
@@ -63,9 +65,9 @@ def test_mid_exposure_fault_matches_the_closed_form(coating):
     towers = np.arange(25e3 - 250.0, 35e3 + 251.0, 250.0)
     positions = np.r_[0.0, towers, 60e3]
     system, sec, sec_pos, i_a, i_b, gamma = _exposure_setup(coating, positions)
-    scan = response._scan_fault_positions(
+    scan = response.scan_fault_positions(
         system, sec, np.zeros(len(sec), int), sec_pos, np.full(len(sec), E_PER_A * SEG_M),
-        [0], positions[None, :], i_a[None, :], i_b[None, :])
+        positions[None, :], i_a[None, :], i_b[None, :])
     k_mid = int(np.flatnonzero(positions == 30e3)[0])
     assert i_a[k_mid] == pytest.approx(i_b[k_mid], rel=1e-9)  # equal terminals, midpoint
     want = abs(_closed_form(i_a[k_mid], i_b[k_mid], gamma, 30e3))
@@ -85,9 +87,9 @@ def test_fault_at_the_line_start_gives_the_one_direction_end_voltage():
     # with L = 10 km; there the voltage peaks (matched line).
     positions = np.array([0.0])
     system, sec, sec_pos, i_a, i_b, gamma = _exposure_setup(1e5, positions)
-    scan = response._scan_fault_positions(
+    scan = response.scan_fault_positions(
         system, sec, np.zeros(len(sec), int), sec_pos, np.full(len(sec), E_PER_A * SEG_M),
-        [0], positions[None, :], i_a[None, :], i_b[None, :])
+        positions[None, :], i_a[None, :], i_b[None, :])
     e = E_PER_A * i_b[0]
     want = abs(e * (1 - np.exp(-gamma * 10e3)) / (2 * gamma))
     end_seg = int(20e3 / SEG_M) - 1  # ends at the 20 km node
@@ -127,8 +129,8 @@ def test_scan_equals_direct_solves_for_several_assets_and_lines(monkeypatch, blo
     positions[2, :6] = [0, 500, 800, 900, 1250, 2000]
     cur_a = rng.normal(size=(3, 6)) * 1e3 + 1j * rng.normal(size=(3, 6)) * 1e3
     cur_b = rng.normal(size=(3, 6)) * 1e3 + 1j * rng.normal(size=(3, 6)) * 1e3
-    scan = response._scan_fault_positions(system, sec_seg, sec_case, sec_pos, sec_emf,
-                                          [0, 0, 1], positions, cur_a, cur_b)
+    scan = response.scan_fault_positions(system, sec_seg, sec_case, sec_pos, sec_emf,
+                                         positions, cur_a, cur_b)
     chain_of_seg = np.repeat([0, 1, 2, 3], [25, 20, 15, 5])
     group_of_chain = np.array([0, 0, 1, -1])
     case_group = np.array([0, 0, 1])
@@ -161,6 +163,21 @@ def test_scan_equals_direct_solves_for_several_assets_and_lines(monkeypatch, blo
         checked += 1
     assert checked == 60
     assert scan.chain_case[3] == -1 and not scan.chain_node_voltage_v[65:].any()
+    # every node's worst |V| and every chain's worst |Σ EMF| over all cases and positions
+    node_max, chain_emf = np.zeros(69), np.zeros(4)
+    starts = np.r_[chain_start, 65]
+    for c2 in range(3):
+        for k2 in range(int(np.isfinite(positions[c2]).sum())):
+            m2 = sec_case == c2
+            e2 = np.where(sec_pos < positions[c2, k2], sec_emf * cur_a[c2, k2],
+                          -sec_emf * cur_b[c2, k2])
+            emf2 = np.zeros(65, complex)
+            np.add.at(emf2, sec_seg[m2], e2[m2])
+            node_max = np.maximum(node_max, np.abs(system.solve(emf2).node_voltage_v))
+            sums = np.abs(np.add.reduceat(emf2, starts[:-1]))
+            chain_emf = np.maximum(chain_emf, sums)
+    np.testing.assert_allclose(scan.node_voltage_worst_v, node_max, rtol=1e-9, atol=1e-9)
+    np.testing.assert_allclose(scan.chain_emf_v, chain_emf, rtol=1e-9, atol=1e-9)
     # each chain's governing profile is a real fault scenario: its peak equals the chain max
     for ch, (lo, hi) in enumerate([(0, 25), (25, 45), (45, 60)]):
         assert np.abs(scan.chain_node_voltage_v[lo + ch:hi + ch + 1]).max() == pytest.approx(

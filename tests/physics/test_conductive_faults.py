@@ -35,14 +35,14 @@ def test_tower_share_matches_a_long_finite_ladder(zs, rt):
     # (Endrenyi's infinite ladder is its limit; docs/methods.md §4.3).
     ref_mid = _finite_ladder_share(zs, rt, 600, 600)
     ref_end = _finite_ladder_share(zs, rt, 0, 600)
-    assert cond._tower_current_share(zs, rt, 2) == pytest.approx(ref_mid, rel=1e-9)
-    assert cond._tower_current_share(zs, rt, 1) == pytest.approx(ref_end, rel=1e-9)
+    assert cond.tower_current_share(zs, rt, 2) == pytest.approx(ref_mid, rel=1e-9)
+    assert cond.tower_current_share(zs, rt, 1) == pytest.approx(ref_end, rel=1e-9)
 
 
 def test_ladder_impedance_is_its_own_continuation():
     # Closed form (docs/methods.md §4.3): Z∞ = Z_s + R_t·Z∞/(R_t + Z∞).
     zs, rt = 0.4 + 0.3j, 20.0
-    z = cond._ladder_impedance_ohm(zs, rt)
+    z = cond.ladder_impedance_ohm(zs, rt)
     assert z == pytest.approx(zs + rt * z / (rt + z), rel=1e-13)
     assert z.real > 0
 
@@ -52,22 +52,22 @@ def test_opgw_in_resistive_soil_and_no_earth_wire():
     # from memory): a 300 m span of an OPGW earth wire (about 0.25 + j0.7 Ω/km with earth
     # return, from memory) and a 1 m footing in 1,000 Ω·m soil discharge a few per cent;
     # a line without earth wire discharges the whole current at the tower.
-    rt = cond._footing_resistance_ohm(1000.0, 1.0)
-    share = cond._tower_current_share((0.25 + 0.7j) * 0.3, rt)
+    rt = cond.footing_resistance_ohm(1000.0, 1.0)
+    share = cond.tower_current_share((0.25 + 0.7j) * 0.3, rt)
     assert 0.01 < share < 0.05
-    assert cond._tower_current_share(np.inf, rt) == 1.0
-    assert cond._tower_current_share(np.nan + 0j, rt) == 1.0
+    assert cond.tower_current_share(np.inf, rt) == 1.0
+    assert cond.tower_current_share(np.nan + 0j, rt) == 1.0
 
 
 def test_footing_resistance_of_a_hemisphere():
     # IEEE Std 80 / any grounding text (docs/methods.md §4.1): R = ρ/(2π r0).
-    assert cond._footing_resistance_ohm(100.0, 1.0) == pytest.approx(100 / (2 * np.pi))
+    assert cond.footing_resistance_ohm(100.0, 1.0) == pytest.approx(100 / (2 * np.pi))
 
 
 def test_zone_of_influence():
     # Closed form r = ρI/(2πV) (hemisphere, docs/methods.md §4.1). Issue 14's example:
     # in 1,000 Ω·m soil, 2 kA gives more than 1 kV at 300 m.
-    r = cond._zone_of_influence_m(2000.0, 1000.0, 1000.0)
+    r = cond.zone_of_influence_m(2000.0, 1000.0, 1000.0)
     assert r == pytest.approx(1000 * 2000 / (2 * np.pi * 1000))
     assert r > 300.0
     assert cond.earth_potential_hemisphere(2000.0, 1000.0, r, 1.0) == pytest.approx(1000.0)
@@ -84,4 +84,4 @@ def test_step_voltage_is_the_integral_of_the_surface_field(r):
 
     ref, _ = quad(field, r, r + 1.0, points=[r0] if r < r0 < r + 1 else None,
                   epsabs=0, epsrel=1e-12)
-    assert cond._step_voltage_hemisphere(i, rho, r, r0) == pytest.approx(ref, rel=1e-10)
+    assert cond.step_voltage_hemisphere(i, rho, r, r0) == pytest.approx(ref, rel=1e-10)

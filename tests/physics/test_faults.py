@@ -39,9 +39,9 @@ def test_sequence_impedances_of_kersting_example_from_the_physics_core():
     # equations; the physics core's Carson evaluation agrees to the printed digits.
     z = _kersting_primitive_ohm_per_mile()
     np.testing.assert_allclose(np.diag(z), KERSTING_PRIMITIVE_DIAG, atol=1e-4)
-    reduced = faults._kron_reduce(z, [0, 1, 2], [3])
+    reduced = faults.kron_reduce(z, [0, 1, 2], [3])
     np.testing.assert_allclose(reduced, KERSTING_REDUCED, atol=1.5e-4)
-    z1, z0 = faults._sequence_impedances(reduced)
+    z1, z0 = faults.sequence_impedances(reduced)
     assert abs(z0 - KERSTING_Z0) < 1e-4
     assert abs(z1 - KERSTING_Z1) < 1e-4
 
@@ -50,7 +50,7 @@ def test_sequence_impedances_are_the_diagonal_of_the_transformed_matrix():
     # Source: symmetrical components, z012 = A⁻¹·z_abc·A (Glover/Sarma/Overbye ch. 8;
     # Kersting ch. 4); for Kersting's reduced matrix the diagonal gives z0, z1, z2 = z1.
     z012 = np.linalg.solve(A_MAT, KERSTING_REDUCED @ A_MAT)
-    z1, z0 = faults._sequence_impedances(KERSTING_REDUCED)
+    z1, z0 = faults.sequence_impedances(KERSTING_REDUCED)
     assert z0 == pytest.approx(z012[0, 0], rel=1e-13)
     assert z1 == pytest.approx(z012[1, 1], rel=1e-13)
     assert z1 == pytest.approx(z012[2, 2], rel=1e-13)
@@ -59,7 +59,7 @@ def test_sequence_impedances_are_the_diagonal_of_the_transformed_matrix():
 def test_kron_reduce_without_earth_wires_keeps_the_phase_block():
     # Source: Kron reduction with no earthed conductor to eliminate (Kersting ch. 4).
     z = _kersting_primitive_ohm_per_mile()
-    np.testing.assert_array_equal(faults._kron_reduce(z, [0, 1, 2], []), z[:3, :3])
+    np.testing.assert_array_equal(faults.kron_reduce(z, [0, 1, 2], []), z[:3, :3])
 
 
 def test_glover_single_line_to_ground_example():
@@ -68,8 +68,8 @@ def test_glover_single_line_to_ground_example():
     # impedances Z0 = j0.25, Z1 = j0.13893, Z2 = j0.14562 per unit and V_F = 1.05 per
     # unit: I0 = I1 = I2 = −j1.96427 and I_a = 3·I0 = −j5.8928 per unit.
     # Here the bus is terminal A and terminal B has no source (admittance 0).
-    got = faults._slg_fault_currents(1 / 0.13893j, 1 / 0.25j, 0.0, 0.0, 0.01j, 0.03j, 10.0,
-                                     0.0, 1.05, y2_start_s=1 / 0.14562j, y2_end_s=0.0)
+    got = faults.slg_fault_currents(1 / 0.13893j, 1 / 0.25j, 0.0, 0.0, 0.0, 0.0, 0.1j, 0.3j,
+                                    1.05, y2_start_s=1 / 0.14562j, y2_end_s=0.0)
     assert got.fault_a / 3 == pytest.approx(-1.96427j, abs=1e-5)
     assert got.fault_a == pytest.approx(-5.8928j, abs=1e-4)
     # all of it comes from A: faulted phase and residual
@@ -125,8 +125,9 @@ def test_two_terminal_currents_match_a_phase_domain_network_solve(x_frac):
     e = 230e3 / np.sqrt(3)
     # a zero-length section has no admittance matrix: terminal faults 1 mm inside
     x = min(max(x_frac * length, 1e-3), length - 1e-3)
-    got = faults._slg_fault_currents(1 / z1a, 1 / z0a, 1 / z1b, 1 / z0b, z1_line, z0_line,
-                                     length, x, e)
+    got = faults.slg_fault_currents(1 / z1a, 1 / z0a, 1 / z1b, 1 / z0b, x * z1_line,
+                                    x * z0_line, (length - x) * z1_line, (length - x) * z0_line,
+                                    e)
     ref = _phase_domain_reference(z1a, z0a, z1b, z0b, z1_line, z0_line, length, x, e)
     tol = 1e-8
     np.testing.assert_allclose([got.phase_start_a, got.phase_end_a, got.residual_start_a,
@@ -151,12 +152,13 @@ def test_fault_at_a_terminal_reproduces_the_given_current(i_start_ka, i_end_ka, 
     length = 60e3
     z1, z0 = (0.028 + 0.31j) / 1000, (0.16 + 0.95j) / 1000
     e = 400e3 / np.sqrt(3)
-    src = faults._source_admittances(i_start_ka * 1e3, i_end_ka * 1e3, e, z1 * length,
+    src = faults.source_admittances(i_start_ka * 1e3, i_end_ka * 1e3, e, z1 * length,
                                      z0 * length, xr_a, xr_b, k_a, k_b)
     assert bool(src.consistent)
     for x, given in ((0.0, i_start_ka), (length, i_end_ka)):
-        got = faults._slg_fault_currents(src.y1_start_s, src.y0_start_s, src.y1_end_s,
-                                         src.y0_end_s, z1, z0, length, x, e)
+        got = faults.slg_fault_currents(src.y1_start_s, src.y0_start_s, src.y1_end_s,
+                                        src.y0_end_s, x * z1, x * z0, (length - x) * z1,
+                                        (length - x) * z0, e)
         assert abs(got.fault_a) == pytest.approx(given * 1e3, rel=1e-9)
     # the sources have the X/R and Z0/Z1 asked for
     assert (1 / src.y1_start_s).imag / (1 / src.y1_start_s).real == pytest.approx(xr_a)
@@ -168,9 +170,10 @@ def test_equal_terminals_and_midpoint_fault_split_evenly():
     length = 30e3
     z1, z0 = (0.03 + 0.3j) / 1000, (0.15 + 1.0j) / 1000
     e = 230e3 / np.sqrt(3)
-    src = faults._source_admittances(12e3, 12e3, e, z1 * length, z0 * length)
-    got = faults._slg_fault_currents(src.y1_start_s, src.y0_start_s, src.y1_end_s,
-                                     src.y0_end_s, z1, z0, length, length / 2, e)
+    src = faults.source_admittances(12e3, 12e3, e, z1 * length, z0 * length)
+    half = length / 2
+    got = faults.slg_fault_currents(src.y1_start_s, src.y0_start_s, src.y1_end_s,
+                                    src.y0_end_s, half * z1, half * z0, half * z1, half * z0, e)
     assert got.phase_start_a == pytest.approx(got.phase_end_a, rel=1e-9)
     assert got.residual_start_a == pytest.approx(got.residual_end_a, rel=1e-9)
     assert got.phase_start_a == pytest.approx(got.fault_a / 2, rel=1e-9)
@@ -183,13 +186,14 @@ def test_inconsistent_terminal_currents_drop_the_weaker_source():
     length = 80e3
     z1, z0 = (0.03 + 0.3j) / 1000, (0.15 + 1.0j) / 1000
     e = 400e3 / np.sqrt(3)
-    src = faults._source_admittances(40e3, 1e3, e, z1 * length, z0 * length)
+    src = faults.source_admittances(40e3, 1e3, e, z1 * length, z0 * length)
     assert not bool(src.consistent)
     assert src.y1_end_s == 0 and src.y0_end_s == 0
-    at_a = faults._slg_fault_currents(src.y1_start_s, src.y0_start_s, 0.0, 0.0, z1, z0,
-                                      length, 0.0, e)
-    at_b = faults._slg_fault_currents(src.y1_start_s, src.y0_start_s, 0.0, 0.0, z1, z0,
-                                      length, length, e)
+    line1, line0 = length * z1, length * z0
+    at_a = faults.slg_fault_currents(src.y1_start_s, src.y0_start_s, 0.0, 0.0, 0.0, 0.0, line1,
+                                     line0, e)
+    at_b = faults.slg_fault_currents(src.y1_start_s, src.y0_start_s, 0.0, 0.0, line1, line0,
+                                     0.0, 0.0, e)
     assert abs(at_a.fault_a) == pytest.approx(40e3, rel=1e-9)
     assert abs(at_b.fault_a) > 1e3
     assert at_b.phase_end_a == 0
