@@ -1,11 +1,14 @@
 """Command line: ``corridor run CONFIG``, ``corridor check CONFIG``, ``corridor steps``,
-``corridor step NAME CONFIG [--in LAYER=PATH ...] [--out DIR] [--set KEY=VALUE ...]``.
+``corridor step NAME CONFIG [--in LAYER=PATH ...] [--out DIR] [--set KEY=VALUE ...]``,
+``corridor unlock CONFIG [--out DIR] [--force]``.
 
 ``corridor steps`` lists the named processing steps with their inputs,
 outputs and parameters (name, type, unit, default); ``corridor step`` runs one
 of them (:func:`corridor.steps.catalog.run_step`): the pipeline up to and
 including that step, in memory, writing the step's outputs to ``--out``
-(default ``<run.output_dir>/steps``).
+(default ``<run.output_dir>/steps``). ``corridor unlock`` prints the holder of
+an output folder's lock and removes the lock (refused while the holder runs
+on this host, unless ``--force``).
 
 Exit codes
 ----------
@@ -15,20 +18,36 @@ Exit codes
 1
     Done, and some segment exceeds a limit (only with ``--fail-on-exceedance``).
 2
-    Bad config or input: every problem is printed, naming file, layer,
-    feature id and field; nothing is published, previous outputs stay.
+    Bad config or input, or an output folder corridor may not write into (a
+    file, or a folder holding files corridor did not write), or the file
+    system refused (disk full, read-only, no permission; the cause is
+    printed). Every problem is printed, naming file, layer, feature id and
+    field; nothing is published, previous outputs stay. ``check``: also when
+    the power line layer or an asset layer yields no usable feature.
 3
-    Internal error: the traceback goes to the log file (``<out>.last-error.log``
-    beside the output folder, or ``corridor-crash.log`` in the working folder
-    when it happens before the output folder is known), not to the console.
+    Internal error: the traceback goes to a log file (``<out>.last-error.log``
+    beside the output folder, or ``corridor-crash-<pid>.log`` in the system's
+    temporary folder when the output folder is not known), not to the console.
 4
-    Another run holds the output folder's lock: nothing was done. The message
-    names the PID, host and start time of the holder. A scheduler can treat
-    this as "skipped" rather than as a failure to fix.
+    Another run holds the output folder's lock: nothing was done (skipped).
+    The message names the PID, host, start time and heartbeat of the holder.
+    A lock whose holder is gone (same host) or whose heartbeat is older than
+    10 min (any host) is taken over by the next run, so exit 4 on several
+    runs in a row means a run is still going or stuck: check the holder and
+    use ``corridor unlock``.
+5
+    ``run``: a power line was rejected (bad attribute or geometry). The
+    outputs were published but are incomplete: the voltages that line induces
+    were not assessed. Each rejected line is named in a warning, in run.json
+    and in the report. ``run.accept_rejected_lines = true`` accepts this on
+    purpose (exit code as if no line was rejected). Takes precedence over 1:
+    an incomplete result outranks an exceeding one.
 
 Logging goes to stderr (``--quiet``: warnings and errors; ``--verbose``:
 debug) and, for ``run``, to ``corridor.log`` in the output folder (always at
-debug level). Progress bars are drawn only when stderr is a terminal.
+debug level). Progress bars are drawn only when stderr is a terminal. A
+closed standard output (``corridor steps | head -1``) ends the command
+quietly with exit 0, as Unix tools do.
 """
 
 from __future__ import annotations
@@ -43,6 +62,7 @@ from corridor import __version__
 from corridor.errors import CorridorError
 
 EXIT_OK, EXIT_EXCEEDANCE, EXIT_INPUT, EXIT_INTERNAL, EXIT_LOCKED = 0, 1, 2, 3, 4
+EXIT_LINE_REJECTED = 5
 log = logging.getLogger("corridor")
 
 
@@ -71,7 +91,13 @@ def _parser() -> argparse.ArgumentParser:
                     help="output folder (default <run.output_dir>/steps)")
     st.add_argument("--set", dest="settings", action="append", default=[], metavar="KEY=VALUE",
                     help="override a run setting the step takes (see `corridor steps`)")
-    for q in (r, c, ls, st):
+    u = sub.add_parser("unlock", help="print the holder of an output folder's lock and remove"
+                                      " the lock")
+    u.add_argument("config", type=Path, help="run configuration (TOML)")
+    u.add_argument("--out", type=Path, default=None, help="output folder (overrides the config)")
+    u.add_argument("--force", action="store_true",
+                   help="also when the holder is a running process on this host")
+    for q in (r, c, ls, st, u):
         q.add_argument("-q", "--quiet", action="store_true", help="warnings and errors only")
         q.add_argument("-v", "--verbose", action="store_true", help="debug messages")
     return p
@@ -79,14 +105,14 @@ def _parser() -> argparse.ArgumentParser:
 
 def _console(args) -> None:
     from corridor import progress
-    from corridor.runner import _FileOnly
+    from corridor.runner import FileOnly
 
     level = logging.WARNING if args.quiet else logging.DEBUG if args.verbose else logging.INFO
     progress.set_quiet(args.quiet)
     handler = progress.ConsoleHandler(sys.stderr)
     handler.setLevel(level)
     handler.setFormatter(logging.Formatter("corridor: %(levelname)s: %(message)s"))
-    handler.addFilter(_FileOnly())
+    handler.addFilter(FileOnly())
     root = logging.getLogger("corridor")
     root.setLevel(logging.DEBUG)
     for old in [h for h in root.handlers if getattr(h, "_corridor_console", False)]:
@@ -96,7 +122,12 @@ def _console(args) -> None:
 
 
 def check(cfg) -> int:
-    """Validate layers and the limit set without computing; list every problem."""
+    """Validate layers and the limit set without computing; list every problem.
+
+    Prints a plain-text summary (usable features per layer, rejected
+    features) on standard output. Exit 2 when a problem is found, or when the
+    power line layer or an asset layer yields no usable feature.
+    """
     from corridor.errors import InputError
     from corridor.io.layers import read_inputs
 
@@ -107,24 +138,63 @@ def check(cfg) -> int:
     except InputError as exc:
         problems.extend(exc.problems)
     try:
-        from corridor.limits.limit_sets import load_limit_set
-        from corridor.steps import LIMITS_DIR
+        from corridor.steps import load_config_limit_set
 
-        load_limit_set(cfg.run["limit_set"], dict(cfg.limit_overrides) or None,
-                       search_dir=LIMITS_DIR)
+        load_config_limit_set(cfg)
     except CorridorError as exc:
         problems.extend(getattr(exc, "problems", [str(exc)]))
+    empty: list[str] = []
     if inputs is not None:
         for row in inputs.rejected.rows:
             log.warning("would reject layer %s feature %s field %s: %s", row["layer"],
                         row["feature_id"], row["field"], row["reason"])
-        log.info("%d features would be rejected", len(inputs.rejected.rows))
+        summary = _usable_summary(cfg, inputs)
+        print("corridor check: " + str(cfg.path))
+        for label, n_usable, n_rejected in summary:
+            print(f"  {label}: {n_usable} usable, {n_rejected} rejected")
+            if n_usable == 0 and (label.startswith("power lines") or label.startswith("assets")):
+                empty.append(label)
+        print(f"  rejected features in all: {len(inputs.rejected.rows)}")
+        for label in empty:
+            log.warning("%s: no usable feature; a run would screen nothing from it", label)
+        from corridor.pipeline import rejected_summary
+
+        lines = rejected_summary(cfg, inputs)["power_lines"]
+        if lines and not cfg.run.get("accept_rejected_lines", False):
+            log.warning("%d power line(s) would be rejected: a run would publish incomplete"
+                        " results and exit %d", len(lines), EXIT_LINE_REJECTED)
     if problems:
         for line in problems:
             print(f"corridor: error: {line}", file=sys.stderr)
         return EXIT_INPUT
-    log.info("config and layers are usable: %s", inputs.counts)
+    if empty:
+        return EXIT_INPUT
+    print("  config and layers are usable")
     return EXIT_OK
+
+
+def _usable_summary(cfg, inputs) -> list[tuple[str, int, int]]:
+    """(layer description, usable features, rejected features) per configured layer."""
+    rejected: dict[str, set] = {}
+    for row in inputs.rejected.rows:
+        rejected.setdefault(row["layer"], set()).add(row["feature_id"])
+
+    def n_rej(label: str) -> int:
+        return len(rejected.get(label, ()))
+
+    out = [(f"power lines ({cfg.power_lines.label})", len(inputs.lines),
+            n_rej(cfg.power_lines.label))]
+    has_source = "source_layer" in inputs.assets.columns
+    for src in cfg.assets:
+        n = (int((inputs.assets["source_layer"] == src.label).sum()) if has_source
+             else len(inputs.assets) if len(cfg.assets) == 1 else -1)
+        out.append((f"assets ({src.label})", n, n_rej(src.label)))
+    for role, name in (("soil", "soil"), ("grounds", "grounds"), ("towers", "towers")):
+        src, frame = getattr(cfg, role), getattr(inputs, role)
+        if src is not None:
+            out.append((f"{name} ({src.label})", 0 if frame is None else len(frame),
+                        n_rej(src.label)))
+    return out
 
 
 def list_steps(as_json: bool = False) -> int:
@@ -173,30 +243,107 @@ def run_one_step(args) -> int:
     return EXIT_OK
 
 
+def unlock(cfg, out: Path | None, force: bool) -> int:
+    """``corridor unlock CONFIG``: print the lock's holder, then remove the lock."""
+    from corridor.lock import break_lock
+
+    folder = Path(out or cfg.output_dir).resolve()
+    text, removed = break_lock(folder, force=force)
+    print(text)
+    if removed:
+        print(f"lock of {folder} removed")
+    return EXIT_OK
+
+
+def run_exit_code(run, fail_on_exceedance: bool) -> int:
+    """Exit code of a published run: 5 (a power line rejected) before 1 (exceedance)."""
+    rejected = int(run.counts.get("rejected_power_lines", 0) or 0)
+    if rejected:
+        if run.config.run.get("accept_rejected_lines", False):
+            log.warning("%d power line(s) rejected; accepted by run.accept_rejected_lines:"
+                        " the results are incomplete for them", rejected)
+        else:
+            log.warning("%d power line(s) rejected: the outputs are published but incomplete"
+                        " (exit %d; set run.accept_rejected_lines = true to accept this)",
+                        rejected, EXIT_LINE_REJECTED)
+            return EXIT_LINE_REJECTED
+    if int(run.counts.get("segments_exceeding", 0) or 0) and fail_on_exceedance:
+        return EXIT_EXCEEDANCE
+    return EXIT_OK
+
+
+def crash_log_path(out: Path | None) -> Path:
+    """Where an internal error's traceback goes: beside the output folder, else the temp folder.
+
+    Never the working folder or the file system root.
+    """
+    import os
+    import tempfile
+
+    if out is not None:
+        from corridor.runner import last_error_path
+
+        return last_error_path(out)
+    return Path(tempfile.gettempdir()) / f"corridor-crash-{os.getpid()}.log"
+
+
+def _write_crash_log(out: Path | None, text: str) -> Path | None:
+    first = crash_log_path(out)
+    fallback = crash_log_path(None)
+    for where in dict.fromkeys([first, fallback]):
+        try:
+            where.write_text(text, encoding="utf-8")
+            return where
+        except OSError:
+            continue
+    return None
+
+
+def _quiet_stdout() -> None:
+    """After a broken pipe: point stdout at the null device so the exit flush stays quiet."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, ValueError, AttributeError):
+        pass
+
+
+def _flushed(code: int) -> int:
+    """Flush stdout inside the command, so a closed pipe is met here, not at exit."""
+    sys.stdout.flush()
+    return code
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     _console(args)
     from corridor.config import load_config
+    from corridor.errors import storage_problem
     from corridor.lock import LockError
 
     out = None
     try:
         if args.command == "steps":
-            return list_steps(args.json)
+            return _flushed(list_steps(args.json))
         if args.command == "step":
             return run_one_step(args)
         cfg = load_config(args.config)
         if args.command == "check":
-            return check(cfg)
+            return _flushed(check(cfg))
+        if args.command == "unlock":
+            return _flushed(unlock(cfg, args.out, args.force))
         from corridor.runner import publish
         from corridor.steps import asset_stages, run_stages
 
         out = Path(args.out or cfg.output_dir).resolve()
         run = publish(cfg, out, asset_stages(), run_stages())
         log.info("outputs written to %s", out)
-        exceed = int(run.counts.get("segments_exceeding", 0))
-        if exceed and args.fail_on_exceedance:
-            return EXIT_EXCEEDANCE
+        return run_exit_code(run, args.fail_on_exceedance)
+    except BrokenPipeError:
+        _quiet_stdout()
         return EXIT_OK
     except LockError as exc:
         print(f"corridor: error: {exc}", file=sys.stderr)
@@ -212,13 +359,15 @@ def main(argv: list[str] | None = None) -> int:
         print("corridor: interrupted; previous outputs left in place", file=sys.stderr)
         return EXIT_INTERNAL
     except Exception as exc:  # the CLI boundary: anything else is an internal error
+        cause = storage_problem(exc)
+        if cause is not None:  # disk full, read-only, no permission: the user's to fix
+            print(f"corridor: error: the file system refused: {cause}", file=sys.stderr)
+            print("corridor: nothing was published; previous outputs left in place",
+                  file=sys.stderr)
+            return EXIT_INPUT
         where = getattr(exc, "corridor_log", None)
         if where is None:
-            where = Path.cwd() / "corridor-crash.log"
-            try:
-                where.write_text(traceback.format_exc(), encoding="utf-8")
-            except OSError:
-                where = None
+            where = _write_crash_log(out, traceback.format_exc())
         print(f"corridor: internal error ({type(exc).__name__}); previous outputs left in"
               f" place; traceback in {where}", file=sys.stderr)
         return EXIT_INTERNAL

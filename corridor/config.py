@@ -1,101 +1,32 @@
 """Run configuration: one TOML file per run, loaded once into frozen objects.
 
-Every setting is documented in :data:`RUN_SETTINGS` (type, unit, default,
-meaning); the README's configuration table is generated from the same words.
-All problems are collected and raised together as one :class:`ConfigError`
-naming the file and key.
+Every ``[run]`` setting is declared once in :class:`corridor.settings.RunSettings`
+(type, unit, default, range, meaning; :data:`RUN_SETTINGS` lists the specs); the
+README's configuration tables are generated from the same declarations. All
+problems are collected and raised together as one :class:`ConfigError` naming
+the file and key. A :class:`Config` is frozen and pickles as it is.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
+import stat
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
-from types import MappingProxyType
 from typing import Any
 
 from corridor.errors import ConfigError
-from corridor.schema import (
-    ASSET_KINDS,
-    GROUND_FIELDS,
-    KIND_DEFAULTS,
-    LINE_FIELDS,
-    SOIL_FIELDS,
-    FieldSpec,
-    asset_fields,
-)
+from corridor.registry import load_plugins, registry
+from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS
+from corridor.settings import RUN_SETTINGS, FrozenMap, RunSettings
 
-# name: (type, unit, default, meaning, (low, high) or None)
-RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] = {
-    "output_dir": (str, "path", "out", "Output folder, relative to the config file.", None),
-    "crs": (str, "-", "", "Metric projected CRS of the run (e.g. 'EPSG:32615'); empty: the"
-            " inputs' own projected CRS, or a UTM zone chosen from geographic data.", None),
-    "frequency_hz": (float, "Hz", 50.0, "System frequency.", (1.0, 1000.0)),
-    "screening_distance_m": (float, "m", 1000.0, "Distance within which a power line is"
-                             " considered to couple into an asset.", (1.0, 5000.0)),
-    "segment_length_m": (float, "m", 50.0, "Maximum length of an asset segment.", (1.0, 1000.0)),
-    "min_separation_m": (float, "m", 1.0, "Separation floor at crossings (no log of zero).",
-                         (0.01, 100.0)),
-    "parallel_angle_deg": (float, "deg", 10.0, "Largest angle between asset and line still"
-                           " classed parallel (common practice).", (0.0, 45.0)),
-    "oblique_ratio": (float, "-", 3.0, "Largest ratio of the separations at the two ends of an"
-                      " oblique section (ITU-T Directives practice).", (1.1, 10.0)),
-    "default_soil_resistivity_ohm_m": (float, "Ω·m", 100.0, "Soil resistivity where no soil"
-                                       " polygon covers a segment.", (0.1, 1e5)),
-    "limit_set": (str, "-", "iec_en", "Limit set: a name in config/limits/ or a path.", None),
-    "arrangements": (str, "path", "arrangements.toml", "Tower and conductor arrangements"
-                     " file, relative to the config file.", None),
-    "use_kind_defaults": (bool, "-", True, "Missing or invalid asset attributes take the"
-                          " kind's default (with a warning) instead of rejecting the feature.",
-                          None),
-    "tower_span_m": (float, "m", 300.0, "Assumed tower spacing when no tower layer is given.",
-                     (10.0, 2000.0)),
-    "tower_zone_m": (float, "m", 1000.0, "Largest distance from a faulted tower at which its"
-                     " earth potential is computed (the zone of influence ends sooner where"
-                     " the potential falls below tower_zone_threshold_v).", (1.0, 5000.0)),
-    "tower_zone_threshold_v": (float, "V", 50.0, "Earth potential at which a faulted tower's"
-                               " zone of influence ends, r = ρI/(2πV) (project default;"
-                               " docs/methods.md §4.5).", (0.1, 1e5)),
-    "tower_current_share": (float, "-", 0.0, "Share of the fault current discharged by the"
-                            " faulted tower's footing; 0: from the earth-wire ladder with the"
-                            " local soil and footing_radius_m (docs/methods.md §4.3).",
-                            (0.0, 1.0)),
-    "footing_radius_m": (float, "m", 1.0, "Equivalent hemispherical radius of a tower"
-                         " footing.", (0.05, 50.0)),
-    "grounding_menu_ohm": (list, "Ω", [10.0, 5.0, 2.0, 1.0], "Ground resistances the grounding"
-                           " design may choose, easiest first.", None),
-    "output_formats": (list, "-", ["gpkg"], "Output layer formats: 'gpkg' always, plus 'fgb'"
-                       " (FlatGeobuf) and/or 'parquet' (GeoParquet), one file per layer.", None),
-    "max_sites_per_asset": (int, "-", 6, "Largest number of grounding sites proposed on one"
-                            " asset.", (1, 100)),
-    "threads": (int, "-", 0, "Threads of the local backend: partitions of whole assets computed"
-                " side by side, rows identical to one thread; 0: up to 2 when the run has"
-                " 300,000 segments or more, else 1.", (0, 64)),
-    "cache_dir": (str, "path", "auto", "Cache of per-asset results for incremental reruns"
-                  " (GeoParquet + JSON index; safe to delete). 'auto': the folder"
-                  " '<output folder>.cache' beside the output folder; '': no cache; any other"
-                  " value: a folder relative to the config file.", None),
-    "change_threshold": (float, "-", 0.1, "Change of an asset's worst utilization since the"
-                         " previous run that changes.csv reports as moved.", (0.0, 100.0)),
-    "backend": (str, "-", "local", "Where the per-asset compute runs: 'local' (this process)"
-                " or 'dask' (a dask.distributed cluster, spatial partitions of whole assets;"
-                " needs the 'dask' extra).", None),
-    "scheduler_address": (str, "-", "", "Dask scheduler to use with backend 'dask' (e.g."
-                          " 'tcp://scheduler.example:8786'); '': start a LocalCluster on this"
-                          " machine for the run.", None),
-    "dask_workers": (int, "-", 2, "Workers of the LocalCluster started when"
-                     " scheduler_address is empty (one thread each).", (1, 256)),
-    "dask_processes": (bool, "-", True, "LocalCluster workers are processes (true) or threads"
-                       " of this process (false; GEOS and LAPACK release the GIL).", None),
-    "partitions": (int, "-", 0, "Spatial partitions of whole assets. Backend 'dask', 0:"
-                   " max(2, estimated segments / 500,000). Backend 'local', 0: one piece below"
-                   " 300,000 segments on one thread, else max(threads, estimated segments /"
-                   " 250,000), so that peak memory stays bounded.", (0, 100000)),
-    "work_dir": (str, "path", "", "Folder for the partition files of backend 'dask', relative"
-                 " to the config file; must be reachable by every worker. '': beside the"
-                 " output folder.", None),
-}
+__all__ = ["RUN_SETTINGS", "RunSettings", "Config", "LayerSource", "Arrangement", "Conductor",
+           "load_config", "load_arrangements", "read_toml"]
+
+#: The example tower arrangements shipped with corridor (package data).
+PACKAGED_ARRANGEMENTS = Path(__file__).resolve().parent / "data" / "arrangements.toml"
 
 LINE_DEFAULT_KEYS = {
     "load_current_a": 400.0,
@@ -104,6 +35,11 @@ LINE_DEFAULT_KEYS = {
     "fault_current_end_ka": 10.0,
     "clearing_time_s": 0.5,
     "high_reliability": False,
+    # two-terminal fault source model (docs/methods.md §8.1): common practice, from memory
+    "source_x_over_r_start": 10.0,
+    "source_x_over_r_end": 10.0,
+    "source_z0_over_z1_start": 1.0,
+    "source_z0_over_z1_end": 1.0,
 }
 
 LAYER_KEYS = {"path", "layer", "fields", "kind", "crs"}
@@ -123,21 +59,21 @@ class LayerSource:
         File path (any vector format GDAL reads).
     layer : str or None
         Layer name inside the file; None for single-layer formats.
-    fields : Mapping[str, str]
+    fields : FrozenMap[str, str]
         corridor field name -> user attribute name.
     kind : str or None
         Asset kind for every feature of an asset layer; None reads the kind
         from the ``asset_kind`` field.
-    crs : str or None
+    crs : str, int or None
         CRS to declare for a layer that carries none.
     """
 
     role: str
     path: Path
     layer: str | None
-    fields: MappingProxyType
+    fields: FrozenMap
     kind: str | None = None
-    crs: str | None = None
+    crs: str | int | None = None
 
     @property
     def label(self) -> str:
@@ -177,49 +113,134 @@ class Config:
     """A validated, immutable run configuration."""
 
     path: Path
-    run: MappingProxyType
-    line_defaults: MappingProxyType
-    kind_defaults: MappingProxyType  # kind -> MappingProxyType
+    run: RunSettings
+    line_defaults: FrozenMap
+    kind_defaults: FrozenMap  # kind -> FrozenMap
     power_lines: LayerSource
     assets: tuple[LayerSource, ...]
     soil: LayerSource | None
     grounds: LayerSource | None
     towers: LayerSource | None
-    arrangements: MappingProxyType  # name -> Arrangement
+    arrangements: FrozenMap  # name -> Arrangement
     arrangements_path: Path
-    limit_overrides: MappingProxyType
-    resolved: MappingProxyType = field(repr=False)
+    limit_overrides: FrozenMap
+    resolved: FrozenMap = field(repr=False)
 
     @property
     def output_dir(self) -> Path:
-        return (self.path.parent / self.run["output_dir"]).resolve()
+        return (self.path.parent / self.run.output_dir).resolve()
 
     def setting(self, name: str) -> Any:
-        return self.run[name]
+        """The run setting ``name`` (AttributeError if there is none)."""
+        return getattr(self.run, name)
+
+    def with_run(self, **changes: Any) -> Config:
+        """A copy with some run settings replaced, validated and recorded in ``resolved``.
+
+        Raises
+        ------
+        ConfigError
+            A name that is not a run setting, or an invalid value.
+        """
+        try:
+            run = self.run.replace(**changes)
+        except ValueError as exc:
+            raise ConfigError([f"{self.path.name}: {p}" for p in str(exc).split("; ")]) \
+                from None
+        resolved = dict(self.resolved)
+        resolved["run"] = run.as_dict()
+        return dataclasses.replace(self, run=run, resolved=FrozenMap(resolved))
 
 
-def _check_value(value, spec: FieldSpec) -> str | None:
-    """Return a problem description or None."""
-    if spec.dtype == "float":
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            return f"expected a number, got {value!r}"
-        if not math.isfinite(float(value)):
-            return f"expected a finite number, got {value!r}"
-    elif spec.dtype == "int":
-        if isinstance(value, bool) or not isinstance(value, int):
-            return f"expected an integer, got {value!r}"
-    elif spec.dtype == "bool":
-        if not isinstance(value, bool):
-            return f"expected true or false, got {value!r}"
-    elif spec.dtype == "str" and not isinstance(value, str):
-        return f"expected a string, got {value!r}"
-    if spec.low is not None and spec.dtype in ("float", "int") and value < spec.low:
-        return f"{value!r} is below the valid range [{spec.low}, {spec.high}]"
-    if spec.high is not None and spec.dtype in ("float", "int") and value > spec.high:
-        return f"{value!r} is above the valid range [{spec.low}, {spec.high}]"
-    if spec.choices is not None and value not in spec.choices:
-        return f"{value!r} is not one of {', '.join(spec.choices)}"
+def run_crs_problem(crs) -> str | None:
+    """Why ``crs`` (a :class:`pyproj.CRS`) cannot be the run's CRS, or None.
+
+    corridor computes lengths, separations and areas in metres, so the run CRS
+    must be projected with both axes in metres. A CRS in US survey feet
+    (EPSG:2272, say) would make every length 3.28 times too large.
+    """
+    if not crs.is_projected:
+        return "not a projected CRS (its coordinates are angles); choose a projected CRS in metres"
+    units = sorted({a.unit_name for a in crs.axis_info if a.unit_conversion_factor != 1.0
+                    or a.unit_name not in ("metre", "meter")})
+    if units or not crs.axis_info:
+        unit = ", ".join(units) or "unknown"
+        return (f"its axis unit is {unit}, not the metre; corridor computes in metres: choose"
+                " a projected CRS in metres (e.g. the UTM zone of the corridor); inputs in any"
+                " CRS are reprojected to it")
     return None
+
+
+def dataset_path_problem(path: Path) -> str | None:
+    """Why ``path`` cannot be an input dataset, or None.
+
+    A dataset is a regular file (GeoPackage, Shapefile, ...) or a folder (an
+    Esri File Geodatabase, a folder of Shapefiles). A FIFO, device or socket
+    is refused: opening one can block forever.
+    """
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        return f"file not found: {path}"
+    except (OSError, ValueError) as exc:
+        return f"cannot be read: {path}: {exc}"
+    if stat.S_ISREG(mode) or stat.S_ISDIR(mode):
+        return None
+    return (f"{path} is not a regular file or folder (a FIFO, device or socket?); corridor"
+            " reads only files and folders")
+
+
+def read_toml(path: Path, what: str, name: str | None = None) -> dict:
+    """Read a TOML file; every failure is a :class:`ConfigError` naming the file.
+
+    Parameters
+    ----------
+    path : Path
+        The file.
+    what : str
+        What the file is, for messages (``"config file"``).
+    name : str, optional
+        How messages name the file (default: the full path).
+    """
+    name = str(path) if name is None else name
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: {what} not found") from None
+    except (OSError, ValueError) as exc:
+        raise ConfigError(f"{path}: {what} cannot be read: {exc}") from None
+    if stat.S_ISDIR(mode):
+        raise ConfigError(f"{path}: is a folder, expected a TOML file")
+    if not stat.S_ISREG(mode):
+        raise ConfigError(f"{path}: {what} is not a regular file (a FIFO, device or socket?)")
+    try:
+        with open(path, "rb") as fh:
+            return tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{name}: not valid TOML: {exc}") from None
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{name}: not UTF-8 text ({exc}); TOML files are UTF-8: save it"
+                          " as UTF-8") from None
+    except RecursionError:
+        raise ConfigError(f"{name}: not valid TOML for corridor: arrays or tables nested too"
+                          " deeply") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: {what} cannot be read: {exc}") from None
+
+
+def _table(raw: dict, key: str, where: str, problems: list[str]) -> dict:
+    """``raw[key]`` when it is a table (or absent: an empty one); else a problem."""
+    value = raw.get(key, {})
+    if isinstance(value, dict):
+        return value
+    problems.append(f"{where}: expected a table, got {_short(value)}")
+    return {}
+
+
+def _short(value: Any, limit: int = 60) -> str:
+    """``repr(value)``, cut to ``limit`` characters for a message."""
+    text = repr(value)
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
@@ -232,15 +253,19 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
             allowed = ", ".join(sorted(LAYER_KEYS))
             problems.append(f"{where}.{key}: unknown key (allowed: {allowed})")
     path = raw.get("path")
-    if not isinstance(path, str):
+    if not isinstance(path, str) or not path:
         problems.append(f"{where}.path: required, a string")
         return None
+    if "\0" in path:
+        problems.append(f"{where}.path: contains a NUL byte: {path!r}")
+        return None
     full = (base / path).resolve()
-    if not full.exists():
-        problems.append(f"{where}.path: file not found: {full}")
+    problem = dataset_path_problem(full)
+    if problem:
+        problems.append(f"{where}.path: {problem}")
     layer = raw.get("layer")
-    if layer is not None and not isinstance(layer, str):
-        problems.append(f"{where}.layer: expected a string")
+    if layer is not None and (not isinstance(layer, str) or "\0" in layer):
+        problems.append(f"{where}.layer: expected a layer name (a string), got {layer!r}")
         layer = None
     fields = raw.get("fields", {})
     if not isinstance(fields, dict):
@@ -252,8 +277,10 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
         if not isinstance(value, str):
             problems.append(f"{where}.fields.{key}: expected the user's field name as a string")
     kind = raw.get("kind")
-    if kind is not None and kind not in ASSET_KINDS:
-        problems.append(f"{where}.kind: {kind!r} is not one of {', '.join(ASSET_KINDS)}")
+    kinds = registry.kind_names()
+    if kind is not None and (not isinstance(kind, str) or kind not in kinds):
+        problems.append(f"{where}.kind: {kind!r} is not one of {', '.join(kinds)}")
+        kind = None
     if kind is not None and role != "assets":
         problems.append(f"{where}.kind: only asset layers take a kind")
     crs = raw.get("crs")
@@ -261,10 +288,13 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
         try:
             from pyproj import CRS
 
+            if not isinstance(crs, str | int):
+                raise TypeError(crs)
             CRS.from_user_input(crs)
         except Exception:  # pyproj raises its own CRSError; any failure is the user's value
             problems.append(f"{where}.crs: {crs!r} is not a CRS pyproj understands")
-    return LayerSource(role, full, layer, MappingProxyType(dict(fields)), kind, crs)
+            crs = None
+    return LayerSource(role, full, layer, FrozenMap(fields), kind, crs)
 
 
 def _conductor(raw: dict, where: str, problems: list[str], circuit: int, phase: str,
@@ -279,13 +309,16 @@ def _conductor(raw: dict, where: str, problems: list[str], circuit: int, phase: 
         if value is None or isinstance(value, bool) or not isinstance(value, int | float):
             problems.append(f"{where}.{key}: expected a number")
             return math.nan
+        if not math.isfinite(value):
+            problems.append(f"{where}.{key}: expected a finite number, got {value!r}")
+            return math.nan
         return float(value)
 
     x = pick("x_m")
     h = pick("height_m")
     r = pick("radius_m")
-    gmr = pick("gmr_m", raw.get("radius_m", 0.0) * 0.7788 if isinstance(raw.get("radius_m"),
-               int | float) else None)
+    # a solid round conductor's GMR is r e^(-1/4) = 0.7788 r (textbook closed form)
+    gmr = pick("gmr_m") if "gmr_m" in raw else r * 0.7788
     res = pick("resistance_ohm_per_km")
     for name, value in (("height_m", h), ("radius_m", r), ("gmr_m", gmr),
                         ("resistance_ohm_per_km", res)):
@@ -308,18 +341,13 @@ def load_arrangements(path: Path) -> dict[str, Arrangement]:
     more ``[[arrangements.NAME.earth_wires]]``.
     """
     problems: list[str] = []
-    try:
-        with open(path, "rb") as fh:
-            raw = tomllib.load(fh)
-    except FileNotFoundError:
-        raise ConfigError(f"{path}: arrangements file not found") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    raw = read_toml(path, "arrangements file")
     out: dict[str, Arrangement] = {}
     for key in raw:
         if key != "arrangements":
             problems.append(f"{path.name}: {key}: unknown key (expected [arrangements.NAME])")
-    for name, entry in raw.get("arrangements", {}).items():
+    for name, entry in _table(raw, "arrangements", f"{path.name}: arrangements",
+                              problems).items():
         where = f"{path.name}: arrangements.{name}"
         if not isinstance(entry, dict):
             problems.append(f"{where}: expected a table")
@@ -329,10 +357,20 @@ def load_arrangements(path: Path) -> dict[str, Arrangement]:
                 problems.append(f"{where}.{key}: unknown key")
         conductors: list[Conductor] = []
         circuits = entry.get("circuits", [])
-        if not circuits:
+        if not isinstance(circuits, list):
+            problems.append(f"{where}.circuits: expected [[...circuits]] tables")
+            circuits = []
+        elif not circuits:
             problems.append(f"{where}.circuits: at least one circuit is required")
+        wires = entry.get("earth_wires", [])
+        if not isinstance(wires, list):
+            problems.append(f"{where}.earth_wires: expected [[...earth_wires]] tables")
+            wires = []
         for ci, circ in enumerate(circuits):
             cw = f"{where}.circuits[{ci}]"
+            if not isinstance(circ, dict):
+                problems.append(f"{cw}: expected a table")
+                continue
             for key in circ:
                 if key not in CIRCUIT_KEYS:
                     problems.append(f"{cw}.{key}: unknown key")
@@ -349,8 +387,11 @@ def load_arrangements(path: Path) -> dict[str, Arrangement]:
                 c = _conductor(circ, cw, problems, ci, phasing[j], j)
                 if c is not None:
                     conductors.append(c)
-        for wi, wire in enumerate(entry.get("earth_wires", [])):
+        for wi, wire in enumerate(wires):
             ww = f"{where}.earth_wires[{wi}]"
+            if not isinstance(wire, dict):
+                problems.append(f"{ww}: expected a table")
+                continue
             for key in wire:
                 if key not in EARTH_WIRE_KEYS:
                     problems.append(f"{ww}.{key}: unknown key")
@@ -376,21 +417,13 @@ def load_config(path: str | Path) -> Config:
     ConfigError
         Listing every problem, each naming the file and key.
     """
+    if "\0" in str(path):
+        raise ConfigError(f"{str(path)!r}: the config path contains a NUL byte")
     path = Path(path).resolve()
     name = path.name
-    try:
-        with open(path, "rb") as fh:
-            raw = tomllib.load(fh)
-    except FileNotFoundError:
-        raise ConfigError(f"{path}: config file not found") from None
-    except IsADirectoryError:
-        raise ConfigError(f"{path}: is a folder, expected a TOML file") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{name}: not valid TOML: {exc}") from None
+    raw = read_toml(path, "config file", name)
     problems: list[str] = []
     base = path.parent
-    from corridor.registry import load_plugins
-
     try:  # plugins (asset kinds, limit sets) load once, here; a failure names the plugin
         plugin_registry = load_plugins()
     except ConfigError as exc:
@@ -402,36 +435,16 @@ def load_config(path: str | Path) -> Config:
             problems.append(f"{name}: {key}: unknown section (allowed: {allowed})")
 
     run: dict[str, Any] = {}
-    raw_run = raw.get("run", {})
+    raw_run = _table(raw, "run", f"{name}: run", problems)
     for key in raw_run:
         if key not in RUN_SETTINGS:
             problems.append(f"{name}: run.{key}: unknown setting")
-    for key, (typ, unit, default, _doc, rng) in RUN_SETTINGS.items():
-        value = raw_run.get(key, default)
-        if typ is float and isinstance(value, int) and not isinstance(value, bool):
-            value = float(value)
-        if key == "output_formats":
-            ok = isinstance(value, list) and all(v in ("gpkg", "fgb", "parquet") for v in value)
-            if not ok:
-                problems.append(f"{name}: run.{key}: expected a list of 'gpkg', 'fgb',"
-                                f" 'parquet', got {value!r}")
-                continue
-            run[key] = list(value)
-            continue
-        if typ is list:
-            ok = isinstance(value, list) and value and all(
-                isinstance(v, int | float) and not isinstance(v, bool) and v > 0 for v in value)
-            if not ok:
-                problems.append(f"{name}: run.{key}: expected a list of positive numbers [{unit}]")
-                continue
-            value = [float(v) for v in value]
-        elif not isinstance(value, typ) or (typ is not bool and isinstance(value, bool)):
-            problems.append(f"{name}: run.{key}: expected {typ.__name__} [{unit}], got {value!r}")
-            continue
-        if rng is not None and not (rng[0] <= value <= rng[1]):
-            problems.append(f"{name}: run.{key}: {value} [{unit}] outside the valid range"
-                            f" {rng[0]}..{rng[1]}")
-        run[key] = value
+    for key, spec in RUN_SETTINGS.items():
+        value, problem = spec.validate(raw_run.get(key, spec.default))
+        if problem:
+            problems.append(f"{name}: run.{key}: {problem}")
+        else:
+            run[key] = value
     if plugin_registry is not None and "limit_set" in run:
         run["limit_set"] = plugin_registry.resolve_limit_set(run["limit_set"])
     if run.get("crs"):
@@ -439,53 +452,52 @@ def load_config(path: str | Path) -> Config:
             from pyproj import CRS
 
             crs = CRS.from_user_input(run["crs"])
-            if not crs.is_projected:
-                problems.append(f"{name}: run.crs: {run['crs']} is not a projected (metric) CRS")
         except Exception:  # pyproj's CRSError; any failure here is the user's value
             problems.append(f"{name}: run.crs: {run['crs']!r} is not a CRS pyproj understands")
+        else:
+            problem = run_crs_problem(crs)
+            if problem:
+                problems.append(f"{name}: run.crs: {run['crs']}: {problem}")
 
     line_defaults: dict[str, Any] = dict(LINE_DEFAULT_KEYS)
     specs = {s.name: s for s in LINE_FIELDS}
-    for key, value in raw.get("line_defaults", {}).items():
+    for key, value in _table(raw, "line_defaults", f"{name}: line_defaults", problems).items():
         if key not in LINE_DEFAULT_KEYS:
             problems.append(f"{name}: line_defaults.{key}: unknown key")
             continue
-        if specs[key].dtype == "float" and isinstance(value, int) and not isinstance(value, bool):
-            value = float(value)
-        err = _check_value(value, specs[key])
+        checked, err = specs[key].validate(value)
         if err:
             problems.append(f"{name}: line_defaults.{key}: {err}")
-        line_defaults[key] = value
+        line_defaults[key] = checked if err is None else value
 
-    kind_defaults: dict[str, MappingProxyType] = {}
-    raw_defaults = raw.get("defaults", {})
+    kind_defaults: dict[str, FrozenMap] = {}
+    raw_defaults = _table(raw, "defaults", f"{name}: defaults", problems)
+    kinds = registry.kind_names()
     for kind in raw_defaults:
-        if kind not in ASSET_KINDS:
+        if kind not in kinds:
             problems.append(f"{name}: defaults.{kind}: unknown asset kind"
-                            f" (allowed: {', '.join(ASSET_KINDS)})")
-    for kind in ASSET_KINDS:
-        merged = dict(KIND_DEFAULTS[kind])
-        kspecs = {s.name: s for s in asset_fields(kind)}
-        for key, value in raw_defaults.get(kind, {}).items():
+                            f" (allowed: {', '.join(kinds)})")
+    for kind in kinds:
+        merged = dict(registry.kind(kind).defaults)
+        kspecs = {s.name: s for s in registry.asset_fields(kind)}
+        for key, value in _table(raw_defaults, kind, f"{name}: defaults.{kind}",
+                                 problems).items():
             if key not in kspecs or key == "asset_id":
                 problems.append(f"{name}: defaults.{kind}.{key}: unknown field for a {kind}")
                 continue
-            is_int = isinstance(value, int) and not isinstance(value, bool)
-            if kspecs[key].dtype == "float" and is_int:
-                value = float(value)
-            err = _check_value(value, kspecs[key])
+            checked, err = kspecs[key].validate(value)
             if err:
                 problems.append(f"{name}: defaults.{kind}.{key}: {err}")
-            merged[key] = value
-        kind_defaults[kind] = MappingProxyType(merged)
+            merged[key] = checked if err is None else value
+        kind_defaults[kind] = FrozenMap(merged)
 
-    layers = raw.get("layers", {})
+    layers = _table(raw, "layers", f"{name}: layers", problems)
     for key in layers:
         if key not in LAYER_ROLES:
             problems.append(f"{name}: layers.{key}: unknown layer role"
                             f" (allowed: {', '.join(sorted(LAYER_ROLES))})")
     line_names = {s.name for s in LINE_FIELDS}
-    asset_names = {s.name for k in ASSET_KINDS for s in asset_fields(k)} | {"asset_kind"}
+    asset_names = {s.name for k in kinds for s in registry.asset_fields(k)} | {"asset_kind"}
     power_lines = None
     if "power_lines" not in layers:
         problems.append(f"{name}: layers.power_lines: required")
@@ -496,7 +508,11 @@ def load_config(path: str | Path) -> Config:
     raw_assets = layers.get("assets", [])
     if isinstance(raw_assets, dict):
         raw_assets = [raw_assets]
-    if not raw_assets:
+    if not isinstance(raw_assets, list):
+        problems.append(f"{name}: layers.assets: expected [[layers.assets]] tables, got"
+                        f" {_short(raw_assets)}")
+        raw_assets = []
+    elif not raw_assets:
         problems.append(f"{name}: layers.assets: at least one asset layer is required")
     for i, entry in enumerate(raw_assets):
         src = _layer(entry, "assets", f"{name}: layers.assets[{i}]", base, problems, asset_names)
@@ -511,6 +527,9 @@ def load_config(path: str | Path) -> Config:
 
     arrangements: dict[str, Arrangement] = {}
     arr_path = (base / run.get("arrangements", "arrangements.toml")).resolve()
+    if "arrangements" not in raw_run and not arr_path.is_file():
+        # no arrangements named and none beside the config: the shipped examples
+        arr_path = PACKAGED_ARRANGEMENTS
     try:
         arrangements = load_arrangements(arr_path)
     except ConfigError as exc:
@@ -523,8 +542,10 @@ def load_config(path: str | Path) -> Config:
 
     if problems:
         raise ConfigError(problems)
+    assert power_lines is not None  # a missing or bad power-line layer is a problem above
+    run_settings = RunSettings(**run)
     resolved = {
-        "run": run,
+        "run": run_settings.as_dict(),
         "line_defaults": line_defaults,
         "defaults": {k: dict(v) for k, v in kind_defaults.items()},
         "layers": {
@@ -537,18 +558,18 @@ def load_config(path: str | Path) -> Config:
     }
     return Config(
         path=path,
-        run=MappingProxyType(run),
-        line_defaults=MappingProxyType(line_defaults),
-        kind_defaults=MappingProxyType(kind_defaults),
+        run=run_settings,
+        line_defaults=FrozenMap(line_defaults),
+        kind_defaults=FrozenMap(kind_defaults),
         power_lines=power_lines,
         assets=tuple(assets),
         soil=optional["soil"],
         grounds=optional["grounds"],
         towers=optional["towers"],
-        arrangements=MappingProxyType(arrangements),
+        arrangements=FrozenMap(arrangements),
         arrangements_path=arr_path,
-        limit_overrides=MappingProxyType(limit_overrides),
-        resolved=MappingProxyType(resolved),
+        limit_overrides=FrozenMap(limit_overrides),
+        resolved=FrozenMap(resolved),
     )
 
 

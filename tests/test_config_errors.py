@@ -183,7 +183,7 @@ def test_several_problems_reported_together(scenario, cli, capsys):
 def test_config_is_valid_baseline(scenario):
     """The untouched scenario config loads: the errors above come from the one change."""
     cfg = load_config(scenario.write_config(scenario.build()))
-    assert cfg.run["screening_distance_m"] == 1000.0  # RUN_SETTINGS default
+    assert cfg.run.screening_distance_m == 1000.0  # RUN_SETTINGS default
     assert scenario.arrangement in cfg.arrangements
 
 
@@ -226,3 +226,187 @@ def test_help(cli, capsys):
     assert info.value.code == 0
     out = capsys.readouterr().out
     assert "run" in out and "check" in out
+
+
+# --- config shapes that crashed before (issue 12) ---------------------------------------------
+
+@pytest.mark.parametrize("case, words", [
+    ("assets_int", ("layers.assets", "expected [[layers.assets]]")),
+    ("run_not_table", ("run", "expected a table")),
+    ("layers_not_table", ("layers", "expected a table")),
+    ("line_defaults_not_table", ("line_defaults", "expected a table")),
+    ("kind_defaults_not_table", ("defaults.fence", "expected a table")),
+    ("fields_not_table", ("layers.power_lines.fields", "expected a table")),
+    ("kind_list", ("layers.assets[0].kind", "is not one of")),
+    ("crs_table", ("layers.power_lines.crs", "not a CRS")),
+    ("menu_inf", ("run.grounding_menu_ohm", "positive numbers")),
+    ("path_nul", ("layers.power_lines.path", "NUL byte")),
+    ("output_dir_nul", ("run.output_dir", "NUL byte")),
+    ("layer_nul", ("layers.assets[0].layer", "expected a layer name")),
+])
+def test_wrong_shapes_are_config_errors(scenario, cli, capsys, case, words):
+    """Wrong TOML types anywhere give a ConfigError naming the file and key (the config's
+    contract: corridor.config), never a TypeError or AttributeError."""
+    cfg = scenario.build()
+    if case == "assets_int":
+        cfg["layers"]["assets"] = 3
+    elif case == "run_not_table":
+        cfg["run"] = 3
+    elif case == "layers_not_table":
+        cfg["layers"] = "everything"
+    elif case == "line_defaults_not_table":
+        cfg["line_defaults"] = [1, 2]
+    elif case == "kind_defaults_not_table":
+        cfg["defaults"] = {"fence": 1}
+    elif case == "fields_not_table":
+        cfg["layers"]["power_lines"]["fields"] = "LINE_ID"
+    elif case == "kind_list":
+        cfg["layers"]["assets"][0]["kind"] = ["fence"]
+    elif case == "crs_table":
+        cfg["layers"]["power_lines"]["crs"] = {"epsg": 32633}
+    elif case == "menu_inf":
+        cfg["run"]["grounding_menu_ohm"] = [10.0, float("inf")]
+    elif case == "path_nul":
+        cfg["layers"]["power_lines"]["path"] = "power\x00lines.gpkg"
+    elif case == "output_dir_nul":
+        cfg["run"]["output_dir"] = "o\x00ut"
+    elif case == "layer_nul":
+        cfg["layers"]["assets"][0]["layer"] = "as\x00sets"
+    text = _toml_text_nul(cfg)
+    path = scenario.write_config(text)
+    _one_naming(_problems(path), "run.toml", *words)
+    capsys.readouterr()
+    out_cli = scenario.root / "out_cli"
+    assert cli(["run", str(path), "--out", str(out_cli)]) == EXIT_INPUT
+    assert not out_cli.exists()
+    assert words[0] in capsys.readouterr().err
+
+
+def _toml_text_nul(cfg: dict) -> str:
+    """TOML text of ``cfg``; a NUL in a string is written as the escape \\u0000 (TOML 1.0
+    basic strings allow it; a raw NUL byte is not valid TOML)."""
+    from tests.conftest import toml_text
+
+    return toml_text(cfg).replace("\x00", "\\u0000")
+
+
+def test_config_not_utf8(scenario, cli, capsys):
+    """TOML files are UTF-8 (TOML 1.0 spec): a Latin-1 byte is a ConfigError, not a crash."""
+    cfg = scenario.build()
+    path = scenario.write_config(cfg)
+    path.write_bytes(path.read_bytes() + "# Gr\u00fcnde\n".encode("latin-1"))
+    msg = _one_naming(_problems(path), "run.toml", "not UTF-8")
+    assert "save it as UTF-8" in msg
+    err = _run_exits_2_writes_nothing(cli, scenario, path, capsys)
+    assert "not UTF-8" in err
+
+
+def test_deeply_nested_toml(scenario, cli, capsys):
+    """An array nested 100,000 deep exceeds Python's recursion limit in tomllib; the
+    message says so instead of a RecursionError traceback."""
+    cfg = scenario.build()
+    path = scenario.write_config(cfg)
+    depth = 100_000
+    path.write_text(path.read_text(encoding="utf-8") + "\n[limits]\nx = " + "[" * depth
+                    + "]" * depth + "\n", encoding="utf-8")
+    _one_naming(_problems(path), "run.toml", "nested too deeply")
+    err = _run_exits_2_writes_nothing(cli, scenario, path, capsys)
+    assert "nested too deeply" in err
+
+
+@pytest.mark.parametrize("value", ["nan", "inf", "-inf"])
+def test_nan_or_inf_in_arrangements(scenario, cli, capsys, value):
+    """A conductor height of nan or inf (valid TOML 1.0 floats) is refused, naming the
+    arrangements file and key."""
+    cfg = scenario.build()
+    path = scenario.write_config(cfg)
+    arr = scenario.arrangements_path
+    text = arr.read_text(encoding="utf-8")
+    import re
+
+    new, n = re.subn(r"(?m)^(height_m\s*=\s*\[)\s*[-0-9.eE+]+", rf"\g<1>{value}", text, count=1)
+    assert n == 1, "the arrangements file has a height_m list"
+    arr.write_text(new, encoding="utf-8")
+    msg = _one_naming(_problems(path), "arrangements.toml", "height_m", "finite")
+    assert value in msg
+    err = _run_exits_2_writes_nothing(cli, scenario, path, capsys)
+    assert "height_m" in err
+
+
+@pytest.mark.parametrize("mutation", ["circuits_string", "circuit_number", "wires_table",
+                                      "arrangements_list"])
+def test_arrangement_shapes(scenario, mutation):
+    cfg = scenario.build()
+    path = scenario.write_config(cfg)
+    name = scenario.arrangement
+    texts = {
+        "circuits_string": f'[arrangements.{name}]\ncircuits = "ABC"\n',
+        "circuit_number": f"[arrangements.{name}]\ncircuits = [1, 2]\n",
+        "wires_table": (f'[arrangements.{name}]\nearth_wires = {{ x_m = 0 }}\n'
+                        f'[[arrangements.{name}.circuits]]\nx_m = [0, 1, 2]\n'
+                        "height_m = [20, 20, 20]\nradius_m = 0.01\n"
+                        "resistance_ohm_per_km = 0.1\n"),
+        "arrangements_list": "arrangements = [1]\n",
+    }
+    scenario.arrangements_path.write_text(texts[mutation], encoding="utf-8")
+    problems = _problems(path)
+    assert any("arrangements.toml" in p and "expected" in p for p in problems), problems
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="no FIFOs on this platform")
+@pytest.mark.parametrize("which", ["layer", "config", "arrangements"])
+def test_fifo_is_refused_not_opened(scenario, cli, capsys, which):
+    """Opening a FIFO for reading blocks until a writer comes (POSIX open(2)): a path that
+    is not a regular file or folder is refused before it is opened."""
+    cfg = scenario.build()
+    fifo = scenario.root / "pipe"
+    os.mkfifo(fifo)
+    if which == "layer":
+        cfg["layers"]["assets"][0]["path"] = "pipe"
+        path = scenario.write_config(cfg)
+        msg = _one_naming(_problems(path), "run.toml", "layers.assets[0].path")
+    elif which == "arrangements":
+        cfg["run"]["arrangements"] = "pipe"
+        path = scenario.write_config(cfg)
+        msg = _one_naming(_problems(path), "pipe", "not a regular file")
+    else:
+        path = fifo
+        msg = _one_naming(_problems(path), "pipe", "not a regular file")
+    assert "FIFO" in msg
+    capsys.readouterr()
+    assert cli(["run", str(path), "--out", str(scenario.root / "o")]) == EXIT_INPUT
+    assert cli(["check", str(path)]) == EXIT_INPUT
+    assert "not a regular file" in capsys.readouterr().err
+
+
+def test_nul_byte_in_config_path(cli, capsys):
+    with pytest.raises(ConfigError) as info:
+        load_config("run\x00.toml")
+    assert "NUL byte" in str(info.value)
+    assert cli(["check", "run\x00.toml"]) == EXIT_INPUT
+
+
+def test_run_crs_in_feet_refused(scenario, cli, capsys):
+    """EPSG:2272 (Pennsylvania South, US survey feet; its unit per PROJ) would make every
+    length 3.28 times too large (1 US survey foot = 1200/3937 m, NIST HB 44 App. C):
+    refused naming run.crs and the unit."""
+    import pyproj
+
+    crs = pyproj.CRS.from_user_input("EPSG:2272")
+    assert crs.is_projected and crs.axis_info[0].unit_name == "US survey foot"  # PROJ's view
+    cfg = scenario.build()
+    cfg["run"]["crs"] = "EPSG:2272"
+    path = scenario.write_config(cfg)
+    msg = _one_naming(_problems(path), "run.toml", "run.crs", "EPSG:2272")
+    assert "US survey foot" in msg and "metre" in msg
+    err = _run_exits_2_writes_nothing(cli, scenario, path, capsys)
+    assert "run.crs" in err and "US survey foot" in err
+
+
+def test_accept_rejected_lines_setting(scenario):
+    cfg = scenario.build()
+    assert load_config(scenario.write_config(cfg)).run.accept_rejected_lines is False
+    cfg["run"]["accept_rejected_lines"] = True
+    assert load_config(scenario.write_config(cfg)).run.accept_rejected_lines is True
+    cfg["run"]["accept_rejected_lines"] = "yes"
+    _one_naming(_problems(scenario.write_config(cfg)), "run.accept_rejected_lines", "bool")

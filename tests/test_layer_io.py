@@ -14,6 +14,7 @@ import logging
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pyogrio
 import pyproj
 import pytest
@@ -293,9 +294,16 @@ def test_empty_asset_layer_says_empty(scenario, driver):
 
 
 @pytest.mark.parametrize("use_defaults", [True, False])
-def test_out_of_range_attribute(scenario, use_defaults, caplog):
+def test_out_of_range_attribute_rejects_even_with_defaults(scenario, use_defaults, caplog):
+    """A present but invalid value is never replaced by a default (issue 12): the typo
+    rejects the feature; only a missing (NULL) value may take the kind default."""
     assets = _three_assets()
     assets.loc[1, "POST_OHM"] = -5.0  # F2: a resistance cannot be negative (schema low 0.1 Ω)
+    extra = assets.iloc[[0]].copy()
+    extra["AID"] = "F3"
+    extra["POST_OHM"] = np.nan  # F3: no value at all
+    extra.geometry = [LineString([(X0_M + 500, Y0_M + 300), (X0_M + 3500, Y0_M + 300)])]
+    assets = gpd.GeoDataFrame(pd.concat([assets, extra], ignore_index=True), crs=assets.crs)
     cfg = scenario.build(assets=assets)
     cfg["run"]["use_kind_defaults"] = use_defaults
     cfg["defaults"] = {"fence": {"post_resistance_ohm": 42.0}}  # a default told apart from 80
@@ -303,19 +311,23 @@ def test_out_of_range_attribute(scenario, use_defaults, caplog):
         inputs = _read(scenario, cfg)
     kept = inputs.assets.set_index("asset_id")
     assert float(kept.loc["F1", "post_resistance_ohm"]) == 80.0  # good value untouched
+    assert "F2" not in kept.index
+    f2 = [r for r in inputs.rejected.rows if r["feature_id"] == "F2"]
+    assert [(r["layer"], r["field"], r["role"]) for r in f2] == [
+        ("assets.gpkg:assets", "POST_OHM", "assets")]
+    assert "-5.0" in f2[0]["reason"] and "below" in f2[0]["reason"]
     if use_defaults:
-        assert float(kept.loc["F2", "post_resistance_ohm"]) == 42.0
-        assert inputs.rejected.rows == []
-        msgs = [w for w in inputs.warnings if "F2" in w]
+        assert float(kept.loc["F3", "post_resistance_ohm"]) == 42.0
+        assert inputs.defaults_used["post_resistance_ohm"] == ["F3"]
+        msgs = [w for w in inputs.warnings if "F3" in w]
         assert len(msgs) == 1 and "POST_OHM" in msgs[0] and "42.0" in msgs[0]
-        assert any("F2" in r.getMessage() and r.levelno == logging.WARNING
+        assert any("F3" in r.getMessage() and r.levelno == logging.WARNING
                    for r in caplog.records)
     else:
-        assert "F2" not in kept.index
-        (row,) = inputs.rejected.rows
-        assert (row["layer"], row["feature_id"], row["field"]) == (
-            "assets.gpkg:assets", "F2", "POST_OHM")
-        assert "-5.0" in row["reason"] and "below" in row["reason"]
+        assert "F3" not in kept.index
+        (f3,) = [r for r in inputs.rejected.rows if r["feature_id"] == "F3"]
+        assert (f3["field"], f3["reason"]) == ("POST_OHM", "missing")
+        assert "post_resistance_ohm" not in inputs.defaults_used
 
 
 # --- corrupt files ----------------------------------------------------------------------------

@@ -13,6 +13,7 @@ takes the lock.
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import signal
@@ -61,8 +62,17 @@ def make(root: Path, out: str = "out", cache: str | None = None, run: dict | Non
     return sc.write_config(cfg)
 
 
-def cli_run(cfg: Path, *args, env=None, wait=True, cwd=None):
+PAUSED_RUN = Path(__file__).resolve().parent / "helpers" / "paused_run.py"
+
+
+def cli_run(cfg: Path, *args, env=None, wait=True, cwd=None, pause=None):
+    """``corridor run cfg *args`` in a subprocess; ``pause=(point, marker, sleep_s)`` runs
+    it through tests/helpers/paused_run.py (a hook patched into a production function)."""
     cmd = [sys.executable, "-m", "corridor", "run", str(cfg), *args]
+    if pause is not None:
+        point, marker, sleep_s = pause
+        cmd = [sys.executable, str(PAUSED_RUN), point, str(marker), str(sleep_s), "--",
+               "run", str(cfg), *args]
     full_env = {**os.environ, "CORRIDOR_PROGRESS": "0", **(env or {})}
     p = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                          env=full_env, cwd=cwd or cfg.parent)
@@ -118,8 +128,7 @@ def test_kill_midway_leaves_previous_outputs(tmp_path):
     # deterministic kills at named points, then kills after fixed delays
     for point in ("compute", "write"):
         marker.unlink(missing_ok=True)
-        p = cli_run(cfg, env={"CORRIDOR_TEST_PAUSE_AT": point,
-                              "CORRIDOR_TEST_PAUSE_FILE": str(marker)}, wait=False)
+        p = cli_run(cfg, pause=(point, marker, 60), wait=False)
         wait_for(marker, p)
         p.send_signal(signal.SIGKILL)
         p.wait(timeout=30)
@@ -142,27 +151,76 @@ def test_kill_midway_leaves_previous_outputs(tmp_path):
         pyogrio.read_dataframe(out / "screening.gpkg", layer="segments")
     rc, _, err = cli_run(cfg)
     assert rc == 0, err
-    leftovers = [p.name for p in (tmp_path / "s").iterdir() if p.name.startswith(".out.")]
+    leftovers = [p.name for p in out.iterdir() if p.name.startswith(".corridor-staging")
+                 or p.name == ".corridor-journal.json"]
     assert leftovers == []
     assert not (tmp_path / "s" / "out.lock").exists()
 
 
-def test_recover_restores_interrupted_swap(tmp_path):
-    """A kill between 'out -> .old' and 'tmp -> out' leaves only .old: it is put back."""
+class _Killed(BaseException):
+    """Stands for a SIGKILL inside the publish (nothing after it runs)."""
+
+
+def test_recover_finishes_a_journal_and_removes_only_marked_staging(tmp_path, monkeypatch):
+    """A kill after the publish journal was written: the next run's recovery completes it.
+
+    The kill is simulated inside :func:`corridor.owned.commit` after the first
+    file moved. Staging folders carrying corridor's marker are removed; a
+    user's folder that merely looks like one (no marker, not empty) and the
+    old-style ``.out.tmp-N`` names beside the folder are left alone.
+    """
+    from corridor import owned
     from corridor.runner import recover
 
     out = tmp_path / "out"
     out.mkdir()
-    (out / "run.json").write_text("{}", encoding="utf-8")
-    before = hashes(out)
+    (out / "notes.txt").write_text("mine", encoding="utf-8")
+    first = owned.make_staging(out)
+    (first / "run.json").write_text('{"old": 1}', encoding="utf-8")
+    (first / "gone.csv").write_text("old only", encoding="utf-8")
+    owned.commit(out, first, {})
+    before = owned.owned_files(out)
+    assert before.keys() == {"gone.csv", "run.json"}
+    staging = owned.make_staging(out)
+    (staging / "run.json").write_text('{"new": 1}', encoding="utf-8")
+    (staging / "report.html").write_text("<html>new</html>", encoding="utf-8")
+
+    real_replace = os.replace
+
+    def kill_after_first_move(src, dst, *args, **kwargs):  # owned moves with os.replace
+        real_replace(src, dst, *args, **kwargs)
+        if Path(dst).name != owned.JOURNAL:
+            raise _Killed
+
+    monkeypatch.setattr(owned.os, "replace", kill_after_first_move)
+    with pytest.raises(_Killed):
+        owned.commit(out, staging, before)
+    assert (out / owned.JOURNAL).exists()
+    monkeypatch.undo()
+    # a dead run's marked staging folder, a user's look-alike folder, old-style names beside
     dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
                           capture_output=True, text=True, check=True)
-    pid = int(dead.stdout)
-    os.rename(out, tmp_path / f".out.old-{pid}")
-    (tmp_path / f".out.tmp-{pid}").mkdir()
+    other = out / f"{owned.STAGING_PREFIX}{int(dead.stdout)}"
+    other.mkdir()
+    (other / owned.STAGING_MARKER).write_text(json.dumps({"pid": int(dead.stdout)}),
+                                              encoding="utf-8")
+    (other / "screening.gpkg").write_bytes(b"partial")
+    lookalike = out / f"{owned.STAGING_PREFIX}999999"
+    lookalike.mkdir()
+    (lookalike / "keep.txt").write_text("user", encoding="utf-8")
+    (tmp_path / ".out.tmp-1").mkdir()
+    (tmp_path / ".out.tmp-1" / "doc.txt").write_text("user", encoding="utf-8")
     recover(out)
-    assert hashes(out) == before
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+    assert (out / "run.json").read_text(encoding="utf-8") == '{"new": 1}'
+    assert (out / "report.html").read_text(encoding="utf-8") == "<html>new</html>"
+    assert not (out / "gone.csv").exists()  # the old run's file the new run does not write
+    now = owned.owned_files(out)
+    assert now.keys() == {"report.html", "run.json"}
+    assert all(sha256_file(out / n) == r["sha256"] for n, r in now.items())
+    assert not (out / owned.JOURNAL).exists() and not staging.exists() and not other.exists()
+    assert (lookalike / "keep.txt").read_text(encoding="utf-8") == "user"
+    assert (out / "notes.txt").read_text(encoding="utf-8") == "mine"
+    assert (tmp_path / ".out.tmp-1" / "doc.txt").read_text(encoding="utf-8") == "user"
 
 
 @pytest.mark.slow
@@ -234,9 +292,7 @@ def test_change_report_names_line_attribute(tmp_path):
 def test_two_runs_one_wins_and_stale_lock_taken_over(tmp_path):
     cfg = make(tmp_path / "c")
     marker = tmp_path / "paused"
-    first = cli_run(cfg, env={"CORRIDOR_TEST_PAUSE_AT": "compute",
-                              "CORRIDOR_TEST_PAUSE_FILE": str(marker),
-                              "CORRIDOR_TEST_PAUSE_S": "2"}, wait=False)
+    first = cli_run(cfg, pause=("compute", marker, 2), wait=False)
     wait_for(marker, first)
     rc, _, err = cli_run(cfg)
     assert rc == 4
@@ -287,3 +343,90 @@ def test_failed_run_keeps_log_and_previous_outputs(tmp_path, cli, capsys):
     assert hashes(out) == before
     text = (tmp_path / "f" / "out.last-error.log").read_text(encoding="utf-8")
     assert "hedge" in text or "no usable asset" in text
+
+
+# -- lock: heartbeat, other hosts, empty files, unlock ------------------------------------
+
+def _foreign_lock(path: Path, age_s: float, host: str = "another-host") -> None:
+    path.write_text(json.dumps({"pid": 4242, "host": host,
+                                "started_utc": "2026-01-01T01:30:00+00:00"}), encoding="utf-8")
+    old = time.time() - age_s
+    os.utime(path, (old, old))
+
+
+def test_lock_of_another_host_is_taken_over_only_without_heartbeat(tmp_path):
+    """Another host's lock: refused while its heartbeat is fresh, stale after STALE_AFTER_S."""
+    from corridor.lock import STALE_AFTER_S, LockError, OutputLock
+
+    lock = tmp_path / "out.lock"
+    _foreign_lock(lock, age_s=5.0)
+    with pytest.raises(LockError, match="locked by PID 4242 on host another-host"):
+        OutputLock(tmp_path / "out").acquire()
+    _foreign_lock(lock, age_s=STALE_AFTER_S + 60.0)  # e.g. an OOM-killed container
+    with OutputLock(tmp_path / "out") as held:
+        assert json.loads(lock.read_text(encoding="utf-8"))["pid"] == os.getpid()
+        assert held.still_held()
+    assert not lock.exists()
+
+
+def test_heartbeat_refreshes_the_lock_file(tmp_path):
+    from corridor.lock import OutputLock
+
+    with OutputLock(tmp_path / "out", heartbeat_s=0.05) as held:
+        old = time.time() - 3600.0
+        os.utime(held.path, (old, old))
+        t0 = time.monotonic()
+        while held.path.stat().st_mtime < old + 60.0 and time.monotonic() - t0 < 30.0:
+            time.sleep(0.02)
+        assert held.path.stat().st_mtime > old + 60.0  # refreshed by the daemon thread
+
+
+def test_empty_lock_file_is_stale_after_a_few_seconds(tmp_path):
+    """The 0-bytes-free case: an empty lock file must not block later runs for good."""
+    from corridor.lock import UNREADABLE_STALE_S, LockError, OutputLock
+
+    lock = tmp_path / "out.lock"
+    lock.write_bytes(b"")
+    with pytest.raises(LockError, match="being written"):
+        OutputLock(tmp_path / "out").acquire()
+    old = time.time() - UNREADABLE_STALE_S - 1.0
+    os.utime(lock, (old, old))
+    with OutputLock(tmp_path / "out"):
+        pass
+    assert not lock.exists()
+
+
+def test_lock_write_failure_leaves_no_lock_file(tmp_path, monkeypatch):
+    import corridor.lock as lock_mod
+
+    def full(*a, **kw):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(lock_mod.json, "dump", full)
+    with pytest.raises(OSError, match="No space left"):
+        lock_mod.OutputLock(tmp_path / "out").acquire()
+    assert not (tmp_path / "out.lock").exists()
+
+
+def test_unlock_prints_the_holder_and_removes_the_lock(tmp_path, cli, capsys):
+    cfg = make(tmp_path / "c")
+    lock = tmp_path / "c" / "out.lock"
+    _foreign_lock(lock, age_s=30.0)
+    assert cli(["run", str(cfg), "-q"]) == 4
+    assert "corridor unlock" in capsys.readouterr().err
+    assert cli(["unlock", str(cfg)]) == 0
+    printed = capsys.readouterr().out
+    assert "PID 4242 on host another-host" in printed and "removed" in printed
+    assert not lock.exists()
+    assert cli(["unlock", str(cfg)]) == 0
+    assert "nothing to do" in capsys.readouterr().out
+    # a holder running on this host (this test's own process) needs --force
+    import socket
+
+    _foreign_lock(lock, age_s=1.0, host=socket.gethostname())
+    lock.write_text(json.dumps({"pid": os.getpid(), "host": socket.gethostname()}),
+                    encoding="utf-8")
+    assert cli(["unlock", str(cfg)]) == 4
+    assert lock.exists()
+    assert cli(["unlock", str(cfg), "--force"]) == 0
+    assert not lock.exists()

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import logging
 import warnings
+import warnings as warnings_module
 from dataclasses import dataclass, field
 
 import geopandas as gpd
@@ -21,37 +22,74 @@ from pyproj import CRS
 
 from corridor.config import Config, LayerSource
 from corridor.errors import InputError
-from corridor.schema import (
-    ASSET_KINDS,
-    GROUND_FIELDS,
-    LINE_FIELDS,
-    SOIL_FIELDS,
-    FieldSpec,
-    asset_fields,
-)
+from corridor.registry import registry
+from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS
+from corridor.settings import Spec
 
 log = logging.getLogger(__name__)
 
 LINEAR_TYPES = ("LineString", "MultiLineString")
 
 
+#: Roles of the rows of :class:`Rejected`: which kind of input a rejected feature was.
+REJECT_ROLES = ("power_lines", "assets", "soil", "grounds", "towers")
+#: Columns of :meth:`Rejected.frame` (and of ``rejected.csv``).
+REJECT_COLUMNS = ["layer", "feature_id", "field", "reason", "role"]
+
+
 @dataclass
 class Rejected:
-    """Features that could not be used, one row each."""
+    """Features that could not be used, one row each.
+
+    Each row is a dict with ``layer``, ``feature_id``, ``field``, ``reason``
+    and ``role`` (one of :data:`REJECT_ROLES`): a rejected power line leaves
+    the screen incomplete, a rejected asset leaves that asset unscreened.
+    """
 
     rows: list[dict] = field(default_factory=list)
 
-    def add(self, layer: str, feature_id, fld: str, reason: str) -> None:
+    def add(self, layer: str, feature_id, fld: str, reason: str, role: str = "assets") -> None:
+        """Record one rejected feature.
+
+        Parameters
+        ----------
+        layer : str
+            Layer label (``file:layer``).
+        feature_id : object
+            Id of the feature (stored as text).
+        fld : str
+            The user's field name at fault, or ``"geometry"``.
+        reason : str
+            Why the feature was rejected.
+        role : str
+            One of :data:`REJECT_ROLES`.
+        """
+        if role not in REJECT_ROLES:
+            raise ValueError(f"unknown role {role!r}; expected one of {', '.join(REJECT_ROLES)}")
         self.rows.append({"layer": layer, "feature_id": str(feature_id), "field": fld,
-                          "reason": reason})
+                          "reason": reason, "role": role})
+
+    def by_role(self, role: str) -> list[dict]:
+        """The rows of one role (see :data:`REJECT_ROLES`), in the order they were added."""
+        return [r for r in self.rows if r.get("role") == role]
 
     def frame(self) -> pd.DataFrame:
-        return pd.DataFrame(self.rows, columns=["layer", "feature_id", "field", "reason"])
+        """All rows as a table with the columns :data:`REJECT_COLUMNS`."""
+        frame = pd.DataFrame(self.rows, columns=REJECT_COLUMNS)
+        frame["role"] = frame["role"].fillna("")
+        return frame
 
 
 @dataclass
 class Inputs:
-    """All input layers, canonical, in the run CRS."""
+    """All input layers, canonical, in the run CRS.
+
+    ``defaults_used`` maps a canonical field name to the ids of the power
+    lines or assets whose *missing* value of that field was filled from
+    ``[line_defaults]`` or the asset kind's defaults (an absent column counts
+    as missing for every feature). Invalid values are never filled: they
+    reject the feature.
+    """
 
     crs: CRS
     lines: gpd.GeoDataFrame
@@ -62,19 +100,33 @@ class Inputs:
     rejected: Rejected
     counts: dict[str, int]
     warnings: list[str]
+    defaults_used: dict[str, list[str]] = field(default_factory=dict)
 
 
 def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
-    """Read one layer with pyogrio, turning GDAL failures into :class:`InputError`."""
+    """Read one layer with pyogrio, turning GDAL failures into :class:`InputError`.
+
+    ``src.path`` is a regular file (GeoPackage, Shapefile, GeoJSON, ...) or a
+    folder dataset: an Esri File Geodatabase (``.gdb``, GDAL's OpenFileGDB
+    driver) or a folder of Shapefiles. A dataset holding several layers needs
+    ``layer = ...``; anything else (FIFO, device, socket) is refused before
+    it is opened, since reading one can block forever.
+    """
+    what = "folder" if src.path.is_dir() else "file"
+    if not (src.path.is_file() or src.path.is_dir()):
+        raise InputError(f"layer {src.label}: {src.path} is not a regular file or folder"
+                         " (a FIFO, device or socket?); corridor reads only files and folders")
     if src.layer is None:
         try:
             names = [str(n) for n in pyogrio.list_layers(src.path)[:, 0]]
         except (pyogrio.errors.DataSourceError, OSError, RuntimeError) as exc:
-            raise InputError(f"layer {src.label}: file cannot be opened (corrupt, truncated,"
+            raise InputError(f"layer {src.label}: {what} cannot be opened (corrupt, truncated,"
                              f" locked or not a GIS format): {exc}") from None
         if len(names) > 1:
-            raise InputError(f"layer {src.label}: the file holds several layers"
+            raise InputError(f"layer {src.label}: the {what} holds several layers"
                              f" ({', '.join(names)}); name one with 'layer = ...'")
+        if not names:
+            raise InputError(f"layer {src.label}: the {what} holds no layer GDAL can read")
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
@@ -88,8 +140,8 @@ def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
             raise InputError(f"layer {src.label}: file is locked by another program (an"
                              " editing session holds it); close it there or save the edits,"
                              f" then rerun: {exc}") from None
-        raise InputError(f"layer {src.label}: file cannot be opened (corrupt, truncated, locked"
-                         f" or not a GIS format): {exc}") from None
+        raise InputError(f"layer {src.label}: {what} cannot be opened (corrupt, truncated,"
+                         f" locked or not a GIS format): {exc}") from None
     except UnicodeDecodeError as exc:
         raise InputError(f"layer {src.label}: attribute text is not valid UTF-8 ({exc});"
                          " re-save the layer as UTF-8") from None
@@ -122,20 +174,67 @@ def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
 def choose_crs(cfg: Config, layers: list[gpd.GeoDataFrame]) -> CRS:
     """Pick the run's metric CRS.
 
-    The config's ``run.crs`` wins. Otherwise the first layer's CRS if it is
-    projected; if the inputs are geographic, the UTM zone of the data's
-    centre from :meth:`geopandas.GeoDataFrame.estimate_utm_crs`.
+    The config's ``run.crs`` wins (:func:`corridor.config.load_config` has
+    checked that it is projected with metre axes). Otherwise the first
+    layer's CRS if it is projected in metres; else (geographic inputs, or a
+    projected CRS in feet) the UTM zone of the data's centre from
+    :meth:`geopandas.GeoDataFrame.estimate_utm_crs`.
     """
-    if cfg.run["crs"]:
-        return CRS.from_user_input(cfg.run["crs"])
+    if cfg.run.crs:
+        return CRS.from_user_input(cfg.run.crs)
     first = layers[0]
-    if first.crs.is_projected:
-        unit = first.crs.axis_info[0].unit_name if first.crs.axis_info else "metre"
-        if unit in ("metre", "meter"):
-            return first.crs
-    utm = first.estimate_utm_crs()
+    if first.crs.is_projected and _is_metre_crs(first.crs):
+        return first.crs
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            utm = first.estimate_utm_crs()
+    except Exception as exc:  # pyproj/geopandas fail on coordinates outside the Earth
+        raise InputError(f"layer {cfg.power_lines.label}: no UTM zone can be chosen from the"
+                         f" layer's extent ({exc}); check its coordinates and CRS, or set"
+                         " run.crs") from None
     log.info("inputs are not in a metric CRS; using %s chosen from the data", utm.to_string())
     return utm
+
+
+def _is_metre_crs(crs: CRS) -> bool:
+    """True when every axis of ``crs`` is in metres."""
+    axes = crs.axis_info
+    return bool(axes) and all(a.unit_name in ("metre", "meter") and a.unit_conversion_factor == 1.0
+                              for a in axes)
+
+
+#: Largest |x| or |y| [m] accepted in a run CRS without an area of use (common practice:
+#: 1e7 m is a quarter of the Earth's circumference; no corridor is larger).
+EXTENT_LIMIT_M = 1.0e7
+
+
+def run_extent(crs: CRS) -> tuple[float, float, float, float]:
+    """Extent (xmin, ymin, xmax, ymax) [m] that coordinates in the run CRS must lie in.
+
+    The CRS's area of use (:attr:`pyproj.CRS.area_of_use`, longitude and
+    latitude) transformed into the CRS, widened on each side by half its size
+    or 500 km, whichever is larger, so that data a little beyond a UTM zone's
+    band stays usable; without an area of use, |x|, |y| <= :data:`EXTENT_LIMIT_M`.
+    Either way capped at 10 times that limit.
+    """
+    from pyproj import Transformer
+
+    cap = 10.0 * EXTENT_LIMIT_M
+    box = (-EXTENT_LIMIT_M, -EXTENT_LIMIT_M, EXTENT_LIMIT_M, EXTENT_LIMIT_M)
+    aou = crs.area_of_use
+    if aou is not None:
+        try:
+            tr = Transformer.from_crs("EPSG:4326", crs, always_xy=True)
+            x0, y0, x1, y1 = tr.transform_bounds(aou.west, aou.south, aou.east, aou.north,
+                                                 densify_pts=21)
+            if all(np.isfinite((x0, y0, x1, y1))) and x1 > x0 and y1 > y0:
+                mx = max(0.5 * (x1 - x0), 500e3)
+                my = max(0.5 * (y1 - y0), 500e3)
+                box = (x0 - mx, y0 - my, x1 + mx, y1 + my)
+        except Exception as exc:  # pyproj's ProjError: keep the plain extent
+            log.debug("area of use of %s not transformed: %s", crs.to_string(), exc)
+    return (max(box[0], -cap), max(box[1], -cap), min(box[2], cap), min(box[3], cap))
 
 
 def _id_column(gdf: gpd.GeoDataFrame, src: LayerSource, canonical: str) -> str | None:
@@ -143,67 +242,136 @@ def _id_column(gdf: gpd.GeoDataFrame, src: LayerSource, canonical: str) -> str |
     return user if user in gdf.columns else None
 
 
+def id_text(values: pd.Series) -> pd.Series:
+    """Ids as stripped text (``pd.NA`` where missing).
+
+    Ids are strings everywhere: an integer id column gives ``"7"``, and so
+    does a float column holding whole numbers (how an integer column with
+    NULLs comes out of the reader), so that a ground item's ``asset_id`` 7
+    matches the asset 7 whatever the two layers' column types.
+    """
+    if values.dtype.kind == "f":
+        arr = values.to_numpy(dtype=float, na_value=np.nan)
+        finite = np.isfinite(arr)
+        whole = finite & (np.abs(arr) < 2.0**53)
+        whole[whole] = arr[whole] == np.round(arr[whole])
+        if finite.any() and (whole == finite).all():
+            text = [str(int(v)) if f else pd.NA for v, f in zip(arr, finite, strict=True)]
+            return pd.Series(text, index=values.index, dtype="string")
+    out = values.astype("string").str.strip()
+    return out.mask(out == "", pd.NA)
+
+
 def _feature_ids(gdf: gpd.GeoDataFrame, id_col: str | None) -> pd.Series:
+    """Feature ids as text; a feature without one is ``#<row>``, its row number in the
+    layer as read (0 first), also when ``gdf`` holds only some rows of it (one asset kind)."""
+    rows = (gdf.index.to_numpy() if pd.api.types.is_integer_dtype(gdf.index)
+            else np.arange(len(gdf)))
     if id_col is None:
-        return pd.Series([f"#{i}" for i in range(len(gdf))], index=gdf.index)
-    ids = gdf[id_col]
-    out = ids.astype("string").fillna("").str.strip()
-    missing = out == ""
-    out[missing] = [f"#{i}" for i in np.flatnonzero(missing.to_numpy())]
-    return out
+        return pd.Series([f"#{i}" for i in rows], index=gdf.index, dtype="string")
+    out = id_text(gdf[id_col])
+    missing = out.isna().to_numpy()
+    out = out.astype(object)
+    out[missing] = [f"#{i}" for i in rows[missing]]
+    return out.astype("string")
 
 
-def _coerce(series: pd.Series, spec: FieldSpec) -> tuple[pd.Series, np.ndarray, list[str]]:
-    """Coerce a column to its spec; return values, bad mask and reasons."""
+def _blank(series: pd.Series) -> np.ndarray:
+    """True where a raw value is missing: NULL, or text that is empty or only blanks."""
+    missing = series.isna().to_numpy(dtype=bool).copy()
+    if series.dtype.kind not in "biufcmM":
+        text = series.astype("string").str.strip()
+        missing |= (text == "").fillna(True).to_numpy(dtype=bool)
+    return missing
+
+
+def _coerce(series: pd.Series, spec: Spec
+            ) -> tuple[pd.Series, np.ndarray, np.ndarray, list[str]]:
+    """Coerce a column to its spec.
+
+    Returns
+    -------
+    values : Series
+        Coerced values (garbage where bad).
+    bad : ndarray of bool
+        Missing or invalid.
+    missing : ndarray of bool
+        Missing (NULL or blank text); a subset of ``bad``. Only these may
+        be filled from defaults.
+    reasons : list of str
+        Why each bad value is bad.
+    """
     n = len(series)
     reasons = [""] * n
+    missing = _blank(series)
+    for i in np.flatnonzero(missing):
+        reasons[i] = "missing"
     if spec.dtype in ("float", "int"):
-        values = pd.to_numeric(series, errors="coerce").astype("float64")
-        arr = values.to_numpy()
-        bad = ~np.isfinite(arr)
-        for i in np.flatnonzero(bad):
+        if series.dtype.kind == "b":
+            values = pd.Series(np.full(n, np.nan), index=series.index)
+        else:
+            values = pd.to_numeric(series.astype(object) if series.dtype.kind not in "iuf"
+                                   else series, errors="coerce").astype("float64")
+        arr = values.to_numpy(dtype=float, na_value=np.nan)
+        bad = ~np.isfinite(arr) | missing
+        for i in np.flatnonzero(bad & ~missing):
             raw = series.iloc[i]
-            reasons[i] = "missing" if pd.isna(raw) else f"not a number: {raw!r}"
+            reasons[i] = (f"not a finite number: {raw!r}" if isinstance(raw, int | float)
+                          else f"not a number: {raw!r}")
+        ok = ~bad
+        if spec.dtype == "int":
+            frac = ok & (arr != np.round(np.where(ok, arr, 0.0)))
+            for i in np.flatnonzero(frac):
+                reasons[i] = f"{arr[i]} is not a whole number"
+            bad |= frac
         if spec.low is not None:
-            low = np.isfinite(arr) & (arr < spec.low)
+            low = ~bad & (arr < spec.low)
             for i in np.flatnonzero(low):
                 reasons[i] = f"{arr[i]} below the valid range [{spec.low}, {spec.high}]"
             bad |= low
         if spec.high is not None:
-            high = np.isfinite(arr) & (arr > spec.high)
+            high = ~bad & (arr > spec.high)
             for i in np.flatnonzero(high):
                 reasons[i] = f"{arr[i]} above the valid range [{spec.low}, {spec.high}]"
             bad |= high
-        return values, bad, reasons
+        return values, bad, missing, reasons
     if spec.dtype == "bool":
         text = series.astype("string").str.strip().str.lower()
         truth = {"true": True, "1": True, "yes": True, "y": True, "t": True,
                  "false": False, "0": False, "no": False, "n": False, "f": False,
                  "1.0": True, "0.0": False}
         mapped = text.map(truth)
-        bad = mapped.isna().to_numpy()
-        for i in np.flatnonzero(bad):
-            raw = series.iloc[i]
-            reasons[i] = "missing" if pd.isna(raw) else f"not true/false: {raw!r}"
-        return mapped.astype("object"), bad, reasons
-    text = series.astype("string").str.strip()
-    bad = (text.isna() | (text == "")).to_numpy()
-    for i in np.flatnonzero(bad):
-        reasons[i] = "missing"
+        bad = mapped.isna().to_numpy() | missing
+        for i in np.flatnonzero(bad & ~missing):
+            reasons[i] = f"not true/false: {series.iloc[i]!r}"
+        return mapped.astype("object"), bad, missing, reasons
+    if series.dtype.kind == "f":
+        text = id_text(series)  # a whole-number code read as float: "3", not "3.0"
+    else:
+        text = series.astype("string").str.strip()
+    bad = missing.copy()
     if spec.choices is not None:
         lowered = text.str.lower()
-        wrong = ~bad & ~lowered.isin(spec.choices).to_numpy()
+        wrong = ~bad & ~lowered.isin(spec.choices).fillna(False).to_numpy()
         for i in np.flatnonzero(wrong):
             reasons[i] = f"{text.iloc[i]!r} is not one of {', '.join(spec.choices)}"
         bad = bad | wrong
         text = lowered
-    return text.astype("object"), bad, reasons
+    return text.astype("object"), bad, missing, reasons
 
 
 def _attributes(gdf, src, specs, defaults, ids, rejected, warnings, allow_defaults,
-                keep_mask) -> pd.DataFrame:
-    """Validate and coerce every field of ``specs``; update ``keep_mask`` in place."""
+                keep_mask, filled) -> pd.DataFrame:
+    """Validate and coerce every field of ``specs``; update ``keep_mask`` in place.
+
+    A present but invalid value (out of range, not a number, not one of the
+    choices) rejects the feature. A missing value (NULL or blank) takes the
+    default when ``allow_defaults`` and a default exists, else rejects the
+    feature. ``filled`` receives, per canonical field, the mask of features
+    whose value came from a default (every feature when the column is absent).
+    """
     out = {}
+    role = src.role
     for spec in specs:
         user = src.fields.get(spec.name, spec.name)
         default = defaults.get(spec.name, spec.default)
@@ -216,32 +384,34 @@ def _attributes(gdf, src, specs, defaults, ids, rejected, warnings, allow_defaul
                 raise InputError(f"layer {src.label}: field '{user}' (corridor field"
                                  f" '{spec.name}') is missing and has no default")
             out[spec.name] = pd.Series([default] * len(gdf), index=gdf.index, dtype="object")
+            filled[spec.name] = np.ones(len(gdf), bool)
             log.debug("layer %s: field '%s' absent; default %r used for all features",
                       src.label, user, default)
             continue
-        values, bad, reasons = _coerce(gdf[user], spec)
-        if bad.any():
-            bad_idx = np.flatnonzero(bad & keep_mask)
-            if default is not None and allow_defaults:
-                values = values.astype("object")
-                values.iloc[bad_idx] = default
-                for i in bad_idx:
-                    msg = (f"layer {src.label}: feature {ids.iloc[i]}: field '{user}':"
-                           f" {reasons[i]}; default {default!r} used")
-                    warnings.append(msg)
-                    log.warning(msg)
-            else:
-                for i in bad_idx:
-                    rejected.add(src.label, ids.iloc[i], user, reasons[i])
-                keep_mask &= ~bad
+        values, bad, missing, reasons = _coerce(gdf[user], spec)
+        fill = missing & keep_mask if (default is not None and allow_defaults) else \
+            np.zeros(len(gdf), bool)
+        reject = bad & ~fill & keep_mask
+        for i in np.flatnonzero(reject):
+            rejected.add(src.label, ids.iloc[i], user, reasons[i], role)
+        keep_mask &= ~reject
+        if fill.any():
+            values = values.astype("object")
+            values.iloc[np.flatnonzero(fill)] = default
+            filled[spec.name] = fill
+            fids = [str(ids.iloc[i]) for i in np.flatnonzero(fill)]
+            msg = (f"layer {src.label}: field '{user}': no value on {len(fids)} feature(s)"
+                   f" ({', '.join(fids[:10])}{' ...' if len(fids) > 10 else ''});"
+                   f" default {default!r} used")
+            warnings.append(msg)
+            log.warning(msg)
         out[spec.name] = values
-    frame = pd.DataFrame(out, index=gdf.index)
-    return frame
+    return pd.DataFrame(out, index=gdf.index)
 
 
 def _clean_geometry(gdf, src, ids, rejected, warnings, keep_mask, types) -> np.ndarray:
     """Drop Z/M, repair what is safe, reject the rest. Returns the geometry array."""
-    geoms = gdf.geometry.to_numpy()
+    geoms = gdf.geometry.to_numpy().copy()
     has_z = shapely.has_z(geoms)
     if has_z.any():
         log.info("layer %s: Z/M coordinates dropped on %d features", src.label, int(has_z.sum()))
@@ -296,26 +466,68 @@ def _clean_geometry(gdf, src, ids, rejected, warnings, keep_mask, types) -> np.n
             else:
                 reason = "invalid polygon that cannot be repaired"
         if reason is not None:
-            rejected.add(src.label, ids.iloc[i], "geometry", reason)
+            rejected.add(src.label, ids.iloc[i], "geometry", reason, src.role)
             keep_mask[i] = False
     return geoms
 
 
-def _read_layer(src: LayerSource, specs: tuple[FieldSpec, ...], defaults: dict, id_field: str,
+def _within_extent(out: gpd.GeoDataFrame, src: LayerSource, crs: CRS,
+                   rejected: Rejected) -> gpd.GeoDataFrame:
+    """Reject features (already in the run CRS) with a coordinate outside :func:`run_extent`.
+
+    Coordinates far outside the CRS's area of use (1e9 m, or a layer whose
+    declared CRS is wrong) would make segment counts explode; non-finite ones
+    come from a reprojection that failed.
+    """
+    if len(out) == 0:
+        return out
+    x0, y0, x1, y1 = run_extent(crs)
+    pts, idx = shapely.get_coordinates(out.geometry.to_numpy(), return_index=True)
+    finite = np.isfinite(pts).all(axis=1)
+    inside = finite.copy()
+    inside[finite] = ((pts[finite, 0] >= x0) & (pts[finite, 0] <= x1)
+                      & (pts[finite, 1] >= y0) & (pts[finite, 1] <= y1))
+    bad_rows = np.unique(idx[~inside])
+    if len(bad_rows) == 0:
+        return out
+    nonfinite = set(np.unique(idx[~finite]).tolist())
+    name = crs.to_string()
+    for j in bad_rows:
+        fid = out["feature_id"].iloc[j]
+        if j in nonfinite:
+            reason = (f"geometry cannot be reprojected to {name} (non-finite coordinates);"
+                      " check the layer's CRS")
+        else:
+            reason = (f"geometry has coordinates outside the area of use of {name} (x"
+                      f" {x0:.0f}..{x1:.0f} m, y {y0:.0f}..{y1:.0f} m); check the"
+                      " coordinates and the layer's CRS")
+        rejected.add(src.label, fid, "geometry", reason, src.role)
+    keep = np.ones(len(out), bool)
+    keep[bad_rows] = False
+    return out[keep]
+
+
+def _read_layer(src: LayerSource, specs: tuple[Spec, ...], defaults: dict, id_field: str,
                 types: tuple[str, ...], crs: CRS, rejected: Rejected, warnings: list[str],
                 allow_defaults: bool, gdf: gpd.GeoDataFrame | None = None,
-                label_field: str | None = None) -> gpd.GeoDataFrame:
+                label_field: str | None = None,
+                defaults_used: dict[str, list[str]] | None = None) -> gpd.GeoDataFrame:
     gdf = read_raw(src) if gdf is None else gdf
     if len(gdf) == 0:
         raise InputError(f"layer {src.label}: is empty")
     if src.role == "grounds":
-        # a series break needs no resistance to earth
+        # a series break needs no resistance to earth: whatever its column holds (NULL,
+        # text, a number) is replaced by a placeholder that passes validation
         item_col = src.fields.get("item", "item")
         r_col = src.fields.get("resistance_ohm", "resistance_ohm")
         if item_col in gdf.columns and r_col in gdf.columns:
-            gdf = gdf.copy()
-            brk = gdf[item_col].astype("string").str.strip().str.lower() != "ground"
-            gdf.loc[brk.fillna(False).to_numpy(), r_col] = 1.0
+            brk = (gdf[item_col].astype("string").str.strip().str.lower() != "ground")
+            brk = brk.fillna(False).to_numpy(dtype=bool)
+            if brk.any():
+                gdf = gdf.copy()
+                col = gdf[r_col].astype(object)
+                col.iloc[np.flatnonzero(brk)] = 1.0
+                gdf[r_col] = col
     id_col = _id_column(gdf, src, id_field) if id_field else None
     if label_field is not None:
         id_col = _id_column(gdf, src, label_field) or id_col
@@ -324,33 +536,84 @@ def _read_layer(src: LayerSource, specs: tuple[FieldSpec, ...], defaults: dict, 
     if id_field and _id_column(gdf, src, id_field) is None:
         raise InputError(f"layer {src.label}: id field '{src.fields.get(id_field, id_field)}'"
                          f" (corridor field '{id_field}') is missing")
-    if id_col is not None and src.role in ("power_lines", "assets"):
-        raw_ids = gdf[id_col].astype("string").str.strip()
-        for i in np.flatnonzero((raw_ids.isna() | (raw_ids == "")).to_numpy()):
-            rejected.add(src.label, ids.iloc[i], id_col, "missing id")
+    if id_field:
+        key_col = _id_column(gdf, src, id_field)
+        raw_ids = id_text(gdf[key_col])
+        what = {"grounds": "asset id", "towers": "line id"}.get(src.role, "id")
+        for i in np.flatnonzero(raw_ids.isna().to_numpy()):
+            rejected.add(src.label, ids.iloc[i], key_col, f"missing {what}", src.role)
             keep[i] = False
-        dup = raw_ids[keep].duplicated(keep=False)
-        if dup.any():
-            names = sorted(set(raw_ids[keep][dup].tolist()))
-            raise InputError(f"layer {src.label}: duplicate ids in field '{id_col}':"
-                             f" {', '.join(names[:10])}{' ...' if len(names) > 10 else ''}")
+        if src.role in ("power_lines", "assets"):
+            dup = raw_ids[keep].duplicated(keep=False)
+            if dup.any():
+                names = sorted(set(raw_ids[keep][dup].tolist()))
+                raise InputError(f"layer {src.label}: duplicate ids in field '{key_col}':"
+                                 f" {', '.join(names[:10])}{' ...' if len(names) > 10 else ''}")
+    filled: dict[str, np.ndarray] = {}
     attrs = _attributes(gdf, src, [s for s in specs if s.name != id_field], defaults, ids,
-                        rejected, warnings, allow_defaults, keep)
+                        rejected, warnings, allow_defaults, keep, filled)
     geoms = _clean_geometry(gdf, src, ids, rejected, warnings, keep, types)
     attrs.insert(0, "feature_id", ids.to_numpy())
     if id_field:
         key = _feature_ids(gdf, _id_column(gdf, src, id_field))
-        attrs.insert(0, id_field, key.to_numpy())
+        attrs.insert(0, id_field, key.to_numpy(dtype=object))
     out = gpd.GeoDataFrame(attrs, geometry=gpd.GeoSeries(geoms, index=gdf.index, crs=gdf.crs))
     out = out[keep]
     if not out.crs.equals(crs):
-        out = out.to_crs(crs)
-        bad = ~np.isfinite(shapely.get_coordinates(out.geometry.to_numpy())).all(axis=1)
-        if bad.any():
-            raise InputError(f"layer {src.label}: reprojection to {crs.to_string()} produced"
-                             " non-finite coordinates; check the layer's CRS")
+        with warnings_module.catch_warnings():
+            warnings_module.simplefilter("ignore", RuntimeWarning)  # inf from far coordinates
+            out = out.to_crs(crs)
+    out = _within_extent(out, src, crs, rejected)
+    if defaults_used is not None and id_field:
+        kept = set(out[id_field])
+        for name, mask in filled.items():
+            fids = [str(v) for v, m in zip(key, mask, strict=True) if m and v in kept]
+            if fids:
+                defaults_used.setdefault(name, []).extend(fids)
     out["source_layer"] = src.label
     return out.reset_index(drop=True)
+
+
+def _reject_orphans(frame: gpd.GeoDataFrame | None, src: LayerSource | None, ref: str,
+                    known: set, rejected_ids: set, what: str, rejected: Rejected):
+    """Reject ground items or towers naming an unknown or rejected asset or line."""
+    if frame is None or src is None or len(frame) == 0:
+        return frame
+    bad = ~frame[ref].isin(known).to_numpy()
+    user = src.fields.get(ref, ref)
+    for fid, value in zip(frame["feature_id"][bad], frame[ref][bad], strict=True):
+        if value in rejected_ids:
+            reason = f"{what} {value!r} was rejected (see its own row)"
+        else:
+            reason = f"{what} {value!r} is not in any {what} layer"
+        rejected.add(src.label, fid, user, reason, src.role)
+    return frame[~bad].reset_index(drop=True)
+
+
+#: Rejected assets (and other features) named one by one in the log; the rest are counted.
+REJECTED_SHOWN = 20
+
+
+def log_rejected(rejected: Rejected) -> None:
+    """WARNING lines for rejected features: every power line, then a bounded list of the rest.
+
+    A rejected power line leaves the voltages it induces unassessed, so each one is
+    named; assets and other features are named up to :data:`REJECTED_SHOWN` per role
+    and then counted (every one is in rejected.csv).
+    """
+    for row in rejected.by_role("power_lines"):
+        log.warning("power line %s rejected (layer %s, field '%s'): %s; the voltages it"
+                    " induces are NOT assessed and the results are incomplete",
+                    row["feature_id"], row["layer"], row["field"], row["reason"])
+    for role, what in (("assets", "asset"), ("soil", "soil polygon"),
+                       ("grounds", "ground item"), ("towers", "tower")):
+        rows = rejected.by_role(role)
+        for row in rows[:REJECTED_SHOWN]:
+            log.warning("%s %s rejected (layer %s, field '%s'): %s", what, row["feature_id"],
+                        row["layer"], row["field"], row["reason"])
+        if len(rows) > REJECTED_SHOWN:
+            log.warning("... and %d more rejected %ss (every one is in rejected.csv)",
+                        len(rows) - REJECTED_SHOWN, what)
 
 
 def read_inputs(cfg: Config) -> Inputs:
@@ -365,7 +628,8 @@ def read_inputs(cfg: Config) -> Inputs:
     rejected = Rejected()
     warnings: list[str] = []
     problems: list[str] = []
-    allow = bool(cfg.run["use_kind_defaults"])
+    defaults_used: dict[str, list[str]] = {}
+    allow = cfg.run.use_kind_defaults
     raws: dict[int, gpd.GeoDataFrame] = {}
     sources = [cfg.power_lines, *cfg.assets]
     for i, src in enumerate(sources):
@@ -381,7 +645,8 @@ def read_inputs(cfg: Config) -> Inputs:
     crs = choose_crs(cfg, list(raws.values()))
     try:
         lines = _read_layer(cfg.power_lines, LINE_FIELDS, dict(cfg.line_defaults), "line_id",
-                            LINEAR_TYPES, crs, rejected, warnings, True, gdf=raws[0])
+                            LINEAR_TYPES, crs, rejected, warnings, True, gdf=raws[0],
+                            defaults_used=defaults_used)
     except InputError as exc:
         problems.extend(exc.problems)
         lines = None
@@ -392,7 +657,7 @@ def read_inputs(cfg: Config) -> Inputs:
             for fid in lines.loc[bad, "line_id"]:
                 rejected.add(cfg.power_lines.label, fid, cfg.power_lines.fields.get(
                     "arrangement", "arrangement"), f"arrangement {name!r} is not defined in"
-                    f" {cfg.arrangements_path.name}")
+                    f" {cfg.arrangements_path.name}", "power_lines")
             lines = lines[~bad]
         if unknown:
             problems.append(f"layer {cfg.power_lines.label}: arrangements referred to but not"
@@ -401,7 +666,8 @@ def read_inputs(cfg: Config) -> Inputs:
     asset_frames = []
     for i, src in enumerate(cfg.assets, start=1):
         try:
-            asset_frames.append(_read_assets(src, cfg, crs, rejected, warnings, allow, raws[i]))
+            asset_frames.append(_read_assets(src, cfg, crs, rejected, warnings, allow, raws[i],
+                                             defaults_used))
         except InputError as exc:
             problems.extend(exc.problems)
     optional = {}
@@ -428,16 +694,28 @@ def read_inputs(cfg: Config) -> Inputs:
         raise InputError("asset layers: duplicate asset ids across layers: "
                          + ", ".join(names[:10]))
     assets = gpd.GeoDataFrame(assets, geometry="geometry", crs=crs)
+    optional["grounds"] = _reject_orphans(
+        optional["grounds"], cfg.grounds, "asset_id", set(assets["asset_id"]),
+        {r["feature_id"] for r in rejected.by_role("assets")}, "asset", rejected)
+    optional["towers"] = _reject_orphans(
+        optional["towers"], cfg.towers, "line_id", set(lines["line_id"]),
+        {r["feature_id"] for r in rejected.by_role("power_lines")}, "line", rejected)
+    kept = set(lines["line_id"]) | set(assets["asset_id"])
+    defaults_used = {name: [i for i in dict.fromkeys(ids) if i in kept]
+                     for name, ids in defaults_used.items()}
+    defaults_used = {name: ids for name, ids in defaults_used.items() if ids}
     counts = {"power_lines": len(lines), "assets": len(assets),
               "rejected": len(rejected.rows)}
     for role, frame in optional.items():
         if frame is not None:
             counts[role] = len(frame)
+    log_rejected(rejected)
     return Inputs(crs, lines, assets, optional["soil"], optional["grounds"], optional["towers"],
-                  rejected, counts, warnings)
+                  rejected, counts, warnings, defaults_used)
 
 
-def _read_assets(src, cfg, crs, rejected, warnings, allow, raw) -> gpd.GeoDataFrame:
+def _read_assets(src, cfg, crs, rejected, warnings, allow, raw,
+                 defaults_used=None) -> gpd.GeoDataFrame:
     if len(raw) == 0:
         raise InputError(f"layer {src.label}: is empty")
     if src.kind is not None:
@@ -449,20 +727,24 @@ def _read_assets(src, cfg, crs, rejected, warnings, allow, raw) -> gpd.GeoDataFr
                              f" field '{col}' giving the asset kind")
         kinds = raw[col].astype("string").str.strip().str.lower()
     frames = []
-    bad_kind = ~kinds.isin(ASSET_KINDS)
+    kind_names = registry.kind_names()
+    bad_kind = ~kinds.isin(list(kind_names)).fillna(False)
     if bad_kind.any():
         id_col = _id_column(raw, src, "asset_id")
         ids = _feature_ids(raw, id_col)
         for i in np.flatnonzero(bad_kind.to_numpy()):
+            kind = kinds.iloc[i]
+            what = "missing asset kind" if pd.isna(kind) or kind == "" else \
+                f"unknown asset kind {kind!r}"
             rejected.add(src.label, ids.iloc[i], src.fields.get("asset_kind", "asset_kind"),
-                         f"unknown asset kind {kinds.iloc[i]!r}"
-                         f" (allowed: {', '.join(ASSET_KINDS)})")
-    for kind in ASSET_KINDS:
-        part = raw[(kinds == kind).to_numpy()]
+                         f"{what} (allowed: {', '.join(kind_names)})", "assets")
+    for kind in kind_names:
+        part = raw[(kinds == kind).fillna(False).to_numpy(dtype=bool)]
         if len(part) == 0:
             continue
-        frame = _read_layer(src, asset_fields(kind), dict(cfg.kind_defaults[kind]), "asset_id",
-                            LINEAR_TYPES, crs, rejected, warnings, allow, gdf=part)
+        frame = _read_layer(src, registry.asset_fields(kind), dict(cfg.kind_defaults[kind]),
+                            "asset_id", LINEAR_TYPES, crs, rejected, warnings, allow, gdf=part,
+                            defaults_used=defaults_used)
         frame.insert(1, "asset_kind", kind)
         frames.append(frame)
     if not frames:

@@ -30,7 +30,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from corridor.kinds import DEFAULT_RADIUS_M
 from corridor.physics import capacitive, induction
+from corridor.registry import registry
 from corridor.steps import faultscan
 
 log = logging.getLogger(__name__)
@@ -111,7 +113,7 @@ def couple(cfg, inputs, geo) -> Coupling:
     inputs : corridor.io.layers.Inputs
     geo : corridor.pipeline.Geometry
     """
-    f = cfg.run["frequency_hz"]
+    f = cfg.run.frequency_hz
     seg = geo.segments
     n_seg = len(seg)
     pairs = geo.pairs
@@ -256,18 +258,19 @@ def couple(cfg, inputs, geo) -> Coupling:
 
 
 def _asset_radius(assets) -> np.ndarray:
-    """Equivalent radius of each asset for the electric-field coupling [m]."""
+    """Equivalent radius of each asset for the electric-field coupling [m].
+
+    From the attribute its kind declares (:attr:`corridor.kinds.AssetKind.radius`);
+    :data:`corridor.kinds.DEFAULT_RADIUS_M` for a kind that declares none.
+    """
     kind = assets["asset_kind"].to_numpy(dtype=object)
-    out = np.full(len(assets), 0.01)
-    if "wire_radius_m" in assets:
-        wr = assets["wire_radius_m"].to_numpy(float)
-        out = np.where(kind == "fence", np.nan_to_num(wr, nan=0.00125), out)
-    if "diameter_m" in assets:
-        d = assets["diameter_m"].to_numpy(float)
-        out = np.where(kind == "pipeline", np.nan_to_num(d, nan=0.5) / 2, out)
-    if "conductor_radius_m" in assets:
-        cr = assets["conductor_radius_m"].to_numpy(float)
-        out = np.where(kind == "telecom", np.nan_to_num(cr, nan=0.01), out)
+    out = np.full(len(assets), DEFAULT_RADIUS_M)
+    for k in registry.kinds():
+        if k.radius is None or k.radius.column not in assets:
+            continue
+        values = assets[k.radius.column].to_numpy(float)
+        out = np.where(kind == k.name, np.nan_to_num(values, nan=k.radius.missing)
+                       * k.radius.factor, out)
     return out
 
 
@@ -289,7 +292,7 @@ def tower_positions(cfg, inputs, total_len: np.ndarray):
                                         t.geometry.to_numpy()[ok])
         li = li[ok]
     else:
-        span = cfg.run["tower_span_m"]
+        span = cfg.run.tower_span_m
         counts = np.floor(total_len / span).astype(np.int64) + 1
         li = np.repeat(np.arange(len(lines)), counts)
         pos = (np.arange(len(li)) - np.repeat(np.cumsum(counts) - counts, counts)) * span

@@ -29,10 +29,6 @@ from corridor.physics import conductive, faults, induction
 
 log = logging.getLogger(__name__)
 
-#: Earth potential below which a faulted tower's footing is not considered [V]
-#: (project default; used when the run does not set ``tower_zone_threshold_v``).
-DEFAULT_ZONE_THRESHOLD_V = 50.0
-
 #: Optional power-line fields of the source model and their defaults (§8.1).
 SOURCE_FIELDS = {
     "source_x_over_r_start": faults.DEFAULT_SOURCE_X_OVER_R,
@@ -186,8 +182,8 @@ def line_sources(cfg, inputs, feature_length_m) -> LineSources:
     """
     lines = inputs.lines
     n = len(lines)
-    f_hz = cfg.run["frequency_hz"]
-    rho = float(cfg.run["default_soil_resistivity_ohm_m"])
+    f_hz = cfg.run.frequency_hz
+    rho = float(cfg.run.default_soil_resistivity_ohm_m)
     route, offset, direction = _routes(lines, feature_length_m)
     names = lines["arrangement"].to_numpy(dtype=object)
     z1 = np.zeros(n, complex)
@@ -325,11 +321,11 @@ def tower_earth_potential(cfg, geo, sources: LineSources, t_route, t_pos):
     pairs = geo.pairs
     if len(pairs) == 0 or len(t_route) == 0:
         return epr, step
-    r0 = cfg.run["footing_radius_m"]
-    fixed_share = float(cfg.run.get("tower_current_share", 0.0) or 0.0)
-    threshold = cfg.run.get("tower_zone_threshold_v", DEFAULT_ZONE_THRESHOLD_V)
-    cap = cfg.run.get("tower_zone_m", np.inf)
-    span_default = cfg.run["tower_span_m"]
+    r0 = cfg.run.footing_radius_m
+    fixed_share = float(cfg.run.tower_current_share)
+    threshold = cfg.run.tower_zone_threshold_v
+    cap = cfg.run.tower_zone_m
+    span_default = cfg.run.tower_span_m
     feature = pairs.line
     route = sources.route[feature]
     x = sources.route_position(feature, pairs.line_position_m)
