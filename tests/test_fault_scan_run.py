@@ -137,7 +137,7 @@ def test_grounding_site_after_voltage_is_the_worst_over_fault_positions(scenario
 
     run = _run(scenario, 10_000.0, _assets([("P1", "pipeline", 2_000.0, 8_000.0, 60.0)]),
                fault_ka=20.0)
-    sites = run.extra_tables["layer:sites"]
+    sites = run.sites
     grounds = sites[sites["ground_resistance_ohm"].notna()]
     assert len(grounds) >= 1
     cp = run.coupling

@@ -73,6 +73,9 @@ def test_every_csv_carries_the_caution(demo_out):
     # the tables with rows carry the text itself
     with open(demo_out / "grounding_sites.csv", newline="", encoding="utf-8") as fh:
         assert SAFETY_CAUTION in fh.read()
+    # a CSV without rows (rejected.csv of the clean demo) has only the column name: the
+    # caution file that every run writes beside the CSVs carries the text for it
+    assert SAFETY_CAUTION in (demo_out / "CAUTION.txt").read_text(encoding="utf-8")
 
 
 def test_csv_ids_with_hash_survive_plain_pandas(tmp_path):

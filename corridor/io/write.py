@@ -33,7 +33,21 @@ def output_paths(out_dir: Path) -> dict[str, Path]:
         "exposures_csv": out_dir / "exposures.csv",
         "rejected_csv": out_dir / "rejected.csv",
         "run_json": out_dir / "run.json",
+        "caution": out_dir / CAUTION_FILE,
     }
+
+
+#: The caution beside the CSV files: an empty CSV (a header and no rows) has no
+#: row to carry it in its ``caution`` column, so every run also writes this file.
+CAUTION_FILE = "CAUTION.txt"
+
+
+def write_caution(path: Path) -> None:
+    """The safety caution as a plain-text file beside the outputs."""
+    path.write_text(
+        SAFETY_CAUTION + "\n\nEvery CSV file of this folder carries this caution in its last"
+        " column, 'caution', on every row; a CSV without rows carries it through this file."
+        " report.html and run.json carry it as well.\n", encoding="utf-8")
 
 
 def write_gpkg(result: Result, path: Path, review_threshold: float = 0.5) -> None:
@@ -71,15 +85,15 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
         The files of ``reuse_from`` that corridor wrote (its manifest); only
         these are copied. None: every file of the names corridor writes.
     """
+    from corridor.compute import versions
     from corridor.io.formats import write_extra_formats
-    from corridor.pipeline import versions
     from corridor.report import write_report
 
     result = result_of(run)
     out_dir.mkdir(parents=True, exist_ok=True)
     paths = output_paths(out_dir)
     t0 = time.perf_counter()
-    formats = list(run.config.run.get("output_formats", ["gpkg"]))
+    formats = list(run.config.run.output_formats)
     records = input_records(run.config)
 
     def ours(name: str) -> bool:
@@ -104,6 +118,7 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
             write_csv(table, target)
         if name not in ("exposures.csv", "rejected.csv"):
             paths[target.stem] = target
+    write_caution(paths["caution"])
     run.timings_s["write"] = round(time.perf_counter() - t0, 4)
     t1 = time.perf_counter()
     paths["report"] = write_report(run, out_dir, previous, inputs=records)
