@@ -100,7 +100,7 @@ def test_tower_without_earth_wire_discharges_the_whole_terminal_current(scenario
                arrangement="flat_138_no_earth_wire")
     t = run.segment_table
     first = int(np.flatnonzero(t["chainage_m"].to_numpy() == 0.0)[0])
-    rho, i_a, r0 = 100.0, 10_000.0, run.config.run["footing_radius_m"]
+    rho, i_a, r0 = 100.0, 10_000.0, run.config.run.footing_radius_m
     r = np.hypot(30.0, 25.0)
     assert r > r0
     assert t["earth_potential_fault_v"].iloc[first] == pytest.approx(
