@@ -35,6 +35,11 @@ LINE_DEFAULT_KEYS = {
     "fault_current_end_ka": 10.0,
     "clearing_time_s": 0.5,
     "high_reliability": False,
+    # two-terminal fault source model (docs/methods.md §8.1): common practice, from memory
+    "source_x_over_r_start": 10.0,
+    "source_x_over_r_end": 10.0,
+    "source_z0_over_z1_start": 1.0,
+    "source_z0_over_z1_end": 1.0,
 }
 
 LAYER_KEYS = {"path", "layer", "fields", "kind", "crs"}
