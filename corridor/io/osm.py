@@ -373,6 +373,7 @@ def read_osm(src) -> gpd.GeoDataFrame:
     InputError
         When the extract cannot be read, or no way matches the preset.
     """
+    _check_xml(src)
     ways = _read_ways(src)
     notes = {"rejected": [], "warnings": [], "defaults": defaultdict(list)}
     if src.role == "power_lines":
@@ -383,6 +384,27 @@ def read_osm(src) -> gpd.GeoDataFrame:
         raise InputError(f"layer {src.label}: OSM extracts give power lines and assets only")
     out.attrs[NOTES] = notes
     return out
+
+
+def _check_xml(src) -> None:
+    """Refuse an OSM XML file that is not well-formed.
+
+    GDAL's OSM driver stops at the first XML error without raising, returning
+    the ways read so far (none, often): a truncated download would lose ways
+    silently. A PBF file is checked by the driver's own block decoding.
+    """
+    from xml.etree.ElementTree import ParseError, iterparse
+
+    with open(src.path, "rb") as fh:
+        head = fh.read(64).lstrip()
+    if not head.startswith(b"<"):
+        return  # PBF (binary)
+    try:
+        for _event, elem in iterparse(src.path, events=("end",)):
+            elem.clear()
+    except ParseError as exc:
+        raise InputError(f"layer {src.label}: the OSM XML file is not well-formed ({exc});"
+                         " a truncated or corrupted download? Fetch the extract again") from None
 
 
 def _direct(ways: gpd.GeoDataFrame) -> list[str]:
