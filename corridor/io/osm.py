@@ -428,6 +428,8 @@ def _power_lines(src, ways: gpd.GeoDataFrame, notes: dict) -> gpd.GeoDataFrame:
     rows = []
     for fid, (_, row) in zip(ids, sel.iterrows(), strict=True):
         tags = _tags(row, direct)
+        if not _matches(tags, p["select"]):  # the text search matched a lookalike
+            continue
         rec = _power_way(src, p, fid, tags, notes)
         if rec is not None:
             rec["geometry"] = row[ways.geometry.name]
