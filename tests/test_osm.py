@@ -17,9 +17,12 @@ Facts of the trade used below:
 from __future__ import annotations
 
 import json
+import struct
+import zlib
 from pathlib import Path
 from xml.sax.saxutils import quoteattr
 
+import pandas as pd
 import pytest
 from pyproj import Geod
 
@@ -75,6 +78,61 @@ class Extract:
         out.append("</osm>")
         path.write_text("\n".join(out), encoding="utf-8")
         return path
+
+
+    def write_pbf(self, path: Path) -> Path:
+        """The extract as OSM PBF: protobuf messages of the OSM-binary format (one
+        OSMHeader blob, one OSMData blob with plain nodes and ways), zlib-compressed."""
+        strings = [b""]
+
+        def sid(text: str) -> int:
+            b = text.encode()
+            if b not in strings:
+                strings.append(b)
+            return strings.index(b)
+
+        nodes = b"".join(_msg(1, _int(1, _zz(i)) + _int(8, _zz(round(lat * 1e7)))
+                              + _int(9, _zz(round(lon * 1e7))))
+                         for i, (lat, lon) in self.nodes.items())
+        ways = b""
+        for wid, refs, tags in self.ways:
+            deltas = [_zz(b - a) for a, b in zip([0, *refs[:-1]], refs, strict=True)]
+            ways += _msg(3, _int(1, wid) + _packed(2, [sid(k) for k in tags])
+                         + _packed(3, [sid(v) for v in tags.values()]) + _packed(8, deltas))
+        table = _msg(1, b"".join(_msg(1, x) for x in strings))
+        block = table + _msg(2, nodes) + _msg(2, ways)
+        with open(path, "wb") as fh:
+            for kind, data in (("OSMHeader", _msg(4, b"OsmSchema-V0.6")), ("OSMData", block)):
+                blob = _int(2, len(data)) + _msg(3, zlib.compress(data))
+                head = _msg(1, kind.encode()) + _int(3, len(blob))
+                fh.write(struct.pack(">i", len(head)) + head + blob)
+        return path
+
+
+def _varint(n: int) -> bytes:
+    out = bytearray()
+    while True:
+        b, n = n & 0x7F, n >> 7
+        out.append(b | 0x80 if n else b)
+        if not n:
+            return bytes(out)
+
+
+def _zz(n: int) -> int:
+    """Protobuf's zigzag code of a signed integer (sint64)."""
+    return (n << 1) ^ (n >> 63)
+
+
+def _int(num: int, n: int) -> bytes:
+    return _varint(num << 3) + _varint(n)
+
+
+def _msg(num: int, payload: bytes) -> bytes:
+    return _varint((num << 3) | 2) + _varint(len(payload)) + payload
+
+
+def _packed(num: int, values: list[int]) -> bytes:
+    return _msg(num, b"".join(_varint(v) for v in values))
 
 
 def corridor_extract() -> Extract:
@@ -322,3 +380,37 @@ def test_broken_xml_is_an_input_error(tmp_path):
     with pytest.raises(InputError) as exc:
         read_inputs(load_config(_config(tmp_path, extract)))
     assert any("region.osm" in p and "not well-formed" in p for p in exc.value.problems)
+
+
+def test_pbf_extract_reads_like_the_xml(tmp_path):
+    # the same extract as OSM PBF (the format of the usual regional downloads)
+    e = corridor_extract()
+    xml_dir, pbf_dir = tmp_path / "xml", tmp_path / "pbf"
+    xml_dir.mkdir()
+    pbf_dir.mkdir()
+    got = []
+    for folder, extract in ((xml_dir, e.write(xml_dir / "region.osm")),
+                            (pbf_dir, e.write_pbf(pbf_dir / "region.osm.pbf"))):
+        inputs = read_inputs(load_config(_config(folder, extract)))
+        got.append(inputs)
+    xml, pbf = got
+    for a, b in ((xml.lines, pbf.lines), (xml.assets, pbf.assets)):
+        a = a.drop(columns="source_layer").sort_values(a.columns[0]).reset_index(drop=True)
+        b = b.drop(columns="source_layer").sort_values(b.columns[0]).reset_index(drop=True)
+        pd.testing.assert_frame_equal(a.drop(columns="geometry"), b.drop(columns="geometry"))
+        assert a.geometry.geom_equals_exact(b.geometry, tolerance=0.01).all()
+    assert pbf.rejected.frame()["feature_id"].tolist() == ["way/300"]
+    assert pbf.rejected.frame()["layer"].tolist() == ["region.osm.pbf"]
+
+
+def test_asset_layer_with_a_kind_takes_only_that_kind(tmp_path):
+    extract = corridor_extract().write(tmp_path / "region.osm")
+    cfg = _config(tmp_path, extract)
+    text = cfg.read_text(encoding="utf-8").replace(
+        f'[[layers.assets]]\npath = "{extract.name}"\n',
+        f'[[layers.assets]]\npath = "{extract.name}"\nkind = "rail"\n')
+    cfg.write_text(text, encoding="utf-8")
+    inputs = read_inputs(load_config(cfg))
+    assert inputs.assets["asset_kind"].tolist() == ["rail"]
+    assert inputs.assets["asset_id"].tolist() == ["way/200"]
+    assert main(["check", str(cfg)]) == 0  # usable; way/300 is listed as would-be rejected
