@@ -100,6 +100,15 @@ def qgis_run(tmp_path_factory):
                     [_layer("power_lines"), "power lines"],
                     [f"{qgis_out}/screening.gpkg|layername=sites", "sites"]]},
     ]
+    bad_cfg = tmp / "bad_config.toml"
+    arrangements = (DEMO.parent / "arrangements.toml").as_posix()
+    bad_cfg.write_text(DEMO.read_text(encoding="utf-8")
+                       .replace("../sample_layers/", f"{GPKG.parent.as_posix()}/")
+                       .replace('arrangements = "arrangements.toml"',
+                                f'arrangements = "{arrangements}"')
+                       .replace("[run]\n", "[run]\ntower_spam_m = 300.0\n"), encoding="utf-8")
+    actions.append({"do": "run", "algorithm": "corridor:screen", "layers": {},
+                    "params": {"CONFIG": str(bad_cfg), "OUTPUT": str(tmp / "bad_cfg_out")}})
     task = tmp / "task.json"
     task.write_text(json.dumps({"actions": actions}), encoding="utf-8")
     result = tmp / "result.json"
@@ -109,7 +118,8 @@ def qgis_run(tmp_path_factory):
     res = json.loads(result.read_text(encoding="utf-8"))
     return {"tmp": tmp, "cli_out": cli_out, "cli_code": cli_code, "qgis_out": qgis_out,
             "step_ref": step_out, "list": res[0]["algorithms"], "screen": res[1],
-            "cancel": res[2], "bad": res[3], "step": res[4], "render": res[5]}
+            "cancel": res[2], "bad": res[3], "step": res[4], "render": res[5],
+            "bad_config": res[6]}
 
 
 def test_provider_lists_one_algorithm_per_step(qgis_run):
@@ -176,6 +186,14 @@ def test_input_problems_are_processing_errors(qgis_run):
     # the message names the layer (as QGIS names it) and the field
     assert "lines without KV" in text and "'KV'" in text
     assert not (qgis_run["tmp"] / "bad_out" / "run.json").exists()
+
+
+def test_config_problems_are_processing_errors(qgis_run):
+    bad = qgis_run["bad_config"]
+    assert not bad["ok"]
+    # a ConfigError names the file and the key, as on the command line
+    assert any("bad_config.toml: run.tower_spam_m: unknown setting" in m
+               for m in bad["messages"]["error"])
 
 
 def test_step_algorithm_passes_parameters_like_run_step(qgis_run):

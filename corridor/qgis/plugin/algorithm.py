@@ -107,10 +107,6 @@ class CorridorAlgorithm(QgsProcessingAlgorithm):
     def icon(self):
         return QIcon(os.path.join(HERE, "icon.svg"))
 
-    def flags(self):
-        # the engine runs in its own process; the algorithm object itself is thread-safe
-        return super().flags()
-
     # -- parameters ---------------------------------------------------------------
     def initAlgorithm(self, config=None):  # noqa: N802 - QGIS API
         self.addParameter(QgsProcessingParameterFile(
