@@ -151,6 +151,7 @@ def corridor_extract() -> Extract:
     e.way(300, [e.node(45.05, 9.0), e.node(45.05, 9.03)], power="line", voltage="medium")
     e.way(301, [e.node(45.03, 9.0), e.node(45.03, 9.03)], power="line",
           voltage="110000;20000", cables="6")
+    e.way(302, [e.node(45.06, 9.0), e.node(45.06, 9.03)], power="line", voltage="110;20")
     return e
 
 
@@ -212,6 +213,10 @@ def test_bad_voltage_tags_reported(screened):
     assert "'voltage'" in msgs[0] and "110 kV" in msgs[0] and "20 kV" in msgs[0]
     # the two-voltage line is kept (at its highest voltage), the bad one is not
     assert "way/301" not in set(rej["feature_id"])
+    # voltage=110;20 (kilovolts written where OSM wants volts): rejected, the fix named
+    row = rej[rej["feature_id"] == "way/302"].iloc[0]
+    assert (row["layer"], row["field"]) == ("region.osm", "voltage")
+    assert "'110;20'" in row["reason"] and "110000" in row["reason"]
 
 
 def test_default_arrangement_and_circuits(tmp_path):
@@ -399,8 +404,8 @@ def test_pbf_extract_reads_like_the_xml(tmp_path):
         b = b.drop(columns="source_layer").sort_values(b.columns[0]).reset_index(drop=True)
         pd.testing.assert_frame_equal(a.drop(columns="geometry"), b.drop(columns="geometry"))
         assert a.geometry.geom_equals_exact(b.geometry, tolerance=0.01).all()
-    assert pbf.rejected.frame()["feature_id"].tolist() == ["way/300"]
-    assert pbf.rejected.frame()["layer"].tolist() == ["region.osm.pbf"]
+    assert pbf.rejected.frame()["feature_id"].tolist() == ["way/300", "way/302"]
+    assert set(pbf.rejected.frame()["layer"]) == {"region.osm.pbf"}
 
 
 def test_asset_layer_with_a_kind_takes_only_that_kind(tmp_path):

@@ -312,8 +312,10 @@ def parse_voltage_kv(text: str) -> tuple[list[float], str | None]:
         number, unit = float(m.group(1)), (m.group(2) or "v").lower()
         kv = number if unit == "kv" else number / 1000.0
         if kv < 1.0:
-            return [], (f"voltage {text!r}: {number:g} V is below 1 kV; not a power line"
-                        " corridor screens (OSM voltages are in volts: write 230000 for 230 kV)")
+            return [], (f"voltage {text!r}: {number:g} V is below 1 kV, not a power line"
+                        " corridor screens; OSM voltages are in volts, so if kilovolts were"
+                        f" meant the tag should read {int(number * 1000)}"
+                        " (several voltages: '110000;20000')")
         if kv > 1200.0:
             return [], f"voltage {text!r}: {kv:g} kV is above 1200 kV"
         if kv not in out:
