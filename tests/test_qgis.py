@@ -139,6 +139,8 @@ def test_provider_lists_one_algorithm_per_step(qgis_run):
     assert "[m]" in params["screening_distance_m"]["label"]
     assert "(1 – 5000)" in params["screening_distance_m"]["label"]
     assert "[Hz]" in params["frequency_hz"]["label"]
+    assert params["limit_set"]["type"] == "enum"  # the registry's limit sets
+    assert params["use_kind_defaults"]["type"] == "enum"  # from the config / true / false
     assert {"hazards", "assets", "sites", "report"} <= set(screen["outputs"])
 
 

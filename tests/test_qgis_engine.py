@@ -69,6 +69,10 @@ def test_one_algorithm_per_step_plus_the_whole_run():
     assert labels["screening_distance_m"] == "Screening distance m [m] (1 – 5000)"
     kinds = {p["name"]: p["kind"] for p in screen["parameters"]}
     assert kinds["use_kind_defaults"] == "bool" and kinds["grounding_menu_ohm"] == "list"
+    # the limit set is picked from the shipped sets (config/limits/*.toml)
+    limit = next(p for p in screen["parameters"] if p["name"] == "limit_set")
+    assert limit["kind"] == "choice"
+    assert {"iec_en", "ieee_na"} <= set(limit["choices"])
     geo = {i["name"]: (i["geometry"], i["multiple"]) for i in screen["inputs"]}
     assert geo == {"power_lines": ("line", False), "assets": ("line", True),
                    "soil": ("polygon", False), "grounds": ("point", False),

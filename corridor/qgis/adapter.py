@@ -43,13 +43,27 @@ def _label(p: dict) -> str:
     return text
 
 
+def _choices(name: str) -> list[str] | None:
+    """Values a parameter takes from a list: the limit sets known to the registry."""
+    if name != "limit_set":
+        return None
+    from corridor.errors import ConfigError
+    from corridor.registry import load_plugins
+
+    try:
+        return list(load_plugins().limit_set_names())
+    except ConfigError:  # a broken plugin: the run will say so; a free text field here
+        return None
+
+
 def _parameter(p: dict) -> dict:
     kind = _KIND.get(p["type"], "string")
     default = p.get("default")
     if kind == "list" and isinstance(default, list):
         default = ", ".join(str(v) for v in default)
-    return {"name": p["name"], "kind": kind, "type": p["type"], "label": _label(p),
-            "default": default,
+    choices = _choices(p["name"])
+    return {"name": p["name"], "kind": "choice" if choices else kind, "type": p["type"],
+            "label": _label(p), "default": default, "choices": choices,
             "min": p.get("low"), "max": p.get("high"), "help": p.get("description", "")}
 
 

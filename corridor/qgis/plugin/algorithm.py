@@ -148,6 +148,9 @@ class CorridorAlgorithm(QgsProcessingAlgorithm):
             return param
         if p["kind"] == "bool":
             return QgsProcessingParameterEnum(p["name"], p["label"], _BOOL, False, 0, True)
+        if p["kind"] == "choice":
+            return QgsProcessingParameterEnum(p["name"], p["label"],
+                                              ["from the config", *p["choices"]], False, 0, True)
         return QgsProcessingParameterString(p["name"], p["label"], None, False, True)
 
     # -- running -------------------------------------------------------------------
@@ -187,6 +190,10 @@ class CorridorAlgorithm(QgsProcessingAlgorithm):
                 index = self.parameterAsEnum(parameters, p["name"], context)
                 if index:
                     params[p["name"]] = index == 1
+            elif p["kind"] == "choice":
+                index = self.parameterAsEnum(parameters, p["name"], context)
+                if index:
+                    params[p["name"]] = p["choices"][index - 1]
             elif p["kind"] == "number":
                 params[p["name"]] = self.parameterAsDouble(parameters, p["name"], context)
             elif p["kind"] == "integer":
