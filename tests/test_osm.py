@@ -354,6 +354,16 @@ def test_other_frequency_rejected(tmp_path):
     assert "way/400" not in set(inputs.lines["line_id"])
 
 
+def test_several_frequencies_warned(tmp_path):
+    e = corridor_extract()
+    e.way(401, [e.node(45.002, 9.0), e.node(45.002, 9.03)], power="line",
+          voltage="110000;15000", frequency="50;16.7", cables="6")
+    extract = e.write(tmp_path / "region.osm")
+    inputs = read_inputs(load_config(_config(tmp_path, extract)))
+    assert "way/401" in set(inputs.lines["line_id"])
+    assert any("way/401" in w and "'frequency'" in w and "16.7" in w for w in inputs.warnings)
+
+
 def test_bad_osm_table_is_a_config_error(tmp_path, capsys):
     extract = corridor_extract().write(tmp_path / "region.osm")
     cfg = _config(tmp_path, extract, '[layers.power_lines.osm]\nvoltages = "v"\n')

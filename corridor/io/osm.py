@@ -745,6 +745,12 @@ def settle(gdf: gpd.GeoDataFrame, src, cfg, rejected, warnings: list[str],
             rejected.add(src.label, line_id, tag, f"{kind}, not the run's {f_run:g} Hz; corridor"
                          " screens one AC frequency per run (run.frequency_hz)", src.role)
             keep[i] = False
+        elif len(freqs) > 1:
+            msg = (f"layer {src.label}: feature {line_id}: field '{tag}': several frequencies"
+                   f" ({text} Hz); screened at the run's {f_run:g} Hz, the circuits of the"
+                   " other frequencies are not screened")
+            warnings.append(msg)
+            log.warning(msg)
     out = gdf[keep]
     out.attrs = {}
     return out
