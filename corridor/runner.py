@@ -33,7 +33,7 @@ import pandas as pd
 from corridor import owned as owned_mod
 from corridor.config import Config
 from corridor.errors import CorridorError, StorageError, storage_problem
-from corridor.io.outputs import SAFETY_CAUTION, sha256_file, write_csv, write_json, write_layer
+from corridor.io.outputs import SAFETY_CAUTION, write_csv, write_json, write_layer
 from corridor.lock import LockError, OutputLock
 from corridor.pipeline import Run, finalize, output_paths, versions
 
@@ -44,6 +44,11 @@ LOG_FORMAT = "%(asctime)s %(levelname)s %(name)s: %(message)s"
 
 
 def _input_files(cfg: Config) -> list[Path]:
+    """The input datasets of a run (config, arrangements, every layer path), once each.
+
+    A path names a dataset, which may be several files (Shapefile sidecars,
+    GeoPackage ``-wal``) or a folder: :mod:`corridor.io.fingerprint` hashes them all.
+    """
     paths = [cfg.path, cfg.arrangements_path, cfg.power_lines.path]
     paths += [a.path for a in cfg.assets]
     paths += [s.path for s in (cfg.soil, cfg.grounds, cfg.towers) if s is not None]
@@ -88,10 +93,23 @@ REUSABLE_OUTPUTS = ("screening.gpkg", "exposures.csv", "rejected.csv", "groundin
 
 
 def input_records(cfg: Config) -> list[dict]:
-    """Path, SHA-256 and modification time of every input file of a run."""
-    return [{"path": str(p), "sha256": sha256_file(p),
-             "modified_utc": datetime.fromtimestamp(p.stat().st_mtime, UTC)
-             .isoformat(timespec="seconds")} for p in _input_files(cfg)]
+    """Path, SHA-256 and modification time of every input dataset of a run.
+
+    ``sha256`` is :func:`corridor.io.fingerprint.dataset_sha256` (for a
+    single-file dataset, the SHA-256 of its bytes); ``modified_utc`` is the
+    latest modification time of the dataset's files; ``files`` counts them.
+    """
+    from corridor.io.fingerprint import dataset_files, dataset_modified, dataset_sha256
+
+    out = []
+    for p in _input_files(cfg):
+        mtime = dataset_modified(p)
+        out.append({"path": str(p), "sha256": dataset_sha256(p),
+                    "modified_utc": (datetime.fromtimestamp(mtime, UTC)
+                                     .isoformat(timespec="seconds") if mtime is not None
+                                     else ""),
+                    "files": len(dataset_files(p))})
+    return out
 
 
 def _write_gpkg(run: Run, path: Path) -> None:
@@ -198,7 +216,9 @@ def inputs_unchanged(run: Run, previous_record: dict | None) -> bool:
         before = {(d["path"], d["sha256"]) for d in previous_record.get("inputs", [])}
     except (TypeError, KeyError):
         return False
-    now = {(str(p), sha256_file(p)) for p in _input_files(run.config)}
+    from corridor.io.fingerprint import dataset_sha256
+
+    now = {(str(p), dataset_sha256(p)) for p in _input_files(run.config)}
     state = run.extra_tables.get("json", {}).get("inputs_state")
     return (before == now and state is not None
             and previous_record.get("inputs_state") == state
@@ -230,8 +250,6 @@ def last_error_path(out_dir: Path) -> Path:
 DEFAULT_IDS_LISTED = ("fault_current_start_ka", "fault_current_end_ka", "clearing_time_s",
                       "post_type", "coating_resistance_ohm_m2", "coating_type",
                       "start_termination", "end_termination")
-#: Rejected assets (and other features) logged one line each up to this many.
-REJECTED_SHOWN = 20
 
 
 def _row_role(row: dict, cfg: Config, asset_labels: set[str]) -> str:
@@ -279,19 +297,6 @@ def log_rejected_lines(lines: list[dict]) -> None:
                     r.get("field"), r.get("reason"))
 
 
-def log_rejected(summary: dict) -> None:
-    """WARNING lines for rejected power lines, assets and other features (bounded)."""
-    log_rejected_lines(summary["power_lines"])
-    for role, what in (("assets", "asset"), ("other", "feature")):
-        rows = summary[role]
-        for r in rows[:REJECTED_SHOWN]:
-            log.warning("%s %s of layer %s rejected (field '%s': %s)", what, r["feature_id"],
-                        r["layer"], r["field"], r["reason"])
-        if len(rows) > REJECTED_SHOWN:
-            log.warning("... and %d more rejected %ss (every one is in rejected.csv)",
-                        len(rows) - REJECTED_SHOWN, what)
-
-
 def defaults_used_record(inputs) -> dict:
     """run.json's ``defaults_used``: field -> count, with ids for the safety-relevant fields."""
     used = getattr(inputs, "defaults_used", None) or {}
@@ -320,7 +325,6 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     inputs = read_inputs(cfg)
     read_s = round(time.perf_counter() - t0, 4)
     rejected = rejected_summary(cfg, inputs)
-    log_rejected(rejected)
     if len(inputs.assets) == 0:
         from corridor.errors import InputError
 
@@ -333,24 +337,10 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     keys = cache_mod.asset_keys(cfg, inputs)
     hash_s = round(time.perf_counter() - t1, 4)
     folder = cache_folder(cfg, out_dir)
-    cache_lock = None
     if folder is not None:
-        cache_lock = OutputLock(folder)
-        try:
-            cache_lock.acquire()
-        except OSError as exc:  # the cache is optional: a full or read-only disk only warns
-            cause = storage_problem(exc)
-            if cause is None:
-                raise
-            log.warning("cache folder %s cannot be used (%s); every asset is computed",
-                        folder, cause)
-            cache_lock = None
-    if cache_lock is not None:
-        try:
-            run = backends.incremental_compute(cache_mod, cfg, inputs, stages, folder, keys,
+        with cache_mod.locked(folder) as usable:  # None: cache unusable, warned
+            run = backends.incremental_compute(cache_mod, cfg, inputs, stages, usable, keys,
                                                compute_fn)
-        finally:
-            cache_lock.release()
     else:
         run = compute_fn(cfg, inputs, stages)
         run.counts["assets_recomputed"] = len(inputs.assets)
@@ -522,7 +512,8 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
 def input_fingerprint(cfg: Config) -> str:
     """SHA-256 over everything a run's outputs depend on.
 
-    Every input file (config, arrangements, layers) and limit-set file by
+    Every input dataset (config, arrangements, layers: every file of each,
+    :func:`corridor.io.fingerprint.dataset_sha256`) and limit-set file by
     path and content, corridor's version and source files, and the installed
     plugins. Equal fingerprints give equal outputs.
     """
@@ -530,12 +521,13 @@ def input_fingerprint(cfg: Config) -> str:
 
     from corridor import __version__
     from corridor.cache import _limit_files, code_fingerprint
+    from corridor.io.fingerprint import dataset_sha256
     from corridor.registry import registry
 
     h = hashlib.sha256()
     for p in [*_input_files(cfg), *_limit_files(cfg)]:
-        h.update(str(p).encode())
-        h.update(sha256_file(p).encode())
+        h.update(str(p).encode("utf-8", "surrogateescape"))
+        h.update(dataset_sha256(p).encode())
     h.update(__version__.encode())
     h.update(code_fingerprint().encode())
     h.update(registry.fingerprint().encode())

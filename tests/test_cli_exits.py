@@ -41,7 +41,7 @@ def test_rejected_power_line_exits_5_after_publishing(tmp_path, cli, capsys):
     path = sc.write_config(cfg)
     assert cli(["run", str(path), "-q", "--fail-on-exceedance"]) == 5
     err = capsys.readouterr().err
-    assert "power line L2 REJECTED (field 'KV': missing)" in err
+    assert "power line L2 rejected (layer power_lines.gpkg:power_lines, field 'KV'): missing" in err
     assert "published but incomplete" in err
     record = json.loads((tmp_path / "out" / "run.json").read_text(encoding="utf-8"))
     assert record["rejected_power_lines"] == [{"line_id": "L2", "field": "KV",
@@ -76,7 +76,7 @@ def test_exit_code_precedence_and_accepting_rejected_lines():
 
 
 def test_rejected_assets_are_warned_under_quiet_with_a_bound(tmp_path, cli, capsys):
-    from corridor.runner import REJECTED_SHOWN
+    from corridor.io.layers import REJECTED_SHOWN
 
     sc = Scenario(tmp_path)
     a = fences()

@@ -256,7 +256,8 @@ def test_fault_fed_from_both_ends_matches_the_documented_form():
     # from both ends gives V(x_f) = [E_A(1 − e^{−γ(x_f−a)}) + E_B(1 − e^{−γ(b−x_f)})]/(2γ),
     # up to twice the one-direction end voltage (E/2γ)(1 − e^{−γL}). Closed form from
     # the Green's function of the matched line; checked on the production chain solver.
-    from corridor.network.response import matched_termination_admittance, solve_chains
+    from corridor.network.response import matched_termination_admittance
+    from tests.network.chains import solve_chains
 
     z, y = 0.05e-3 + 0.6e-3j, 1.0 / (5.0 * 1000.0) + 0j  # Ω/m, S/m: a leaky buried conductor
     n_seg, seg_m = 400, 50.0  # a 20 km exposure

@@ -533,16 +533,8 @@ def merge_partitions(cfg: Config, inputs: Inputs, results: list[dict],
     merged = {}
     for name in list(by_name):
         frames = by_name.pop(name)
-        full = [f for f in frames if len(f)]
-        frames = full or frames[:1]
-        if len(frames) == 1:
-            table = frames[0]
-        elif isinstance(frames[0], gpd.GeoDataFrame):
-            table = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True),
-                                     geometry=frames[0].geometry.name, crs=crs)
-        else:
-            table = pd.concat(frames, ignore_index=True)
-        del frames, full  # before the reorder copies the table
+        table = cache_mod.concat_tables(frames, crs=crs)  # empty/untyped parts: types kept
+        del frames  # before the reorder copies the table
         merged[name] = cache_mod._order_rows(table, name, asset_pos)
         del table
     for name, table in merged.items():

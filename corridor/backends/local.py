@@ -111,8 +111,6 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
     import time
     from concurrent.futures import ThreadPoolExecutor
 
-    import pandas as pd
-
     from corridor import cache as cache_mod
     from corridor import progress
     from corridor.backends.dask_backend import merge_partitions, plan_partitions
@@ -138,8 +136,8 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
         tables[cache_mod._REJECTED] = cache_mod._compute_rejections(sub,
                                                                     run.inputs.rejected.rows)
         tables[cache_mod._COUNTS] = cache_mod._geometry_counts(run)
-        out = {"tables": tables, "timings_s": run.timings_s, "counts": dict(run.counts),
-               "after": run.segment_table_after_grounding}
+        # segment_table_after_grounding travels as the per-asset table "after_grounding"
+        out = {"tables": tables, "timings_s": run.timings_s, "counts": dict(run.counts)}
         with lock:
             done[0] += 1
             log.info("partition %d/%d done: %d assets, %d segments in %.1f s", done[0],
@@ -158,9 +156,6 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
     t1 = time.perf_counter()
     run = merge_partitions(cfg, inputs, results, wire=False)
     release_free_memory()
-    afters = [r["after"] for r in results if r["after"] is not None]
-    if afters:
-        run.segment_table_after_grounding = pd.concat(afters, ignore_index=True)
     # stage times: summed over the partitions (CPU-side work), divided by the
     # threads that ran them side by side — an estimate of each stage's share of
     # the wall time; compute_wall is the measured wall time

@@ -600,6 +600,32 @@ def _reject_orphans(frame: gpd.GeoDataFrame | None, src: LayerSource | None, ref
     return frame[~bad].reset_index(drop=True)
 
 
+#: Rejected assets (and other features) named one by one in the log; the rest are counted.
+REJECTED_SHOWN = 20
+
+
+def log_rejected(rejected: Rejected) -> None:
+    """WARNING lines for rejected features: every power line, then a bounded list of the rest.
+
+    A rejected power line leaves the voltages it induces unassessed, so each one is
+    named; assets and other features are named up to :data:`REJECTED_SHOWN` per role
+    and then counted (every one is in rejected.csv).
+    """
+    for row in rejected.by_role("power_lines"):
+        log.warning("power line %s rejected (layer %s, field '%s'): %s; the voltages it"
+                    " induces are NOT assessed and the results are incomplete",
+                    row["feature_id"], row["layer"], row["field"], row["reason"])
+    for role, what in (("assets", "asset"), ("soil", "soil polygon"),
+                       ("grounds", "ground item"), ("towers", "tower")):
+        rows = rejected.by_role(role)
+        for row in rows[:REJECTED_SHOWN]:
+            log.warning("%s %s rejected (layer %s, field '%s'): %s", what, row["feature_id"],
+                        row["layer"], row["field"], row["reason"])
+        if len(rows) > REJECTED_SHOWN:
+            log.warning("... and %d more rejected %ss (every one is in rejected.csv)",
+                        len(rows) - REJECTED_SHOWN, what)
+
+
 def read_inputs(cfg: Config) -> Inputs:
     """Read and validate every input layer of a run.
 
@@ -698,13 +724,7 @@ def read_inputs(cfg: Config) -> Inputs:
     for role, frame in optional.items():
         if frame is not None:
             counts[role] = len(frame)
-    for row in rejected.by_role("power_lines"):
-        log.warning("power line %s rejected (layer %s, field '%s'): %s; the screen leaves it"
-                    " out and is incomplete", row["feature_id"], row["layer"], row["field"],
-                    row["reason"])
-    for row in rejected.by_role("assets"):
-        log.warning("asset %s rejected (layer %s, field '%s'): %s; it is not screened",
-                    row["feature_id"], row["layer"], row["field"], row["reason"])
+    log_rejected(rejected)
     return Inputs(crs, lines, assets, optional["soil"], optional["grounds"], optional["towers"],
                   rejected, counts, warnings, defaults_used)
 

@@ -183,7 +183,7 @@ def test_ieee_na_nace_pipeline_shock_criteria():
 @pytest.mark.parametrize("name", SHIPPED)
 def test_capacitive_criterion_judges_available_current(name):
     # NESC Rule 232 practice / IEC 60479-1 let-go (from memory): 5 mA available.
-    # METHODS.md §3 (common practice): a high open-circuit voltage behind
+    # docs/methods.md §3 (common practice): a high open-circuit voltage behind
     # microamps is a nuisance, not a hazard. The open-circuit voltage is passed
     # too and must not decide.
     ls = load_limit_set(name, search_dir=CONFIG_DIR)

@@ -11,7 +11,7 @@ coated pipe: series impedance z = Z_int + Z_earth with the finite-wall
 internal impedance of the iron (μr, ρ_iron) and the earth-return self
 impedance of a conductor on the surface (a main 1–2 m deep is treated as
 lying on the surface, common practice); shunt admittance y = πD/r_sleeve,
-the sleeving's leakage conductance per metre (METHODS.md §5 form). The
+the sleeving's leakage conductance per metre (docs/methods.md §5 form). The
 sleeving's capacitance (ωC of a few µS/m) is left out beside πD/r_sleeve of
 about 1 mS/m.
 
