@@ -137,7 +137,7 @@ def write(out_dir: Path, line_km: float, asset_km: float, seed: int = 7) -> Path
     os.environ.setdefault("OGR_CURRENT_DATE", "2026-01-01T00:00:00.000Z")
     for name, frame in (("power_lines", lines), ("assets", assets), ("soil", soil)):
         frame.to_file(gpkg, layer=name, driver="GPKG", engine="pyogrio", use_arrow=True)
-    shutil.copy(Path(__file__).resolve().parents[1] / "config" / "arrangements.toml",
+    shutil.copy(Path(__file__).resolve().parents[1] / "corridor" / "data" / "arrangements.toml",
                 out_dir / "arrangements.toml")
     cfg = out_dir / "bench.toml"
     cfg.write_text(CONFIG, encoding="utf-8")

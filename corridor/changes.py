@@ -51,7 +51,7 @@ def inputs_state(run, keys) -> dict:
         line_state[str(row["line_id"])] = {
             "geometry": keys.line_geometry[i][:_SHORT] if keys.line_geometry else "",
             "attributes": {k: _plain(v) for k, v in row.items() if k != "line_id"}}
-    from corridor.cache import relevant_config
+    from corridor.keys import relevant_config
 
     return {"hash_fields": HASH_FIELDS, "asset_hashes": hashes,
             "config_parts": {k: v[:_SHORT] for k, v in keys.config_parts.items()},
@@ -207,7 +207,7 @@ def compare(run, keys, state: dict, previous, threshold: float) -> tuple[pd.Data
     ----------
     run : corridor.pipeline.Run
         The finished run (finalized).
-    keys : corridor.cache.AssetKeys
+    keys : corridor.keys.AssetKeys
     state : dict
         :func:`inputs_state` of this run.
     previous : tuple or None

@@ -109,14 +109,14 @@ def _parser() -> argparse.ArgumentParser:
 
 def _console(args) -> None:
     from corridor import progress
-    from corridor.runner import _FileOnly
+    from corridor.runner import FileOnly
 
     level = logging.WARNING if args.quiet else logging.DEBUG if args.verbose else logging.INFO
     progress.set_quiet(args.quiet)
     handler = progress.ConsoleHandler(sys.stderr)
     handler.setLevel(level)
     handler.setFormatter(logging.Formatter("corridor: %(levelname)s: %(message)s"))
-    handler.addFilter(_FileOnly())
+    handler.addFilter(FileOnly())
     root = logging.getLogger("corridor")
     root.setLevel(logging.DEBUG)
     for old in [h for h in root.handlers if getattr(h, "_corridor_console", False)]:
@@ -142,11 +142,9 @@ def check(cfg) -> int:
     except InputError as exc:
         problems.extend(exc.problems)
     try:
-        from corridor.limits.limit_sets import load_limit_set
-        from corridor.steps import LIMITS_DIR
+        from corridor.steps import load_config_limit_set
 
-        load_limit_set(cfg.run["limit_set"], dict(cfg.limit_overrides) or None,
-                       search_dir=LIMITS_DIR)
+        load_config_limit_set(cfg)
     except CorridorError as exc:
         problems.extend(getattr(exc, "problems", [str(exc)]))
     empty: list[str] = []
@@ -163,7 +161,7 @@ def check(cfg) -> int:
         print(f"  rejected features in all: {len(inputs.rejected.rows)}")
         for label in empty:
             log.warning("%s: no usable feature; a run would screen nothing from it", label)
-        from corridor.runner import rejected_summary
+        from corridor.pipeline import rejected_summary
 
         lines = rejected_summary(cfg, inputs)["power_lines"]
         if lines and not cfg.run.get("accept_rejected_lines", False):

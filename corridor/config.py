@@ -1,104 +1,32 @@
 """Run configuration: one TOML file per run, loaded once into frozen objects.
 
-Every setting is documented in :data:`RUN_SETTINGS` (type, unit, default,
-meaning); the README's configuration table is generated from the same words.
-All problems are collected and raised together as one :class:`ConfigError`
-naming the file and key.
+Every ``[run]`` setting is declared once in :class:`corridor.settings.RunSettings`
+(type, unit, default, range, meaning; :data:`RUN_SETTINGS` lists the specs); the
+README's configuration tables are generated from the same declarations. All
+problems are collected and raised together as one :class:`ConfigError` naming
+the file and key. A :class:`Config` is frozen and pickles as it is.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import stat
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
-from types import MappingProxyType
 from typing import Any
 
 from corridor.errors import ConfigError
-from corridor.schema import (
-    ASSET_KINDS,
-    GROUND_FIELDS,
-    KIND_DEFAULTS,
-    LINE_FIELDS,
-    SOIL_FIELDS,
-    FieldSpec,
-    asset_fields,
-)
+from corridor.registry import load_plugins, registry
+from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS
+from corridor.settings import RUN_SETTINGS, FrozenMap, RunSettings
 
-# name: (type, unit, default, meaning, (low, high) or None)
-RUN_SETTINGS: dict[str, tuple[type, str, Any, str, tuple[float, float] | None]] = {
-    "output_dir": (str, "path", "out", "Output folder, relative to the config file.", None),
-    "crs": (str, "-", "", "Projected CRS of the run whose axes are in metres (e.g."
-            " 'EPSG:32615'); a CRS in feet or degrees is refused. Inputs in any CRS are"
-            " reprojected to it. Empty: the inputs' own CRS if projected in metres, else a UTM"
-            " zone chosen from the data.", None),
-    "frequency_hz": (float, "Hz", 50.0, "System frequency.", (1.0, 1000.0)),
-    "screening_distance_m": (float, "m", 1000.0, "Distance within which a power line is"
-                             " considered to couple into an asset.", (1.0, 5000.0)),
-    "segment_length_m": (float, "m", 50.0, "Maximum length of an asset segment.", (1.0, 1000.0)),
-    "min_separation_m": (float, "m", 1.0, "Separation floor at crossings (no log of zero).",
-                         (0.01, 100.0)),
-    "parallel_angle_deg": (float, "deg", 10.0, "Largest angle between asset and line still"
-                           " classed parallel (common practice).", (0.0, 45.0)),
-    "oblique_ratio": (float, "-", 3.0, "Largest ratio of the separations at the two ends of an"
-                      " oblique section (ITU-T Directives practice).", (1.1, 10.0)),
-    "default_soil_resistivity_ohm_m": (float, "Ω·m", 100.0, "Soil resistivity where no soil"
-                                       " polygon covers a segment.", (0.1, 1e5)),
-    "limit_set": (str, "-", "iec_en", "Limit set: a name in config/limits/ or a path.", None),
-    "arrangements": (str, "path", "arrangements.toml", "Tower and conductor arrangements"
-                     " file, relative to the config file.", None),
-    "use_kind_defaults": (bool, "-", True, "Missing asset values (NULL or blank) take the"
-                          " kind's default (with a warning, counted in run.json) instead of"
-                          " rejecting the feature. A field the layer lacks always takes the"
-                          " default (counted too); a present but invalid value always rejects"
-                          " the feature.", None),
-    "accept_rejected_lines": (bool, "-", False, "A rejected power line does not change the exit"
-                              " code: set it only when leaving such lines out is intended. The"
-                              " report still names every rejected line.", None),
-    "tower_span_m": (float, "m", 300.0, "Assumed tower spacing when no tower layer is given.",
-                     (10.0, 2000.0)),
-    "tower_zone_m": (float, "m", 100.0, "Distance from a tower within which the earth"
-                     " potential rise during a fault is computed.", (1.0, 2000.0)),
-    "tower_current_share": (float, "-", 0.2, "Share of the fault current discharged by the"
-                            " faulted tower's footing (5-30 %, METHODS.md §4, from memory).",
-                            (0.0, 1.0)),
-    "footing_radius_m": (float, "m", 1.0, "Equivalent hemispherical radius of a tower"
-                         " footing.", (0.05, 50.0)),
-    "grounding_menu_ohm": (list, "Ω", [10.0, 5.0, 2.0, 1.0], "Ground resistances the grounding"
-                           " design may choose, easiest first.", None),
-    "output_formats": (list, "-", ["gpkg"], "Output layer formats: 'gpkg' always, plus 'fgb'"
-                       " (FlatGeobuf) and/or 'parquet' (GeoParquet), one file per layer.", None),
-    "max_sites_per_asset": (int, "-", 6, "Largest number of grounding sites proposed on one"
-                            " asset.", (1, 100)),
-    "threads": (int, "-", 0, "Threads of the local backend: partitions of whole assets computed"
-                " side by side, rows identical to one thread; 0: up to 2 when the run has"
-                " 300,000 segments or more, else 1.", (0, 64)),
-    "cache_dir": (str, "path", "auto", "Cache of per-asset results for incremental reruns"
-                  " (GeoParquet + JSON index; safe to delete). 'auto': the folder"
-                  " '<output folder>.cache' beside the output folder; '': no cache; any other"
-                  " value: a folder relative to the config file.", None),
-    "change_threshold": (float, "-", 0.1, "Change of an asset's worst utilization since the"
-                         " previous run that changes.csv reports as moved.", (0.0, 100.0)),
-    "backend": (str, "-", "local", "Where the per-asset compute runs: 'local' (this process)"
-                " or 'dask' (a dask.distributed cluster, spatial partitions of whole assets;"
-                " needs the 'dask' extra).", None),
-    "scheduler_address": (str, "-", "", "Dask scheduler to use with backend 'dask' (e.g."
-                          " 'tcp://scheduler.example:8786'); '': start a LocalCluster on this"
-                          " machine for the run.", None),
-    "dask_workers": (int, "-", 2, "Workers of the LocalCluster started when"
-                     " scheduler_address is empty (one thread each).", (1, 256)),
-    "dask_processes": (bool, "-", True, "LocalCluster workers are processes (true) or threads"
-                       " of this process (false; GEOS and LAPACK release the GIL).", None),
-    "partitions": (int, "-", 0, "Spatial partitions of whole assets. Backend 'dask', 0:"
-                   " max(2, estimated segments / 500,000). Backend 'local', 0: one piece below"
-                   " 300,000 segments on one thread, else max(threads, estimated segments /"
-                   " 250,000), so that peak memory stays bounded.", (0, 100000)),
-    "work_dir": (str, "path", "", "Folder for the partition files of backend 'dask', relative"
-                 " to the config file; must be reachable by every worker. '': beside the"
-                 " output folder.", None),
-}
+__all__ = ["RUN_SETTINGS", "RunSettings", "Config", "LayerSource", "Arrangement", "Conductor",
+           "load_config", "load_arrangements", "read_toml"]
+
+#: The example tower arrangements shipped with corridor (package data).
+PACKAGED_ARRANGEMENTS = Path(__file__).resolve().parent / "data" / "arrangements.toml"
 
 LINE_DEFAULT_KEYS = {
     "load_current_a": 400.0,
@@ -126,12 +54,12 @@ class LayerSource:
         File path (any vector format GDAL reads).
     layer : str or None
         Layer name inside the file; None for single-layer formats.
-    fields : Mapping[str, str]
+    fields : FrozenMap[str, str]
         corridor field name -> user attribute name.
     kind : str or None
         Asset kind for every feature of an asset layer; None reads the kind
         from the ``asset_kind`` field.
-    crs : str or None
+    crs : str, int or None
         CRS to declare for a layer that carries none.
     format : str or None
         ``"osm"``: an OpenStreetMap extract read with the tag preset
@@ -144,11 +72,11 @@ class LayerSource:
     role: str
     path: Path
     layer: str | None
-    fields: MappingProxyType
+    fields: FrozenMap
     kind: str | None = None
-    crs: str | None = None
+    crs: str | int | None = None
     format: str | None = None
-    osm: MappingProxyType | None = None
+    osm: FrozenMap | None = None
 
     @property
     def label(self) -> str:
@@ -188,49 +116,43 @@ class Config:
     """A validated, immutable run configuration."""
 
     path: Path
-    run: MappingProxyType
-    line_defaults: MappingProxyType
-    kind_defaults: MappingProxyType  # kind -> MappingProxyType
+    run: RunSettings
+    line_defaults: FrozenMap
+    kind_defaults: FrozenMap  # kind -> FrozenMap
     power_lines: LayerSource
     assets: tuple[LayerSource, ...]
     soil: LayerSource | None
     grounds: LayerSource | None
     towers: LayerSource | None
-    arrangements: MappingProxyType  # name -> Arrangement
+    arrangements: FrozenMap  # name -> Arrangement
     arrangements_path: Path
-    limit_overrides: MappingProxyType
-    resolved: MappingProxyType = field(repr=False)
+    limit_overrides: FrozenMap
+    resolved: FrozenMap = field(repr=False)
 
     @property
     def output_dir(self) -> Path:
-        return (self.path.parent / self.run["output_dir"]).resolve()
+        return (self.path.parent / self.run.output_dir).resolve()
 
     def setting(self, name: str) -> Any:
-        return self.run[name]
+        """The run setting ``name`` (AttributeError if there is none)."""
+        return getattr(self.run, name)
 
+    def with_run(self, **changes: Any) -> Config:
+        """A copy with some run settings replaced, validated and recorded in ``resolved``.
 
-def _check_value(value, spec: FieldSpec) -> str | None:
-    """Return a problem description or None."""
-    if spec.dtype == "float":
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            return f"expected a number, got {value!r}"
-        if not math.isfinite(float(value)):
-            return f"expected a finite number, got {value!r}"
-    elif spec.dtype == "int":
-        if isinstance(value, bool) or not isinstance(value, int):
-            return f"expected an integer, got {value!r}"
-    elif spec.dtype == "bool":
-        if not isinstance(value, bool):
-            return f"expected true or false, got {value!r}"
-    elif spec.dtype == "str" and not isinstance(value, str):
-        return f"expected a string, got {value!r}"
-    if spec.low is not None and spec.dtype in ("float", "int") and value < spec.low:
-        return f"{value!r} is below the valid range [{spec.low}, {spec.high}]"
-    if spec.high is not None and spec.dtype in ("float", "int") and value > spec.high:
-        return f"{value!r} is above the valid range [{spec.low}, {spec.high}]"
-    if spec.choices is not None and value not in spec.choices:
-        return f"{value!r} is not one of {', '.join(spec.choices)}"
-    return None
+        Raises
+        ------
+        ConfigError
+            A name that is not a run setting, or an invalid value.
+        """
+        try:
+            run = self.run.replace(**changes)
+        except ValueError as exc:
+            raise ConfigError([f"{self.path.name}: {p}" for p in str(exc).split("; ")]) \
+                from None
+        resolved = dict(self.resolved)
+        resolved["run"] = run.as_dict()
+        return dataclasses.replace(self, run=run, resolved=FrozenMap(resolved))
 
 
 def run_crs_problem(crs) -> str | None:
@@ -358,8 +280,9 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
         if not isinstance(value, str):
             problems.append(f"{where}.fields.{key}: expected the user's field name as a string")
     kind = raw.get("kind")
-    if kind is not None and (not isinstance(kind, str) or kind not in ASSET_KINDS):
-        problems.append(f"{where}.kind: {kind!r} is not one of {', '.join(ASSET_KINDS)}")
+    kinds = registry.kind_names()
+    if kind is not None and (not isinstance(kind, str) or kind not in kinds):
+        problems.append(f"{where}.kind: {kind!r} is not one of {', '.join(kinds)}")
         kind = None
     if kind is not None and role != "assets":
         problems.append(f"{where}.kind: only asset layers take a kind")
@@ -375,7 +298,7 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
             problems.append(f"{where}.crs: {crs!r} is not a CRS pyproj understands")
             crs = None
     fmt, osm = _layer_format(raw, role, where, full, problems)
-    return LayerSource(role, full, layer, MappingProxyType(dict(fields)), kind, crs, fmt, osm)
+    return LayerSource(role, full, layer, FrozenMap(fields), kind, crs, fmt, osm)
 
 
 def _layer_format(raw: dict, role: str, where: str, full: Path, problems: list[str]):
@@ -397,9 +320,9 @@ def _layer_format(raw: dict, role: str, where: str, full: Path, problems: list[s
             problems.append(f"{where}.{key}: not used with an OpenStreetMap extract; the tag"
                             " preset maps tags to fields (override it in the layer's osm table)")
     table = raw.get("osm", {})
-    found = osm.check_overrides(table, role, where, ASSET_KINDS)
+    found = osm.check_overrides(table, role, where, registry.kind_names())
     problems.extend(found)
-    return fmt, (MappingProxyType(dict(table)) if not found and table else None)
+    return fmt, (FrozenMap(table) if not found and table else None)
 
 
 def _conductor(raw: dict, where: str, problems: list[str], circuit: int, phase: str,
@@ -529,8 +452,6 @@ def load_config(path: str | Path) -> Config:
     raw = read_toml(path, "config file", name)
     problems: list[str] = []
     base = path.parent
-    from corridor.registry import load_plugins
-
     try:  # plugins (asset kinds, limit sets) load once, here; a failure names the plugin
         plugin_registry = load_plugins()
     except ConfigError as exc:
@@ -546,37 +467,12 @@ def load_config(path: str | Path) -> Config:
     for key in raw_run:
         if key not in RUN_SETTINGS:
             problems.append(f"{name}: run.{key}: unknown setting")
-    for key, (typ, unit, default, _doc, rng) in RUN_SETTINGS.items():
-        value = raw_run.get(key, default)
-        if typ is float and isinstance(value, int) and not isinstance(value, bool):
-            value = float(value)
-        if key == "output_formats":
-            ok = isinstance(value, list) and all(v in ("gpkg", "fgb", "parquet") for v in value)
-            if not ok:
-                problems.append(f"{name}: run.{key}: expected a list of 'gpkg', 'fgb',"
-                                f" 'parquet', got {value!r}")
-                continue
-            run[key] = list(value)
-            continue
-        if typ is list:
-            ok = isinstance(value, list) and value and all(
-                isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
-                and v > 0 for v in value)
-            if not ok:
-                problems.append(f"{name}: run.{key}: expected a list of positive numbers [{unit}]")
-                continue
-            value = [float(v) for v in value]
-        elif not isinstance(value, typ) or (typ is not bool and isinstance(value, bool)):
-            problems.append(f"{name}: run.{key}: expected {typ.__name__} [{unit}], got"
-                            f" {_short(value)}")
-            continue
-        if unit == "path" and "\0" in value:
-            problems.append(f"{name}: run.{key}: contains a NUL byte: {value!r}")
-            continue
-        if rng is not None and not (rng[0] <= value <= rng[1]):
-            problems.append(f"{name}: run.{key}: {value} [{unit}] outside the valid range"
-                            f" {rng[0]}..{rng[1]}")
-        run[key] = value
+    for key, spec in RUN_SETTINGS.items():
+        value, problem = spec.validate(raw_run.get(key, spec.default))
+        if problem:
+            problems.append(f"{name}: run.{key}: {problem}")
+        else:
+            run[key] = value
     if plugin_registry is not None and "limit_set" in run:
         run["limit_set"] = plugin_registry.resolve_limit_set(run["limit_set"])
     if run.get("crs"):
@@ -597,35 +493,31 @@ def load_config(path: str | Path) -> Config:
         if key not in LINE_DEFAULT_KEYS:
             problems.append(f"{name}: line_defaults.{key}: unknown key")
             continue
-        if specs[key].dtype == "float" and isinstance(value, int) and not isinstance(value, bool):
-            value = float(value)
-        err = _check_value(value, specs[key])
+        checked, err = specs[key].validate(value)
         if err:
             problems.append(f"{name}: line_defaults.{key}: {err}")
-        line_defaults[key] = value
+        line_defaults[key] = checked if err is None else value
 
-    kind_defaults: dict[str, MappingProxyType] = {}
+    kind_defaults: dict[str, FrozenMap] = {}
     raw_defaults = _table(raw, "defaults", f"{name}: defaults", problems)
+    kinds = registry.kind_names()
     for kind in raw_defaults:
-        if kind not in ASSET_KINDS:
+        if kind not in kinds:
             problems.append(f"{name}: defaults.{kind}: unknown asset kind"
-                            f" (allowed: {', '.join(ASSET_KINDS)})")
-    for kind in ASSET_KINDS:
-        merged = dict(KIND_DEFAULTS[kind])
-        kspecs = {s.name: s for s in asset_fields(kind)}
+                            f" (allowed: {', '.join(kinds)})")
+    for kind in kinds:
+        merged = dict(registry.kind(kind).defaults)
+        kspecs = {s.name: s for s in registry.asset_fields(kind)}
         for key, value in _table(raw_defaults, kind, f"{name}: defaults.{kind}",
                                  problems).items():
             if key not in kspecs or key == "asset_id":
                 problems.append(f"{name}: defaults.{kind}.{key}: unknown field for a {kind}")
                 continue
-            is_int = isinstance(value, int) and not isinstance(value, bool)
-            if kspecs[key].dtype == "float" and is_int:
-                value = float(value)
-            err = _check_value(value, kspecs[key])
+            checked, err = kspecs[key].validate(value)
             if err:
                 problems.append(f"{name}: defaults.{kind}.{key}: {err}")
-            merged[key] = value
-        kind_defaults[kind] = MappingProxyType(merged)
+            merged[key] = checked if err is None else value
+        kind_defaults[kind] = FrozenMap(merged)
 
     layers = _table(raw, "layers", f"{name}: layers", problems)
     for key in layers:
@@ -633,7 +525,7 @@ def load_config(path: str | Path) -> Config:
             problems.append(f"{name}: layers.{key}: unknown layer role"
                             f" (allowed: {', '.join(sorted(LAYER_ROLES))})")
     line_names = {s.name for s in LINE_FIELDS}
-    asset_names = {s.name for k in ASSET_KINDS for s in asset_fields(k)} | {"asset_kind"}
+    asset_names = {s.name for k in kinds for s in registry.asset_fields(k)} | {"asset_kind"}
     power_lines = None
     if "power_lines" not in layers:
         problems.append(f"{name}: layers.power_lines: required")
@@ -663,6 +555,9 @@ def load_config(path: str | Path) -> Config:
 
     arrangements: dict[str, Arrangement] = {}
     arr_path = (base / run.get("arrangements", "arrangements.toml")).resolve()
+    if "arrangements" not in raw_run and not arr_path.is_file():
+        # no arrangements named and none beside the config: the shipped examples
+        arr_path = PACKAGED_ARRANGEMENTS
     try:
         arrangements = load_arrangements(arr_path)
     except ConfigError as exc:
@@ -680,8 +575,10 @@ def load_config(path: str | Path) -> Config:
 
     if problems:
         raise ConfigError(problems)
+    assert power_lines is not None  # a missing or bad power-line layer is a problem above
+    run_settings = RunSettings(**run)
     resolved = {
-        "run": run,
+        "run": run_settings.as_dict(),
         "line_defaults": line_defaults,
         "defaults": {k: dict(v) for k, v in kind_defaults.items()},
         "layers": {
@@ -694,18 +591,18 @@ def load_config(path: str | Path) -> Config:
     }
     return Config(
         path=path,
-        run=MappingProxyType(run),
-        line_defaults=MappingProxyType(line_defaults),
-        kind_defaults=MappingProxyType(kind_defaults),
+        run=run_settings,
+        line_defaults=FrozenMap(line_defaults),
+        kind_defaults=FrozenMap(kind_defaults),
         power_lines=power_lines,
         assets=tuple(assets),
         soil=optional["soil"],
         grounds=optional["grounds"],
         towers=optional["towers"],
-        arrangements=MappingProxyType(arrangements),
+        arrangements=FrozenMap(arrangements),
         arrangements_path=arr_path,
-        limit_overrides=MappingProxyType(limit_overrides),
-        resolved=MappingProxyType(resolved),
+        limit_overrides=FrozenMap(limit_overrides),
+        resolved=FrozenMap(resolved),
     )
 
 

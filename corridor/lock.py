@@ -59,7 +59,7 @@ def lock_path(out_dir: Path) -> Path:
     return out_dir.parent / f"{out_dir.name}.lock"
 
 
-def _start_tick(pid: int) -> str | None:
+def process_start_tick(pid: int) -> str | None:
     """Start time of a process in clock ticks since boot (Linux ``/proc``), else None."""
     try:
         with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as fh:
@@ -82,7 +82,7 @@ def pid_alive(pid: int, start_tick: str | None = None) -> bool:
     except OverflowError:
         return False
     if start_tick is not None:
-        now = _start_tick(pid)
+        now = process_start_tick(pid)
         if now is not None and now != start_tick:
             return False
     return True
@@ -157,7 +157,7 @@ class OutputLock:
     def _record(self) -> dict:
         return {"pid": os.getpid(), "host": socket.gethostname(),
                 "started_utc": datetime.now(UTC).isoformat(timespec="seconds"),
-                "start_tick": _start_tick(os.getpid()), "out_dir": str(self.out_dir),
+                "start_tick": process_start_tick(os.getpid()), "out_dir": str(self.out_dir),
                 "heartbeat_s": self.heartbeat_s}
 
     def _try_create(self) -> bool:

@@ -278,7 +278,7 @@ def staging_path(out_dir: Path) -> Path:
 
 def make_staging(out_dir: Path) -> Path:
     """Create the (marked) staging folder of this process inside ``out_dir``."""
-    from corridor.lock import _start_tick
+    from corridor.lock import process_start_tick
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -287,7 +287,7 @@ def make_staging(out_dir: Path) -> Path:
         remove_staging(path)
     path.mkdir()
     marker = {"pid": os.getpid(), "host": socket.gethostname(),
-              "start_tick": _start_tick(os.getpid()),
+              "start_tick": process_start_tick(os.getpid()),
               "created_utc": datetime.now(UTC).isoformat(timespec="seconds")}
     _write_json_synced(marker, path / STAGING_MARKER)
     return path
@@ -307,12 +307,6 @@ def remove_staging(path: Path) -> bool:
 
 
 # -- publishing -----------------------------------------------------------------
-
-def _pause(point: str) -> None:
-    from corridor.runner import pause_for_test
-
-    pause_for_test(point)
-
 
 def commit(out_dir: Path, staging: Path, owned_before: dict[str, dict]) -> dict:
     """Publish every file of ``staging`` into ``out_dir`` (see the module docstring).
@@ -362,7 +356,6 @@ def commit(out_dir: Path, staging: Path, owned_before: dict[str, dict]) -> dict:
                "remove": {n: r for n, r in owned_before.items() if n not in records}}
     _write_json_synced(journal, staging / "journal.json")
     fsync_dir(staging)
-    _pause("publish")
     os.replace(staging / "journal.json", out_dir / JOURNAL)  # the commit point
     fsync_dir(out_dir)
     roll_forward(out_dir, journal)
@@ -385,7 +378,6 @@ def roll_forward(out_dir: Path, journal: dict) -> None:
                         " (files listed in %s are corridor's; edit copies of them)", dst,
                         MANIFEST)
         os.replace(src, dst)
-        _pause("move")
     for n, record in (journal.get("remove", {}) or {}).items():
         p = out_dir / n
         if Path(n).name != n or not os.path.lexists(p):

@@ -1,9 +1,30 @@
-"""The screening run as a script of stages.
+"""The screening run: the one sequence every entry point calls.
 
-read -> segment -> expose -> couple -> respond -> assess -> ground -> write
+:func:`screen` is the sequence of a run::
 
-Each stage is a plain function of the previous stages' results; the CLI and
-the step registry call them. Nothing here does physics itself: it turns
+    read_inputs   io/layers.py: every layer, checked; rejected features listed
+    asset_keys    keys.py: what each asset's results depend on, hashed
+    plan          cache.py (unchanged assets from the cache) and partitions.py
+                  (spatial partitions of whole assets, for the backend)
+    compute       backends/ run compute() below on each partition: segment
+                  geometry here, then the per-asset steps (couple, respond,
+                  assess, ground in steps/)
+    merge         partitions.merge: rows in full-run order, ids renumbered
+    finalize      finalize() below: segment ids, the run-wide steps (rank,
+                  summary layers)
+    compare       changes.py: changes.csv against the previous run
+
+The CLI and the step catalog reach it through :func:`corridor.runner.publish`
+(lock, staging folder, writing through :mod:`corridor.io.write`, publish);
+the cache (:func:`corridor.cache.incremental_compute`) and both backends
+(:mod:`corridor.backends`) call :func:`compute` on pieces of whole assets
+(:func:`subset_inputs`) and :func:`corridor.partitions.merge` to put them
+together. Per-asset stages (segment geometry here, then couple, respond,
+assess, ground in :mod:`corridor.steps`) run inside :func:`compute`;
+run-wide stages (rank, summary tables) in :func:`finalize`. The typed
+result that the outputs are written from is :class:`corridor.result.Result`.
+
+Nothing here does physics itself: it turns
 tables into arrays for :mod:`corridor.physics`, :mod:`corridor.network` and
 :mod:`corridor.limits`, and writes their answers back into tables.
 """
@@ -76,6 +97,10 @@ class Run:
     #: Per-asset pair and section counts of a run merged from partitions or the
     #: cache, which keeps no :class:`Geometry` (``asset_id``, ``pairs``, ``sections``).
     asset_counts: pd.DataFrame | None = None
+    #: Permitted value of every criterion on every segment, as the assess step found it
+    #: (``asset_id``, ``segment_index``, ``permitted_<criterion>``): the report's profiles
+    #: present it (:func:`limits_frame`); a per-asset table, cached and merged.
+    limits_table: pd.DataFrame | None = None
 
 
 class _Timer:
@@ -234,11 +259,29 @@ def compute(cfg: Config, inputs: Inputs, stages: dict | None = None,
     for name, fn in (stages or {}).items():
         with _Timer(run, name, step_log_level):
             fn(run)
+    run.limits_table = limits_frame(run)
     run.counts["segments"] = len(run.geometry.segments)
     run.counts["pairs"] = len(run.geometry.pairs)
     run.counts["sections"] = len(run.geometry.sections)
     run.counts["exposures"] = len(run.geometry.exposures)
     return run
+
+
+def limits_frame(run: Run) -> pd.DataFrame | None:
+    """Per segment, the permitted value of each criterion the assess step judged it by.
+
+    Taken from ``run.assessment["permitted"]`` (rows of ``run.segment_table`` as the
+    per-asset stages left it); None when no assess step ran.
+    """
+    res = run.assessment
+    t = run.segment_table
+    if not isinstance(res, dict) or "permitted" not in res or t is None:
+        return None
+    frame = pd.DataFrame({"asset_id": t["asset_id"].to_numpy(dtype=object),
+                          "segment_index": t["segment_index"].to_numpy(np.int64)})
+    for name, values in res["permitted"].items():
+        frame[f"permitted_{name}"] = np.broadcast_to(np.asarray(values, float), len(t))
+    return frame
 
 
 def finalize(run: Run, stages: dict | None = None) -> Run:
@@ -271,10 +314,127 @@ def run_screening(cfg: Config, stages: dict | None = None,
     return finalize(run, final_stages)
 
 
-def output_paths(out_dir: Path) -> dict[str, Path]:
-    return {
-        "gpkg": out_dir / "screening.gpkg",
-        "exposures_csv": out_dir / "exposures.csv",
-        "rejected_csv": out_dir / "rejected.csv",
-        "run_json": out_dir / "run.json",
-    }
+# -- the one sequence: read -> plan partitions -> compute -> merge -> finalize -> compare
+
+def cache_folder(cfg: Config, out_dir: Path) -> Path | None:
+    """The cache folder of a run (``run.cache_dir``), or None for no cache."""
+    value = str(cfg.run.get("cache_dir", "auto"))
+    if value == "":
+        return None
+    if value == "auto":
+        return out_dir.parent / f"{out_dir.name}.cache"
+    return (cfg.path.parent / value).resolve()
+
+
+#: Fields whose filled-in defaults run.json lists by feature id (safety relevant).
+DEFAULT_IDS_LISTED = ("fault_current_start_ka", "fault_current_end_ka", "clearing_time_s",
+                      "post_type", "coating_resistance_ohm_m2", "coating_type",
+                      "start_termination", "end_termination")
+
+
+def _row_role(row: dict, cfg: Config, asset_labels: set[str]) -> str:
+    role = row.get("role")
+    if role:
+        return "power_lines" if role == "power_lines" else (
+            "assets" if role == "assets" else "other")
+    if row.get("layer") == cfg.power_lines.label:
+        return "power_lines"
+    return "assets" if row.get("layer") in asset_labels else "other"
+
+
+def rejected_summary(cfg: Config, inputs) -> dict:
+    """Rejected features of a run split by role.
+
+    Returns
+    -------
+    dict
+        ``counts``: ``rejected_power_lines``, ``rejected_assets``,
+        ``rejected_other`` (features, each counted once); ``power_lines``:
+        ``[{"line_id", "field", "reason"}]`` for run.json; ``assets`` and
+        ``other``: the rejected rows of those roles.
+    """
+    asset_labels = {a.label for a in cfg.assets}
+    parts: dict[str, list[dict]] = {"power_lines": [], "assets": [], "other": []}
+    for row in inputs.rejected.rows:
+        parts[_row_role(row, cfg, asset_labels)].append(row)
+
+    def features(rows):
+        return len({(r.get("layer"), r.get("feature_id")) for r in rows})
+
+    return {"counts": {"rejected_power_lines": features(parts["power_lines"]),
+                       "rejected_assets": features(parts["assets"]),
+                       "rejected_other": features(parts["other"])},
+            "power_lines": [{"line_id": str(r["feature_id"]), "field": str(r["field"]),
+                             "reason": str(r["reason"])} for r in parts["power_lines"]],
+            "assets": parts["assets"], "other": parts["other"]}
+
+
+def defaults_used_record(inputs) -> dict:
+    """run.json's ``defaults_used``: field -> count, with ids for the safety-relevant fields."""
+    used = getattr(inputs, "defaults_used", None) or {}
+    out = {}
+    for fld, ids in sorted(used.items()):
+        ids = [str(i) for i in ids]
+        entry: dict = {"count": len(ids)}
+        if fld in DEFAULT_IDS_LISTED:
+            entry["ids"] = ids
+        out[fld] = entry
+    return out
+
+
+def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
+           final_stages: dict | None = None) -> Run:
+    """Read, compute (incrementally when a cache is configured), finalize, compare."""
+    from corridor import backends, progress
+    from corridor import cache as cache_mod
+    from corridor import changes as changes_mod
+    from corridor import keys as keys_mod
+    from corridor.io.layers import read_inputs
+
+    compute_fn = backends.compute_function(cfg, out_dir.parent)
+    total = 5
+    progress.stage("read", 1, total)
+    t0 = time.perf_counter()
+    inputs = read_inputs(cfg)
+    read_s = round(time.perf_counter() - t0, 4)
+    rejected = rejected_summary(cfg, inputs)
+    if len(inputs.assets) == 0:
+        from corridor.errors import InputError
+
+        raise InputError(["asset layers: no usable asset features; every one was rejected:"]
+                         + [f"layer {r['layer']}: feature {r['feature_id']}: field"
+                            f" '{r['field']}': {r['reason']}" for r in inputs.rejected.rows])
+    progress.stage("compute", 2, total)
+    t1 = time.perf_counter()
+    keys = keys_mod.asset_keys(cfg, inputs)
+    hash_s = round(time.perf_counter() - t1, 4)
+    folder = cache_folder(cfg, out_dir)
+    if folder is not None:
+        with cache_mod.locked(folder) as usable:  # None: cache unusable, warned
+            run = backends.incremental_compute(cache_mod, cfg, inputs, stages, usable, keys,
+                                               compute_fn)
+    else:
+        run = compute_fn(cfg, inputs, stages)
+        run.counts["assets_recomputed"] = len(inputs.assets)
+        run.counts["assets_from_cache"] = 0
+    run.timings_s = {"read": read_s, "hash": hash_s, **run.timings_s}
+    run.counts.update(rejected["counts"])
+    progress.stage("finalize", 3, total)
+    finalize(run, final_stages)
+    run.counts["assets_recomputed"] = int(run.counts.get("assets_recomputed", 0))
+    progress.stage("compare", 4, total)
+    state = changes_mod.inputs_state(run, keys)
+    previous = changes_mod.read_previous(out_dir)
+    frame, summary = changes_mod.compare(run, keys, state, previous,
+                                         float(cfg.run.get("change_threshold", 0.1)))
+    run.extra_tables["csv:changes.csv"] = frame
+    extra_json = dict(run.extra_tables.get("json", {}))
+    extra_json["changes"] = summary
+    extra_json["inputs_state"] = state
+    extra_json["rejected_power_lines"] = rejected["power_lines"]
+    extra_json["defaults_used"] = defaults_used_record(inputs)
+    run.extra_tables["json"] = extra_json
+    progress.stage("write", 5, total)
+    return run
+
+

@@ -20,27 +20,26 @@ that adds what the plugin brings through the methods of :class:`Registry`:
         registry.add_limit_sets(Path(__file__).parent / "limits")
 
 Plugins are loaded once per process, lazily: when a run configuration is
-loaded (:func:`corridor.config.load_config`) or when the asset-kind tables of
-:mod:`corridor.schema` are first consulted. A plugin that fails to import or
-to register is rolled back completely and reported as a
+loaded (:func:`corridor.config.load_config`) or when the registry is first
+asked for its kinds. What a plugin registers is staged and joins the
+registry only when its ``register`` returns; a plugin that fails to import
+or to register leaves nothing behind and is reported as a
 :class:`~corridor.errors.ConfigError` naming the plugin (and its entry point)
 on every later configuration load, so a broken plugin is never half-applied
 and never silently ignored.
 
-Who consults the registry
--------------------------
-- :mod:`corridor.schema` — ``ASSET_KINDS``, ``KIND_FIELDS`` and
-  ``KIND_DEFAULTS`` are live views of the registered kinds, so config
-  validation (kinds, ``[defaults.<kind>]``, field names) and the layer reader
-  see plugin kinds without change;
-- :func:`corridor.steps.respond.line_constants` dispatches each kind's
-  segments to the kind's ``line_constants`` callable;
-- :func:`corridor.config.load_config` resolves ``run.limit_set`` names
-  provided by plugins to their files;
-- the limit-set validator's list of asset kinds
-  (``corridor.limits.limit_sets.ASSET_KINDS``) is kept equal to the
-  registered kinds, so a plugin's limit set may name its own kind in
-  ``applies_to``.
+The registry is the only store of the kinds and plugin limit sets; every
+consumer asks it and nothing is copied into other modules:
+
+- config validation (kinds, ``[defaults.<kind>]``, field names) and the
+  layer reader: :meth:`Registry.kind_names`, :meth:`Registry.kind`,
+  :meth:`Registry.asset_fields`;
+- :func:`corridor.steps.respond.line_constants`: each kind's
+  ``line_constants``; the stages act on the kinds' capabilities
+  (:class:`corridor.kinds.AssetKind`), never on their names;
+- :func:`corridor.config.load_config`: plugin ``run.limit_set`` names;
+- the limit-set loader is handed :meth:`Registry.kind_names`, so a plugin's
+  limit set may name its own kind in ``applies_to``.
 """
 
 from __future__ import annotations
@@ -49,15 +48,19 @@ import hashlib
 import importlib.metadata
 import logging
 import re
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any
-
-import numpy as np
 
 from corridor.errors import ConfigError
+from corridor.kinds import AssetKind, KindSegments, LineConstantFn, RadiusFrom, builtin_kinds
+from corridor.limits.limit_sets import DEFAULT_SEARCH_DIR, available_limit_sets
+from corridor.schema import COMMON_ASSET_FIELDS, TERMINATIONS
+from corridor.settings import Spec
+
+__all__ = ["AssetKind", "KindSegments", "LineConstantFn", "RadiusFrom", "Registry", "registry",
+           "ensure_loaded", "load_plugins", "ENTRY_POINT_GROUP"]
 
 log = logging.getLogger(__name__)
 
@@ -68,127 +71,26 @@ _NAME_RE = re.compile(r"^[a-z][a-z0-9_]*$")
 _DTYPES = ("float", "int", "str", "bool")
 
 
-@dataclass(frozen=True)
-class KindSegments:
-    """The segments of one asset kind, as its line-constant model sees them.
-
-    Attributes
-    ----------
-    kind : str
-        The asset kind.
-    frequency_hz : float
-        System frequency [Hz].
-    soil_resistivity_ohm_m : ndarray, shape (n,)
-        Soil resistivity under each segment [Ω·m].
-    height_m : ndarray, shape (n,)
-        Height of the conductor above ground [m]; negative is depth of burial.
-    assets : DataFrame
-        The run's asset table (one row per asset, every kind).
-    feature : ndarray of int, shape (n,)
-        Row of ``assets`` each segment belongs to.
-    """
-
-    kind: str
-    frequency_hz: float
-    soil_resistivity_ohm_m: np.ndarray
-    height_m: np.ndarray
-    assets: Any
-    feature: np.ndarray
-
-    def __len__(self) -> int:
-        return len(self.feature)
-
-    def column(self, name: str, default) -> np.ndarray:
-        """Per-segment values of asset attribute ``name``; missing or NaN take ``default``."""
-        from corridor.steps.respond import asset_column
-
-        return asset_column(self.assets, name, default)[self.feature]
-
-
-#: A kind's line-constant model: ``fn(segments: KindSegments)`` returning
-#: ``(z_ohm_per_m, y_s_per_m)`` or ``(z_ohm_per_m, y_s_per_m, emf_scale)``,
-#: arrays of shape (n,) (complex series impedance [Ω/m], complex shunt
-#: admittance [S/m], real EMF scale factor [-], default 1).
-LineConstantFn = Callable[[KindSegments], tuple]
-
-
-@dataclass(frozen=True)
-class AssetKind:
-    """One asset kind: its attributes, defaults and response model.
-
-    Attributes
-    ----------
-    name : str
-        Lower-case identifier used in configs and layers (``asset_kind``).
-    fields : tuple of FieldSpec
-        The kind's own attributes (the common ones — ``asset_id``,
-        ``height_m``, terminations — come from :mod:`corridor.schema`).
-    defaults : Mapping
-        Default of every attribute but ``asset_id``; each value's provenance
-        belongs in a comment where it is written.
-    line_constants : callable
-        See :data:`LineConstantFn`.
-    terminations : tuple of (str, str)
-        Default (start, end) terminations: ``open``, ``grounded``,
-        ``continuing``.
-    above_ground : bool
-        True for a conductor carried above ground (electric-field coupling
-        applies); its default ``height_m`` must then be positive, otherwise
-        zero or negative.
-    description : str
-        One line for listings.
-    plugin : str
-        Entry-point name of the plugin that added the kind; ``""`` built in.
-    """
-
-    name: str
-    fields: tuple
-    defaults: Mapping
-    line_constants: LineConstantFn | None
-    terminations: tuple[str, str]
-    above_ground: bool
-    description: str = ""
-    plugin: str = ""
-
-
 @dataclass
 class _PluginRecord:
+    """A plugin being loaded: what it registers is staged here until it succeeds."""
+
     name: str
     value: str
     version: str
-    undo: list[Callable[[], None]] = field(default_factory=list)
-
-
-def _builtin_kinds() -> dict[str, AssetKind]:
-    from corridor import schema
-
-    descriptions = {
-        "pipeline": "coated buried steel pipeline",
-        "fence": "wire fence on metal or wooden posts",
-        "rail": "railway track, both rails in parallel",
-        "telecom": "telecom cable: the pair against earth, sheath as a screening factor",
-    }
-    out = {}
-    for name in schema.BUILTIN_ASSET_KINDS:
-        d = schema.BUILTIN_KIND_DEFAULTS[name]
-        out[name] = AssetKind(
-            name=name, fields=schema.BUILTIN_KIND_FIELDS[name],
-            defaults=MappingProxyType(dict(d)),
-            line_constants=None,  # resolved lazily: corridor.steps.respond.BUILTIN_LINE_CONSTANTS
-            terminations=(d["start_termination"], d["end_termination"]),
-            above_ground=float(d["height_m"]) > 0, description=descriptions[name])
-    return out
+    kinds: dict[str, AssetKind] = field(default_factory=dict)
+    limit_dirs: list[tuple[Path, str]] = field(default_factory=list)
 
 
 class Registry:
-    """What corridor can screen: asset kinds, limit-set folders, coupling methods.
+    """What corridor can screen: asset kinds and limit-set folders.
 
     Use the module-level :data:`registry`; plugins receive it in
     ``register(registry)``.
     """
 
     def __init__(self):
-        self._kinds: dict[str, AssetKind] = {}
+        self._kinds: dict[str, AssetKind] = builtin_kinds()
         self._limit_dirs: list[tuple[Path, str]] = []
         self._plugins: dict[str, _PluginRecord] = {}
         self._current: _PluginRecord | None = None
@@ -197,85 +99,76 @@ class Registry:
         self._errors: list[str] = []
 
     # ------------------------------------------------------------------ kinds
-    def _ensure_builtins(self) -> None:
-        if not self._kinds:
-            self._kinds.update(_builtin_kinds())
-
     def kind_names(self) -> tuple[str, ...]:
         """Registered asset kinds, built-ins first, then in registration order."""
         ensure_loaded()
-        self._ensure_builtins()
         return tuple(self._kinds)
 
     def kind(self, name: str) -> AssetKind:
         """The :class:`AssetKind` called ``name`` (KeyError if unknown)."""
         ensure_loaded()
-        self._ensure_builtins()
         return self._kinds[name]
 
     def kinds(self) -> tuple[AssetKind, ...]:
+        """Every registered :class:`AssetKind`, in :meth:`kind_names` order."""
         ensure_loaded()
-        self._ensure_builtins()
         return tuple(self._kinds.values())
 
-    def line_constant_model(self, name: str) -> LineConstantFn:
-        """The line-constant callable of kind ``name``."""
-        k = self.kind(name)
-        if k.line_constants is not None:
-            return k.line_constants
-        from corridor.steps.respond import BUILTIN_LINE_CONSTANTS
-
-        return BUILTIN_LINE_CONSTANTS[name]
+    def asset_fields(self, name: str) -> tuple[Spec, ...]:
+        """Every field spec of an asset of kind ``name``: the common ones, then its own."""
+        return COMMON_ASSET_FIELDS + tuple(self.kind(name).fields)
 
     def add_asset_kind(self, name: str, fields: Iterable, defaults: Mapping,
                        line_constants: LineConstantFn,
                        terminations: tuple[str, str] = ("open", "open"),
-                       above_ground: bool = False, description: str = "") -> None:
+                       above_ground: bool = False, description: str = "", *,
+                       coated: bool = False, section_emf: bool = False,
+                       radius: RadiusFrom | None = None,
+                       grounding_terminations: tuple[str, Mapping] | None = None) -> None:
         """Add an asset kind.
 
         Parameters
         ----------
         name : str
             Lower-case identifier, not already registered.
-        fields : iterable of FieldSpec
-            The kind's own attributes; names carry their unit and may not
-            repeat a common attribute (``asset_id``, ``height_m``,
-            ``start_termination``, ``end_termination``,
-            ``termination_resistance_ohm``).
+        fields : iterable of Spec
+            The kind's own attributes (``corridor.schema.FieldSpec``); names
+            carry their unit and may not repeat a common attribute
+            (``asset_id``, ``height_m``, ``start_termination``,
+            ``end_termination``, ``termination_resistance_ohm``).
         defaults : mapping
             A valid default for every attribute but ``asset_id`` (the common
             ones included; ``start_termination``/``end_termination`` may be
             left out and come from ``terminations``).
         line_constants : callable
-            See :data:`LineConstantFn`.
+            See :data:`corridor.kinds.LineConstantFn`.
         terminations : (str, str)
             Default (start, end) terminations.
         above_ground : bool
-            Conductor carried above ground.
+            Conductor carried above ground (electric-field coupling applies).
         description : str
             One line for listings.
+        coated, section_emf, radius, grounding_terminations
+            Capabilities, see :class:`corridor.kinds.AssetKind`.
 
         Raises
         ------
         ConfigError
             Listing every problem with the declaration.
         """
-        from corridor.config import _check_value
-        from corridor.schema import COMMON_ASSET_FIELDS, TERMINATIONS, FieldSpec
-
-        self._ensure_builtins()
         problems: list[str] = []
         where = f"asset kind {name!r}"
         if not isinstance(name, str) or not _NAME_RE.match(name):
             raise ConfigError(f"{where}: the name must be a lower-case identifier")
-        if name in self._kinds:
-            raise ConfigError(f"{where}: already registered"
-                              f" ({self._kinds[name].plugin or 'built in'})")
+        staged = self._current.kinds if self._current is not None else {}
+        if name in self._kinds or name in staged:
+            owner = self._kinds[name].plugin if name in self._kinds else ""
+            raise ConfigError(f"{where}: already registered ({owner or 'built in'})")
         fields = tuple(fields)
         common = {s.name for s in COMMON_ASSET_FIELDS}
         seen: set[str] = set()
         for s in fields:
-            if not isinstance(s, FieldSpec):
+            if not isinstance(s, Spec):
                 problems.append(f"{where}: fields: {s!r} is not a corridor.schema.FieldSpec")
                 continue
             if s.name in common or s.name in seen or s.name == "asset_kind":
@@ -291,18 +184,16 @@ class Registry:
             problems.append(f"{where}: terminations: expected two of {', '.join(TERMINATIONS)},"
                             f" got {terminations!r}")
             terms = ("open", "open")
+        if radius is not None and not isinstance(radius, RadiusFrom):
+            problems.append(f"{where}: radius: expected a corridor.kinds.RadiusFrom")
         merged = {"start_termination": terms[0], "end_termination": terms[1],
                   **dict(defaults)}
-        specs = {s.name: s for s in (*COMMON_ASSET_FIELDS, *fields) if isinstance(s, FieldSpec)}
+        specs = {s.name: s for s in (*COMMON_ASSET_FIELDS, *fields) if isinstance(s, Spec)}
         for key, value in merged.items():
             if key not in specs or key == "asset_id":
                 problems.append(f"{where}: defaults.{key}: not a field of the kind")
                 continue
-            if specs[key].dtype == "float" and isinstance(value, int) and not isinstance(
-                    value, bool):
-                value = float(value)
-                merged[key] = value
-            err = _check_value(value, specs[key])
+            merged[key], err = specs[key].validate(value)
             if err:
                 problems.append(f"{where}: defaults.{key}: {err}")
         for key in specs:
@@ -314,24 +205,13 @@ class Registry:
                             f" height_m = {height} m")
         if problems:
             raise ConfigError(problems)
-        plugin = self._current.name if self._current else ""
-        self._kinds[name] = AssetKind(name, fields, MappingProxyType(merged), line_constants,
-                                      (merged["start_termination"], merged["end_termination"]),
-                                      bool(above_ground), description, plugin)
-        self._sync_limit_kinds()
-
-        def undo():
-            self._kinds.pop(name, None)
-            self._sync_limit_kinds()
-
-        self._record(undo)
-
-    def _sync_limit_kinds(self) -> None:
-        # The limit-set validator checks ``applies_to`` against its module-level
-        # tuple; keep it equal to the registered kinds.
-        from corridor.limits import limit_sets
-
-        limit_sets.ASSET_KINDS = tuple(self._kinds)
+        kind = AssetKind(
+            name, fields, MappingProxyType(merged), line_constants,
+            (merged["start_termination"], merged["end_termination"]), bool(above_ground),
+            coated=bool(coated), section_emf=bool(section_emf), radius=radius,
+            grounding_terminations=grounding_terminations, description=description,
+            plugin=self._current.name if self._current is not None else "")
+        (staged if self._current is not None else self._kinds)[name] = kind
 
     # ------------------------------------------------------------- limit sets
     def add_limit_sets(self, directory: str | Path) -> None:
@@ -341,7 +221,7 @@ class Registry:
         ------
         ConfigError
             The folder does not exist, holds no ``.toml`` file, or a name is
-            already taken (by ``config/limits/`` or another plugin).
+            already taken (by a shipped set or another plugin).
         """
         d = Path(directory).resolve()
         if not d.is_dir():
@@ -350,19 +230,18 @@ class Registry:
         if not names:
             raise ConfigError(f"limit-set folder {d}: holds no .toml file")
         taken = set(self.limit_set_names())
+        for staged, _plugin in (self._current.limit_dirs if self._current else []):
+            taken.update(p.stem for p in staged.glob("*.toml"))
         clash = [n for n in names if n in taken]
         if clash:
             raise ConfigError(f"limit-set folder {d}: name(s) already taken: {', '.join(clash)}")
         entry = (d, self._current.name if self._current else "")
-        self._limit_dirs.append(entry)
-        self._record(lambda: self._limit_dirs.remove(entry))
+        (self._current.limit_dirs if self._current is not None else self._limit_dirs).append(
+            entry)
 
     def limit_set_names(self) -> tuple[str, ...]:
         """Names of the shipped limit sets and those plugins add."""
-        from corridor.limits.limit_sets import available_limit_sets
-        from corridor.steps import LIMITS_DIR
-
-        names = list(available_limit_sets(LIMITS_DIR))
+        names = list(available_limit_sets(DEFAULT_SEARCH_DIR))
         for d, _plugin in self._limit_dirs:
             names.extend(sorted(p.stem for p in d.glob("*.toml")))
         return tuple(names)
@@ -375,50 +254,7 @@ class Registry:
                 return str(path)
         return name
 
-    # -------------------------------------------------------- coupling models
-    def add_mutual_impedance_method(self, name: str, fn: Callable, *,
-                                    replace: bool = False) -> None:
-        """Add (or, with ``replace=True``, replace) an earth-return method.
-
-        ``fn(big_d, small_d, theta, m, w, rho, f)`` with the arguments of
-        :data:`corridor.physics.earth_return.MUTUAL_IMPEDANCE_METHODS`
-        (distance to the image [m], direct distance [m], angle [rad],
-        √(ωμ0/ρ) [1/m], ω [rad/s], ρ [Ω·m], f [Hz]) returns Z [Ω/m]. The
-        production dispatcher uses the entries named ``low_frequency``,
-        ``surface`` and ``carson_table``; replacing one of those changes
-        every run, a new name only makes the method available to code that
-        asks for it.
-        """
-        from corridor.physics import earth_return
-
-        self._add_to_dict(earth_return.MUTUAL_IMPEDANCE_METHODS, name, fn, replace,
-                          "mutual-impedance method")
-
-    def _add_to_dict(self, table: dict, name: str, fn: Callable, replace: bool,
-                     what: str) -> None:
-        if not isinstance(name, str) or not _NAME_RE.match(name):
-            raise ConfigError(f"{what} {name!r}: the name must be a lower-case identifier")
-        if not callable(fn):
-            raise ConfigError(f"{what} {name!r}: not callable")
-        if name in table and not replace:
-            raise ConfigError(f"{what} {name!r}: already registered (pass replace=True)")
-        missing = object()
-        old = table.get(name, missing)
-        table[name] = fn
-
-        def undo():
-            if old is missing:
-                table.pop(name, None)
-            else:
-                table[name] = old
-
-        self._record(undo)
-
     # ---------------------------------------------------------------- plugins
-    def _record(self, undo: Callable[[], None]) -> None:
-        if self._current is not None:
-            self._current.undo.append(undo)
-
     def plugins(self) -> dict[str, str]:
         """Loaded plugins: entry-point name -> ``distribution version (value)``."""
         return {p.name: f"{p.version} ({p.value})" for p in self._plugins.values()}
@@ -434,7 +270,6 @@ class Registry:
             return
         self._loading = True
         try:
-            self._ensure_builtins()
             if entry_points is None:
                 entry_points = importlib.metadata.entry_points(group=ENTRY_POINT_GROUP)
             for ep in sorted(entry_points, key=lambda e: e.name):
@@ -458,22 +293,16 @@ class Registry:
                 raise ConfigError(f"{ep.value} is not callable")
             fn(self)
         except ConfigError as exc:
-            self._rollback(rec)
             self._errors.extend(f"{label}: {p}" for p in exc.problems)
         except Exception as exc:  # a plugin may fail in any way; report it by name
-            self._rollback(rec)
             self._errors.append(f"{label}: failed to load: {type(exc).__name__}: {exc}")
-        else:
+        else:  # only a plugin that registered completely joins the registry
+            self._kinds.update(rec.kinds)
+            self._limit_dirs.extend(rec.limit_dirs)
             self._plugins[ep.name] = rec
             log.debug("loaded %s, %s", label, version)
         finally:
             self._current = None
-
-    @staticmethod
-    def _rollback(rec: _PluginRecord) -> None:
-        for undo in reversed(rec.undo):
-            undo()
-        rec.undo.clear()
 
     def check(self) -> None:
         """Raise the plugin failures (if any) as one :class:`ConfigError`."""
@@ -481,9 +310,10 @@ class Registry:
             raise ConfigError(list(self._errors))
 
     def unload(self) -> None:
-        """Undo every plugin and forget the load (tests, or a fresh scan)."""
-        for rec in reversed(list(self._plugins.values())):
-            self._rollback(rec)
+        """Forget every plugin and what it registered (tests, or a fresh scan)."""
+        for name in [k for k, v in self._kinds.items() if v.plugin in self._plugins]:
+            del self._kinds[name]
+        self._limit_dirs = [e for e in self._limit_dirs if e[1] not in self._plugins]
         self._plugins.clear()
         self._errors.clear()
         self._loaded = False

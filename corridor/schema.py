@@ -1,44 +1,18 @@
 """Canonical field names, units, defaults and valid ranges of corridor's inputs.
 
 The config maps the user's attribute names onto these names; the readers
-validate each value against its spec. The README's Inputs section is the
-human version of this module.
+validate each value against its spec. The README's Inputs tables are
+generated from this module (:mod:`corridor.settings_tables`). The kinds
+themselves, plugins' included, are in the registry (:mod:`corridor.registry`).
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass
+from corridor.settings import Spec
 
-
-@dataclass(frozen=True)
-class FieldSpec:
-    """One input attribute.
-
-    Parameters
-    ----------
-    name : str
-        Canonical name, with its unit as a suffix.
-    dtype : str
-        ``"float"``, ``"int"``, ``"str"`` or ``"bool"``.
-    default : object or None
-        Default used when the attribute is missing and the layer allows it;
-        ``None`` makes the field required.
-    low, high : float or None
-        Inclusive valid range for numbers.
-    choices : tuple of str or None
-        Allowed values for strings.
-    doc : str
-        Meaning, and the source of the default.
-    """
-
-    name: str
-    dtype: str
-    default: object = None
-    low: float | None = None
-    high: float | None = None
-    choices: tuple[str, ...] | None = None
-    doc: str = ""
+#: An input field's spec: the one :class:`corridor.settings.Spec` (plugins import it
+#: under this name).
+FieldSpec = Spec
 
 
 #: The asset kinds corridor ships with; plugins add more (:mod:`corridor.registry`).
@@ -138,8 +112,8 @@ BUILTIN_KIND_DEFAULTS: dict[str, dict[str, object]] = {
         "termination_resistance_ohm": 10.0,  # common practice
         "diameter_m": 0.508,  # 20 in line pipe (common practice)
         "wall_thickness_m": 0.0095,  # common practice
-        "coating_resistance_ohm_m2": 1.0e5,  # 3LPE/FBE 1e4-1e6 (METHODS.md §5, from memory)
-        "steel_relative_permeability": 300.0,  # METHODS.md §1 (from memory)
+        "coating_resistance_ohm_m2": 1.0e5,  # 3LPE/FBE 1e4-1e6 (docs/methods.md §5, from memory)
+        "steel_relative_permeability": 300.0,  # docs/methods.md §1 (from memory)
         "cathodic_protection": True,  # common practice for coated steel pipelines
         "coating_type": "pe",
     },
@@ -172,70 +146,3 @@ BUILTIN_KIND_DEFAULTS: dict[str, dict[str, object]] = {
         "conductor_radius_m": 0.01,
     },
 }
-
-
-class _Kinds(Sequence):
-    """Live tuple-like view of the registered asset kinds (built-ins, then plugins)."""
-
-    def _names(self) -> tuple[str, ...]:
-        from corridor.registry import registry
-
-        return registry.kind_names()
-
-    def __getitem__(self, i):
-        return self._names()[i]
-
-    def __len__(self) -> int:
-        return len(self._names())
-
-    def __iter__(self) -> Iterator[str]:
-        return iter(self._names())
-
-    def __contains__(self, kind) -> bool:
-        return kind in self._names()
-
-    def __eq__(self, other) -> bool:
-        return tuple(self) == tuple(other) if isinstance(other, Sequence) else NotImplemented
-
-    __hash__ = None
-
-    def __repr__(self) -> str:
-        return repr(self._names())
-
-
-class _KindTable(Mapping):
-    """Live read-only mapping kind -> one attribute of the registered kind."""
-
-    def __init__(self, attribute: str):
-        self._attribute = attribute
-
-    def __getitem__(self, kind):
-        from corridor.registry import registry
-
-        try:
-            value = getattr(registry.kind(kind), self._attribute)
-        except KeyError:
-            raise KeyError(kind) from None
-        return dict(value) if isinstance(value, Mapping) else value
-
-    def __iter__(self) -> Iterator[str]:
-        return iter(ASSET_KINDS)
-
-    def __len__(self) -> int:
-        return len(ASSET_KINDS)
-
-    def __repr__(self) -> str:
-        return repr(dict(self))
-
-
-#: Every registered asset kind (live: includes the kinds plugins add).
-ASSET_KINDS: Sequence[str] = _Kinds()
-#: kind -> its own field specs (live).
-KIND_FIELDS: Mapping[str, tuple[FieldSpec, ...]] = _KindTable("fields")
-#: kind -> default of every field but ``asset_id`` (live; a fresh dict per lookup).
-KIND_DEFAULTS: Mapping[str, dict[str, object]] = _KindTable("defaults")
-
-
-def asset_fields(kind: str) -> tuple[FieldSpec, ...]:
-    """Return every field spec of an asset of ``kind`` (built in or from a plugin)."""
-    return COMMON_ASSET_FIELDS + KIND_FIELDS[kind]

@@ -23,7 +23,7 @@ import pytest
 from shapely.geometry import LineString
 
 REPO = Path(__file__).resolve().parents[1]
-ARRANGEMENTS_TOML = REPO / "config" / "arrangements.toml"
+ARRANGEMENTS_TOML = REPO / "corridor" / "data" / "arrangements.toml"
 
 #: File extension of each GDAL driver the readers are tested with.
 DRIVER_EXT = {

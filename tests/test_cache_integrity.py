@@ -401,9 +401,9 @@ def test_asset_keys_ignore_unknown_references_and_compare_ids_as_text():
     any key (nor raise); an integer id names the asset whose id is that text."""
     import dataclasses
 
-    from corridor.cache import asset_keys
     from corridor.config import load_config
     from corridor.io.layers import read_inputs
+    from corridor.keys import asset_keys
 
     cfg = load_config(Path(__file__).resolve().parents[1] / "config" / "demo.toml")
     inputs = read_inputs(cfg)
@@ -446,16 +446,16 @@ def test_dask_run_carries_every_per_asset_table(tmp_path):
     distributed = pytest.importorskip("distributed")
     from corridor.backends import override_run
     from corridor.backends.dask_backend import compute_dask
-    from corridor.cache import PER_ASSET_TABLES, _per_asset_tables
     from corridor.config import load_config
     from corridor.io.layers import read_inputs
+    from corridor.partitions import PER_ASSET_TABLES, per_asset_tables
     from corridor.pipeline import compute
     from corridor.steps import asset_stages
     from tests.test_dask_backend import assert_same_rows
 
     cfg = load_config(Path(__file__).resolve().parents[1] / "config" / "demo.toml")
     local = compute(cfg, read_inputs(cfg), asset_stages())
-    full = _per_asset_tables(local)
+    full = per_asset_tables(local)
     assert set(PER_ASSET_TABLES) <= set(full)
     with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
                                   dashboard_address=":0", host="127.0.0.1") as cluster:
@@ -463,7 +463,7 @@ def test_dask_run_carries_every_per_asset_table(tmp_path):
                             partitions=3)
         merged = compute_dask(dcfg, read_inputs(dcfg), asset_stages(), work_dir=tmp_path)
     assert merged.counts["partitions"] == 3
-    tables = _per_asset_tables(merged)
+    tables = per_asset_tables(merged)
     assert set(tables) == set(full)
     for name, table in full.items():
         assert_same_rows(tables[name], table, name)

@@ -52,7 +52,7 @@ def test_rejected_power_line_exits_5_after_publishing(tmp_path, cli, capsys):
     # nothing changed: the previous outputs are published again, with the same exit code
     assert cli(["run", str(path), "-q"]) == 5
     err = capsys.readouterr().err
-    assert "power line L2 REJECTED" in err
+    assert "power line L2 rejected (layer power_lines.gpkg:power_lines, field 'KV')" in err
     record = json.loads((tmp_path / "out" / "run.json").read_text(encoding="utf-8"))
     assert record["counts"]["outputs_reused"] == 1
     assert record["counts"]["rejected_power_lines"] == 1
@@ -99,7 +99,7 @@ def test_rejected_assets_are_warned_under_quiet_with_a_bound(tmp_path, cli, caps
 
 
 def test_defaults_used_lists_ids_of_safety_fields_only():
-    from corridor.runner import defaults_used_record
+    from corridor.pipeline import defaults_used_record
 
     inputs = SimpleNamespace(defaults_used={"clearing_time_s": ["F1", "F2"],
                                             "post_type": ["F3"], "height_m": ["F1"]})
@@ -141,7 +141,7 @@ def test_check_fails_when_no_power_line_is_usable(tmp_path, cli, capsys):
 ], ids=["enospc", "eacces", "gdal-text"])
 def test_disk_full_or_no_permission_exits_2_with_the_cause(tmp_path, cli, capsys,
                                                            monkeypatch, failure):
-    import corridor.runner as runner
+    import corridor.io.write as writer
 
     path = make(tmp_path)
     assert cli(["run", str(path), "-q"]) == 0
@@ -152,7 +152,7 @@ def test_disk_full_or_no_permission_exits_2_with_the_cause(tmp_path, cli, capsys
     def refuse(*a, **kw):
         raise failure
 
-    monkeypatch.setattr(runner, "write_csv", refuse)
+    monkeypatch.setattr(writer, "write_csv", refuse)
     capsys.readouterr()
     assert cli(["run", str(path), "-q"]) == 2
     err = capsys.readouterr().err

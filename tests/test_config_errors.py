@@ -183,7 +183,7 @@ def test_several_problems_reported_together(scenario, cli, capsys):
 def test_config_is_valid_baseline(scenario):
     """The untouched scenario config loads: the errors above come from the one change."""
     cfg = load_config(scenario.write_config(scenario.build()))
-    assert cfg.run["screening_distance_m"] == 1000.0  # RUN_SETTINGS default
+    assert cfg.run.screening_distance_m == 1000.0  # RUN_SETTINGS default
     assert scenario.arrangement in cfg.arrangements
 
 
@@ -405,8 +405,8 @@ def test_run_crs_in_feet_refused(scenario, cli, capsys):
 
 def test_accept_rejected_lines_setting(scenario):
     cfg = scenario.build()
-    assert load_config(scenario.write_config(cfg)).run["accept_rejected_lines"] is False
+    assert load_config(scenario.write_config(cfg)).run.accept_rejected_lines is False
     cfg["run"]["accept_rejected_lines"] = True
-    assert load_config(scenario.write_config(cfg)).run["accept_rejected_lines"] is True
+    assert load_config(scenario.write_config(cfg)).run.accept_rejected_lines is True
     cfg["run"]["accept_rejected_lines"] = "yes"
     _one_naming(_problems(scenario.write_config(cfg)), "run.accept_rejected_lines", "bool")

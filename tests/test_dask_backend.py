@@ -27,10 +27,11 @@ distributed = pytest.importorskip(
     "distributed", reason="dask.distributed is not installed (pip install 'corridor[dask]')")
 
 from corridor.backends import override_run  # noqa: E402
-from corridor.backends.dask_backend import KILL_ENV, compute_dask, plan_partitions  # noqa: E402
+from corridor.backends.dask_backend import compute_dask  # noqa: E402
 from corridor.config import load_config  # noqa: E402
 from corridor.io.layers import read_inputs  # noqa: E402
 from corridor.io.outputs import sha256_file  # noqa: E402
+from corridor.partitions import plan_partitions  # noqa: E402
 from corridor.pipeline import compute, finalize  # noqa: E402
 from corridor.steps import asset_stages, run_stages  # noqa: E402
 
@@ -62,10 +63,11 @@ def local_run(cfg):
     return finalize(compute(cfg, inputs, asset_stages()), run_stages())
 
 
-def dask_run(cfg, tmp_path, **settings):
+def dask_run(cfg, tmp_path, stages=None, **settings):
     cfg = override_run(cfg, backend="dask", **settings)
     inputs = read_inputs(cfg)
-    return finalize(compute_dask(cfg, inputs, asset_stages(), work_dir=tmp_path), run_stages())
+    return finalize(compute_dask(cfg, inputs, stages or asset_stages(), work_dir=tmp_path),
+                    run_stages())
 
 
 def table(run, name):
@@ -149,16 +151,18 @@ def test_asset_reaching_over_other_partitions_is_solved_whole(cluster, tmp_path)
 
 
 @pytest.mark.slow
-def test_worker_killed_mid_run_is_retried(tmp_path, monkeypatch):
+def test_worker_killed_mid_run_is_retried(tmp_path):
     """The first task kills its worker process (os._exit); Dask reschedules it on
     another worker (distributed.scheduler.allowed-failures, 3 by default)."""
+    from tests.helpers.hooks import killing_stages
+
     marker = tmp_path / "killed"
-    monkeypatch.setenv(KILL_ENV, str(marker))
     cfg = load_config(DEMO)
     a = local_run(cfg)
     work = tmp_path / "work"
     work.mkdir()
-    b = dask_run(cfg, work, scheduler_address="", dask_workers=2, dask_processes=True)
+    b = dask_run(cfg, work, stages=killing_stages(asset_stages(), str(marker)),
+                 scheduler_address="", dask_workers=2, dask_processes=True)
     assert marker.exists(), "no worker was killed"
     assert_runs_equal(a, b)
 
@@ -180,9 +184,10 @@ def test_killed_worker_without_retries_fails_with_exit_3_and_keeps_outputs(tmp_p
     text = cfg_path.read_text(encoding="utf-8")
     cfg_path.write_text(text.replace("[run]\n", '[run]\nbackend = "dask"\n', 1),
                         encoding="utf-8")
-    env.update({KILL_ENV: str(tmp_path / "killed"),
-                "DASK_DISTRIBUTED__SCHEDULER__ALLOWED_FAILURES": "0"})
-    second = subprocess.run([sys.executable, "-m", "corridor", "run", str(cfg_path), "-q"],
+    env["DASK_DISTRIBUTED__SCHEDULER__ALLOWED_FAILURES"] = "0"
+    helper = REPO / "tests" / "helpers" / "paused_run.py"  # the first worker ends itself
+    second = subprocess.run([sys.executable, str(helper), "kill-worker",
+                             str(tmp_path / "killed"), "0", "--", "run", str(cfg_path), "-q"],
                             capture_output=True, text=True, env=env, cwd=cfg_path.parent,
                             timeout=120)
     assert (tmp_path / "killed").exists(), second.stderr
@@ -200,7 +205,7 @@ def test_results_travel_as_files_and_come_back_unchanged(tmp_path):
     same table (an identity: Parquet stores float64 bit for bit)."""
     import geopandas as gpd
 
-    from corridor.backends.dask_backend import _from_wire, _to_wire
+    from corridor.backends.dask_backend import from_wire, to_wire
 
     frame = gpd.GeoDataFrame({
         "asset_id": pd.Series(["A1", "A1", "B2"], dtype=object),
@@ -213,10 +218,10 @@ def test_results_travel_as_files_and_come_back_unchanged(tmp_path):
                                      [(0, 5), (0, 55)]]), crs="EPSG:32633")
     plain = pd.DataFrame(frame.drop(columns="geometry"))
     for table, name in ((frame, "segments"), (plain, "_counts")):
-        item = _to_wire(table, tmp_path, name)
+        item = to_wire(table, tmp_path, name)
         assert set(item) == {"path", "geo", "dtypes", "columns"}
         assert not any(isinstance(v, pd.DataFrame) for v in item.values())
-        back = _from_wire(item, frame.crs)
+        back = from_wire(item, frame.crs)
         assert type(back) is type(table)
         pd.testing.assert_frame_equal(pd.DataFrame(back).drop(columns="geometry",
                                                                errors="ignore"),

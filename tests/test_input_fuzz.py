@@ -27,7 +27,7 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 from shapely.geometry import LineString, Point
 
-from corridor.config import load_config
+from corridor.config import PACKAGED_ARRANGEMENTS, load_config
 from corridor.errors import ConfigError, InputError
 from corridor.io.layers import read_inputs
 from tests.conftest import PROJECTED_CRS, X0_M, Y0_M, Scenario
@@ -101,7 +101,8 @@ def _demo_dict() -> dict:
     layers = cfg["layers"]
     for entry in [layers["power_lines"], *layers["assets"], layers["soil"], layers["grounds"]]:
         entry["path"] = str((base / entry["path"]).resolve())
-    cfg["run"]["arrangements"] = str((base / cfg["run"]["arrangements"]).resolve())
+    # the demo uses the arrangements shipped in the package (none beside demo.toml)
+    cfg["run"]["arrangements"] = str(PACKAGED_ARRANGEMENTS)
     cfg["run"]["output_dir"] = "out"
     return cfg
 

@@ -96,8 +96,6 @@ def test_every_cited_section_exists():
     assert not missing, "cited sections missing from docs/methods.md:\n" + "\n".join(missing)
 
 
-@pytest.mark.xfail(strict=False, reason="code still cites METHODS.md; the citations are"
-                   " being replaced by docs/methods.md (remove this mark when done)")
 def test_no_methods_document_outside_docs_is_cited():
     bad = []
     for path in _scanned_files():

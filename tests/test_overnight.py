@@ -62,8 +62,17 @@ def make(root: Path, out: str = "out", cache: str | None = None, run: dict | Non
     return sc.write_config(cfg)
 
 
-def cli_run(cfg: Path, *args, env=None, wait=True, cwd=None):
+PAUSED_RUN = Path(__file__).resolve().parent / "helpers" / "paused_run.py"
+
+
+def cli_run(cfg: Path, *args, env=None, wait=True, cwd=None, pause=None):
+    """``corridor run cfg *args`` in a subprocess; ``pause=(point, marker, sleep_s)`` runs
+    it through tests/helpers/paused_run.py (a hook patched into a production function)."""
     cmd = [sys.executable, "-m", "corridor", "run", str(cfg), *args]
+    if pause is not None:
+        point, marker, sleep_s = pause
+        cmd = [sys.executable, str(PAUSED_RUN), point, str(marker), str(sleep_s), "--",
+               "run", str(cfg), *args]
     full_env = {**os.environ, "CORRIDOR_PROGRESS": "0", **(env or {})}
     p = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                          env=full_env, cwd=cwd or cfg.parent)
@@ -119,8 +128,7 @@ def test_kill_midway_leaves_previous_outputs(tmp_path):
     # deterministic kills at named points, then kills after fixed delays
     for point in ("compute", "write"):
         marker.unlink(missing_ok=True)
-        p = cli_run(cfg, env={"CORRIDOR_TEST_PAUSE_AT": point,
-                              "CORRIDOR_TEST_PAUSE_FILE": str(marker)}, wait=False)
+        p = cli_run(cfg, pause=(point, marker, 60), wait=False)
         wait_for(marker, p)
         p.send_signal(signal.SIGKILL)
         p.wait(timeout=30)
@@ -177,11 +185,14 @@ def test_recover_finishes_a_journal_and_removes_only_marked_staging(tmp_path, mo
     (staging / "run.json").write_text('{"new": 1}', encoding="utf-8")
     (staging / "report.html").write_text("<html>new</html>", encoding="utf-8")
 
-    def kill_at_move(point):
-        if point == "move":
+    real_replace = os.replace
+
+    def kill_after_first_move(src, dst, *args, **kwargs):  # owned moves with os.replace
+        real_replace(src, dst, *args, **kwargs)
+        if Path(dst).name != owned.JOURNAL:
             raise _Killed
 
-    monkeypatch.setattr(owned, "_pause", kill_at_move)
+    monkeypatch.setattr(owned.os, "replace", kill_after_first_move)
     with pytest.raises(_Killed):
         owned.commit(out, staging, before)
     assert (out / owned.JOURNAL).exists()
@@ -280,9 +291,7 @@ def test_change_report_names_line_attribute(tmp_path):
 def test_two_runs_one_wins_and_stale_lock_taken_over(tmp_path):
     cfg = make(tmp_path / "c")
     marker = tmp_path / "paused"
-    first = cli_run(cfg, env={"CORRIDOR_TEST_PAUSE_AT": "compute",
-                              "CORRIDOR_TEST_PAUSE_FILE": str(marker),
-                              "CORRIDOR_TEST_PAUSE_S": "2"}, wait=False)
+    first = cli_run(cfg, pause=("compute", marker, 2), wait=False)
     wait_for(marker, first)
     rc, _, err = cli_run(cfg)
     assert rc == 4

@@ -28,7 +28,7 @@ from shapely.geometry import LineString
 from corridor.errors import ConfigError
 from corridor.physics.constants import MU0_H_PER_M
 from corridor.registry import ENTRY_POINT_GROUP, load_plugins, registry
-from corridor.schema import ASSET_KINDS, FieldSpec
+from corridor.schema import FieldSpec
 
 REPO = Path(__file__).resolve().parents[1]
 PLUGIN_SRC = REPO / "tests" / "plugin_example"
@@ -76,7 +76,7 @@ def _write_scenario(folder: Path, separation_m: float = 50.0) -> Path:
     """An 8 km power line and a 3 km water main parallel to its middle."""
     import tomllib
 
-    with open(REPO / "config" / "arrangements.toml", "rb") as fh:
+    with open(REPO / "corridor" / "data" / "arrangements.toml", "rb") as fh:
         arrangement = next(iter(tomllib.load(fh)["arrangements"]))
     gpkg = folder / "water.gpkg"
     lines = gpd.GeoDataFrame(
@@ -88,7 +88,7 @@ def _write_scenario(folder: Path, separation_m: float = 50.0) -> Path:
                               (X0_M + 5500.0, Y0_M + separation_m)])], crs=CRS)
     pyogrio.write_dataframe(lines, gpkg, layer="lines", driver="GPKG")
     pyogrio.write_dataframe(mains, gpkg, layer="mains", driver="GPKG")
-    shutil.copy(REPO / "config" / "arrangements.toml", folder / "arrangements.toml")
+    shutil.copy(REPO / "corridor" / "data" / "arrangements.toml", folder / "arrangements.toml")
     cfg = folder / "run.toml"
     cfg.write_text(textwrap.dedent(f"""\
         [run]
@@ -180,11 +180,12 @@ def test_water_main_end_voltage_matches_sunde_closed_form(water_run):
 def test_water_main_kind_listed_and_defaults_applied(plugin_site, tmp_path):
     code = textwrap.dedent("""
         from corridor.config import load_config
-        from corridor.schema import ASSET_KINDS
+        from corridor.registry import registry
         import sys
         cfg = load_config(sys.argv[1])
         d = cfg.kind_defaults["water_main"]
-        print(",".join(ASSET_KINDS), d["height_m"], d["start_termination"], cfg.run["limit_set"])
+        print(",".join(registry.kind_names()), d["height_m"], d["start_termination"],
+              cfg.run.limit_set)
         """)
     cfg = _write_scenario(tmp_path)
     result = subprocess.run([sys.executable, "-c", code, str(cfg)], capture_output=True,
@@ -200,7 +201,7 @@ def test_water_main_kind_listed_and_defaults_applied(plugin_site, tmp_path):
 def test_plugin_not_visible_to_this_process():
     # the module installs into a temporary folder only: the environment the
     # other tests use has no water_main kind
-    assert "water_main" not in ASSET_KINDS
+    assert "water_main" not in registry.kind_names()
 
 
 # --------------------------------------------------------------------------
@@ -247,10 +248,7 @@ def test_failing_plugin_is_rolled_back_and_named(clean_registry):
         load_plugins([_ep("halfway", "register_half_then_fail")])
     text = "\n".join(info.value.problems)
     assert "plugin 'halfway'" in text and "boom after registering half_kind" in text
-    assert "half_kind" not in ASSET_KINDS  # rolled back
-    from corridor.limits import limit_sets
-
-    assert "half_kind" not in limit_sets.ASSET_KINDS
+    assert "half_kind" not in registry.kind_names()  # staged, never joined
 
 
 def test_bad_default_names_plugin_and_field(clean_registry):
@@ -281,10 +279,10 @@ def test_broken_plugin_fails_config_load(clean_registry):
 
 def test_good_plugin_kind_and_unload(clean_registry):
     load_plugins([_ep("goodplug", "register_good")])
-    assert list(ASSET_KINDS)[-1] == "good_kind"
+    assert registry.kind_names()[-1] == "good_kind"
     assert registry.kind("good_kind").plugin == "goodplug"
     assert registry.kind("good_kind").terminations == ("grounded", "open")
     assert registry.plugins()["goodplug"].endswith("(tests.test_plugins:register_good)")
     registry.unload()
     assert "good_kind" not in registry.kind_names()
-    assert tuple(ASSET_KINDS) == ("pipeline", "fence", "rail", "telecom")
+    assert registry.kind_names() == ("pipeline", "fence", "rail", "telecom")

@@ -101,11 +101,8 @@ def qgis_run(tmp_path_factory):
                     [f"{qgis_out}/screening.gpkg|layername=sites", "sites"]]},
     ]
     bad_cfg = tmp / "bad_config.toml"
-    arrangements = (DEMO.parent / "arrangements.toml").as_posix()
     bad_cfg.write_text(DEMO.read_text(encoding="utf-8")
                        .replace("../sample_layers/", f"{GPKG.parent.as_posix()}/")
-                       .replace('arrangements = "arrangements.toml"',
-                                f'arrangements = "{arrangements}"')
                        .replace("[run]\n", "[run]\ntower_spam_m = 300.0\n"), encoding="utf-8")
     actions.append({"do": "run", "algorithm": "corridor:screen", "layers": {},
                     "params": {"CONFIG": str(bad_cfg), "OUTPUT": str(tmp / "bad_cfg_out")}})

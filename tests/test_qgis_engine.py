@@ -48,7 +48,7 @@ def test_derived_config_replaces_layers_and_keeps_the_rest(tmp_path):
     assert cfg.arrangements_path == ref.arrangements_path
     assert cfg.run["screening_distance_m"] == 800.0
     assert cfg.output_dir == ref.output_dir  # relative paths made absolute
-    same = set(ref.run) - {"screening_distance_m", "output_dir", "arrangements"}
+    same = set(ref.run.as_dict()) - {"screening_distance_m", "output_dir", "arrangements"}
     assert {k: cfg.run[k] for k in same} == {k: ref.run[k] for k in same}
 
 

@@ -29,7 +29,7 @@ def two_runs(tmp_path_factory):
     root = tmp_path_factory.mktemp("rejected_line")
     (root / "config").mkdir()
     (root / "sample_layers").mkdir()
-    for name in ("demo.toml", "arrangements.toml"):
+    for name in ("demo.toml",):
         shutil.copy(REPO / "config" / name, root / "config" / name)
     gpkg = root / "sample_layers" / "brackenford_vale.gpkg"
     shutil.copy(REPO / "sample_layers" / "brackenford_vale.gpkg", gpkg)

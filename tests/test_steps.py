@@ -15,8 +15,8 @@ import pyogrio
 import pytest
 
 from corridor.cli import main
-from corridor.config import RUN_SETTINGS
 from corridor.errors import ConfigError
+from corridor.settings import RUN_SETTINGS
 from corridor.steps.catalog import STEPS, StepCancelled, get_step, run_step, step_names
 
 REPO = Path(__file__).resolve().parents[1]
@@ -29,9 +29,8 @@ def test_steps_are_declared_in_run_order_with_setting_metadata():
     for spec in STEPS.values():
         assert spec.outputs, spec.name
         for p in spec.parameters:
-            typ, unit, default, doc, rng = RUN_SETTINGS[p.name]
-            assert (p.unit, p.default, p.description) == (unit, default, doc)
-            assert (p.low, p.high) == (rng if rng else (None, None))
+            # a step's parameter is the run setting's own spec, not a copy
+            assert p is RUN_SETTINGS[p.name]
     assert get_step("expose").parameters[2].name == "segment_length_m"
     assert {p.name for p in get_step("expose").outputs} == {"exposures", "segments"}
 
@@ -115,7 +114,7 @@ def test_step_errors_exit_2_and_write_nothing(tmp_path, capsys):
     assert "unknown step 'nosuch'" in capsys.readouterr().err
     assert main(["step", "segment", str(DEMO), "--out", str(tmp_path),
                  "--set", "segment_length_m=5000"]) == 2
-    assert "outside the valid range" in capsys.readouterr().err
+    assert "above the valid range" in capsys.readouterr().err
     assert main(["step", "segment", str(DEMO), "--out", str(tmp_path),
                  "--set", "limit_set=iec_en"]) == 2
     assert "not a parameter of step segment" in capsys.readouterr().err

@@ -79,7 +79,7 @@ def test_auto_plan_bounds_partition_size(tmp_path, monkeypatch):
     import math
 
     from corridor.backends import local
-    from corridor.backends.dask_backend import estimated_segments
+    from corridor.partitions import estimated_segments
 
     cfg = load_config(network.write(tmp_path, 200.0, 1000.0, seed=3))
     inputs = read_inputs(cfg)

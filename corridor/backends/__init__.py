@@ -99,7 +99,7 @@ def override_run(cfg: Config, **settings) -> Config:
     unknown = [k for k in settings if k not in RUN_SETTINGS]
     if unknown:
         raise ConfigError([f"{cfg.path.name}: run.{k}: unknown setting" for k in unknown])
-    run = MappingProxyType({**dict(cfg.run), **settings})
+    run = cfg.run.replace(**settings)
     resolved = dict(cfg.resolved)
     resolved["run"] = {**dict(resolved.get("run", {})), **settings}
     return dataclasses.replace(cfg, run=run, resolved=MappingProxyType(resolved))

@@ -3,9 +3,9 @@
 How a run is cut up
 -------------------
 1. **Partitions of whole assets.** Assets are ordered by the Hilbert distance
-   of their centroid (:func:`hilbert_order`) and the ordered list is cut into
+   of their centroid (:func:`corridor.partitions.hilbert_order`) and the ordered list is cut into
    ``run.partitions`` pieces of about equal estimated segment count
-   (:func:`plan_partitions`). An asset never straddles two partitions, so the
+   (:func:`corridor.partitions.plan_partitions`). An asset never straddles two partitions, so the
    response solve of a partition always holds all of an asset's segments:
    this is how the solve's "group by asset" is met without a shuffle.
 2. **Small layers broadcast.** Power lines, soil, towers and grounding items
@@ -29,7 +29,7 @@ How a run is cut up
    and returns only their paths, dtypes, counts and timings: no frame travels
    back through the scheduler.
 6. **The client merges** them in input order with the cache's merge rules
-   (:data:`corridor.cache.PER_ASSET_TABLES`: row order, run-wide ids
+   (:data:`corridor.partitions.PER_ASSET_TABLES`: row order, run-wide ids
    renumbered), then deletes the work folder; the caller runs
    :func:`corridor.pipeline.finalize`.
 
@@ -49,7 +49,6 @@ from __future__ import annotations
 
 import dataclasses
 import logging
-import math
 import os
 import shutil
 import time
@@ -59,126 +58,25 @@ from pathlib import Path
 from types import MappingProxyType
 
 import geopandas as gpd
-import numpy as np
 import pandas as pd
 import shapely
 
-from corridor import cache as cache_mod
+from corridor import partitions
 from corridor.config import Config
 from corridor.errors import CorridorError
 from corridor.io.layers import Inputs, Rejected
 from corridor.memory import release_free_memory
+from corridor.partitions import plan_partitions
 from corridor.pipeline import Run
-from corridor.pipeline import compute as _pipeline_compute
+from corridor.pipeline import compute as pipeline_compute
 
 log = logging.getLogger(__name__)
 
 #: Estimated segments per partition when ``run.partitions`` is 0 (auto).
-SEGMENTS_PER_PARTITION = 500_000
-#: Hilbert curve level: 2**16 cells a side.
-HILBERT_LEVEL = 16
-#: Test hook: a file path; the first task to start creates it and kills its worker.
-KILL_ENV = "CORRIDOR_TEST_KILL_WORKER"
 
 
 class DaskUnavailable(CorridorError):
     """``run.backend = "dask"`` but dask.distributed cannot be imported."""
-
-
-# -- partitioning --------------------------------------------------------------
-
-def hilbert_order(geometries: np.ndarray) -> np.ndarray:
-    """Order of geometries along a Hilbert curve through their centroids.
-
-    Parameters
-    ----------
-    geometries : ndarray of shapely geometries
-        In a metric CRS [m].
-
-    Returns
-    -------
-    ndarray of int
-        Indices that sort the geometries by the Hilbert distance of their
-        centroid (stable: ties keep input order).
-
-    Notes
-    -----
-    The distance is geopandas' :meth:`GeoSeries.hilbert_distance` of the
-    centroids on a ``2**16`` grid over their common bounds; nearby centroids
-    get nearby distances, so consecutive runs of the order are compact areas.
-
-    References
-    ----------
-    D. Hilbert, "Ueber die stetige Abbildung einer Linie auf ein
-    Flaechenstueck", Math. Ann. 38, 1891.
-    """
-    if len(geometries) == 0:
-        return np.zeros(0, np.int64)
-    cent = gpd.GeoSeries(shapely.centroid(np.asarray(geometries)))
-    dist = cent.hilbert_distance(level=HILBERT_LEVEL).to_numpy(np.int64)
-    return np.argsort(dist, kind="stable")
-
-
-def estimated_segments(geometries: np.ndarray, segment_length_m: float) -> np.ndarray:
-    """Estimated number of segments of each asset [-]: pieces of at most
-    ``segment_length_m`` [m] plus one split at every vertex."""
-    geoms = np.asarray(geometries)
-    length_m = shapely.length(geoms)
-    vertices = shapely.get_num_coordinates(geoms)
-    return np.ceil(length_m / float(segment_length_m)).astype(np.int64) + np.maximum(
-        vertices - 2, 0)
-
-
-def auto_partitions(n_segments: int) -> int:
-    """Partitions for ``run.partitions = 0``: max(2, ceil(segments / 500,000))."""
-    return max(2, math.ceil(n_segments / SEGMENTS_PER_PARTITION))
-
-
-def plan_partitions(geometries: np.ndarray, segment_length_m: float,
-                    n_partitions: int = 0) -> list[np.ndarray]:
-    """Cut the assets into spatial partitions of whole assets.
-
-    Parameters
-    ----------
-    geometries : ndarray of shapely geometries
-        Asset geometries in input order, metric CRS [m].
-    segment_length_m : float
-        Maximum segment length [m] (for the workload estimate).
-    n_partitions : int
-        Wanted partitions; 0 for :func:`auto_partitions`. Never more than the
-        number of assets.
-
-    Returns
-    -------
-    list of ndarray of int
-        Per partition, the input indices of its assets, ascending. Every asset
-        is in exactly one partition; no partition is empty. An asset heavier
-        than a partition's share fills its slot alone, so there may be fewer
-        than ``n_partitions`` partitions.
-
-    Notes
-    -----
-    Assets are taken in Hilbert order and asset ``k`` goes to partition
-    ``floor(n * W_k / W)``, where ``W_k`` is the estimated segment count of the
-    assets before it in that order and ``W`` the total: partitions of about
-    equal work, each a compact area.
-    """
-    n_assets = len(geometries)
-    if n_assets == 0:
-        return []
-    weight = estimated_segments(geometries, segment_length_m).astype(float)
-    n = int(n_partitions) if n_partitions else auto_partitions(int(weight.sum()))
-    n = max(1, min(n, n_assets))
-    order = hilbert_order(geometries)
-    w = weight[order]
-    before = np.cumsum(w) - w
-    part = np.minimum((before * n / max(w.sum(), 1.0)).astype(np.int64), n - 1)
-    out = []
-    for p in range(n):
-        idx = np.sort(order[part == p])
-        if len(idx):
-            out.append(idx)
-    return out
 
 
 # -- what travels to the workers -------------------------------------------------
@@ -225,50 +123,15 @@ def unpack_config(packed) -> Config:
     return _unpack(packed)
 
 
-def _column_kinds(frame: pd.DataFrame) -> dict[str, tuple[str, object]]:
-    """Per column: dtype and, for object columns, the missing-value sentinel used."""
-    out = {}
-    for col in frame.columns:
-        if col == frame.geometry.name:
-            continue
-        dt = str(frame[col].dtype)
-        sentinel = np.nan
-        if dt == "object":
-            for v in frame[col]:
-                if v is None:
-                    sentinel = None
-                    break
-        out[str(col)] = (dt, sentinel)
-    return out
-
-
-def _restore_columns(frame: pd.DataFrame, kinds: dict) -> pd.DataFrame:
-    """Give a Parquet round trip back the dtypes (and missing values) it had."""
-    for col, (dt, sentinel) in kinds.items():
-        if col not in frame.columns or str(frame[col].dtype) == dt:
-            continue
-        if dt == "object":
-            s = frame[col].astype(object)
-            missing = s.isna().to_numpy()
-            if missing.any():
-                values = s.to_numpy(dtype=object, copy=True)
-                values[missing] = sentinel
-                s = pd.Series(values, index=s.index, dtype=object)
-            frame[col] = s
-        else:
-            frame[col] = frame[col].astype(dt)
-    return frame
-
-
-def _to_wire(frame: pd.DataFrame, folder: Path | None = None, name: str = "") -> dict:
+def to_wire(frame: pd.DataFrame, folder: Path | None = None, name: str = "") -> dict:
     """A table for the trip back to the client.
 
     With ``folder`` (on storage the client reaches), the table is written there
     as (Geo)Parquet with its dtypes and only the path travels; without, the
     table itself goes as plain columns with the geometry as WKB."""
     if folder is not None:
-        path = Path(folder) / cache_mod._file_name(name)
-        return {"path": str(path), **cache_mod.write_table(frame, path)}
+        path = Path(folder) / partitions.table_file_name(name)
+        return {"path": str(path), **partitions.write_table(frame, path)}
     if isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns:
         gname = frame.geometry.name
         plain = pd.DataFrame(frame).copy()
@@ -277,9 +140,9 @@ def _to_wire(frame: pd.DataFrame, folder: Path | None = None, name: str = "") ->
     return {"frame": pd.DataFrame(frame), "geometry": None}
 
 
-def _from_wire(item: dict, crs) -> pd.DataFrame:
+def from_wire(item: dict, crs) -> pd.DataFrame:
     if "path" in item:
-        frame = cache_mod.read_table(Path(item["path"]), item)
+        frame = partitions.read_table(Path(item["path"]), item)
         if item["geo"] and frame.crs is None:
             frame = frame.set_crs(crs)
         return frame
@@ -294,20 +157,6 @@ def _from_wire(item: dict, crs) -> pd.DataFrame:
 
 # -- the task ------------------------------------------------------------------
 
-def _kill_hook() -> None:
-    """Test hook: the first task to start (marker file ``$CORRIDOR_TEST_KILL_WORKER``
-    absent) creates the marker and ends its worker process at once."""
-    marker = os.environ.get(KILL_ENV)
-    if not marker:
-        return
-    try:
-        fd = os.open(marker, os.O_CREAT | os.O_EXCL | os.O_WRONLY)
-    except FileExistsError:
-        return
-    os.close(fd)
-    os._exit(1)
-
-
 def compute_partition(packed_cfg, shared: dict, path: str, kinds: dict, stages: dict | None):
     """One task: read a partition's assets, compute them, return plain tables.
 
@@ -321,7 +170,7 @@ def compute_partition(packed_cfg, shared: dict, path: str, kinds: dict, stages: 
     path : str
         The partition's GeoParquet file.
     kinds : dict
-        :func:`_column_kinds` of the client's asset frame.
+        :func:`corridor.partitions.column_kinds` of the client's asset frame.
     stages : dict or None
         Per-asset stages.
 
@@ -330,15 +179,13 @@ def compute_partition(packed_cfg, shared: dict, path: str, kinds: dict, stages: 
     dict
         ``tables`` (name -> where the table is: a (Geo)Parquet file in a folder of
         this attempt's own beside ``path``, so a retried task never mixes files; the
-        names of :func:`corridor.cache._per_asset_tables` plus the internal
-        ``_rejected`` and ``_counts``), ``timings_s``, ``counts``, ``assets``,
-        ``worker_pid``. Only paths and numbers travel back to the client.
+        names of :func:`corridor.partitions.partition_tables`), ``timings_s``,
+        ``counts``, ``assets``, ``worker_pid``. Only paths and numbers travel back to the client.
     """
-    _kill_hook()
     cfg = unpack_config(packed_cfg)
     t0 = time.perf_counter()
     assets = gpd.read_parquet(path)
-    assets = _restore_columns(assets.reset_index(drop=True), kinds)
+    assets = partitions.restore_dtypes(assets.reset_index(drop=True), kinds)
     if assets.crs is None or assets.crs != shared["crs"]:
         assets = assets.set_crs(shared["crs"], allow_override=True)
     grounds = shared["grounds"]
@@ -348,14 +195,12 @@ def compute_partition(packed_cfg, shared: dict, path: str, kinds: dict, stages: 
                     soil=shared["soil"], grounds=grounds, towers=shared["towers"],
                     rejected=Rejected(), counts=dict(shared["counts"]), warnings=[])
     read_s = time.perf_counter() - t0
-    run = _pipeline_compute(cfg, inputs, stages)
-    tables = dict(cache_mod._per_asset_tables(run))
-    tables[cache_mod._REJECTED] = cache_mod._compute_rejections(inputs, run.inputs.rejected.rows)
-    tables[cache_mod._COUNTS] = cache_mod._geometry_counts(run)
+    run = pipeline_compute(cfg, inputs, stages)
+    tables = partitions.partition_tables(run, inputs)
     t1 = time.perf_counter()
     out = Path(path).with_name(f"{Path(path).stem}-results-{uuid.uuid4().hex[:8]}")
     out.mkdir()
-    wire = {k: _to_wire(v, out, k) for k, v in tables.items()}
+    wire = {k: to_wire(v, out, k) for k, v in tables.items()}
     write_s = time.perf_counter() - t1
     return {"tables": wire,
             "timings_s": {"partition_read": round(read_s, 4), **run.timings_s,
@@ -413,8 +258,9 @@ def _work_folder(cfg: Config, work_dir: Path | None) -> Path:
 
 def _code_identity() -> tuple[str, str]:
     from corridor import __version__
+    from corridor.keys import code_fingerprint
 
-    return __version__, cache_mod.code_fingerprint()
+    return __version__, code_fingerprint()
 
 
 def _check_workers(client) -> None:
@@ -471,7 +317,7 @@ def compute_dask(cfg: Config, inputs: Inputs, stages: dict | None = None,
     folder = _work_folder(cfg, work_dir)
     try:
         t0 = time.perf_counter()
-        kinds = _column_kinds(assets)
+        kinds = partitions.column_kinds(assets)
         paths = []
         for k, idx in enumerate(parts):
             p = folder / f"assets-{k:05d}.parquet"
@@ -515,30 +361,16 @@ def compute_dask(cfg: Config, inputs: Inputs, stages: dict | None = None,
 
 def merge_partitions(cfg: Config, inputs: Inputs, results: list[dict],
                      wire: bool = True) -> Run:
-    """One run from the partitions' tables, as :func:`corridor.cache.incremental_compute`
-    merges cached and fresh rows: input order, run-wide ids renumbered.
+    """One run from the partitions' tables (:func:`corridor.partitions.merge`).
 
     ``wire=False`` takes the tables as frames (partitions computed in this
     process) instead of their wire form. The ``tables`` of ``results`` are
     emptied while merging, so that each partition frame is freed once its
     table is merged."""
     crs = inputs.crs
-    asset_pos = {a: i for i, a in enumerate(inputs.assets["asset_id"])}
-    by_name: dict[str, list] = {}
+    pieces: dict[str, list] = {}
     for r in results:
         for name, item in r["tables"].items():
-            by_name.setdefault(name, []).append(_from_wire(item, crs) if wire else item)
+            pieces.setdefault(name, []).append(from_wire(item, crs) if wire else item)
         r["tables"] = {}  # the partitions' frames go as soon as their table is merged
-    run = Run(cfg, inputs=inputs)
-    merged = {}
-    for name in list(by_name):
-        frames = by_name.pop(name)
-        table = cache_mod.concat_tables(frames, crs=crs)  # empty/untyped parts: types kept
-        del frames  # before the reorder copies the table
-        merged[name] = cache_mod._order_rows(table, name, asset_pos)
-        del table
-    for name, table in merged.items():
-        if not name.startswith("_"):
-            cache_mod._place(run, name, table)
-    cache_mod.finish_merged_run(cfg, inputs, run, merged)
-    return run
+    return partitions.merge(cfg, inputs, pieces)

@@ -81,7 +81,7 @@ def local_plan(cfg: Config, inputs: Inputs) -> tuple[int, int]:
     """
     import os
 
-    from corridor.backends.dask_backend import estimated_segments
+    from corridor.partitions import estimated_segments
 
     n_seg = float(estimated_segments(inputs.assets.geometry.to_numpy(),
                                      cfg.run["segment_length_m"]).sum())
@@ -105,21 +105,19 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
     ----------
     n_partitions : int, optional
         Wanted partitions (default: ``threads``); see
-        :func:`corridor.backends.dask_backend.plan_partitions`.
+        :func:`corridor.partitions.plan_partitions`.
     """
     import threading
     import time
     from concurrent.futures import ThreadPoolExecutor
 
-    from corridor import cache as cache_mod
-    from corridor import progress
-    from corridor.backends.dask_backend import merge_partitions, plan_partitions
+    from corridor import partitions, progress
     from corridor.memory import release_free_memory
     from corridor.pipeline import compute, subset_inputs
 
     t0 = time.perf_counter()
-    parts = plan_partitions(inputs.assets.geometry.to_numpy(), cfg.run["segment_length_m"],
-                            n_partitions or threads)
+    parts = partitions.plan_partitions(inputs.assets.geometry.to_numpy(),
+                                       cfg.run["segment_length_m"], n_partitions or threads)
     lock = threading.Lock()
     bar = progress.bar("compute", total=len(parts))
     done = [0]
@@ -132,10 +130,7 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
         mask[index] = True
         sub = subset_inputs(inputs, mask)
         run = compute(cfg, sub, stages, step_log_level=logging.DEBUG)
-        tables = dict(cache_mod._per_asset_tables(run))
-        tables[cache_mod._REJECTED] = cache_mod._compute_rejections(sub,
-                                                                    run.inputs.rejected.rows)
-        tables[cache_mod._COUNTS] = cache_mod._geometry_counts(run)
+        tables = partitions.partition_tables(run, sub)
         # segment_table_after_grounding travels as the per-asset table "after_grounding"
         out = {"tables": tables, "timings_s": run.timings_s, "counts": dict(run.counts)}
         with lock:
@@ -154,7 +149,12 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
             results = list(pool.map(one, parts))
     release_free_memory()  # the partitions' working arrays, before the merge copies
     t1 = time.perf_counter()
-    run = merge_partitions(cfg, inputs, results, wire=False)
+    pieces: dict[str, list] = {}
+    for r in results:
+        for name, table in r["tables"].items():
+            pieces.setdefault(name, []).append(table)
+        r["tables"] = {}  # the partitions' frames go as soon as their table is merged
+    run = partitions.merge(cfg, inputs, pieces)
     release_free_memory()
     # stage times: summed over the partitions (CPU-side work), divided by the
     # threads that ran them side by side — an estimate of each stage's share of

@@ -22,14 +22,9 @@ from pyproj import CRS
 
 from corridor.config import Config, LayerSource
 from corridor.errors import InputError
-from corridor.schema import (
-    ASSET_KINDS,
-    GROUND_FIELDS,
-    LINE_FIELDS,
-    SOIL_FIELDS,
-    FieldSpec,
-    asset_fields,
-)
+from corridor.registry import registry
+from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS
+from corridor.settings import Spec
 
 log = logging.getLogger(__name__)
 
@@ -190,8 +185,8 @@ def choose_crs(cfg: Config, layers: list[gpd.GeoDataFrame]) -> CRS:
     projected CRS in feet) the UTM zone of the data's centre from
     :meth:`geopandas.GeoDataFrame.estimate_utm_crs`.
     """
-    if cfg.run["crs"]:
-        return CRS.from_user_input(cfg.run["crs"])
+    if cfg.run.crs:
+        return CRS.from_user_input(cfg.run.crs)
     first = layers[0]
     if first.crs.is_projected and _is_metre_crs(first.crs):
         return first.crs
@@ -295,7 +290,7 @@ def _blank(series: pd.Series) -> np.ndarray:
     return missing
 
 
-def _coerce(series: pd.Series, spec: FieldSpec
+def _coerce(series: pd.Series, spec: Spec
             ) -> tuple[pd.Series, np.ndarray, np.ndarray, list[str]]:
     """Coerce a column to its spec.
 
@@ -517,7 +512,7 @@ def _within_extent(out: gpd.GeoDataFrame, src: LayerSource, crs: CRS,
     return out[keep]
 
 
-def _read_layer(src: LayerSource, specs: tuple[FieldSpec, ...], defaults: dict, id_field: str,
+def _read_layer(src: LayerSource, specs: tuple[Spec, ...], defaults: dict, id_field: str,
                 types: tuple[str, ...], crs: CRS, rejected: Rejected, warnings: list[str],
                 allow_defaults: bool, gdf: gpd.GeoDataFrame | None = None,
                 label_field: str | None = None,
@@ -639,7 +634,7 @@ def read_inputs(cfg: Config) -> Inputs:
     warnings: list[str] = []
     problems: list[str] = []
     defaults_used: dict[str, list[str]] = {}
-    allow = bool(cfg.run["use_kind_defaults"])
+    allow = cfg.run.use_kind_defaults
     raws: dict[int, gpd.GeoDataFrame] = {}
     sources = [cfg.power_lines, *cfg.assets]
     for i, src in enumerate(sources):
@@ -742,7 +737,8 @@ def _read_assets(src, cfg, crs, rejected, warnings, allow, raw,
                              f" field '{col}' giving the asset kind")
         kinds = raw[col].astype("string").str.strip().str.lower()
     frames = []
-    bad_kind = ~kinds.isin(list(ASSET_KINDS)).fillna(False)
+    kind_names = registry.kind_names()
+    bad_kind = ~kinds.isin(list(kind_names)).fillna(False)
     if bad_kind.any():
         id_col = _id_column(raw, src, "asset_id")
         ids = _feature_ids(raw, id_col)
@@ -751,13 +747,13 @@ def _read_assets(src, cfg, crs, rejected, warnings, allow, raw,
             what = "missing asset kind" if pd.isna(kind) or kind == "" else \
                 f"unknown asset kind {kind!r}"
             rejected.add(src.label, ids.iloc[i], src.fields.get("asset_kind", "asset_kind"),
-                         f"{what} (allowed: {', '.join(ASSET_KINDS)})", "assets")
-    for kind in ASSET_KINDS:
+                         f"{what} (allowed: {', '.join(kind_names)})", "assets")
+    for kind in kind_names:
         part = raw[(kinds == kind).fillna(False).to_numpy(dtype=bool)]
         if len(part) == 0:
             continue
-        frame = _read_layer(src, asset_fields(kind), dict(cfg.kind_defaults[kind]), "asset_id",
-                            LINEAR_TYPES, crs, rejected, warnings, allow, gdf=part,
+        frame = _read_layer(src, registry.asset_fields(kind), dict(cfg.kind_defaults[kind]),
+                            "asset_id", LINEAR_TYPES, crs, rejected, warnings, allow, gdf=part,
                             defaults_used=defaults_used)
         frame.insert(1, "asset_kind", kind)
         frames.append(frame)

@@ -41,9 +41,9 @@ import math
 import re
 import sys
 from collections import defaultdict
+from collections.abc import Mapping
 from dataclasses import replace
 from pathlib import Path
-from types import MappingProxyType
 from typing import Any
 
 import geopandas as gpd
@@ -119,7 +119,7 @@ def preset_for(role: str, overrides: Any = None) -> dict:
 
 def _plain(value):
     """Mapping proxies back to dicts (the config freezes tables)."""
-    if isinstance(value, dict | MappingProxyType):
+    if isinstance(value, Mapping):
         return {k: _plain(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
         return [_plain(v) for v in value]
@@ -639,10 +639,11 @@ def _merged(geoms: list):
 
 
 def _assets(src, ways: gpd.GeoDataFrame, notes: dict) -> gpd.GeoDataFrame:
-    from corridor.schema import ASSET_KINDS
+    from corridor.registry import registry
 
     preset = preset_for("assets", src.osm)
-    kinds = [k for k in preset if k in ASSET_KINDS and (src.kind is None or k == src.kind)]
+    known = registry.kind_names()
+    kinds = [k for k in preset if k in known and (src.kind is None or k == src.kind)]
     masks = {k: _select_mask(ways, preset[k]["select"]) for k in kinds}
     anym = np.zeros(len(ways), bool)
     for m in masks.values():

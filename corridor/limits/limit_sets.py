@@ -1,6 +1,6 @@
 """Limit sets: loading, validation and evaluation of the criteria.
 
-A limit set is a TOML file in ``config/limits/`` (schema in the header of each
+A limit set is a TOML file in ``corridor/data/limits/`` (schema in the header of each
 shipped file and in :data:`METHODS`). :func:`load_limit_set` reads one into an
 immutable, validated :class:`LimitSet`; :func:`evaluate` judges per-segment
 quantities against every criterion of the set at once, vectorised over
@@ -15,7 +15,8 @@ Schema
     ``review_threshold`` (float, 0 < x < 1, default 0.5): utilization from
     which a segment is classed ``"review"`` rather than ``"clear"``.
 ``[criteria.<name>]``, one table per criterion
-    ``applies_to`` (list of asset kinds: pipeline, fence, rail, telecom),
+    ``applies_to`` (list of asset kinds: the built-in pipeline, fence, rail,
+    telecom, or the kinds the caller names, plugins' included),
     ``case`` (``"normal"``, ``"fault"``, ``"capacitive"`` or
     ``"conductive"``), ``quantity`` (name of the per-segment quantity judged,
     e.g. ``v_normal_v``), ``method`` (a key of :data:`METHODS`), optional
@@ -32,7 +33,7 @@ from __future__ import annotations
 import logging
 import re
 import tomllib
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -40,14 +41,32 @@ from typing import Any
 import numpy as np
 
 from corridor.errors import ConfigError
-from corridor.limits import criteria as crit
+from corridor.limits.methods import (
+    CASES,
+    METHODS,
+    Context,
+    MethodSpec,
+    _choice,
+    _fraction,
+    _identifier,
+    _names,
+    _p,
+    _string,
+    _string_list,
+    asset_kinds_check,
+)
+from corridor.settings import Spec
+
+__all__ = ["BUILTIN_ASSET_KINDS", "CASES", "COMPUTED_QUANTITIES", "Context", "Criterion",
+           "DEFAULT_REVIEW_THRESHOLD", "DEFAULT_SEARCH_DIR", "HAZARD_CLASSES", "LimitSet",
+           "LimitSetError", "METHODS", "MethodSpec", "available_limit_sets", "evaluate",
+           "load_limit_set", "not_assessed"]
 
 logger = logging.getLogger(__name__)
 
-#: Asset kinds a criterion may apply to.
-ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
-#: Coupling cases a criterion may belong to.
-CASES = ("normal", "fault", "capacitive", "conductive")
+#: Asset kinds a criterion may apply to when the caller names none (the
+#: built-in kinds; a run passes the registered kinds, plugins' included).
+BUILTIN_ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
 #: Hazard classes, from least to most severe.
 HAZARD_CLASSES = ("clear", "review", "exceeds")
 #: Default review threshold (common practice: look again at anything above
@@ -63,8 +82,9 @@ COMPUTED_QUANTITIES = (
     "emf_fault_v",
 )
 
-#: Directory of the shipped limit sets, relative to the repository.
-DEFAULT_SEARCH_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
+#: Directory of the shipped limit sets: package data (``corridor/data/limits``),
+#: so that an installed wheel carries them.
+DEFAULT_SEARCH_DIR = Path(__file__).resolve().parents[1] / "data" / "limits"
 
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_]*$")
 
@@ -79,269 +99,18 @@ class LimitSetError(ConfigError):
     """
 
 
-# --------------------------------------------------------------------------
-# Parameter specs
-# --------------------------------------------------------------------------
-
-_REQUIRED = object()
-
-
-@dataclass(frozen=True)
-class ParamSpec:
-    """One parameter of a criterion method.
-
-    Parameters
-    ----------
-    check : callable
-        ``check(value) -> (converted, problem_or_None)``.
-    default : object
-        Default value; a private sentinel makes the parameter required.
-    doc : str
-        Type, unit and meaning.
-    """
-
-    check: Callable[[Any], tuple[Any, str | None]]
-    default: Any = _REQUIRED
-    doc: str = ""
-
-
-def _is_number(x):
-    return isinstance(x, int | float) and not isinstance(x, bool)
-
-
-def _positive(x):
-    if not _is_number(x) or not np.isfinite(x) or x <= 0:
-        return None, f"expected a positive number, got {x!r}"
-    return float(x), None
-
-
-def _non_negative(x):
-    if not _is_number(x) or not np.isfinite(x) or x < 0:
-        return None, f"expected a number >= 0, got {x!r}"
-    return float(x), None
-
-
-def _bool(x):
-    if not isinstance(x, bool):
-        return None, f"expected true or false, got {x!r}"
-    return x, None
-
-
-def _string(x):
-    if not isinstance(x, str):
-        return None, f"expected a string, got {x!r}"
-    return x, None
-
-
-def _identifier(x):
-    if not isinstance(x, str) or not _NAME_RE.match(x):
-        return None, f"expected a lower-case name such as 'v_normal_v', got {x!r}"
-    return x, None
-
-
-def _body_weight(x):
-    if not _is_number(x) or x not in (50, 70):
-        return None, f"expected 50 or 70 (IEEE Std 80 body weights), got {x!r}"
-    return int(x), None
-
-
-def _positive_list(x):
-    if not isinstance(x, list) or not x:
-        return None, f"expected a non-empty list of positive numbers, got {x!r}"
-    out = []
-    for v in x:
-        f, problem = _positive(v)
-        if problem:
-            return None, f"expected a non-empty list of positive numbers, got {x!r}"
-        out.append(f)
-    return tuple(out), None
-
-
-def _increasing_list(x):
-    out, problem = _positive_list(x)
-    if problem:
-        return out, problem
-    if any(b <= a for a, b in zip(out, out[1:], strict=False)):
-        return None, f"durations must be strictly increasing, got {x!r}"
-    return out, None
-
-
-def _value_by_category(x):
-    if not isinstance(x, dict) or not x:
-        return None, f"expected a table of category = positive number, got {x!r}"
-    out = []
-    for k, v in x.items():
-        f, problem = _positive(v)
-        if problem:
-            return None, f"category {k!r}: {problem}"
-        out.append((k, f))
-    return tuple(sorted(out)), None
-
-
-def _choice(options):
-    def check(x):
-        if x not in options:
-            return None, f"expected one of {list(options)}, got {x!r}"
-        return x, None
-    return check
-
-
-def _names(x):
-    if not isinstance(x, list) or not x or any(
-            not isinstance(v, str) or not _NAME_RE.match(v) for v in x):
-        return None, ("expected a non-empty list of lower-case names of inputs, such as"
-                      f" ['dc_current_density_a_per_m2'], got {x!r}")
-    return tuple(x), None
-
-
-def _asset_kinds(x):
-    if (not isinstance(x, list) or not x
-            or any(not isinstance(k, str) or k not in ASSET_KINDS for k in x)):
-        return None, f"expected a non-empty list drawn from {list(ASSET_KINDS)}, got {x!r}"
-    return tuple(x), None
-
-
-# --------------------------------------------------------------------------
-# Methods: how each criterion computes its permitted value per segment
-# --------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class Context:
-    """Per-segment data a method may need, each an ndarray of shape (n,).
-
-    Parameters
-    ----------
-    clearing_time_s : ndarray of float
-        Fault clearing time of the inducing line [s].
-    soil_resistivity_ohm_m : ndarray of float
-        Soil resistivity at the segment [Ω·m].
-    high_reliability : ndarray of bool
-        High-reliability power line (ITU-T Directives sense).
-    categories : Mapping[str, ndarray of str]
-        Named per-segment labels, e.g. ``coating_type``.
-    n : int
-        Number of segments.
-    """
-
-    clearing_time_s: np.ndarray
-    soil_resistivity_ohm_m: np.ndarray
-    high_reliability: np.ndarray
-    categories: Mapping[str, np.ndarray]
-    n: int
-
-
-def _permitted_constant(p, ctx):
-    return np.full(ctx.n, p["value"])
-
-
-def _permitted_table(p, ctx):
-    return crit.interpolate_vs_duration(ctx.clearing_time_s, p["table_duration_s"],
-                                        p["table_value"])
-
-
-def _ieee80_surface(p, ctx):
-    rho = ctx.soil_resistivity_ohm_m
-    if p["surface_layer"]:
-        rho_s = np.full(ctx.n, p["surface_resistivity_ohm_m"])
-        cs = crit.surface_layer_derating(rho, rho_s, p["surface_thickness_m"])
-    else:
-        rho_s, cs = rho, np.ones(ctx.n)
-    return rho_s, cs
-
-
-def _permitted_ieee80_touch(p, ctx):
-    rho_s, cs = _ieee80_surface(p, ctx)
-    return crit.ieee80_touch_voltage_v(ctx.clearing_time_s, p["body_weight_kg"], rho_s, cs)
-
-
-def _permitted_ieee80_step(p, ctx):
-    rho_s, cs = _ieee80_surface(p, ctx)
-    return crit.ieee80_step_voltage_v(ctx.clearing_time_s, p["body_weight_kg"], rho_s, cs)
-
-
-def _permitted_itu(p, ctx):
-    return crit.itu_telecom_fault_limit_v(
-        ctx.clearing_time_s, ctx.high_reliability,
-        normal_limit_v=p["normal_limit_v"],
-        high_reliability_limit_v=p["high_reliability_limit_v"],
-        high_reliability_max_clearing_s=p["high_reliability_max_clearing_s"])
-
-
-def _permitted_by_category(p, ctx):
-    table = dict(p["value_by_category"])
-    fallback = min(table.values())  # unknown or missing label: the strictest value
-    labels = ctx.categories.get(p["category"])
-    out = np.full(ctx.n, fallback)
-    if labels is not None:
-        labels = np.broadcast_to(np.asarray(labels).astype(str), (ctx.n,))
-        for label, value in table.items():
-            out[labels == label] = value
-    return out
-
-
-@dataclass(frozen=True)
-class MethodSpec:
-    """A criterion method: its parameters and its permitted-value function."""
-
-    params: Mapping[str, ParamSpec]
-    permitted: Callable[[Mapping[str, Any], Context], np.ndarray]
-    doc: str = ""
-
-
-_IEEE80_PARAMS = {
-    "body_weight_kg": ParamSpec(_body_weight, 50,
-                                "50 or 70 [kg]; 50 kg is the conservative choice."),
-    "surface_layer": ParamSpec(_bool, False,
-                               "true: stand on a surface layer of the given resistivity and "
-                               "thickness; false: on native soil (ρs = soil ρ, Cs = 1)."),
-    "surface_resistivity_ohm_m": ParamSpec(_positive, 3000.0,
-                                           "Surface-layer resistivity ρs [Ω·m]."),
-    "surface_thickness_m": ParamSpec(_non_negative, 0.1, "Surface-layer thickness hs [m]."),
-}
-
-#: Registry of criterion methods, keyed by the ``method`` value in the TOML.
-METHODS: Mapping[str, MethodSpec] = {
-    "constant": MethodSpec(
-        {"value": ParamSpec(_positive, doc="Permitted value, in the quantity's unit.")},
-        _permitted_constant, "One permitted value everywhere."),
-    "table_vs_time": MethodSpec(
-        {"table_duration_s": ParamSpec(_increasing_list,
-                                       doc="Durations [s], strictly increasing."),
-         "table_value": ParamSpec(_positive_list,
-                                  doc="Permitted values at those durations, quantity's unit.")},
-        _permitted_table,
-        "Published value-vs-duration table read at the clearing time, log-log interpolated."),
-    "ieee80_touch": MethodSpec(_IEEE80_PARAMS, _permitted_ieee80_touch,
-                               "IEEE Std 80 tolerable touch voltage at the clearing time."),
-    "ieee80_step": MethodSpec(_IEEE80_PARAMS, _permitted_ieee80_step,
-                              "IEEE Std 80 tolerable step voltage at the clearing time."),
-    "itu_telecom_fault": MethodSpec(
-        {"normal_limit_v": ParamSpec(_positive, 430.0, "Ordinary lines [V]."),
-         "high_reliability_limit_v": ParamSpec(_positive, 650.0,
-                                               "High-reliability lines cleared fast [V]."),
-         "high_reliability_max_clearing_s": ParamSpec(_positive, 0.2,
-                                                      "Longest clearing time for the higher "
-                                                      "limit [s], inclusive.")},
-        _permitted_itu, "ITU-T Directives fault EMF limit."),
-    "constant_by_category": MethodSpec(
-        {"category": ParamSpec(_identifier,
-                               doc="Name of the per-segment label, e.g. 'coating_type'."),
-         "value_by_category": ParamSpec(_value_by_category,
-                                        doc="Table label = permitted value; an unknown or "
-                                            "missing label takes the smallest value.")},
-        _permitted_by_category, "Permitted value chosen by a per-segment label."),
-}
-
-_COMMON_KEYS = {
-    "applies_to": ParamSpec(_asset_kinds),
-    "case": ParamSpec(_choice(CASES)),
-    "quantity": ParamSpec(_identifier),
-    "method": ParamSpec(_choice(tuple(METHODS))),
-    "description": ParamSpec(_string, ""),
-    "source": ParamSpec(_string, ""),
-    "needs": ParamSpec(_names, ()),
-}
+def _common_keys(asset_kinds: tuple[str, ...]) -> dict[str, Spec]:
+    """The keys every criterion has (``applies_to`` drawn from ``asset_kinds``)."""
+    return {
+        "applies_to": _p(asset_kinds_check(asset_kinds), dtype="str_list",
+                         doc="Asset kinds judged."),
+        "case": _p(_choice(CASES), dtype="str", doc="Coupling case."),
+        "quantity": _p(_identifier, dtype="str", doc="Per-segment quantity judged."),
+        "method": _p(_choice(tuple(METHODS)), dtype="str", doc="Criterion method."),
+        "description": _p(_string, "", dtype="str"),
+        "source": _p(_string, "", dtype="str"),
+        "needs": _p(_names, (), dtype="str_list"),
+    }
 
 
 # --------------------------------------------------------------------------
@@ -455,7 +224,8 @@ def available_limit_sets(search_dir: str | Path | None = None) -> tuple[str, ...
 
 
 def load_limit_set(name_or_path: str | Path, overrides: Mapping | None = None, *,
-                   search_dir: str | Path | None = None) -> LimitSet:
+                   search_dir: str | Path | None = None,
+                   asset_kinds: tuple[str, ...] | None = None) -> LimitSet:
     """Read, merge and validate a limit set.
 
     Parameters
@@ -469,8 +239,11 @@ def load_limit_set(name_or_path: str | Path, overrides: Mapping | None = None, *
         ``{"criteria": {"touch_fault": {"body_weight_kg": 70}}}``. Tables
         merge key by key; any other value replaces the file's.
     search_dir : str or Path, optional
-        Directory holding named sets. Default: ``config/limits`` of the
-        repository.
+        Directory holding named sets. Default: the shipped sets in
+        ``corridor/data/limits``.
+    asset_kinds : tuple of str, optional
+        The kinds ``applies_to`` may name; default :data:`BUILTIN_ASSET_KINDS`.
+        A run passes the registered kinds (plugins' included).
 
     Returns
     -------
@@ -500,7 +273,8 @@ def load_limit_set(name_or_path: str | Path, overrides: Mapping | None = None, *
             raise LimitSetError([f"overrides to {path}: expected a mapping, got "
                                  f"{type(overrides).__name__}"])
         raw = _deep_merge(raw, overrides, (), override_paths)
-    return _validate(raw, path, override_paths)
+    return _validate(raw, path, override_paths,
+                     tuple(asset_kinds) if asset_kinds is not None else BUILTIN_ASSET_KINDS)
 
 
 def _resolve(name_or_path, search_dir):
@@ -537,8 +311,9 @@ def _plain(v):
     return v
 
 
-def _validate(raw, path, override_paths):
+def _validate(raw, path, override_paths, asset_kinds):
     problems: list[str] = []
+    common_keys = _common_keys(asset_kinds)
 
     def where(*key):
         origin = str(path)
@@ -558,12 +333,12 @@ def _validate(raw, path, override_paths):
                 problems.append(f"{where(*key, k)}: unknown key (known keys: {known})")
         for k, spec in specs.items():
             if k not in obj:
-                if spec.default is _REQUIRED:
+                if spec.default is None:
                     problems.append(f"{where(*key, k)}: missing required key")
                 else:
                     out[k] = spec.default
                 continue
-            value, problem = spec.check(obj[k])
+            value, problem = spec.validate(obj[k])
             if problem:
                 problems.append(f"{where(*key, k)}: {problem}")
             else:
@@ -574,15 +349,15 @@ def _validate(raw, path, override_paths):
         if k not in ("meta", "settings", "criteria"):
             problems.append(f"{where(k)}: unknown key (known keys: criteria, meta, settings)")
 
-    meta_specs = {"name": ParamSpec(_string), "description": ParamSpec(_string),
-                  "editions": ParamSpec(_string_list)}
+    meta_specs = {"name": _p(_string, dtype="str"), "description": _p(_string, dtype="str"),
+                  "editions": _p(_string_list, dtype="str_list")}
     meta = None
     if "meta" in raw:
         meta = check_table(raw["meta"], ("meta",), meta_specs)
     else:
         problems.append(f"{where('meta')}: missing required table")
 
-    settings_specs = {"review_threshold": ParamSpec(_fraction, DEFAULT_REVIEW_THRESHOLD)}
+    settings_specs = {"review_threshold": _p(_fraction, DEFAULT_REVIEW_THRESHOLD)}
     settings = check_table(raw.get("settings", {}), ("settings",), settings_specs)
 
     criteria: list[Criterion] = []
@@ -606,15 +381,15 @@ def _validate(raw, path, override_paths):
             # Without a valid method the parameters cannot be checked; the
             # method problem itself is reported by the common-key check.
             extra = () if mspec is not None else tuple(ctable)
-            common = check_table(ctable, key, _COMMON_KEYS, allowed_extra=tuple(pspecs) + extra)
+            common = check_table(ctable, key, common_keys, allowed_extra=tuple(pspecs) + extra)
             params = check_table(ctable, key, pspecs,
-                                 allowed_extra=tuple(_COMMON_KEYS) + extra) if mspec else None
+                                 allowed_extra=tuple(common_keys) + extra) if mspec else None
             if params is not None and method == "table_vs_time":
                 d, v = params.get("table_duration_s"), params.get("table_value")
                 if d is not None and v is not None and len(d) != len(v):
                     problems.append(f"{where(*key, 'table_value')}: has {len(v)} values for "
                                     f"{len(d)} durations")
-            if common is None or params is None or len(common) < len(_COMMON_KEYS):
+            if common is None or params is None or len(common) < len(common_keys):
                 continue
             if common["quantity"] not in COMPUTED_QUANTITIES and not common["needs"]:
                 problems.append(
@@ -641,18 +416,6 @@ def _validate(raw, path, override_paths):
     return LimitSet(name=meta["name"], description=meta["description"],
                     editions=meta["editions"], review_threshold=settings["review_threshold"],
                     criteria=tuple(criteria), source_path=str(path))
-
-
-def _string_list(x):
-    if not isinstance(x, list) or any(not isinstance(s, str) for s in x):
-        return None, f"expected a list of strings, got {x!r}"
-    return tuple(x), None
-
-
-def _fraction(x):
-    if not _is_number(x) or not 0 < x < 1:
-        return None, f"expected a number between 0 and 1 (exclusive), got {x!r}"
-    return float(x), None
 
 
 # --------------------------------------------------------------------------
@@ -722,7 +485,7 @@ def evaluate(limit_set: LimitSet, asset_kind, quantities: Mapping[str, Any], cle
         high_reliability=_per_segment(high_reliability, n, bool),
         categories=dict(categories or {}),
         n=n)
-    kind_mask = {k: kind == k for k in ASSET_KINDS}
+    kind_mask: dict[str, np.ndarray] = {}
 
     ratios: dict[str, np.ndarray] = {}
     permitted_out: dict[str, np.ndarray] = {}
@@ -732,6 +495,8 @@ def evaluate(limit_set: LimitSet, asset_kind, quantities: Mapping[str, Any], cle
     for j, c in enumerate(limit_set.criteria):
         applies = np.zeros(n, dtype=bool)
         for k in c.applies_to:
+            if k not in kind_mask:
+                kind_mask[k] = kind == k
             applies |= kind_mask[k]
         permitted = c.permitted(ctx)
         permitted_out[c.name] = np.where(applies, permitted, np.nan)

@@ -135,8 +135,9 @@ def derived_config(job: dict, folder: Path) -> Path:
         if key == "limit_set" and not (base / value).exists():
             continue  # a limit-set name, not a path
         run[key] = str((base / value).resolve())
-    if "arrangements" not in run:
-        run["arrangements"] = str((base / "arrangements.toml").resolve())
+    beside = base / "arrangements.toml"
+    if "arrangements" not in run and beside.is_file():  # else corridor's shipped examples
+        run["arrangements"] = str(beside.resolve())
     layers = raw.get("layers", {})
     for tables in layers.values() if isinstance(layers, dict) else ():
         for t in tables if isinstance(tables, list) else [tables]:

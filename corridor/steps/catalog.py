@@ -5,8 +5,11 @@ read -> segment -> expose -> couple -> respond -> assess -> ground -> rank -> re
 Every step declares its typed inputs, outputs and parameters
 (:class:`StepSpec`, :class:`Param`): enough for ``corridor steps`` to list
 them and for a desktop GIS processing framework to wrap them in a thin
-adapter. Parameters are run settings (``[run]`` in the config); their type,
-unit, default, meaning and range come from :data:`corridor.config.RUN_SETTINGS`.
+adapter. Parameters are run settings (``[run]`` in the config): each is the
+setting's own :class:`corridor.settings.Spec` from
+:data:`corridor.settings.RUN_SETTINGS` (type, unit, default, range, meaning),
+which also parses and checks ``--set KEY=VALUE``. The step bodies are in
+:mod:`corridor.steps.step_runs`.
 
 How a step runs (:func:`run_step`)
 ----------------------------------
@@ -38,14 +41,30 @@ from __future__ import annotations
 import logging
 import time
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
-import numpy as np
+from corridor.errors import ConfigError
+from corridor.settings import RUN_SETTINGS, Spec
+from corridor.steps.step_runs import (
+    StepCancelled,
+    StepContext,
+    _check,
+    _run_assess,
+    _run_couple,
+    _run_expose,
+    _run_ground,
+    _run_rank,
+    _run_read,
+    _run_report,
+    _run_respond,
+    _run_segment,
+)
 
-from corridor.errors import ConfigError, CorridorError
+__all__ = ["Param", "StepSpec", "StepCancelled", "STEPS", "step_names", "get_step",
+           "run_step", "describe", "convert_parameter", "setting_param"]
 
 log = logging.getLogger(__name__)
 
@@ -93,7 +112,9 @@ class StepSpec:
     ----------
     name, title, description : str
         Plain name (CLI and API), a title and what the step does.
-    inputs, outputs, parameters : tuple of Param
+    inputs, outputs : tuple of Param
+    parameters : tuple of Spec
+        The run settings the step uses.
     run : callable
         ``run(ctx: StepContext) -> dict`` of output name -> table (internal).
     from_saved : tuple of str
@@ -105,34 +126,17 @@ class StepSpec:
     description: str
     inputs: tuple[Param, ...]
     outputs: tuple[Param, ...]
-    parameters: tuple[Param, ...]
+    parameters: tuple[Spec, ...]
     run: Callable
     from_saved: tuple[str, ...] = ()
 
 
-class StepCancelled(CorridorError):
-    """The caller's ``cancel()`` returned true between two stages."""
+def setting_param(name: str) -> Spec:
+    """The :class:`corridor.settings.Spec` of run setting ``name``."""
+    return RUN_SETTINGS[name]
 
 
-_PARAM_TYPES = {float: "float", int: "int", bool: "bool", str: "str"}
-
-
-def setting_param(name: str) -> Param:
-    """A :class:`Param` from the run setting ``name`` in ``RUN_SETTINGS``."""
-    from corridor.config import RUN_SETTINGS
-
-    typ, unit, default, doc, rng = RUN_SETTINGS[name]
-    if typ is list:
-        kind = "float_list" if all(isinstance(v, int | float) for v in default) else "str_list"
-    elif unit == "path":
-        kind = "path"
-    else:
-        kind = _PARAM_TYPES[typ]
-    low, high = rng if rng is not None else (None, None)
-    return Param(name, kind, unit, default, doc, low, high)
-
-
-def _settings(*names: str) -> tuple[Param, ...]:
+def _settings(*names: str) -> tuple[Spec, ...]:
     return tuple(setting_param(n) for n in names)
 
 
@@ -193,243 +197,6 @@ _OUT = {
 }
 
 
-# --------------------------------------------------------------------------
-# Running
-# --------------------------------------------------------------------------
-@dataclass
-class StepContext:
-    """What a step's ``run`` gets: the config (with parameters applied) and hooks."""
-
-    config: Any
-    inputs: Mapping[str, Path]
-    outputs_dir: Path
-    progress: Callable[[float, str], None]
-    cancel: Callable[[], bool]
-
-
-def _check(ctx: StepContext, fraction: float, message: str) -> None:
-    if ctx.cancel():
-        raise StepCancelled(f"cancelled before {message}")
-    ctx.progress(fraction, message)
-
-
-def _read(ctx):
-    from corridor.io.layers import read_inputs
-
-    _check(ctx, 0.0, "read")
-    return read_inputs(ctx.config)
-
-
-_ASSET_ORDER = ("couple", "respond", "assess", "ground")
-
-
-def _compute_through(ctx: StepContext, last: str | None, before_finalize=None):
-    """Read and compute the per-asset stages up to ``last`` (None: geometry only).
-
-    ``before_finalize(run)`` may add columns while the segment table is still
-    in compute order (the order of the per-segment arrays on the run).
-    """
-    from corridor.pipeline import compute, finalize
-    from corridor.steps import asset_stages
-
-    inputs = _read(ctx)
-    stages = {}
-    wanted = _ASSET_ORDER[:_ASSET_ORDER.index(last) + 1] if last else ()
-    all_stages = asset_stages()
-    n = len(wanted) + 2
-    for i, name in enumerate(wanted):
-        fn = all_stages[name]
-
-        def wrapped(run, fn=fn, i=i, name=name):
-            _check(ctx, (i + 2) / n, name)
-            fn(run)
-
-        stages[name] = wrapped
-    _check(ctx, 1 / n, "expose")
-    run = compute(ctx.config, inputs, stages)
-    if before_finalize is not None:
-        before_finalize(run)
-    return finalize(run, {})  # segment ids in run order, no run-wide stages
-
-
-def _layers(run) -> dict:
-    return {"exposures": run.exposure_table, "segments": run.segment_table}
-
-
-def _run_read(ctx):
-    inputs = _read(ctx)
-    out = {"lines": inputs.lines, "assets": inputs.assets, "rejected": inputs.rejected.frame()}
-    for role in ("soil", "grounds", "towers"):
-        frame = getattr(inputs, role)
-        if frame is not None:
-            out[role] = frame
-    return out, inputs.counts
-
-
-def _run_segment(ctx):
-    import geopandas as gpd
-    import pandas as pd
-
-    from corridor.geometry.segments import split_lines
-
-    inputs = _read(ctx)
-    _check(ctx, 0.5, "segment")
-    seg = split_lines(inputs.assets.geometry.to_numpy(), ctx.config.run["segment_length_m"])
-    assets = inputs.assets
-    frame = pd.DataFrame({
-        "segment_id": np.arange(len(seg), dtype=np.int64),
-        "asset_id": assets["asset_id"].to_numpy(dtype=object)[seg.feature],
-        "asset_kind": assets["asset_kind"].to_numpy(dtype=object)[seg.feature],
-        "part": seg.part,
-        "segment_index": np.arange(len(seg)) - np.searchsorted(seg.feature, seg.feature),
-        "chainage_m": seg.chainage_m,
-        "length_m": seg.length_m,
-    })
-    layer = gpd.GeoDataFrame(frame, geometry=seg.geometries(), crs=inputs.crs)
-    return {"segments": layer}, {"assets": len(assets), "segments": len(seg)}
-
-
-def _run_expose(ctx):
-    run = _compute_through(ctx, None)
-    return _layers(run), dict(run.counts)
-
-
-def _coupling_columns(run) -> None:
-    t = run.segment_table
-    cp = run.coupling
-    emf_n = np.abs(cp.segment_emf_normal_v)
-    emf_f = np.zeros(len(t))
-    if len(cp.fault_seg):
-        np.maximum.at(emf_f, cp.fault_seg, np.abs(cp.fault_emf_v))
-    km = t["length_m"].to_numpy(float) / 1000.0
-    t["emf_normal_v_per_km"] = emf_n / km
-    t["emf_normal_v"] = emf_n
-    t["emf_fault_v_per_km"] = emf_f / km
-    t["emf_fault_v"] = emf_f
-    t["fault_current_ka"] = cp.segment_fault_current_a / 1000.0
-    t["earth_potential_fault_v"] = cp.earth_potential_fault_v
-    t["i_capacitive_source_ma"] = np.abs(cp.capacitive_current_a) * 1000.0
-
-
-def _run_couple(ctx):
-    run = _compute_through(ctx, "couple", before_finalize=_coupling_columns)
-    return {"segments": run.segment_table}, dict(run.counts)
-
-
-def _run_respond(ctx):
-    run = _compute_through(ctx, "respond")
-    return {"segments": run.segment_table}, dict(run.counts)
-
-
-def _saved_segments(ctx):
-    import pyogrio
-
-    path = Path(ctx.inputs["segments"])
-    if not path.exists():
-        raise ConfigError(f"--in segments={path}: file not found")
-    layers = [str(x) for x in pyogrio.list_layers(path)[:, 0]]
-    layer = "segments" if "segments" in layers else layers[0]
-    try:
-        return pyogrio.read_dataframe(path, layer=layer, use_arrow=True)
-    except Exception as exc:  # GDAL's own errors; the file is the user's
-        raise ConfigError(f"--in segments={path}: cannot read layer {layer!r}: {exc}") from None
-
-
-_ASSESS_COLUMNS = ("asset_kind", "soil_resistivity_ohm_m", "clearing_time_s",
-                   "high_reliability", "v_normal_v")
-
-
-def _assess_saved(ctx, table):
-    from corridor.limits.limit_sets import load_limit_set
-    from corridor.steps import LIMITS_DIR
-    from corridor.steps.assess import assess
-
-    missing = [c for c in _ASSESS_COLUMNS if c not in table.columns]
-    if missing:
-        raise ConfigError(f"--in segments: the layer lacks {', '.join(missing)}; save it from"
-                          " the respond step (or later)")
-    cfg = ctx.config
-    limit_set = load_limit_set(cfg.run["limit_set"], dict(cfg.limit_overrides) or None,
-                               search_dir=LIMITS_DIR)
-    cats = {}
-    if "coating_type" in table.columns:
-        cats["coating_type"] = table["coating_type"].fillna("").astype(str).to_numpy()
-    table = table.copy()
-    table["high_reliability"] = table["high_reliability"].fillna(False).astype(bool)
-    res = assess(limit_set, table, cats)
-    table["ac_density_a_per_m2"] = res["quantities"]["ac_density_a_per_m2"]
-    for name, ratio in res["ratios"].items():
-        table[f"ratio_{name}"] = ratio
-    table["utilization"] = res["utilization"]
-    table["governing"] = res["governing"]
-    table["hazard_class"] = res["hazard_class"]
-    return table, limit_set
-
-
-def _run_assess(ctx):
-    if "segments" in ctx.inputs:
-        _check(ctx, 0.0, "read saved segments")
-        t = _saved_segments(ctx)
-        _check(ctx, 0.5, "assess")
-        t, _ = _assess_saved(ctx, t)
-        return {"segments": t}, {"segments": len(t),
-                                 "segments_exceeding": int((t["utilization"] >= 1).sum())}
-    run = _compute_through(ctx, "assess")
-    return {"segments": run.segment_table}, dict(run.counts)
-
-
-def _run_ground(ctx):
-    run = _compute_through(ctx, "ground")
-    sites = run.extra_tables.get("layer:sites")
-    after = run.segment_table_after_grounding
-    out = {"segments": after if after is not None else run.segment_table}
-    if sites is not None:
-        out["sites"] = sites
-        out["grounding_sites"] = sites.drop(columns="geometry", errors="ignore")
-    return out, dict(run.counts)
-
-
-def _rank_table(t):
-    from corridor.pipeline import Run
-    from corridor.steps import stage_rank
-
-    class _Cfg:  # stage_rank only reads the table and the (already loaded) limit set
-        pass
-
-    run = Run(config=_Cfg())
-    run.limit_set = object()
-    run.segment_table = t
-    stage_rank(run)
-    return run.segment_table, run.counts
-
-
-def _run_rank(ctx):
-    if "segments" in ctx.inputs:
-        _check(ctx, 0.0, "read saved segments")
-        t = _saved_segments(ctx)
-        if "utilization" not in t.columns:
-            _check(ctx, 0.3, "assess")
-            t, _ = _assess_saved(ctx, t)
-        _check(ctx, 0.7, "rank")
-        t, counts = _rank_table(t.copy())
-        return {"segments": t}, {"segments": len(t), **counts}
-    run = _compute_through(ctx, "ground")
-    _check(ctx, 0.95, "rank")
-    from corridor.steps import stage_rank
-
-    stage_rank(run)
-    return {"segments": run.segment_table}, dict(run.counts)
-
-
-def _run_report(ctx):
-    from corridor.runner import publish
-    from corridor.steps import asset_stages, run_stages
-
-    _check(ctx, 0.0, "report")
-    run = publish(ctx.config, ctx.outputs_dir, asset_stages(), run_stages())
-    return {}, dict(run.counts)
-
-
 STEPS: dict[str, StepSpec] = {}
 
 
@@ -483,49 +250,24 @@ def get_step(name: str) -> StepSpec:
         raise ConfigError(f"unknown step {name!r} (steps: {', '.join(STEPS)})") from None
 
 
-def convert_parameter(p: Param, value) -> Any:
+def convert_parameter(p: Spec, value) -> Any:
     """``value`` (typed, or a string from the command line) checked against ``p``.
 
     Raises
     ------
     ConfigError
-        Wrong type or outside ``[p.low, p.high]``.
+        Wrong type, outside the valid range or not one of the choices.
     """
     where = f"parameter {p.name}"
-    try:
-        if isinstance(value, str):
-            s = value.strip()
-            if p.type == "float":
-                value = float(s)
-            elif p.type == "int":
-                value = int(s)
-            elif p.type == "bool":
-                if s.lower() not in ("true", "false", "1", "0", "yes", "no"):
-                    raise ValueError(s)
-                value = s.lower() in ("true", "1", "yes")
-            elif p.type == "float_list":
-                value = [float(v) for v in s.strip("[]").split(",") if v.strip()]
-            elif p.type == "str_list":
-                value = [v.strip().strip("'\"") for v in s.strip("[]").split(",") if v.strip()]
-        elif p.type == "float" and isinstance(value, int) and not isinstance(value, bool):
-            value = float(value)
-    except ValueError:
-        raise ConfigError(f"{where}: {value!r} is not a {p.type} [{p.unit}]") from None
-    ok = {"float": lambda v: isinstance(v, float),
-          "int": lambda v: isinstance(v, int) and not isinstance(v, bool),
-          "bool": lambda v: isinstance(v, bool),
-          "str": lambda v: isinstance(v, str), "path": lambda v: isinstance(v, str),
-          "float_list": lambda v: isinstance(v, list) and bool(v) and all(
-              isinstance(x, int | float) and not isinstance(x, bool) and x > 0 for x in v),
-          "str_list": lambda v: isinstance(v, list) and all(isinstance(x, str) for x in v)}
-    if not ok[p.type](value):
-        raise ConfigError(f"{where}: expected {p.type} [{p.unit}], got {value!r}")
-    if p.type == "float_list":
-        value = [float(v) for v in value]
-    if p.low is not None and not (p.low <= value <= p.high):
-        raise ConfigError(f"{where}: {value} [{p.unit}] outside the valid range"
-                          f" {p.low}..{p.high}")
-    return value
+    if isinstance(value, str) and p.dtype != "str":
+        try:
+            return p.parse(value)
+        except ValueError as exc:
+            raise ConfigError(f"{where}: {exc}") from None
+    checked, problem = p.validate(value)
+    if problem:
+        raise ConfigError(f"{where}: {problem}")
+    return checked
 
 
 def _apply(cfg, spec: StepSpec, params: Mapping[str, Any]):
@@ -534,33 +276,31 @@ def _apply(cfg, spec: StepSpec, params: Mapping[str, Any]):
     from corridor.registry import registry
 
     known = {p.name: p for p in spec.parameters}
-    problems, run = [], dict(cfg.run)
+    problems, changes = [], {}
     for key, value in params.items():
         if key not in known:
             problems.append(f"parameter {key}: not a parameter of step {spec.name}"
                             f" (parameters: {', '.join(known) or 'none'})")
             continue
         try:
-            run[key] = convert_parameter(known[key], value)
+            changes[key] = convert_parameter(known[key], value)
         except ConfigError as exc:
             problems.extend(exc.problems)
     if problems:
         raise ConfigError(problems)
-    if run.get("crs") and "crs" in params:
+    if changes.get("crs"):
         from pyproj import CRS
 
         try:
-            projected = CRS.from_user_input(run["crs"]).is_projected
+            projected = CRS.from_user_input(changes["crs"]).is_projected
         except Exception:  # pyproj's CRSError; any failure is the user's value
             projected = None
         if not projected:
-            raise ConfigError(f"parameter crs: {run['crs']!r} is not a projected (metric) CRS"
-                              " pyproj understands")
-    if "limit_set" in params:
-        run["limit_set"] = registry.resolve_limit_set(run["limit_set"])
-    resolved = dict(cfg.resolved)
-    resolved["run"] = run
-    return replace(cfg, run=MappingProxyType(run), resolved=MappingProxyType(resolved))
+            raise ConfigError(f"parameter crs: {changes['crs']!r} is not a projected (metric)"
+                              " CRS pyproj understands")
+    if "limit_set" in changes:
+        changes["limit_set"] = registry.resolve_limit_set(changes["limit_set"])
+    return cfg.with_run(**changes)
 
 
 def _write(outputs: dict, spec: StepSpec, out_dir: Path) -> dict[str, Path]:
@@ -649,7 +389,7 @@ def run_step(name: str, config_path: str | Path, inputs: Mapping[str, str | Path
         written = _write(outputs, spec, out_dir)
         record = {"step": spec.name, "config_file": str(cfg.path),
                   "inputs": {k: str(v) for k, v in inputs.items()},
-                  "parameters": {p.name: cfg.run[p.name] for p in spec.parameters},
+                  "parameters": {p.name: cfg.run.as_dict()[p.name] for p in spec.parameters},
                   "counts": counts, "elapsed_s": round(time.perf_counter() - t0, 3),
                   "outputs": {k: str(v) for k, v in written.items()}, "versions": versions()}
         written["record"] = out_dir / f"{spec.name}.json"
@@ -665,7 +405,10 @@ def describe() -> list[dict]:
                 "description": p.description, "low": p.low, "high": p.high,
                 "optional": p.optional}
 
+    def setting(p: Spec) -> dict:
+        return {**p.describe(), "optional": False}
+
     return [{"name": s.name, "title": s.title, "description": s.description,
              "inputs": [plain(p) for p in s.inputs], "outputs": [plain(p) for p in s.outputs],
-             "parameters": [plain(p) for p in s.parameters], "from_saved": list(s.from_saved)}
+             "parameters": [setting(p) for p in s.parameters], "from_saved": list(s.from_saved)}
             for s in STEPS.values()]

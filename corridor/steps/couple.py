@@ -28,7 +28,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from corridor.kinds import DEFAULT_RADIUS_M
 from corridor.physics import capacitive, conductive, induction
+from corridor.registry import registry
 
 log = logging.getLogger(__name__)
 
@@ -100,7 +102,7 @@ def couple(cfg, inputs, geo) -> Coupling:
     inputs : corridor.io.layers.Inputs
     geo : corridor.pipeline.Geometry
     """
-    f = cfg.run["frequency_hz"]
+    f = cfg.run.frequency_hz
     seg = geo.segments
     n_seg = len(seg)
     pairs = geo.pairs
@@ -223,18 +225,19 @@ def couple(cfg, inputs, geo) -> Coupling:
 
 
 def _asset_radius(assets) -> np.ndarray:
-    """Equivalent radius of each asset for the electric-field coupling [m]."""
+    """Equivalent radius of each asset for the electric-field coupling [m].
+
+    From the attribute its kind declares (:attr:`corridor.kinds.AssetKind.radius`);
+    :data:`corridor.kinds.DEFAULT_RADIUS_M` for a kind that declares none.
+    """
     kind = assets["asset_kind"].to_numpy(dtype=object)
-    out = np.full(len(assets), 0.01)
-    if "wire_radius_m" in assets:
-        wr = assets["wire_radius_m"].to_numpy(float)
-        out = np.where(kind == "fence", np.nan_to_num(wr, nan=0.00125), out)
-    if "diameter_m" in assets:
-        d = assets["diameter_m"].to_numpy(float)
-        out = np.where(kind == "pipeline", np.nan_to_num(d, nan=0.5) / 2, out)
-    if "conductor_radius_m" in assets:
-        cr = assets["conductor_radius_m"].to_numpy(float)
-        out = np.where(kind == "telecom", np.nan_to_num(cr, nan=0.01), out)
+    out = np.full(len(assets), DEFAULT_RADIUS_M)
+    for k in registry.kinds():
+        if k.radius is None or k.radius.column not in assets:
+            continue
+        values = assets[k.radius.column].to_numpy(float)
+        out = np.where(kind == k.name, np.nan_to_num(values, nan=k.radius.missing)
+                       * k.radius.factor, out)
     return out
 
 
@@ -256,7 +259,7 @@ def tower_positions(cfg, inputs, total_len: np.ndarray):
                                         t.geometry.to_numpy()[ok])
         li = li[ok]
     else:
-        span = cfg.run["tower_span_m"]
+        span = cfg.run.tower_span_m
         counts = np.floor(total_len / span).astype(np.int64) + 1
         li = np.repeat(np.arange(len(lines)), counts)
         pos = (np.arange(len(li)) - np.repeat(np.cumsum(counts) - counts, counts)) * span
@@ -277,7 +280,7 @@ def earth_potential(cfg, inputs, geo, total_len: np.ndarray) -> np.ndarray:
     pairs = geo.pairs
     if len(pairs) == 0:
         return out
-    zone = cfg.run["tower_zone_m"]
+    zone = cfg.run.tower_zone_m
     near = pairs.min_separation_m <= zone
     if not near.any():
         return out
@@ -295,7 +298,7 @@ def earth_potential(cfg, inputs, geo, total_len: np.ndarray) -> np.ndarray:
     frac = np.clip(p_pos / np.maximum(total_len[p_line], 1e-9), 0, 1)
     if_s = lines["fault_current_start_ka"].to_numpy(float)[p_line] * 1000.0
     if_e = lines["fault_current_end_ka"].to_numpy(float)[p_line] * 1000.0
-    i_tower = cfg.run["tower_current_share"] * (if_s + (if_e - if_s) * frac)
+    i_tower = cfg.run.tower_current_share * (if_s + (if_e - if_s) * frac)
     rho = geo.soil_resistivity_ohm_m[p_seg]
     best = np.zeros(len(p_seg))
     for off in (-1, 0):
@@ -303,7 +306,7 @@ def earth_potential(cfg, inputs, geo, total_len: np.ndarray) -> np.ndarray:
         same = t_line[k] == p_line
         ds = t_pos[k] - p_pos
         r = np.hypot(p_sep, ds)
-        v = conductive.earth_potential_hemisphere(i_tower, rho, r, cfg.run["footing_radius_m"])
+        v = conductive.earth_potential_hemisphere(i_tower, rho, r, cfg.run.footing_radius_m)
         v = np.where(same & (r <= zone), np.abs(v), 0.0)
         best = np.maximum(best, v)
     np.maximum.at(out, p_seg, best)

@@ -69,16 +69,16 @@ def _node_positions(seg, chain_of_seg):
 
 def stage_ground(run) -> None:
     """Propose grounding sites and write ``layer:sites`` / ``csv:grounding_sites.csv``."""
-    from corridor.steps import categories, response_columns
     from corridor.steps.assess import assess
+    from corridor.steps.columns import categories, kinds_with, response_columns
     from corridor.steps.respond import solve_model
 
     cfg = run.config
     seg = run.geometry.segments
     rs = run.response
     model = rs.model
-    menu = sorted(cfg.run["grounding_menu_ohm"], reverse=True)
-    max_sites = cfg.run["max_sites_per_asset"]
+    menu = sorted(cfg.run.grounding_menu_ohm, reverse=True)
+    max_sites = cfg.run.max_sites_per_asset
     assets = run.inputs.assets
     n_assets = len(assets)
     feat = seg.feature
@@ -92,6 +92,8 @@ def stage_ground(run) -> None:
     cathodic = (cp_asset.fillna(False).astype(bool).to_numpy() if cp_asset is not None
                 else np.zeros(n_assets, bool))
     kinds = assets["asset_kind"].to_numpy(dtype=object)
+    # a ground on a cathodically protected coated pipe goes through a DC decoupler
+    decouple = kinds_with(kinds, "coated") & cathodic
     ids = assets["asset_id"].to_numpy(dtype=object)
     responsible = _lines_per_asset(run.segment_table, feat, n_assets)
     # an asset's nodes are contiguous: its chains follow each other
@@ -177,8 +179,7 @@ def stage_ground(run) -> None:
         util_after = _max_per_asset(rows["utilization"].to_numpy(float), feat[after.segments],
                                     n_assets)
         for (a, k, column, g, v0, _u, s), r_pick in zip(new_nodes, chosen, strict=True):
-            remedy = REMEDY_DECOUPLED if (kinds[a] == "pipeline" and cathodic[a]) \
-                else REMEDY_GROUND
+            remedy = REMEDY_DECOUPLED if decouple[a] else REMEDY_GROUND
             sites.append(_site(ids[a], kinds[a], node_ch[k], node_x[k], node_y[k], g, v0,
                                abs(node_v[k, column]), r_pick, remedy, responsible[a],
                                util_after[a], soil[s], len(sites)))

@@ -10,8 +10,8 @@ go into one batched tridiagonal system, factorised once and solved for:
 - columns 2..: fault cases. An asset near n lines has n fault cases (one
   faulted line at a time); case j of every asset shares column 2 + j.
 
-Per kind (defaults in :mod:`corridor.schema`, models in
-:mod:`corridor.network.asset_models`):
+Per kind (defaults in :mod:`corridor.schema`, adapters in :mod:`corridor.kinds`,
+models in :mod:`corridor.network.asset_models`):
 
 - pipeline: coating leakage πD/r_coat (+ jωC), steel internal impedance
   with μr, earth-return self impedance at the surface (a pipe 1–2 m deep is
@@ -31,8 +31,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from corridor.errors import ConfigError
+from corridor.kinds import KindSegments, asset_column
 from corridor.network import asset_models
 from corridor.network.response import ChainBatch, ChainSystem
+from corridor.registry import registry
 
 log = logging.getLogger(__name__)
 
@@ -79,71 +82,16 @@ def chain_layout(seg) -> np.ndarray:
     return np.flatnonzero(change)
 
 
-def _col(assets, name, default):
-    if name in assets:
-        v = assets[name].to_numpy()
-        try:
-            v = v.astype(float)
-            return np.where(np.isfinite(v), v, default)
-        except (TypeError, ValueError):
-            return np.where(v == v, v, default)
-    return np.full(len(assets), default)
-
-
-#: Per-segment values of an asset attribute (missing or NaN take the default).
-asset_column = _col
-
-
-# The built-in kinds: each reads its columns (missing or NaN take the
-# default) and hands the arrays to its model in corridor.network.asset_models.
-def _pipeline_constants(s):
-    """Coated buried steel pipeline (:func:`asset_models.pipeline_line_constants`)."""
-    return asset_models.pipeline_line_constants(
-        s.column("diameter_m", 0.508), s.column("wall_thickness_m", 0.0095),
-        s.column("coating_resistance_ohm_m2", 1e5), s.height_m, s.soil_resistivity_ohm_m,
-        s.frequency_hz, steel_relative_permeability=s.column("steel_relative_permeability",
-                                                             300.0))
-
-
-def _fence_constants(s):
-    """Wire fence (:func:`asset_models.fence_line_constants`)."""
-    return asset_models.fence_line_constants(
-        s.column("wire_count", 4).astype(np.int64), s.column("wire_radius_m", 0.00125),
-        s.column("post_spacing_m", 3.0), s.column("post_resistance_ohm", 100.0),
-        s.column("post_type", "metal").astype(str), s.height_m, s.soil_resistivity_ohm_m,
-        s.frequency_hz)
-
-
-def _rail_constants(s):
-    """Railway track (:func:`asset_models.rail_line_constants`)."""
-    return asset_models.rail_line_constants(
-        s.column("ballast_resistance_ohm_km", 5.0), s.column("rail_resistance_ohm_per_km", 0.03),
-        s.soil_resistivity_ohm_m, s.frequency_hz)
-
-
-def _telecom_constants(s):
-    """Telecom pair against earth; the EMF is scaled by the sheath screening factor."""
-    lc = asset_models.telecom_line_constants(s.column("conductor_radius_m", 0.01), s.height_m,
-                                             s.soil_resistivity_ohm_m, s.frequency_hz)
-    return lc.z_ohm_per_m, lc.y_s_per_m, s.column("screening_factor", 1.0)
-
-
-#: Line-constant models of the built-in kinds (plugins register theirs in
-#: :mod:`corridor.registry`).
-BUILTIN_LINE_CONSTANTS = {
-    "pipeline": _pipeline_constants,
-    "fence": _fence_constants,
-    "rail": _rail_constants,
-    "telecom": _telecom_constants,
-}
+#: Per-asset values of an attribute (missing or NaN take the default).
+_col = asset_column
 
 
 def line_constants(cfg, assets, seg, soil_ohm_m):
     """Series impedance and shunt admittance of every segment.
 
     Each kind's segments go to the kind's model in the registry
-    (:meth:`corridor.registry.Registry.line_constant_model`), which gets a
-    :class:`corridor.registry.KindSegments` and returns z [Ω/m], y [S/m] and
+    (:attr:`corridor.kinds.AssetKind.line_constants`), which gets a
+    :class:`corridor.kinds.KindSegments` and returns z [Ω/m], y [S/m] and
     optionally an EMF scale factor [-].
 
     Returns
@@ -151,10 +99,7 @@ def line_constants(cfg, assets, seg, soil_ohm_m):
     z_ohm_per_m, y_s_per_m : ndarray of complex, per segment
     emf_scale : ndarray, per segment (sheath screening factor for telecom, else 1)
     """
-    from corridor.errors import ConfigError
-    from corridor.registry import KindSegments, registry
-
-    f = cfg.run["frequency_hz"]
+    f = cfg.run.frequency_hz
     kind = assets["asset_kind"].to_numpy(dtype=object)[seg.feature]
     n = len(seg)
     z = np.zeros(n, complex)
@@ -170,7 +115,7 @@ def line_constants(cfg, assets, seg, soil_ohm_m):
         if name not in present:
             continue
         sel = kind == name
-        out = registry.line_constant_model(name)(KindSegments(
+        out = registry.kind(name).line_constants(KindSegments(
             kind=name, frequency_hz=f, soil_resistivity_ohm_m=soil_ohm_m[sel],
             height_m=h[sel], assets=assets, feature=a[sel]))
         if len(out) not in (2, 3):
@@ -189,10 +134,14 @@ def terminations(assets, seg, chain_start, z, y):
     kind = assets["asset_kind"].to_numpy(dtype=object)[feat]
     start = _col(assets, "start_termination", "open")[feat].astype(object)
     end = _col(assets, "end_termination", "open")[feat].astype(object)
-    if "cable_grounding" in assets:
-        cg = assets["cable_grounding"].to_numpy(dtype=object)[feat]
-        for label, (s_lab, e_lab) in asset_models.TELECOM_GROUNDING_TERMINATIONS.items():
-            hit = (kind == "telecom") & (cg == label)
+    for k in registry.kinds():
+        # a kind whose terminations follow an attribute (telecom: cable_grounding)
+        if k.grounding_terminations is None or k.grounding_terminations[0] not in assets:
+            continue
+        column, table = k.grounding_terminations
+        values = assets[column].to_numpy(dtype=object)[feat]
+        for label, (s_lab, e_lab) in table.items():
+            hit = (kind == k.name) & (values == label)
             start[hit] = s_lab
             end[hit] = e_lab
     r = _col(assets, "termination_resistance_ohm", 10.0)[feat]
@@ -309,7 +258,7 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
     z, y, scale = line_constants(cfg, inputs.assets, seg, geo.soil_resistivity_ohm_m)
     y_start, y_end = terminations(inputs.assets, seg, chain_start, z, y)
     node_shunt, brk, rejected = place_items(inputs, seg, chain_start,
-                                            max(cfg.run["segment_length_m"], 25.0))
+                                            max(cfg.run.segment_length_m, 25.0))
     n_chain = len(chain_start)
     chain_of_seg = np.repeat(np.arange(n_chain), np.diff(np.r_[chain_start, n_seg]))
     start_node = np.arange(n_seg) + chain_of_seg

@@ -18,7 +18,7 @@ from corridor.limits.limit_sets import (
     load_limit_set,
 )
 
-CONFIG_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
+CONFIG_DIR = Path(__file__).resolve().parents[2] / "corridor" / "data" / "limits"
 SHIPPED = ("iec_en", "ieee_na")
 
 # Words that name a source or mark the provenance of a value (project rule).
@@ -66,7 +66,7 @@ def test_shipped_sets_load(name):
     assert kinds == {"pipeline", "fence", "rail", "telecom"}
 
 
-def test_default_search_dir_is_the_repository_config():
+def test_default_search_dir_is_the_packaged_data():
     assert DEFAULT_SEARCH_DIR == CONFIG_DIR
     assert set(SHIPPED) <= set(available_limit_sets())
     assert load_limit_set("iec_en") == load_limit_set("iec_en", search_dir=CONFIG_DIR)
@@ -390,3 +390,15 @@ def test_overrides_accept_read_only_mappings(tmp_path):
     path = _write(tmp_path, MINIMAL, "m.toml")
     ls = load_limit_set(path, MappingProxyType({"criteria": {"c": {"value": 30.0}}}))
     assert ls["c"].params["value"] == 30.0
+
+
+def test_applies_to_is_checked_against_the_kinds_the_caller_names(tmp_path):
+    # a plugin's limit set names its own kind; a run passes the registered kinds
+    path = _write(tmp_path, MINIMAL.replace('["pipeline"]', '["water_main"]'))
+    with pytest.raises(LimitSetError, match="drawn from"):
+        load_limit_set(path)  # the built-in kinds only
+    ls = load_limit_set(path, asset_kinds=("pipeline", "water_main"))
+    assert ls["c"].applies_to == ("water_main",)
+    r = _eval(ls, ["water_main", "pipeline"], {"v_normal_v": [30.0, 30.0]})
+    # 30 V against the constant 60 V: ratio 0.5 on the kind it applies to only
+    assert r["ratios"]["c"][0] == 0.5 and np.isnan(r["ratios"]["c"][1])

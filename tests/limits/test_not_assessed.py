@@ -22,7 +22,7 @@ from corridor.limits.limit_sets import (
 )
 from corridor.steps.assess import QUANTITIES
 
-CONFIG_DIR = Path(__file__).resolve().parents[2] / "config" / "limits"
+CONFIG_DIR = Path(__file__).resolve().parents[2] / "corridor" / "data" / "limits"
 
 SET = """\
 [meta]

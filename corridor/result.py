@@ -1,0 +1,133 @@
+"""The typed result of a screening run: every table the outputs are written from.
+
+:func:`corridor.pipeline.screen` returns a :class:`corridor.pipeline.Run`
+(stage by stage, for the steps) and :func:`result_of` turns it into a
+:class:`Result`, from which :mod:`corridor.io.write` writes every output file.
+Where each column is computed is named field by field below (and drawn in
+DEVELOPERS.md, "Architecture").
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import geopandas as gpd
+import pandas as pd
+
+#: Keys under which the steps still leave their tables in ``Run.extra_tables``
+#: (ADAPTER, until steps/ground.py and steps/report_tables.py set the typed
+#: fields of the run directly; see :func:`result_of`).
+STEP_KEYS = {
+    "sites": "layer:sites",
+    "grounding_sites": "csv:grounding_sites.csv",
+    "hazards": "layer:hazards",
+    "assets": "layer:assets",
+    "changes": "csv:changes.csv",
+    "record": "json",
+}
+
+
+@dataclass
+class Result:
+    """Every output table of one screening run.
+
+    Attributes
+    ----------
+    segments : GeoDataFrame
+        One row per asset segment (``segments`` layer). Geometry values
+        (``line_id`` .. ``soil_resistivity_ohm_m``):
+        :func:`corridor.pipeline.segment_frame`; induced EMF and screening:
+        ``steps/couple.py``; voltages and currents (``v_normal_v``,
+        ``v_fault_v``, ...): ``steps/respond.py``; ratios, ``utilization``,
+        ``governing``, ``hazard_class``: ``steps/assess.py`` through the limit
+        set; ``segment_id``: :func:`corridor.pipeline.finalize`; ``rank``:
+        ``steps/__init__.py`` (``stage_rank``).
+    exposures : GeoDataFrame
+        One row per (asset, power line, continuous run) (``exposures`` layer,
+        ``exposures.csv``): :func:`corridor.pipeline.exposure_frame`.
+    hazards : GeoDataFrame or None
+        Runs of segments at or above the review threshold (``hazards`` layer):
+        ``steps/report_tables.py``.
+    assets : GeoDataFrame or None
+        One row per asset, its worst values (``assets`` layer):
+        ``steps/report_tables.py``.
+    sites : GeoDataFrame or None
+        Proposed grounding sites as points (``sites`` layer): ``steps/ground.py``.
+    grounding_sites : DataFrame or None
+        The same sites as a table (``grounding_sites.csv``): ``steps/ground.py``.
+    after_grounding : GeoDataFrame or None
+        Segment voltages with the proposed grounds in place (not written; the
+        report's profiles): ``steps/ground.py``.
+    limits : DataFrame or None
+        Permitted value of every criterion per segment (not written; the
+        report's profiles present it): :func:`corridor.pipeline.limits_frame`
+        from the assess step's evaluation.
+    changes : DataFrame or None
+        Rows of ``changes.csv``: :func:`corridor.changes.compare`.
+    rejected : DataFrame
+        Rows of ``rejected.csv``: :class:`corridor.io.layers.Rejected`.
+    record : dict
+        Entries of ``run.json`` the stages add (``changes``, ``inputs_state``,
+        ``not_assessed``, ``rejected_power_lines``, ``defaults_used``,
+        ``input_fingerprint``); :func:`corridor.io.write.write_outputs` adds
+        the run-wide ones.
+    extra_layers, extra_csv : dict
+        Layers and CSV files a plugin stage added (name -> table).
+    """
+
+    segments: gpd.GeoDataFrame
+    exposures: gpd.GeoDataFrame
+    rejected: pd.DataFrame
+    hazards: gpd.GeoDataFrame | None = None
+    assets: gpd.GeoDataFrame | None = None
+    sites: gpd.GeoDataFrame | None = None
+    grounding_sites: pd.DataFrame | None = None
+    after_grounding: gpd.GeoDataFrame | None = None
+    limits: pd.DataFrame | None = None
+    changes: pd.DataFrame | None = None
+    record: dict = field(default_factory=dict)
+    extra_layers: dict[str, gpd.GeoDataFrame] = field(default_factory=dict)
+    extra_csv: dict[str, pd.DataFrame] = field(default_factory=dict)
+
+    def layers(self) -> dict[str, gpd.GeoDataFrame]:
+        """The layers of ``screening.gpkg`` (and the other formats), in writing order."""
+        out = {"exposures": self.exposures, "segments": self.segments}
+        for name, table in (("sites", self.sites), ("hazards", self.hazards),
+                            ("assets", self.assets), *self.extra_layers.items()):
+            if isinstance(table, gpd.GeoDataFrame):
+                out[name] = table
+        return out
+
+    def csv_files(self) -> dict[str, pd.DataFrame]:
+        """The CSV files by file name, without geometry (``rejected.csv`` .. ``changes.csv``)."""
+        out = {"exposures.csv": self.exposures, "rejected.csv": self.rejected}
+        for name, table in (("grounding_sites.csv", self.grounding_sites),
+                            ("changes.csv", self.changes), *self.extra_csv.items()):
+            if table is not None:
+                out[name] = table
+        return {k: pd.DataFrame(v.drop(columns="geometry", errors="ignore"))
+                for k, v in out.items()}
+
+
+def result_of(run) -> Result:
+    """The typed result of a finished run (ADAPTER over ``Run.extra_tables``).
+
+    The steps still leave their tables under string keys (:data:`STEP_KEYS`);
+    this is the only place that reads those keys for writing. Any other
+    ``layer:<name>`` / ``csv:<file>`` entry (a plugin's) is kept as an extra.
+    """
+    extra = dict(run.extra_tables)
+    taken = {v: extra.pop(v, None) for v in STEP_KEYS.values()}
+    layers = {k.split(":", 1)[1]: v for k, v in extra.items()
+              if k.startswith("layer:") and isinstance(v, gpd.GeoDataFrame)}
+    csvs = {k.split(":", 1)[1]: v for k, v in extra.items()
+            if k.startswith("csv:") and isinstance(v, pd.DataFrame)}
+    return Result(
+        segments=run.segment_table, exposures=run.exposure_table,
+        rejected=run.inputs.rejected.frame(),
+        hazards=taken[STEP_KEYS["hazards"]], assets=taken[STEP_KEYS["assets"]],
+        sites=taken[STEP_KEYS["sites"]], grounding_sites=taken[STEP_KEYS["grounding_sites"]],
+        after_grounding=run.segment_table_after_grounding, limits=run.limits_table,
+        changes=taken[STEP_KEYS["changes"]],
+        record=dict(taken[STEP_KEYS["record"]] or {}),
+        extra_layers=layers, extra_csv=csvs)
