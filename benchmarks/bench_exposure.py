@@ -19,10 +19,10 @@ sys.path.insert(0, str(Path(__file__).parent))
 
 import network  # noqa: E402
 
+from corridor.compute import segment_frame, stage_geometry  # noqa: E402
 from corridor.config import load_config  # noqa: E402
 from corridor.io.layers import read_inputs  # noqa: E402
 from corridor.io.outputs import write_layer  # noqa: E402
-from corridor.pipeline import segment_frame, stage_geometry  # noqa: E402
 
 
 def main() -> None:

@@ -540,8 +540,8 @@ def incremental_compute(cfg: Config, inputs: Inputs, stages: dict | None, folder
         ``counts["cache_entries_failed"]`` (cached assets whose rows failed
         their check and were recomputed).
     """
-    from corridor.pipeline import compute as local_compute
-    from corridor.pipeline import subset_inputs
+    from corridor.compute import compute as local_compute
+    from corridor.compute import subset_inputs
 
     compute = compute_fn or local_compute
     t0 = time.perf_counter()

@@ -164,7 +164,7 @@ def check(cfg) -> int:
         from corridor.pipeline import rejected_summary
 
         lines = rejected_summary(cfg, inputs)["power_lines"]
-        if lines and not cfg.run.get("accept_rejected_lines", False):
+        if lines and not cfg.run.accept_rejected_lines:
             log.warning("%d power line(s) would be rejected: a run would publish incomplete"
                         " results and exit %d", len(lines), EXIT_LINE_REJECTED)
     if problems:
@@ -263,7 +263,7 @@ def run_exit_code(run, fail_on_exceedance: bool) -> int:
     """Exit code of a published run: 5 (a power line rejected) before 1 (exceedance)."""
     rejected = int(run.counts.get("rejected_power_lines", 0) or 0)
     if rejected:
-        if run.config.run.get("accept_rejected_lines", False):
+        if run.config.run.accept_rejected_lines:
             log.warning("%d power line(s) rejected; accepted by run.accept_rejected_lines:"
                         " the results are incomplete for them", rejected)
         else:

@@ -122,7 +122,7 @@ def relevant_config(cfg: Config) -> dict:
 def limit_files(cfg: Config) -> list[Path]:
     from corridor.steps import LIMITS_DIR
 
-    name = str(cfg.run["limit_set"])
+    name = str(cfg.run.limit_set)
     cands = [Path(LIMITS_DIR) / f"{name}.toml", Path(name), cfg.path.parent / name]
     out = []
     for p in cands:
@@ -140,7 +140,7 @@ def config_parts(cfg: Config) -> dict[str, str]:
     from corridor.io.fingerprint import dataset_sha256
 
     arr = dataset_sha256(cfg.arrangements_path).encode()
-    lim = [str(cfg.run["limit_set"]).encode(),
+    lim = [str(cfg.run.limit_set).encode(),
            json.dumps(dict(cfg.limit_overrides), sort_keys=True, default=str).encode()]
     for p in limit_files(cfg):
         lim += [p.name.encode(), dataset_sha256(p).encode()]
@@ -216,7 +216,7 @@ def asset_keys(cfg: Config, inputs: Inputs) -> AssetKeys:
         keep = t_line >= 0  # towers of unknown lines: ignored (the reader rejects them)
         tower_h = _grouped(len(lines), t_line[keep], np.flatnonzero(keep), tw_d)
         line_d = [_sha(a.encode(), b.encode()) for a, b in zip(line_d, tower_h, strict=True)]
-    reach = float(cfg.run["screening_distance_m"]) * (1.0 + 1e-6) + 1.0
+    reach = float(cfg.run.screening_distance_m) * (1.0 + 1e-6) + 1.0
     if len(lines):
         tree = shapely.STRtree(lines.geometry.to_numpy())
         ra, rl = tree.query(a_geo, predicate="dwithin", distance=reach)

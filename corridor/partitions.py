@@ -47,8 +47,8 @@ HILBERT_LEVEL = 16
 PER_ASSET_TABLES: dict[str, tuple] = {
     "segments": ("segment_table", "input", None),
     "exposures": ("exposure_table", "asset_id", "exposure_id"),
-    "sites": ("extra:layer:sites", "asset_id", None),  # site ids: asset and position
-    "grounding_sites": ("extra:csv:grounding_sites.csv", "asset_id", None),
+    "sites": ("sites", "asset_id", None),  # site ids: asset and position
+    "grounding_sites": ("grounding_sites", "asset_id", None),
     # the grounding stage's segment voltages with the proposed grounds (report profiles)
     "after_grounding": ("segment_table_after_grounding", "input", None),
     # the permitted value of every criterion per segment (report profiles)
@@ -506,7 +506,7 @@ def merge_tables(inputs: Inputs, pieces: dict[str, list]) -> dict[str, pd.DataFr
 def run_from_tables(cfg: Config, inputs: Inputs, merged: dict[str, pd.DataFrame]):
     """A run holding merged per-asset tables, its counts and grounding rejections rebuilt
     (:func:`finish_merged_run`); ready for :func:`corridor.pipeline.finalize`."""
-    from corridor.pipeline import Run
+    from corridor.compute import Run
 
     run = Run(cfg, inputs=inputs)
     for name, table in merged.items():

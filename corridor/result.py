@@ -14,18 +14,6 @@ from dataclasses import dataclass, field
 import geopandas as gpd
 import pandas as pd
 
-#: Keys under which the steps still leave their tables in ``Run.extra_tables``
-#: (ADAPTER, until steps/ground.py and steps/report_tables.py set the typed
-#: fields of the run directly; see :func:`result_of`).
-STEP_KEYS = {
-    "sites": "layer:sites",
-    "grounding_sites": "csv:grounding_sites.csv",
-    "hazards": "layer:hazards",
-    "assets": "layer:assets",
-    "changes": "csv:changes.csv",
-    "record": "json",
-}
-
 
 @dataclass
 class Result:
@@ -110,14 +98,12 @@ class Result:
 
 
 def result_of(run) -> Result:
-    """The typed result of a finished run (ADAPTER over ``Run.extra_tables``).
+    """The typed result of a finished run.
 
-    The steps still leave their tables under string keys (:data:`STEP_KEYS`);
-    this is the only place that reads those keys for writing. Any other
-    ``layer:<name>`` / ``csv:<file>`` entry (a plugin's) is kept as an extra.
+    The steps set the run's typed fields; a plugin step's ``layer:<name>`` /
+    ``csv:<file>`` entries in ``Run.extra_tables`` are kept as extras.
     """
     extra = dict(run.extra_tables)
-    taken = {v: extra.pop(v, None) for v in STEP_KEYS.values()}
     layers = {k.split(":", 1)[1]: v for k, v in extra.items()
               if k.startswith("layer:") and isinstance(v, gpd.GeoDataFrame)}
     csvs = {k.split(":", 1)[1]: v for k, v in extra.items()
@@ -125,9 +111,8 @@ def result_of(run) -> Result:
     return Result(
         segments=run.segment_table, exposures=run.exposure_table,
         rejected=run.inputs.rejected.frame(),
-        hazards=taken[STEP_KEYS["hazards"]], assets=taken[STEP_KEYS["assets"]],
-        sites=taken[STEP_KEYS["sites"]], grounding_sites=taken[STEP_KEYS["grounding_sites"]],
+        hazards=run.hazards, assets=run.assets,
+        sites=run.sites, grounding_sites=run.grounding_sites,
         after_grounding=run.segment_table_after_grounding, limits=run.limits_table,
-        changes=taken[STEP_KEYS["changes"]],
-        record=dict(taken[STEP_KEYS["record"]] or {}),
+        changes=run.changes, record=dict(run.record),
         extra_layers=layers, extra_csv=csvs)

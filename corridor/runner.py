@@ -27,12 +27,13 @@ import tempfile
 from pathlib import Path
 
 from corridor import owned as owned_mod
+from corridor.compute import Run
 from corridor.config import Config
 from corridor.errors import CorridorError, StorageError, storage_problem
 from corridor.io.provenance import input_fingerprint, inputs_unchanged
 from corridor.io.write import write_outputs
 from corridor.lock import LockError, OutputLock
-from corridor.pipeline import Run, screen
+from corridor.pipeline import screen
 
 log = logging.getLogger(__name__)
 
@@ -129,13 +130,12 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
         previous = _previous_record(out_dir) if "run.json" in owned_before else None
         fingerprint = input_fingerprint(cfg)
         run = screen(cfg, out_dir, stages, final_stages)
-        extra = dict(run.extra_tables.get("json", {}))
+        extra = run.record
         extra["input_fingerprint"] = fingerprint
         unchanged = bool(previous and previous.get("input_fingerprint") == fingerprint
                          and inputs_unchanged(run, previous))
         if unchanged:  # every asset came from the cache and no input changed
             extra["changes"] = {**extra.get("changes", {}), "unchanged_inputs": True}
-        run.extra_tables["json"] = extra
         write_outputs(run, staging, previous, reuse_from=out_dir if unchanged else None,
                       reuse_names=set(owned_before))
         log.info("assets recomputed: %d, from cache: %d; outputs complete, publishing",

@@ -299,22 +299,6 @@ class RunSettings:
         "", "path", "Folder for the partition files of backend 'dask', relative to the config"
         " file; must be reachable by every worker. '': beside the output folder.")
 
-    # TEMPORARY: removed after the orchestrator merge. Mapping-style access for the
-    # call sites of the orchestrator's modules that still read ``cfg.run.get(key)``.
-    def get(self, key: str, default: Any = None) -> Any:
-        """TEMPORARY: removed after the orchestrator merge; use the attribute."""
-        return getattr(self, key, default) if key in RUN_SETTINGS else default
-
-    def __getitem__(self, key: str) -> Any:
-        """TEMPORARY: removed after the orchestrator merge; use the attribute."""
-        if key not in RUN_SETTINGS:
-            raise KeyError(key)
-        return getattr(self, key)
-
-    def keys(self) -> Iterator[str]:
-        """TEMPORARY: removed after the orchestrator merge (``dict(cfg.run)``)."""
-        return iter(RUN_SETTINGS)
-
     def as_dict(self) -> dict[str, Any]:
         """Every setting as plain JSON-ready data (lists for tuples), in declaration order."""
         return {name: _plain(getattr(self, name)) for name in RUN_SETTINGS}

@@ -446,10 +446,10 @@ def test_dask_run_carries_every_per_asset_table(tmp_path):
     distributed = pytest.importorskip("distributed")
     from corridor.backends import override_run
     from corridor.backends.dask_backend import compute_dask
+    from corridor.compute import compute
     from corridor.config import load_config
     from corridor.io.layers import read_inputs
     from corridor.partitions import PER_ASSET_TABLES, per_asset_tables
-    from corridor.pipeline import compute
     from corridor.steps import asset_stages
     from tests.test_dask_backend import assert_same_rows
 

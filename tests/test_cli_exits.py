@@ -14,7 +14,7 @@ import errno
 import json
 import subprocess
 import sys
-from types import MappingProxyType, SimpleNamespace
+from types import SimpleNamespace
 
 import geopandas as gpd
 import pandas as pd
@@ -63,7 +63,7 @@ def test_exit_code_precedence_and_accepting_rejected_lines():
     from corridor.cli import run_exit_code
 
     def run(accept, rejected, exceeding):
-        cfg = SimpleNamespace(run=MappingProxyType({"accept_rejected_lines": accept}))
+        cfg = SimpleNamespace(run=SimpleNamespace(accept_rejected_lines=accept))
         return SimpleNamespace(config=cfg, counts={"rejected_power_lines": rejected,
                                                    "segments_exceeding": exceeding})
 

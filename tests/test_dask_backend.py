@@ -28,11 +28,11 @@ distributed = pytest.importorskip(
 
 from corridor.backends import override_run  # noqa: E402
 from corridor.backends.dask_backend import compute_dask  # noqa: E402
+from corridor.compute import compute, finalize  # noqa: E402
 from corridor.config import load_config  # noqa: E402
 from corridor.io.layers import read_inputs  # noqa: E402
 from corridor.io.outputs import sha256_file  # noqa: E402
 from corridor.partitions import plan_partitions  # noqa: E402
-from corridor.pipeline import compute, finalize  # noqa: E402
 from corridor.steps import asset_stages, run_stages  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
@@ -41,8 +41,8 @@ sys.path.insert(0, str(REPO / "benchmarks"))
 import network  # noqa: E402
 
 #: Tables compared row by row: Run attribute or extra_tables key.
-TABLES = ("segment_table", "exposure_table", "layer:sites", "csv:grounding_sites.csv",
-          "layer:assets", "layer:hazards")
+TABLES = ("segment_table", "exposure_table", "sites", "grounding_sites",
+          "assets", "hazards")
 
 
 @pytest.fixture(scope="module")
@@ -71,7 +71,7 @@ def dask_run(cfg, tmp_path, stages=None, **settings):
 
 
 def table(run, name):
-    return getattr(run, name) if ":" not in name else run.extra_tables[name]
+    return getattr(run, name)
 
 
 def assert_same_rows(a, b, where: str = "") -> None:
@@ -128,7 +128,7 @@ def test_asset_reaching_over_other_partitions_is_solved_whole(cluster, tmp_path)
     inputs = read_inputs(cfg)
     geoms = inputs.assets.geometry.to_numpy()
     n = len(geoms)
-    parts = plan_partitions(geoms, cfg.run["segment_length_m"], n)
+    parts = plan_partitions(geoms, cfg.run.segment_length_m, n)
     assert sorted(np.concatenate(parts).tolist()) == list(range(n))  # each asset once
     assert len(parts) >= 3  # cut by estimated segments: at most one per asset
     # the construct: the longest asset's bounding box overlaps another partition's hull

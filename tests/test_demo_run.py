@@ -57,7 +57,7 @@ def test_pipeline_peaks_at_joint_and_exposure_ends(demo):
 
 
 def test_demo_findings(demo):
-    a = demo.extra_tables["layer:assets"].set_index("asset_id")
+    a = demo.assets.set_index("asset_id")
     t = demo.segment_table
     # a pipeline under fault
     assert a.loc["MBL-12", "worst_utilization"] >= 1
@@ -86,7 +86,7 @@ def test_buried_assets_get_no_capacitive_pickup(demo):
 def test_ranks_are_a_permutation_and_ordered(demo):
     t = demo.segment_table
     assert sorted(t["rank"]) == list(range(1, len(t) + 1))
-    h = demo.extra_tables["layer:hazards"]
+    h = demo.hazards
     assert (np.diff(h["utilization"].to_numpy()) <= 0).all()
 
 
@@ -107,7 +107,7 @@ def test_no_feature_lost(demo):
     src = ROOT / "sample_layers" / "brackenford_vale.gpkg"
     n_in = sum(len(gpd.read_file(src, layer=name)) for name in
                ("pipelines", "rails", "fences", "telecom"))
-    a = demo.extra_tables["layer:assets"]
+    a = demo.assets
     rejected = pd.DataFrame(demo.inputs.rejected.rows)
     assert len(a) + (len(rejected[rejected["layer"].str.contains("pipelines|rails|fences|"
                                                                    "telecom")])
@@ -120,5 +120,5 @@ def test_determinism(demo):
     pd.testing.assert_frame_equal(demo.segment_table.drop(columns="geometry"),
                                   again.segment_table.drop(columns="geometry"))
     pd.testing.assert_frame_equal(
-        pd.DataFrame(demo.extra_tables["layer:sites"].drop(columns="geometry")),
-        pd.DataFrame(again.extra_tables["layer:sites"].drop(columns="geometry")))
+        pd.DataFrame(demo.sites.drop(columns="geometry")),
+        pd.DataFrame(again.sites.drop(columns="geometry")))

@@ -59,11 +59,11 @@ def test_exceeding_asset_gets_sites_and_independent_resolve_agrees(grounded_fenc
     t = run.segment_table
     near = t[t["asset_id"] == "F-NEAR"]
     assert near["ratio_steady_state_voltage"].max() > 1.0  # exceeds before grounding
-    sites = run.extra_tables["layer:sites"]
+    sites = run.sites
     mine = sites[sites["asset_id"] == "F-NEAR"]
     assert len(mine) >= 1
     assert set(mine["remedy"]) == {"ground"}
-    assert mine["ground_resistance_ohm"].isin(run.config.run["grounding_menu_ohm"]).all()
+    assert mine["ground_resistance_ohm"].isin(run.config.run.grounding_menu_ohm).all()
     # independent re-solve with the proposed grounds
     seg = run.geometry.segments
     sel = np.flatnonzero(run.inputs.assets["asset_id"].to_numpy()[seg.feature] == "F-NEAR")
@@ -92,7 +92,7 @@ def test_passing_asset_gets_no_site(grounded_fence_run):
     run = grounded_fence_run
     t = run.segment_table
     assert t.loc[t["asset_id"] == "F-FAR", "utilization"].max() < 1.0
-    assert (run.extra_tables["layer:sites"]["asset_id"] != "F-FAR").all()
+    assert (run.sites["asset_id"] != "F-FAR").all()
 
 
 def test_rank_ties_are_deterministic(scenario):
@@ -117,8 +117,8 @@ def _demo_sites(extra_asset: str | None = None):
     3 m aside, under that id (added last to the asset table, as a new feature would be)."""
     import pandas as pd
 
+    from corridor.compute import compute, finalize
     from corridor.io.layers import read_inputs
-    from corridor.pipeline import compute, finalize
 
     cfg = load_config(DEMO)
     inputs = read_inputs(cfg)
@@ -131,7 +131,7 @@ def _demo_sites(extra_asset: str | None = None):
         inputs.assets = gpd.GeoDataFrame(pd.concat([a, row], ignore_index=True),
                                          geometry="geometry", crs=a.crs)
     run = finalize(compute(cfg, inputs, asset_stages()), run_stages())
-    return run.extra_tables["csv:grounding_sites.csv"]
+    return run.grounding_sites
 
 
 def test_site_ids_unchanged_when_an_unrelated_asset_is_added():

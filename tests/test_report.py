@@ -90,7 +90,7 @@ def test_inputs_show_sha256_prefix(text):
 
 
 def test_one_profile_per_asset_over_a_limit(text, demo_run):
-    assets = demo_run.extra_tables["layer:assets"]
+    assets = demo_run.assets
     n_over = int((assets["worst_utilization"].to_numpy(float) >= 1.0).sum())
     assert n_over > 0  # the demo is built to exceed limits (sample_layers/make_demo.py)
     n_profiles = len(re.findall(r'<figure class="profile"', text))
@@ -100,7 +100,7 @@ def test_one_profile_per_asset_over_a_limit(text, demo_run):
 
 
 def test_profile_cap_says_how_many_are_left_out(demo_run, tmp_path):
-    assets = demo_run.extra_tables["layer:assets"]
+    assets = demo_run.assets
     n_over = int((assets["worst_utilization"].to_numpy(float) >= 1.0).sum())
     text = write_report(demo_run, tmp_path, max_profiles=1).read_text(encoding="utf-8")
     assert len(re.findall(r'<figure class="profile"', text)) == 1
@@ -109,18 +109,17 @@ def test_profile_cap_says_how_many_are_left_out(demo_run, tmp_path):
 
 def test_change_section_generic(demo_run, tmp_path):
     text = write_report(demo_run, tmp_path).read_text(encoding="utf-8")
-    if "changes" not in demo_run.extra_tables and "csv:changes.csv" not in demo_run.extra_tables:
+    if demo_run.changes is None:
         assert "First run" in text
     # A changes frame of any shape is shown as it is, with the previous run's time.
-    saved = dict(demo_run.extra_tables)
+    saved = demo_run.changes
     try:
-        demo_run.extra_tables["changes"] = pd.DataFrame(
+        demo_run.changes = pd.DataFrame(
             {"asset_id": ["X-1"], "change": ["worse"], "note": ["<b>escaped</b>"]})
         text = write_report(demo_run, tmp_path, previous={"finished_utc": "then"}).read_text(
             encoding="utf-8")
     finally:
-        demo_run.extra_tables.clear()
-        demo_run.extra_tables.update(saved)
+        demo_run.changes = saved
     section = text[text.index('id="changes"'):text.index('id="map"')]
     assert "X-1" in section and "worse" in section and "then" in section
     assert "&lt;b&gt;escaped&lt;/b&gt;" in section  # table cells are HTML-escaped
@@ -129,8 +128,6 @@ def test_change_section_generic(demo_run, tmp_path):
 def _variant(run, rejected_rows=(), defaults_used=None, **run_settings):
     """A shallow copy of ``run`` with other rejected rows, defaults and run settings."""
     import copy
-    import dataclasses
-    from types import MappingProxyType
 
     from corridor.io.layers import Rejected
 
@@ -141,8 +138,7 @@ def _variant(run, rejected_rows=(), defaults_used=None, **run_settings):
     if defaults_used is not None:
         out.inputs.defaults_used = defaults_used
     if run_settings:
-        out.config = dataclasses.replace(
-            run.config, run=MappingProxyType({**dict(run.config.run), **run_settings}))
+        out.config = run.config.with_run(**run_settings)
     return out
 
 
@@ -198,7 +194,7 @@ def test_defaults_counted_per_field_with_ids_of_safety_fields(demo_run, tmp_path
 
 def test_not_assessed_criteria_are_loud(text, demo_run):
     # ieee_na's step_fault and ac_corrosion_ratio judge quantities no stage computes
-    missing = demo_run.extra_tables["json"]["not_assessed"]
+    missing = demo_run.record["not_assessed"]
     assert [r["criterion"] for r in missing] == ["step_fault", "ac_corrosion_ratio"]
     banner = text[text.index('id="not-assessed"'):]
     banner = banner[:banner.index("</div>")]

@@ -16,9 +16,9 @@ import pytest
 
 from corridor.backends import override_run
 from corridor.backends.local import compute_local, local_threads
+from corridor.compute import compute, finalize
 from corridor.config import load_config
 from corridor.io.layers import read_inputs
-from corridor.pipeline import compute, finalize
 from corridor.steps import asset_stages, run_stages
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -26,12 +26,12 @@ sys.path.insert(0, str(ROOT / "benchmarks"))
 
 import network  # noqa: E402
 
-TABLES = ("segment_table", "exposure_table", "layer:sites", "csv:grounding_sites.csv",
-          "layer:assets", "layer:hazards")
+TABLES = ("segment_table", "exposure_table", "sites", "grounding_sites",
+          "assets", "hazards")
 
 
 def _table(run, name):
-    return getattr(run, name) if ":" not in name else run.extra_tables[name]
+    return getattr(run, name)
 
 
 def _same(a, b, where):
@@ -84,7 +84,7 @@ def test_auto_plan_bounds_partition_size(tmp_path, monkeypatch):
     cfg = load_config(network.write(tmp_path, 200.0, 1000.0, seed=3))
     inputs = read_inputs(cfg)
     n_seg = int(estimated_segments(inputs.assets.geometry.to_numpy(),
-                                   cfg.run["segment_length_m"]).sum())
+                                   cfg.run.segment_length_m).sum())
     assert local.local_plan(cfg, inputs) == (1, 1)  # small: one piece, one thread
     monkeypatch.setattr(local, "THREADED_ABOVE_SEGMENTS", n_seg // 2)
     monkeypatch.setattr(local, "LOCAL_SEGMENTS_PER_PARTITION", n_seg // 5)

@@ -54,7 +54,7 @@ def backend_name(cfg: Config) -> str:
     ConfigError
         ``run.backend`` names no known backend.
     """
-    name = str(cfg.run.get("backend", "local"))
+    name = str(cfg.run.backend)
     if name not in BACKENDS:
         raise ConfigError(f"{cfg.path.name}: run.backend: {name!r} is not one of"
                           f" {', '.join(BACKENDS)}")

@@ -62,13 +62,13 @@ import pandas as pd
 import shapely
 
 from corridor import partitions
+from corridor.compute import Run
+from corridor.compute import compute as pipeline_compute
 from corridor.config import Config
 from corridor.errors import CorridorError
 from corridor.io.layers import Inputs, Rejected
 from corridor.memory import release_free_memory
 from corridor.partitions import plan_partitions
-from corridor.pipeline import Run
-from corridor.pipeline import compute as pipeline_compute
 
 log = logging.getLogger(__name__)
 
@@ -221,14 +221,14 @@ def cluster_client(cfg: Config):
         raise DaskUnavailable(f"{cfg.path.name}: run.backend: 'dask' needs dask.distributed"
                               " and dask-geopandas: pip install 'corridor[dask]'"
                               f" ({exc})") from None
-    address = str(cfg.run.get("scheduler_address", ""))
+    address = str(cfg.run.scheduler_address)
     if address:
         log.info("dask: connecting to the scheduler at %s", address)
         with Client(address, timeout="30s") as client:
             yield client
         return
-    processes = bool(cfg.run.get("dask_processes", True))
-    n_workers = int(cfg.run.get("dask_workers", 2))
+    processes = bool(cfg.run.dask_processes)
+    n_workers = int(cfg.run.dask_workers)
     log.info("dask: starting a LocalCluster of %d workers (%s)", n_workers,
              "processes" if processes else "threads")
     # Worker processes talk over TCP on the loopback interface only; an in-process
@@ -242,7 +242,7 @@ def cluster_client(cfg: Config):
 
 
 def _work_folder(cfg: Config, work_dir: Path | None) -> Path:
-    value = str(cfg.run.get("work_dir", ""))
+    value = str(cfg.run.work_dir)
     if value:
         root = (cfg.path.parent / value).resolve()
     elif work_dir is not None:
@@ -311,8 +311,8 @@ def compute_dask(cfg: Config, inputs: Inputs, stages: dict | None = None,
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
     assets = inputs.assets
-    parts = plan_partitions(assets.geometry.to_numpy(), cfg.run["segment_length_m"],
-                            int(cfg.run.get("partitions", 0)))
+    parts = plan_partitions(assets.geometry.to_numpy(), cfg.run.segment_length_m,
+                            int(cfg.run.partitions))
     timings["partition_plan"] = round(time.perf_counter() - t0, 4)
     folder = _work_folder(cfg, work_dir)
     try:

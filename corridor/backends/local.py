@@ -53,7 +53,7 @@ def compute_local(cfg: Config, inputs: Inputs, stages: dict | None = None,
     -------
     corridor.pipeline.Run
     """
-    from corridor.pipeline import compute
+    from corridor.compute import compute
 
     threads, n_parts = local_plan(cfg, inputs)
     if n_parts <= 1:
@@ -84,11 +84,11 @@ def local_plan(cfg: Config, inputs: Inputs) -> tuple[int, int]:
     from corridor.partitions import estimated_segments
 
     n_seg = float(estimated_segments(inputs.assets.geometry.to_numpy(),
-                                     cfg.run["segment_length_m"]).sum())
+                                     cfg.run.segment_length_m).sum())
     large = n_seg >= THREADED_ABOVE_SEGMENTS
-    wanted = int(cfg.run.get("threads", 0))
+    wanted = int(cfg.run.threads)
     threads = wanted if wanted > 0 else (min(2, os.cpu_count() or 1) if large else 1)
-    fixed = int(cfg.run.get("partitions", 0))
+    fixed = int(cfg.run.partitions)
     if fixed > 0:
         return threads, min(fixed, max(len(inputs.assets), 1))
     if not large and threads <= 1:
@@ -112,12 +112,12 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
     from concurrent.futures import ThreadPoolExecutor
 
     from corridor import partitions, progress
+    from corridor.compute import compute, subset_inputs
     from corridor.memory import release_free_memory
-    from corridor.pipeline import compute, subset_inputs
 
     t0 = time.perf_counter()
     parts = partitions.plan_partitions(inputs.assets.geometry.to_numpy(),
-                                       cfg.run["segment_length_m"], n_partitions or threads)
+                                       cfg.run.segment_length_m, n_partitions or threads)
     lock = threading.Lock()
     bar = progress.bar("compute", total=len(parts))
     done = [0]

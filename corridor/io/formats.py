@@ -35,22 +35,14 @@ def output_layers(run_or_tables) -> dict[str, gpd.GeoDataFrame]:
     Parameters
     ----------
     run_or_tables : corridor.pipeline.Run or mapping of str to GeoDataFrame
-        A finished run (``exposures``, ``segments`` and every
-        ``extra_tables["layer:<name>"]`` with a geometry) or the layers
-        themselves.
+        A finished run (its :class:`corridor.result.Result` layers) or the
+        layers themselves.
     """
     if isinstance(run_or_tables, Mapping):
         return {str(k): v for k, v in run_or_tables.items() if isinstance(v, gpd.GeoDataFrame)}
-    run = run_or_tables
-    layers: dict[str, gpd.GeoDataFrame] = {}
-    if run.exposure_table is not None:
-        layers["exposures"] = run.exposure_table
-    if run.segment_table is not None:
-        layers["segments"] = run.segment_table
-    for name, table in run.extra_tables.items():
-        if name.startswith("layer:") and isinstance(table, gpd.GeoDataFrame):
-            layers[name.split(":", 1)[1]] = table
-    return layers
+    from corridor.result import result_of
+
+    return result_of(run_or_tables).layers()
 
 
 def _plain(frame: gpd.GeoDataFrame) -> gpd.GeoDataFrame:

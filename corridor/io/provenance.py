@@ -87,7 +87,7 @@ def inputs_unchanged(run, previous_record: dict | None) -> bool:
     from corridor.io.fingerprint import dataset_sha256
 
     now = {(str(p), dataset_sha256(p)) for p in input_files(run.config)}
-    state = run.extra_tables.get("json", {}).get("inputs_state")
+    state = run.record.get("inputs_state")
     return (before == now and state is not None
             and previous_record.get("inputs_state") == state
             and previous_record.get("versions", {}).get("corridor") == __version__)

@@ -71,15 +71,15 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
         The files of ``reuse_from`` that corridor wrote (its manifest); only
         these are copied. None: every file of the names corridor writes.
     """
+    from corridor.compute import versions
     from corridor.io.formats import write_extra_formats
-    from corridor.pipeline import versions
     from corridor.report import write_report
 
     result = result_of(run)
     out_dir.mkdir(parents=True, exist_ok=True)
     paths = output_paths(out_dir)
     t0 = time.perf_counter()
-    formats = list(run.config.run.get("output_formats", ["gpkg"]))
+    formats = list(run.config.run.output_formats)
     records = input_records(run.config)
 
     def ours(name: str) -> bool:

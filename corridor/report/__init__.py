@@ -108,9 +108,9 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
     ----------
     run : corridor.pipeline.Run
         A run through every stage (segment table with ``utilization``,
-        ``hazard_class``, ``rank``; ``extra_tables["layer:assets"]``;
+        ``hazard_class``, ``rank``; ``assets``;
         ``limit_set`` and ``assessment`` from the assess stage).
-        ``extra_tables["layer:sites"]`` (points with ``asset_id``,
+        ``sites`` (points with ``asset_id``,
         ``chainage_m`` [m] and optionally ``v_before_v``, ``v_after_v`` [V])
         and ``extra_tables["changes"]`` are drawn when present.
     out_dir : Path
@@ -135,9 +135,9 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
     out_dir.mkdir(parents=True, exist_ok=True)
     ls = getattr(run, "limit_set", None)
     thr = ls.review_threshold if ls is not None else DEFAULT_REVIEW_THRESHOLD
-    assets = run.extra_tables.get("layer:assets")
+    assets = run.assets
     assets_df = None if assets is None else pd.DataFrame(assets.drop(columns="geometry"))
-    sites = run.extra_tables.get("layer:sites")
+    sites = run.sites
     sites_df = None if sites is None else pd.DataFrame(sites.drop(columns="geometry",
                                                                   errors="ignore"))
     t = run.segment_table

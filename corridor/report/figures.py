@@ -166,7 +166,7 @@ def overview_map(run, review_threshold: float) -> str:
     """Inline SVG of the corridor: lines by voltage, assets by utilization, sites."""
     lines = run.inputs.lines
     seg = run.segment_table
-    sites = run.extra_tables.get("layer:sites")
+    sites = run.sites
     geoms = [g for g in (lines.geometry, seg.geometry) if len(g)]
     if not geoms:
         return "<p>No geometry to draw.</p>"
@@ -217,7 +217,7 @@ def overview_map(run, review_threshold: float) -> str:
                                   ms=8, label="grounding site"))
         for k in HAZARD_CLASSES:
             handles.append(Line2D([], [], color=HAZARD_COLOURS[k], lw=2.6, label=f"asset: {k}"))
-        assets = run.extra_tables.get("layer:assets")
+        assets = run.assets
         if assets is not None and 0 < len(assets) <= MAP_LABELS:
             mid = shapely.get_coordinates(shapely.line_interpolate_point(
                 assets.geometry.to_numpy(), 0.5, normalized=True))

@@ -63,8 +63,8 @@ def rejected_lines_banner(run) -> str:
     rows = _role_rows(run, "power_lines")
     if not rows:
         return ""
-    accepted = bool(run.config.run.get("accept_rejected_lines", False))
-    reach = run.config.run.get("screening_distance_m", "")
+    accepted = bool(run.config.run.accept_rejected_lines)
+    reach = run.config.run.screening_distance_m
     items = "".join(f"<li><b>{esc(r.get('feature_id', ''))}</b> ({esc(r.get('layer', ''))}):"
                     f" field <code>{esc(r.get('field', ''))}</code> — {esc(r.get('reason', ''))}"
                     "</li>" for r in rows)
@@ -80,7 +80,7 @@ def rejected_lines_banner(run) -> str:
 
 
 def not_assessed_rows(run) -> list[dict]:
-    extra = run.extra_tables.get("json", {}) if hasattr(run, "extra_tables") else {}
+    extra = getattr(run, "record", {}) or {}
     rows = extra.get("not_assessed") if isinstance(extra, dict) else None
     if rows is None:
         from corridor.steps.report_tables import not_assessed_criteria
@@ -196,8 +196,8 @@ def summary_section(run, out_dir: Path, assets: pd.DataFrame | None, previous: d
     crs_text = f"{crs.name}" + (f" ({auth[0]}:{auth[1]})" if auth else "")
     ls = getattr(run, "limit_set", None)
     facts = [("Config", Path(str(run.config.path)).name), ("CRS", crs_text),
-             ("Frequency", f"{run.config.run.get('frequency_hz', '')} Hz"),
-             ("Screening distance", f"{run.config.run.get('screening_distance_m', '')} m")]
+             ("Frequency", f"{run.config.run.frequency_hz} Hz"),
+             ("Screening distance", f"{run.config.run.screening_distance_m} m")]
     if ls is not None:
         facts += [("Limit set", f"{ls.name} — {ls.description}"),
                   ("Editions", "; ".join(ls.editions)),
@@ -243,14 +243,12 @@ def summary_section(run, out_dir: Path, assets: pd.DataFrame | None, previous: d
 
 def _changes(run, previous: dict | None) -> str:
     out = ['<div id="changes"><h3>Change since the last run</h3>']
-    summary = run.extra_tables.get("json", {}).get("changes", {}) or {}
+    summary = run.record.get("changes", {}) or {}
     if previous and summary.get("unchanged_inputs"):
         out.append(f"<p>Previous run finished {esc(previous.get('finished_utc', '?'))}. No"
                    " input changed since; the results are those of that run.</p></div>")
         return "".join(out)
-    changes = run.extra_tables.get("changes")
-    if changes is None:
-        changes = run.extra_tables.get("csv:changes.csv")
+    changes = run.changes
     if isinstance(changes, pd.DataFrame) and (len(changes) or previous):
         if previous:
             out.append(f"<p>Previous run finished {esc(previous.get('finished_utc', '?'))}."

@@ -364,9 +364,9 @@ def run_step(name: str, config_path: str | Path, inputs: Mapping[str, str | Path
     ConfigError, InputError
         Bad config, parameter or input; nothing is written.
     """
+    from corridor.compute import versions
     from corridor.config import load_config
     from corridor.io.outputs import write_json
-    from corridor.pipeline import versions
 
     spec = get_step(name)
     cfg = _apply(load_config(config_path), spec, dict(params or {}))

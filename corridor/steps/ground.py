@@ -214,8 +214,8 @@ def stage_ground(run) -> None:
     frame.insert(frame.columns.get_loc("lon") + 1, "lat", lat)
     gdf = gpd.GeoDataFrame(frame, geometry=gpd.points_from_xy(frame["x"], frame["y"]),
                            crs=run.inputs.crs)
-    run.extra_tables["layer:sites"] = gdf
-    run.extra_tables["csv:grounding_sites.csv"] = pd.DataFrame(frame)
+    run.sites = gdf
+    run.grounding_sites = pd.DataFrame(frame)
     # each count agrees with the table it names: grounding_sites = rows of
     # grounding_sites.csv (and of the sites layer), grounds_proposed = those rows
     # whose remedy is a ground (a resistance is given)

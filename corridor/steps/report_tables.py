@@ -124,16 +124,14 @@ def stage_tables(run) -> None:
     """Run-wide tables: ``hazards`` and ``assets`` layers; criteria not assessed.
 
     The criteria the run could not assess go to
-    ``run.extra_tables["json"]["not_assessed"]`` (merged into run.json) and are
+    ``run.record["not_assessed"]`` (merged into run.json) and are
     logged at WARNING: they must never be read as passing.
     """
     threshold = getattr(run.limit_set, "review_threshold", 0.5)
-    run.extra_tables["layer:hazards"] = hazards_layer(run.segment_table, threshold)
-    run.extra_tables["layer:assets"] = assets_layer(run)
+    run.hazards = hazards_layer(run.segment_table, threshold)
+    run.assets = assets_layer(run)
     missing = not_assessed_criteria(run)
-    extra = dict(run.extra_tables.get("json", {}))
-    extra["not_assessed"] = missing
-    run.extra_tables["json"] = extra
+    run.record["not_assessed"] = missing
     run.counts["criteria_not_assessed"] = len(missing)
     for row in missing:
         log.warning("criterion %s NOT ASSESSED on %d segments: %s", row["label"],

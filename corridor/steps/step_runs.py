@@ -53,7 +53,7 @@ def _compute_through(ctx: StepContext, last: str | None, before_finalize=None):
     ``before_finalize(run)`` may add columns while the segment table is still
     in compute order (the order of the per-segment arrays on the run).
     """
-    from corridor.pipeline import compute, finalize
+    from corridor.compute import compute, finalize
     from corridor.steps import asset_stages
 
     inputs = _read(ctx)
@@ -201,7 +201,7 @@ def _run_assess(ctx):
 
 def _run_ground(ctx):
     run = _compute_through(ctx, "ground")
-    sites = run.extra_tables.get("layer:sites")
+    sites = run.sites
     after = run.segment_table_after_grounding
     out = {"segments": after if after is not None else run.segment_table}
     if sites is not None:
@@ -211,7 +211,7 @@ def _run_ground(ctx):
 
 
 def _rank_table(t):
-    from corridor.pipeline import Run
+    from corridor.compute import Run
     from corridor.steps import stage_rank
 
     class _Cfg:  # stage_rank only reads the table and the (already loaded) limit set

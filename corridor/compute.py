@@ -1,0 +1,302 @@
+"""Per-asset computation: the run record, the segment geometry and the stage sequence.
+
+:func:`compute` runs the segment geometry (segmentation, exposure search,
+sections, exposures) and then the per-asset steps (couple, respond, assess,
+ground in :mod:`corridor.steps`) for any subset of the assets
+(:func:`subset_inputs`); a subset's rows do not depend on which other assets
+are in it, so the cache and the backends compute pieces and
+:func:`corridor.partitions.merge` joins them. :func:`finalize` runs the
+run-wide steps (segment ids, rank, summary layers) after the merge. The one
+sequence of a whole run, which calls this module through the backends, is
+:func:`corridor.pipeline.screen`.
+
+Nothing here does physics itself: it turns tables into arrays for
+:mod:`corridor.physics`, :mod:`corridor.network` and :mod:`corridor.limits`,
+and writes their answers back into tables.
+"""
+
+from __future__ import annotations
+
+import logging
+import platform
+import time
+from dataclasses import dataclass, field
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+
+from corridor import __version__
+from corridor.config import Config
+from corridor.geometry.exposure import (
+    CLASSES,
+    Exposures,
+    LineEdges,
+    Pairs,
+    Sections,
+    build_exposures,
+    equivalent_separation,
+    find_pairs,
+    nearest_line,
+    split_sections,
+    value_at_midpoints,
+)
+from corridor.geometry.segments import Segments, split_lines
+from corridor.io.layers import Inputs
+
+log = logging.getLogger(__name__)
+
+
+@dataclass
+class Geometry:
+    """Asset segments and their exposure to the power lines."""
+
+    segments: Segments
+    edges: LineEdges
+    pairs: Pairs
+    sections: Sections
+    pair_equivalent_separation_m: np.ndarray
+    exposures: Exposures
+    nearest: np.ndarray  # per segment: index into pairs, -1 where no line in reach
+    soil_resistivity_ohm_m: np.ndarray  # per segment
+
+
+@dataclass
+class Run:
+    """Everything one screening run produced, stage by stage."""
+
+    config: Config
+    inputs: Inputs | None = None
+    geometry: Geometry | None = None
+    segment_table: gpd.GeoDataFrame | None = None
+    exposure_table: gpd.GeoDataFrame | None = None
+    #: Grounding sites as points (``sites`` layer), from ``steps/ground.py``.
+    sites: gpd.GeoDataFrame | None = None
+    #: The grounding work list (``grounding_sites.csv``), from ``steps/ground.py``.
+    grounding_sites: pd.DataFrame | None = None
+    #: One row per segment at or above the review threshold (``hazards`` layer) and one
+    #: row per asset (``assets`` layer), from ``steps/report_tables.py``.
+    hazards: gpd.GeoDataFrame | None = None
+    assets: gpd.GeoDataFrame | None = None
+    #: Changes since the previous run (``changes.csv``), from :mod:`corridor.changes`.
+    changes: pd.DataFrame | None = None
+    #: Entries the run adds to run.json (criteria not assessed, change summary,
+    #: input state, fingerprint, rejected lines, defaults used).
+    record: dict = field(default_factory=dict)
+    #: A plugin step's own tables: ``layer:<name>`` (GeoDataFrame) or ``csv:<file>``.
+    extra_tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    timings_s: dict[str, float] = field(default_factory=dict)
+    counts: dict[str, int] = field(default_factory=dict)
+    limit_set: object = None
+    coupling: object = None
+    response: object = None
+    assessment: dict | None = None
+    segment_table_after_grounding: gpd.GeoDataFrame | None = None
+    #: Per-asset pair and section counts of a run merged from partitions or the
+    #: cache, which keeps no :class:`Geometry` (``asset_id``, ``pairs``, ``sections``).
+    asset_counts: pd.DataFrame | None = None
+    #: Permitted value of every criterion on every segment, as the assess step found it
+    #: (``asset_id``, ``segment_index``, ``permitted_<criterion>``): the report's profiles
+    #: present it (:func:`limits_frame`); a per-asset table, cached and merged.
+    limits_table: pd.DataFrame | None = None
+
+
+class _Timer:
+    def __init__(self, run: Run, name: str, level: int = logging.INFO):
+        self.run, self.name, self.level = run, name, level
+
+    def __enter__(self):
+        self.t0 = time.perf_counter()
+        log.log(self.level, "step %s ...", self.name)
+        return self
+
+    def __exit__(self, *exc):
+        dt = time.perf_counter() - self.t0
+        self.run.timings_s[self.name] = round(dt, 4)
+        if exc[0] is None:
+            log.log(self.level, "step %s done in %.2f s", self.name, dt)
+        return False
+
+
+def stage_geometry(cfg: Config, inputs: Inputs) -> Geometry:
+    """Segment the assets and find their exposures to the power lines."""
+    s = cfg.run
+    segments = split_lines(inputs.assets.geometry.to_numpy(), s.segment_length_m)
+    edges = LineEdges.from_geometries(inputs.lines.geometry.to_numpy())
+    pairs = find_pairs(segments, edges, s.screening_distance_m, s.min_separation_m,
+                       s.parallel_angle_deg)
+    sections = split_sections(pairs, s.min_separation_m, s.oblique_ratio)
+    eq = equivalent_separation(sections, len(pairs))
+    exposures = build_exposures(pairs, segments, eq)
+    if inputs.soil is not None:
+        soil = value_at_midpoints(segments, inputs.soil.geometry.to_numpy(),
+                                  inputs.soil["soil_resistivity_ohm_m"].to_numpy(float),
+                                  s.default_soil_resistivity_ohm_m)
+    else:
+        soil = np.full(len(segments), s.default_soil_resistivity_ohm_m)
+    return Geometry(segments, edges, pairs, sections, eq, exposures,
+                    nearest_line(pairs, len(segments)), soil)
+
+
+def segment_frame(inputs: Inputs, geo: Geometry) -> gpd.GeoDataFrame:
+    """The per-segment table with its geometry values."""
+    seg = geo.segments
+    assets = inputs.assets
+    line_ids = inputs.lines["line_id"].to_numpy(dtype=object)
+    near = geo.nearest
+    has = near >= 0
+    p = geo.pairs
+    idx = np.where(has, near, 0)
+
+    def pick(values, fill=np.nan):
+        if len(p) == 0:
+            return np.full(len(seg), fill)
+        return np.where(has, values[idx], fill)
+
+    in_reach = np.bincount(p.segment, minlength=len(seg)) if len(p) else np.zeros(len(seg), int)
+    cls = np.where(has, CLASSES[p.exposure_class[idx]] if len(p) else "", "none")
+    seg_in_asset = np.arange(len(seg)) - np.searchsorted(seg.feature, seg.feature)
+    frame = pd.DataFrame({
+        "asset_id": assets["asset_id"].to_numpy(dtype=object)[seg.feature],
+        "asset_kind": assets["asset_kind"].to_numpy(dtype=object)[seg.feature],
+        "part": seg.part,
+        "segment_index": seg_in_asset,
+        "chainage_m": seg.chainage_m,
+        "length_m": seg.length_m,
+        "line_id": np.where(has, line_ids[p.line[idx]] if len(p) else "", ""),
+        "separation_m": pick(p.separation_m),
+        "angle_deg": pick(p.angle_deg),
+        "projected_length_m": pick(np.abs(p.projected_length_m)),
+        "exposure_class": cls,
+        "lines_in_reach": in_reach.astype(np.int64),
+        "soil_resistivity_ohm_m": geo.soil_resistivity_ohm_m,
+    })
+    return gpd.GeoDataFrame(frame, geometry=seg.geometries(), crs=inputs.crs)
+
+
+def exposure_frame(inputs: Inputs, geo: Geometry) -> gpd.GeoDataFrame:
+    """One row per (asset, power line, continuous run)."""
+    ex = geo.exposures
+    assets = inputs.assets
+    lines = inputs.lines
+    frame = pd.DataFrame({
+        "exposure_id": np.arange(len(ex), dtype=np.int64),
+        "asset_id": assets["asset_id"].to_numpy(dtype=object)[ex.asset],
+        "asset_kind": assets["asset_kind"].to_numpy(dtype=object)[ex.asset],
+        "line_id": lines["line_id"].to_numpy(dtype=object)[ex.line],
+        "line_voltage_kv": lines["voltage_kv"].to_numpy(float)[ex.line],
+        "start_chainage_m": ex.start_chainage_m,
+        "end_chainage_m": ex.end_chainage_m,
+        "parallel_length_m": ex.parallel_length_m,
+        "min_separation_m": ex.min_separation_m,
+        "mean_separation_m": ex.mean_separation_m,
+        "equivalent_separation_m": ex.equivalent_separation_m,
+        "mean_angle_deg": ex.mean_angle_deg,
+        "crossings": ex.n_crossings,
+    })
+    order = np.lexsort((frame["start_chainage_m"].to_numpy(), frame["line_id"].to_numpy(),
+                        frame["asset_id"].to_numpy()))
+    frame = frame.iloc[order].reset_index(drop=True)
+    frame["exposure_id"] = np.arange(len(frame), dtype=np.int64)
+    geoms = ex.geometry[order]
+    return gpd.GeoDataFrame(frame, geometry=geoms, crs=inputs.crs)
+
+
+def versions() -> dict[str, str]:
+    """Versions of corridor and the libraries whose behaviour shapes its results."""
+    import geopandas
+    import pyogrio
+    import pyproj
+    import scipy
+
+    return {
+        "corridor": __version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "scipy": scipy.__version__,
+        "geopandas": geopandas.__version__,
+        "shapely": shapely.__version__,
+        "pyproj": pyproj.__version__,
+        "pyogrio": pyogrio.__version__,
+        "gdal": pyogrio.__gdal_version_string__,
+        "geos": shapely.geos_version_string,
+        "proj": pyproj.proj_version_str,
+    }
+
+
+def subset_inputs(inputs: Inputs, keep_asset: np.ndarray) -> Inputs:
+    """The same inputs with only the assets where ``keep_asset`` is true.
+
+    Per-asset results do not depend on which other assets are in the run, so
+    a subset computes exactly the rows a full run gives for those assets.
+    """
+    import copy
+
+    sub = copy.copy(inputs)
+    sub.assets = inputs.assets[np.asarray(keep_asset, bool)].reset_index(drop=True)
+    if inputs.grounds is not None:
+        sub.grounds = inputs.grounds[inputs.grounds["asset_id"].isin(
+            sub.assets["asset_id"])].reset_index(drop=True)
+    from corridor.io.layers import Rejected
+
+    sub.rejected = Rejected()
+    return sub
+
+
+def compute(cfg: Config, inputs: Inputs, stages: dict | None = None,
+            step_log_level: int = logging.INFO) -> Run:
+    """Exposure geometry and every per-asset stage, for any subset of the assets.
+
+    ``step_log_level`` is the level of the per-step log messages (a partition
+    of a larger run logs them at DEBUG and reports once when it is done)."""
+    run = Run(cfg, inputs=inputs)
+    with _Timer(run, "expose", step_log_level):
+        run.geometry = stage_geometry(cfg, inputs)
+        run.segment_table = segment_frame(inputs, run.geometry)
+        run.exposure_table = exposure_frame(inputs, run.geometry)
+    for name, fn in (stages or {}).items():
+        with _Timer(run, name, step_log_level):
+            fn(run)
+    run.limits_table = limits_frame(run)
+    run.counts["segments"] = len(run.geometry.segments)
+    run.counts["pairs"] = len(run.geometry.pairs)
+    run.counts["sections"] = len(run.geometry.sections)
+    run.counts["exposures"] = len(run.geometry.exposures)
+    return run
+
+
+def limits_frame(run: Run) -> pd.DataFrame | None:
+    """Per segment, the permitted value of each criterion the assess step judged it by.
+
+    Taken from ``run.assessment["permitted"]`` (rows of ``run.segment_table`` as the
+    per-asset stages left it); None when no assess step ran.
+    """
+    res = run.assessment
+    t = run.segment_table
+    if not isinstance(res, dict) or "permitted" not in res or t is None:
+        return None
+    frame = pd.DataFrame({"asset_id": t["asset_id"].to_numpy(dtype=object),
+                          "segment_index": t["segment_index"].to_numpy(np.int64)})
+    for name, values in res["permitted"].items():
+        frame[f"permitted_{name}"] = np.broadcast_to(np.asarray(values, float), len(t))
+    return frame
+
+
+def finalize(run: Run, stages: dict | None = None) -> Run:
+    """Run-wide steps on the per-asset results: ids, ranks, summary layers."""
+    ids = pd.Index(run.inputs.assets["asset_id"].astype(str))
+    t = run.segment_table
+    key = np.lexsort((t["segment_index"].to_numpy(), ids.get_indexer(t["asset_id"])))
+    if np.array_equal(key, np.arange(len(t))):  # merged runs arrive in order: no copy
+        t = t.reset_index(drop=True)
+    else:
+        t = t.iloc[key].reset_index(drop=True)
+    t.insert(0, "segment_id", np.arange(len(t), dtype=np.int64))
+    run.segment_table = t
+    for name, fn in (stages or {}).items():
+        with _Timer(run, name):
+            fn(run)
+    run.counts.update(run.inputs.counts)
+    run.counts["rejected"] = len(run.inputs.rejected.rows)
+    return run
