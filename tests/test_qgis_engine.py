@@ -46,10 +46,10 @@ def test_derived_config_replaces_layers_and_keeps_the_rest(tmp_path):
     assert all(a.path == gpkg for a in cfg.assets)
     assert cfg.soil.path == ref.soil.path  # not chosen in QGIS: the config's
     assert cfg.arrangements_path == ref.arrangements_path
-    assert cfg.run["screening_distance_m"] == 800.0
+    assert cfg.run.screening_distance_m == 800.0
     assert cfg.output_dir == ref.output_dir  # relative paths made absolute
     same = set(ref.run.as_dict()) - {"screening_distance_m", "output_dir", "arrangements"}
-    assert {k: cfg.run[k] for k in same} == {k: ref.run[k] for k in same}
+    assert {k: getattr(cfg.run, k) for k in same} == {k: getattr(ref.run, k) for k in same}
 
 
 def test_wrong_number_of_asset_layers_is_a_config_error(tmp_path):
@@ -73,6 +73,8 @@ def test_one_algorithm_per_step_plus_the_whole_run():
     limit = next(p for p in screen["parameters"] if p["name"] == "limit_set")
     assert limit["kind"] == "choice"
     assert {"iec_en", "ieee_na"} <= set(limit["choices"])
+    formats = next(p for p in screen["parameters"] if p["name"] == "output_formats")
+    assert formats["kind"] == "multichoice" and "gpkg" in formats["choices"]
     geo = {i["name"]: (i["geometry"], i["multiple"]) for i in screen["inputs"]}
     assert geo == {"power_lines": ("line", False), "assets": ("line", True),
                    "soil": ("polygon", False), "grounds": ("point", False),

@@ -736,7 +736,7 @@ def settle(gdf: gpd.GeoDataFrame, src, cfg, rejected, warnings: list[str],
         defaults_used.setdefault(fld, []).extend(ids)
     if src.role != "power_lines" or "frequencies" not in gdf or len(gdf) == 0:
         return gdf
-    f_run = float(cfg.run["frequency_hz"])
+    f_run = float(cfg.run.frequency_hz)
     keep = np.ones(len(gdf), bool)
     tag = preset_for("power_lines", src.osm)["frequency"]
     for i, (line_id, text) in enumerate(zip(gdf["line_id"], gdf["frequencies"], strict=True)):

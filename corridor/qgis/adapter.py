@@ -7,7 +7,8 @@ of :mod:`corridor.steps.catalog` needs an edit there only. Everything after it
     {"name", "title", "description",
      "inputs":     [{"name", "type", "description", "optional"}],   # *_layer types
      "outputs":    [{"name", "type", "description", "optional"}],
-     "parameters": [{"name", "type", "unit", "default", "description", "low", "high"}]}
+     "parameters": [{"name", "type", "unit", "default", "description", "low", "high",
+                     "choices"}]}
 """
 
 from __future__ import annotations
@@ -61,8 +62,10 @@ def _parameter(p: dict) -> dict:
     default = p.get("default")
     if kind == "list" and isinstance(default, list):
         default = ", ".join(str(v) for v in default)
-    choices = _choices(p["name"])
-    return {"name": p["name"], "kind": "choice" if choices else kind, "type": p["type"],
+    choices = p.get("choices") or _choices(p["name"])
+    if choices:
+        kind = "multichoice" if p["type"] == "str_list" else "choice"
+    return {"name": p["name"], "kind": kind, "type": p["type"],
             "label": _label(p), "default": default, "choices": choices,
             "min": p.get("low"), "max": p.get("high"), "help": p.get("description", "")}
 

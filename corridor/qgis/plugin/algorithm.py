@@ -151,6 +151,9 @@ class CorridorAlgorithm(QgsProcessingAlgorithm):
         if p["kind"] == "choice":
             return QgsProcessingParameterEnum(p["name"], p["label"],
                                               ["from the config", *p["choices"]], False, 0, True)
+        if p["kind"] == "multichoice":  # none chosen: the config's
+            return QgsProcessingParameterEnum(p["name"], p["label"], p["choices"], True, None,
+                                              True)
         return QgsProcessingParameterString(p["name"], p["label"], None, False, True)
 
     # -- running -------------------------------------------------------------------
@@ -194,6 +197,10 @@ class CorridorAlgorithm(QgsProcessingAlgorithm):
                 index = self.parameterAsEnum(parameters, p["name"], context)
                 if index:
                     params[p["name"]] = p["choices"][index - 1]
+            elif p["kind"] == "multichoice":
+                indices = self.parameterAsEnums(parameters, p["name"], context)
+                if indices:
+                    params[p["name"]] = [p["choices"][i] for i in indices]
             elif p["kind"] == "number":
                 params[p["name"]] = self.parameterAsDouble(parameters, p["name"], context)
             elif p["kind"] == "integer":
