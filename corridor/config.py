@@ -313,14 +313,14 @@ def _layer_format(raw: dict, role: str, where: str, full: Path, problems: list[s
             problems.append(f"{where}.osm: only an OpenStreetMap layer (.osm, .osm.pbf or"
                             " format = 'osm') takes an osm table")
         return fmt, None
-    from corridor.io import osm
+    from corridor.io import osm_preset
 
     for key in ("layer", "fields"):
         if key in raw:
             problems.append(f"{where}.{key}: not used with an OpenStreetMap extract; the tag"
                             " preset maps tags to fields (override it in the layer's osm table)")
     table = raw.get("osm", {})
-    found = osm.check_overrides(table, role, where, registry.kind_names())
+    found = osm_preset.check_overrides(table, role, where, registry.kind_names())
     problems.extend(found)
     return fmt, (FrozenMap(table) if not found and table else None)
 
@@ -564,9 +564,12 @@ def load_config(path: str | Path) -> Config:
         problems.extend(exc.problems)
     if any(s is not None and _is_osm(s) for s in (power_lines, *assets)):
         # OpenStreetMap lines take typical arrangements (corridor/data/osm_arrangements.toml)
-        from corridor.io import osm
+        from corridor.io.osm_preset import ARRANGEMENTS_PATH
 
-        arrangements = {**osm.typical_arrangements(), **arrangements}
+        try:
+            arrangements = {**load_arrangements(ARRANGEMENTS_PATH), **arrangements}
+        except ConfigError as exc:
+            problems.extend(exc.problems)
 
     limit_overrides = raw.get("limits", {})
     if not isinstance(limit_overrides, dict):
@@ -607,7 +610,7 @@ def load_config(path: str | Path) -> Config:
 
 
 def _is_osm(src: LayerSource) -> bool:
-    from corridor.io.osm import source_is_osm
+    from corridor.io.osm_preset import source_is_osm
 
     return source_is_osm(src)
 
@@ -616,7 +619,7 @@ def _layer_dict(src: LayerSource) -> dict[str, Any]:
     out = {"path": str(src.path), "layer": src.layer, "fields": dict(src.fields),
            "kind": src.kind, "crs": src.crs}
     if src.format is not None or src.osm is not None:
-        from corridor.io.osm import _plain
+        from corridor.io.osm_preset import _plain
 
         out.update(format=src.format, osm=_plain(src.osm or {}))
     return out

@@ -116,7 +116,7 @@ def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
     from corridor.io import osm
 
     if osm.source_is_osm(src):
-        return osm.read_osm(src)
+        return osm.read_osm(src, read_raw)
     what = "folder" if src.path.is_dir() else "file"
     if not (src.path.is_file() or src.path.is_dir()):
         raise InputError(f"layer {src.label}: {src.path} is not a regular file or folder"
