@@ -97,7 +97,11 @@ def _parser() -> argparse.ArgumentParser:
     u.add_argument("--out", type=Path, default=None, help="output folder (overrides the config)")
     u.add_argument("--force", action="store_true",
                    help="also when the holder is a running process on this host")
-    for q in (r, c, ls, st, u):
+    qp = sub.add_parser("qgis-plugin", help="build the QGIS Processing plugin zip")
+    qp.add_argument("--zip", required=True, type=Path, help="zip file to write")
+    qp.add_argument("--python", default=None,
+                    help="Python the plugin runs corridor with (default: this one)")
+    for q in (r, c, ls, st, u, qp):
         q.add_argument("-q", "--quiet", action="store_true", help="warnings and errors only")
         q.add_argument("-v", "--verbose", action="store_true", help="debug messages")
     return p
@@ -330,6 +334,11 @@ def main(argv: list[str] | None = None) -> int:
             return _flushed(list_steps(args.json))
         if args.command == "step":
             return run_one_step(args)
+        if args.command == "qgis-plugin":
+            from corridor.qgis.build import main as build_plugin
+
+            return build_plugin(["--zip", str(args.zip)]
+                                + (["--python", args.python] if args.python else []))
         cfg = load_config(args.config)
         if args.command == "check":
             return _flushed(check(cfg))

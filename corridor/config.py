@@ -35,9 +35,14 @@ LINE_DEFAULT_KEYS = {
     "fault_current_end_ka": 10.0,
     "clearing_time_s": 0.5,
     "high_reliability": False,
+    # two-terminal fault source model (docs/methods.md §8.1): common practice, from memory
+    "source_x_over_r_start": 10.0,
+    "source_x_over_r_end": 10.0,
+    "source_z0_over_z1_start": 1.0,
+    "source_z0_over_z1_end": 1.0,
 }
 
-LAYER_KEYS = {"path", "layer", "fields", "kind", "crs"}
+LAYER_KEYS = {"path", "layer", "fields", "kind", "crs", "format", "osm"}
 TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits"}
 LAYER_ROLES = {"power_lines", "assets", "soil", "grounds", "towers"}
 
@@ -61,6 +66,12 @@ class LayerSource:
         from the ``asset_kind`` field.
     crs : str, int or None
         CRS to declare for a layer that carries none.
+    format : str or None
+        ``"osm"``: an OpenStreetMap extract read with the tag preset
+        (:mod:`corridor.io.osm`); ``"gdal"``: a plain layer; None: ``osm`` for
+        files named ``.osm`` / ``.osm.pbf``, else plain.
+    osm : Mapping or None
+        The layer's ``osm`` table: overrides of the OSM tag preset.
     """
 
     role: str
@@ -69,6 +80,8 @@ class LayerSource:
     fields: FrozenMap
     kind: str | None = None
     crs: str | int | None = None
+    format: str | None = None
+    osm: FrozenMap | None = None
 
     @property
     def label(self) -> str:
@@ -289,7 +302,32 @@ def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
         except Exception:  # pyproj raises its own CRSError; any failure is the user's value
             problems.append(f"{where}.crs: {crs!r} is not a CRS pyproj understands")
             crs = None
-    return LayerSource(role, full, layer, FrozenMap(fields), kind, crs)
+    fmt, osm = _layer_format(raw, role, where, full, problems)
+    return LayerSource(role, full, layer, FrozenMap(fields), kind, crs, fmt, osm)
+
+
+def _layer_format(raw: dict, role: str, where: str, full: Path, problems: list[str]):
+    """The layer's ``format`` and ``osm`` keys (OpenStreetMap input, :mod:`corridor.io.osm`)."""
+    fmt = raw.get("format")
+    if fmt is not None and fmt not in ("osm", "gdal"):
+        problems.append(f"{where}.format: {fmt!r} is not 'osm' or 'gdal'")
+        fmt = None
+    is_osm = fmt == "osm" or (fmt is None and full.name.lower().endswith((".osm", ".pbf")))
+    if not is_osm:
+        if "osm" in raw:
+            problems.append(f"{where}.osm: only an OpenStreetMap layer (.osm, .osm.pbf or"
+                            " format = 'osm') takes an osm table")
+        return fmt, None
+    from corridor.io import osm_preset
+
+    for key in ("layer", "fields"):
+        if key in raw:
+            problems.append(f"{where}.{key}: not used with an OpenStreetMap extract; the tag"
+                            " preset maps tags to fields (override it in the layer's osm table)")
+    table = raw.get("osm", {})
+    found = osm_preset.check_overrides(table, role, where, registry.kind_names())
+    problems.extend(found)
+    return fmt, (FrozenMap(table) if not found and table else None)
 
 
 def _conductor(raw: dict, where: str, problems: list[str], circuit: int, phase: str,
@@ -529,6 +567,14 @@ def load_config(path: str | Path) -> Config:
         arrangements = load_arrangements(arr_path)
     except ConfigError as exc:
         problems.extend(exc.problems)
+    if any(s is not None and _is_osm(s) for s in (power_lines, *assets)):
+        # OpenStreetMap lines take typical arrangements (corridor/data/osm_arrangements.toml)
+        from corridor.io.osm_preset import ARRANGEMENTS_PATH
+
+        try:
+            arrangements = {**load_arrangements(ARRANGEMENTS_PATH), **arrangements}
+        except ConfigError as exc:
+            problems.extend(exc.problems)
 
     limit_overrides = raw.get("limits", {})
     if not isinstance(limit_overrides, dict):
@@ -568,6 +614,17 @@ def load_config(path: str | Path) -> Config:
     )
 
 
+def _is_osm(src: LayerSource) -> bool:
+    from corridor.io.osm_preset import source_is_osm
+
+    return source_is_osm(src)
+
+
 def _layer_dict(src: LayerSource) -> dict[str, Any]:
-    return {"path": str(src.path), "layer": src.layer, "fields": dict(src.fields),
-            "kind": src.kind, "crs": src.crs}
+    out = {"path": str(src.path), "layer": src.layer, "fields": dict(src.fields),
+           "kind": src.kind, "crs": src.crs}
+    if src.format is not None or src.osm is not None:
+        from corridor.io.osm_preset import _plain
+
+        out.update(format=src.format, osm=_plain(src.osm or {}))
+    return out

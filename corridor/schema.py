@@ -32,10 +32,23 @@ LINE_FIELDS: tuple[FieldSpec, ...] = (
     FieldSpec("residual_current_pct", "float", default=None, low=0.0, high=50.0,
               doc="Residual (unbalance) current as a percentage of the load current [%]."),
     FieldSpec("fault_current_start_ka", "float", default=None, low=0.0, high=300.0,
-              doc="Single line-to-earth fault current at the line's first vertex [kA rms]."),
+              doc="Single line-to-earth fault current for a fault at the line's first vertex"
+                  " [kA rms]."),
     FieldSpec("fault_current_end_ka", "float", default=None, low=0.0, high=300.0,
-              doc="Single line-to-earth fault current at the line's last vertex [kA rms];"
-                  " interpolated linearly along the line."),
+              doc="Single line-to-earth fault current for a fault at the line's last vertex"
+                  " [kA rms]; the sources behind both ends are fitted to the two values"
+                  " (docs/methods.md §8.1)."),
+    FieldSpec("source_x_over_r_start", "float", default=10.0, low=0.1, high=100.0,
+              doc="X/R ratio of the source behind the line's first vertex (common"
+                  " practice, from memory: transmission sources 10-30)."),
+    FieldSpec("source_x_over_r_end", "float", default=10.0, low=0.1, high=100.0,
+              doc="X/R ratio of the source behind the line's last vertex."),
+    FieldSpec("source_z0_over_z1_start", "float", default=1.0, low=0.05, high=20.0,
+              doc="Zero- to positive-sequence impedance ratio of the source behind the"
+                  " line's first vertex (common practice, from memory: about 0.5-3)."),
+    FieldSpec("source_z0_over_z1_end", "float", default=1.0, low=0.05, high=20.0,
+              doc="Zero- to positive-sequence impedance ratio of the source behind the"
+                  " line's last vertex."),
     FieldSpec("clearing_time_s", "float", default=None, low=0.01, high=10.0,
               doc="Fault clearing time [s]."),
     FieldSpec("high_reliability", "bool", default=False,

@@ -247,12 +247,17 @@ class RunSettings:
         " leaving such lines out is intended. The report still names every rejected line.")
     tower_span_m: float = setting(300.0, "m", "Assumed tower spacing when no tower layer is"
                                   " given.", low=10.0, high=2000.0)
-    tower_zone_m: float = setting(100.0, "m", "Distance from a tower within which the earth"
-                                  " potential rise during a fault is computed.",
-                                  low=1.0, high=2000.0)
+    tower_zone_m: float = setting(1000.0, "m", "Largest distance from a faulted tower at which"
+                                  " its earth potential is computed (the zone of influence ends"
+                                  " sooner where the potential falls below"
+                                  " tower_zone_threshold_v).", low=1.0, high=5000.0)
+    tower_zone_threshold_v: float = setting(
+        50.0, "V", "Earth potential at which a faulted tower's zone of influence ends,"
+        " r = ρI/(2πV) (project default; docs/methods.md §4.5).", low=0.1, high=1e5)
     tower_current_share: float = setting(
-        0.2, "-", "Share of the fault current discharged by the faulted tower's footing"
-        " (5-30 %, docs/methods.md §4, from memory).", low=0.0, high=1.0)
+        0.0, "-", "Share of the fault current discharged by the faulted tower's footing;"
+        " 0: from the earth-wire ladder with the local soil and footing_radius_m"
+        " (docs/methods.md §4.3).", low=0.0, high=1.0)
     footing_radius_m: float = setting(1.0, "m", "Equivalent hemispherical radius of a tower"
                                       " footing.", low=0.05, high=50.0)
     outage_scenario: bool = setting(

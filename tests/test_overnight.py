@@ -56,6 +56,12 @@ def make(root: Path, out: str = "out", cache: str | None = None, run: dict | Non
     sc = Scenario(root)
     cfg = sc.build(assets=fences(**kw))
     cfg["run"]["output_dir"] = out
+    # the scenario's design (F1 to F3 exceed, F3 through the induced voltage alone, so it
+    # gets grounds): the former fixed 20 % tower share and 100 m tower zone, and 25 kA at
+    # both ends, since a fault fed from both ends drives less current through the fences'
+    # exposure than the former one-direction 10 kA (docs/methods.md §8)
+    cfg["run"].update({"tower_current_share": 0.2, "tower_zone_m": 100.0})
+    cfg["line_defaults"] = {"fault_current_start_ka": 25.0, "fault_current_end_ka": 25.0}
     if cache is not None:
         cfg["run"]["cache_dir"] = cache
     cfg["run"].update(run or {})
@@ -279,12 +285,13 @@ def test_change_report_names_line_attribute(tmp_path):
     assert set(changes["asset_id"]) == set(OFFSETS_M)
     assert changes["cause"].str.contains("line L1: fault_current_start_ka 5.0 -> 40.0",
                                          regex=False).all()
-    # the fault EMF is linear in the inducing current (Carson's equations), and the
-    # fault touch limit does not depend on it, so an 8x current gives 8x utilization;
-    # rtol 1e-5: changes.csv keeps 6 significant digits
+    # 8x the terminal fault currents: the fitted sources are 8x stronger but the line's own
+    # impedance is unchanged, so the current fed to a fault along the line rises, by less
+    # than 8x away from the terminals (docs/methods.md §8.1); the fault touch limit does
+    # not depend on it, so every fault-governed utilization rises
     fault = changes[changes["governing_after"].str.contains("fault")]
     ratio = fault["utilization_after"] / fault["utilization_before"]
-    assert len(fault) and ((ratio - 8.0).abs() < 8.0 * 1e-5).all()
+    assert len(fault) and (ratio > 1.0).all()
     assert set(changes.loc[changes["utilization_before"] < 1, "change"]) <= {"new exceedance"}
 
 

@@ -173,10 +173,12 @@ def test_folder_of_an_older_corridor_is_taken_over(tmp_path, cli, capsys):
     cfg = make(tmp_path / "s")
     assert cli(["run", str(cfg), "-q"]) == 0
     out = tmp_path / "s" / "out"
-    (out / owned.MANIFEST).unlink()  # as an older corridor left it: no manifest
+    (out / owned.MANIFEST).unlink()  # as an older corridor left it: no manifest,
+    (out / "CAUTION.txt").unlink()  # and none of the files it did not write yet
     assert cli(["run", str(cfg), "-q"]) == 0
     assert_complete(out)
     (out / owned.MANIFEST).unlink()
+    (out / "CAUTION.txt").unlink()
     (out / "notes.txt").write_text("mine", encoding="utf-8")  # not a corridor name
     capsys.readouterr()
     assert cli(["run", str(cfg), "-q"]) == 2

@@ -192,19 +192,26 @@ def test_defaults_counted_per_field_with_ids_of_safety_fields(demo_run, tmp_path
         assert listed == (fld != "wire_count"), fld  # ids only for safety-relevant fields
 
 
-def test_not_assessed_criteria_are_loud(text, demo_run):
-    # ieee_na's step_fault judges a quantity no stage computes. (ac_corrosion_ratio, the
-    # ISO 18086 "or" combination with the DC density, is judged where J_ac < 30 A/m² passes
-    # on its own, so on the demo it is assessed on some segments; where J_ac alone fails
-    # and J_dc is missing, ac_corrosion_density's fallback to J_ac/30 exceeds.)
-    missing = demo_run.record["not_assessed"]
-    assert [r["criterion"] for r in missing] == ["step_fault"]
+def test_not_assessed_criteria_are_loud(demo_run, tmp_path):
+    # project safety rule: a criterion that cannot be assessed never passes silently. The
+    # demo assesses every ieee_na criterion (step voltage beside faulted towers, ISO 18086
+    # with its J_ac fallback), so a row as the assess step writes it is put on the run.
+    assert demo_run.record["not_assessed"] == []
+    row = {"criterion": "ac_corrosion_ratio", "label": "ac_corrosion_ratio:normal",
+           "quantity": "iso18086_density_ratio_with_dc", "segments": 12,
+           "reason": "no stage computes iso18086_density_ratio_with_dc: it needs"
+                     " dc_current_density_a_per_m2, which the input layers do not provide"}
+    saved = demo_run.record["not_assessed"]
+    demo_run.record["not_assessed"] = [row]
+    try:
+        text = write_report(demo_run, tmp_path).read_text(encoding="utf-8")
+    finally:
+        demo_run.record["not_assessed"] = saved
     banner = text[text.index('id="not-assessed"'):]
     banner = banner[:banner.index("</div>")]
     assert text.index('id="not-assessed"') < text.index('id="summary"')
     assert "did NOT pass" in banner
-    for r in missing:
-        assert r["label"] in banner and html.escape(r["reason"]) in banner
+    assert row["label"] in banner and html.escape(row["reason"]) in banner
     limits = text[text.index('id="limits"'):text.index('id="assumptions"')]
     assert limits.count("NOT ASSESSED") == 1
 

@@ -51,8 +51,8 @@ def test_unchanged_rerun_reuses_and_matches_a_full_run(tmp_path):
     for name in ("grounding_sites.csv", "exposures.csv", "rejected.csv"):
         assert (out / name).read_bytes() == (fresh / name).read_bytes()
     # an edited input is noticed: the next run computes again
-    cfg.write_text(cfg.read_text().replace("tower_current_share = 0.15",
-                                           "tower_current_share = 0.2"))
+    cfg.write_text(cfg.read_text().replace("footing_radius_m = 1.5",
+                                           "footing_radius_m = 1.2"))
     assert _run(cfg, out) == 0
     third = json.loads((out / "run.json").read_text())
     assert third["counts"].get("outputs_reused", 0) == 0

@@ -110,8 +110,13 @@ def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
     folder dataset: an Esri File Geodatabase (``.gdb``, GDAL's OpenFileGDB
     driver) or a folder of Shapefiles. A dataset holding several layers needs
     ``layer = ...``; anything else (FIFO, device, socket) is refused before
-    it is opened, since reading one can block forever.
+    it is opened, since reading one can block forever. An OpenStreetMap
+    extract is read through the tag preset (:func:`corridor.io.osm.read_osm`).
     """
+    from corridor.io import osm
+
+    if osm.source_is_osm(src):
+        return osm.read_osm(src, read_raw)
     what = "folder" if src.path.is_dir() else "file"
     if not (src.path.is_file() or src.path.is_dir()):
         raise InputError(f"layer {src.label}: {src.path} is not a regular file or folder"
@@ -639,6 +644,11 @@ def read_inputs(cfg: Config) -> Inputs:
             raws[i] = read_raw(src)
         except InputError as exc:
             problems.extend(exc.problems)
+    from corridor.io import osm
+
+    for i, src in enumerate(sources):  # OpenStreetMap: rejected ways, defaults, frequency
+        if i in raws and osm.source_is_osm(src):
+            raws[i] = osm.settle(raws[i], src, cfg, rejected, warnings, defaults_used)
     for i, src in enumerate(sources):
         if i in raws and len(raws[i]) == 0:
             problems.append(f"layer {src.label}: is empty")

@@ -120,6 +120,12 @@ GLOSSARY: dict[str, tuple[str, str]] = {
     "v_fault_v": ("Voltage, fault", "|V| of the asset to remote earth in the worst fault [V]."),
     "i_fault_a": ("Current, fault", "|I| along the asset in the worst fault [A]."),
     "fault_line_id": ("Faulted line", "Power line whose earth fault gives v_fault_v."),
+    "fault_position_m": ("Fault position", "Position along the faulted line, from its start,"
+                         " of the earth fault that gives v_fault_v [m]."),
+    "v_step_fault_v": ("Step voltage, fault", "Step voltage over 1 m beside the segment from"
+                       " the footing of a faulted tower [V]."),
+    "in_tower_zone": ("In a tower's zone", "The site stands where a faulted tower raises the"
+                      " earth above tower_zone_threshold_v [true/false]."),
     "fault_phase": ("Faulted phase", "Phase of the worst earth fault."),
     "clearing_time_s": ("Clearing time", "Fault clearing time of the faulted line [s]."),
     "high_reliability": ("High-reliability line", "Faulted line counts as high-reliability"

@@ -79,7 +79,8 @@ COMPUTED_QUANTITIES = (
     "v_normal_v", "v_fault_v", "v_touch_fault_v", "v_coating_stress_v", "ac_density_a_per_m2",
     "i_normal_body_ma", "i_capacitive_body_ma", "i_capacitive_short_ma",
     "v_capacitive_open_v", "emf_section_normal_v", "emf_section_fault_v", "emf_normal_v",
-    "emf_fault_v", "iso18086_density_ratio", "iso18086_density_ratio_with_dc",
+    "emf_fault_v", "v_step_fault_v", "iso18086_density_ratio",
+    "iso18086_density_ratio_with_dc",
 )
 
 #: Directory of the shipped limit sets: package data (``corridor/data/limits``),

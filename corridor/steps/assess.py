@@ -27,9 +27,14 @@ Quantities handed to the limit set (names as in ``config/limits/*.toml``):
 - ``i_capacitive_short_ma``, ``v_capacitive_open_v``: short-circuit current and
   open-circuit voltage of the capacitively charged asset.
 
-Not computed (a criterion on them declares ``needs`` and is reported as not
-assessed): ``v_step_fault_v`` (needs the ground electrodes' geometry) and
-``ac_dc_density_ratio`` (needs the DC current density at a holiday).
+- ``v_step_fault_v``: the step voltage over 1 m beside the asset from the
+  footing of a faulted tower (hemisphere, docs/methods.md §4.6); steps
+  around the asset's own grounds are not included (their electrode shape is
+  not in the layers).
+
+Not computed (a criterion on it declares ``needs`` and is reported as not
+assessed): ``ac_dc_density_ratio`` (needs the DC current density at a
+holiday).
 """
 
 from __future__ import annotations

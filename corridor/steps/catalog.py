@@ -215,8 +215,8 @@ _GEOM = ("crs", "use_kind_defaults", "segment_length_m", "screening_distance_m",
          "default_soil_resistivity_ohm_m")
 _add("expose", "Find exposures", "Nearest line, separation, angle and class per segment;"
      " ITU-T oblique sections; exposures per (asset, line).", _GEOM, _run_expose)
-_COUPLE = ("frequency_hz", "tower_span_m", "tower_zone_m", "tower_current_share",
-           "footing_radius_m", "outage_scenario")
+_COUPLE = ("frequency_hz", "tower_span_m", "tower_zone_m", "tower_zone_threshold_v",
+           "tower_current_share", "footing_radius_m", "outage_scenario")
 _add("couple", "Coupling", "Induced EMF (normal load, worst earth fault), capacitive"
      " pickup and earth potential near towers per segment.", _GEOM + _COUPLE, _run_couple)
 _add("respond", "Asset response", "Voltage to earth and current along every asset from its"

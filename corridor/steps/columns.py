@@ -33,7 +33,7 @@ def response_columns(run, rs, t) -> None:
     sel = rs.segments
     length_km = t["length_m"].to_numpy(float) / 1000.0
     emf_n = np.abs(rs.segment_emf_normal_v)
-    emf_f = np.abs(rs.fault_rhs).max(axis=1) if rs.fault_rhs.shape[1] else np.zeros(len(t))
+    emf_f = rs.emf_fault_v
     lines = run.inputs.lines
     case = rs.fault_case_of_segment
     has = case >= 0
@@ -65,6 +65,7 @@ def response_columns(run, rs, t) -> None:
     t["i_fault_a"] = rs.i_fault_a
     t["fault_source_impedance_ohm"] = rs.fault_source_impedance_ohm
     t["fault_line_id"] = by_case(line_ids[cp.fault_case_line] if n_case else [], "")
+    t["fault_position_m"] = rs.fault_position_m
     t["fault_phase"] = by_case(cp.fault_case_phase, "")
     t["clearing_time_s"] = by_case(cp.fault_case_clearing_s, np.nan).astype(float)
     t["high_reliability"] = by_case(cp.fault_case_high_reliability, False).astype(bool)
@@ -76,6 +77,7 @@ def response_columns(run, rs, t) -> None:
     # sum), loaded by a 1000 ohm body through the asset's source impedance
     t["v_touch_fault_v"] = (rs.v_fault_v + epr) * rs.touch_loading
     t["v_coating_stress_v"] = np.where(coated, rs.v_fault_v + epr, np.nan)
+    t["v_step_fault_v"] = cp.step_voltage_fault_v[sel]
     # electric-field coupling: a kind carried above ground, or any asset above ground
     above = kinds_with(kind, "above_ground") | (
         run.inputs.assets["height_m"].to_numpy(float)[run.geometry.segments.feature[sel]] > 0)
@@ -92,7 +94,9 @@ def response_columns(run, rs, t) -> None:
         t["dc_current_density_a_per_m2"] = np.where(
             coated, j_dc[run.geometry.segments.feature[sel]], np.nan)
     t["emf_section_normal_v"] = np.where(section, rs.emf_section_normal_v, np.nan)
-    t["emf_section_fault_v"] = np.where(section, rs.emf_section_fault_v, np.nan)
+    # in a fault: the longitudinal EMF plus the local earth potential of a faulted tower
+    # (conductive coupling; magnitudes added, conservative; docs/methods.md §4.2)
+    t["emf_section_fault_v"] = np.where(section, rs.emf_section_fault_v + epr, np.nan)
 
 
 def load_config_limit_set(cfg):

@@ -11,11 +11,13 @@ Rules (documented in the README, Method):
 - Normal load: every line within reach contributes, with its phasing; all
   lines share one phase reference (phase A at 0°), the usual assumption for
   one synchronous network.
-- Earth fault: one faulted line at a time; for each (asset, line) the faulted
-  phase is the one giving the largest total EMF on the asset; the fault
-  current flows through the whole exposure in one direction (conservative).
-  The fault current at a section is interpolated linearly between the line's
-  end values by the section's position along the line.
+- Earth fault: one faulted electrical line at a time (the features sharing a
+  ``line_id``); for each (asset, line) the faulted phase is the one giving the
+  largest total EMF on the asset per ampere. The fault is fed from both ends
+  of the line (two-terminal source model, docs/methods.md §8.1): this stage
+  gives each section its EMF per ampere and its position along the line, and
+  each case its fault positions with the currents from either end; the
+  response stage scans the positions (§8.2).
 - Earth-wire currents: earth wires grounded at every tower, so
   Z_sp I_p + Z_ss I_s = 0 (multiconductor reduction) both in normal load and
   in a fault; this is where the screening factor k comes from.
@@ -29,8 +31,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from corridor.kinds import DEFAULT_RADIUS_M
-from corridor.physics import capacitive, conductive, induction
+from corridor.physics import capacitive, induction
 from corridor.registry import registry
+from corridor.steps import faultscan
 
 log = logging.getLogger(__name__)
 
@@ -46,8 +49,9 @@ class Coupling:
     segment_emf_normal_v : complex, per segment
     fault_case_asset, fault_case_line : int, per fault case
         One case per (asset, line within reach).
-    segment_emf_fault_v : complex, shape (n_segments,) per case, stored sparse
-        ``fault_seg`` (segment index) and ``fault_emf_v`` per (case, segment).
+    fault_seg, fault_case_of_entry, fault_emf_v : per (case, segment)
+        The segment's EMF per case with the largest current either end feeds
+        for any scanned position [V] (the scan itself is in the response stage).
     fault_phase : str, per case
         The faulted phase chosen.
     capacitive_current_a : complex, per segment
@@ -71,6 +75,13 @@ class Coupling:
     capacitive_current_a: np.ndarray
     earth_potential_fault_v: np.ndarray
     segment_fault_current_a: np.ndarray  # largest fault current of a line in reach
+    step_voltage_fault_v: np.ndarray  # per segment, 1 m step beside a faulted tower [V]
+    # fault-position scan inputs (docs/methods.md §8.2)
+    fault_section_segment: np.ndarray  # per section near a faulted line
+    fault_section_case: np.ndarray
+    fault_section_position_m: np.ndarray  # chainage along the electrical line
+    fault_section_emf_v_per_a: np.ndarray  # EMF per ampere flowing from terminal A to B
+    fault_positions: faultscan.FaultPositions  # per case
     #: Normal-load scenario that governs each segment: "as given" or "outage <line> circuit <n>".
     normal_governing: np.ndarray | None = None
     #: Components of the normal-load EMF whose relative angles are unknown, sparse per
@@ -249,16 +260,16 @@ def couple(cfg, inputs, geo) -> Coupling:
     rho2 = np.asarray(rho2_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
     t_top = np.asarray(t_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
     asset_h = assets["height_m"].to_numpy(float)[sec_asset]
-    # position along the line and fault current at each section
+    # electrical lines, their fault sources, and each section's place along its line
     line_len = geo.edges.line_length_m
     total_len = np.zeros(len(lines))
     if len(line_len):
         total_len[geo.edges.segments.feature] = line_len
-    frac = np.clip(pairs.line_position_m[sec.pair] / np.maximum(total_len[sec_line], 1e-9),
-                   0.0, 1.0)
-    if_start = lines["fault_current_start_ka"].to_numpy(float) * 1000.0
-    if_end = lines["fault_current_end_ka"].to_numpy(float) * 1000.0
-    i_fault = if_start[sec_line] + (if_end[sec_line] - if_start[sec_line]) * frac
+    sources = faultscan.line_sources(cfg, inputs, total_len)
+    sec_x = sources.route_position(sec_line, pairs.line_position_m[sec.pair])
+    sec_route = sources.route[sec_line]
+    sec_dir = sources.direction[sec_line]
+    unit = np.ones(len(sec))
 
     emf_normal_sec = np.zeros(len(sec), complex)
     loading = line_loading(cfg, lines, {n: a.n_circuits for n, a in cfg.arrangements.items()})
@@ -331,10 +342,11 @@ def couple(cfg, inputs, geo) -> Coupling:
         bal_sec[idx] = np.einsum("psc,pc->ps", weights, e_cases[:, :nc])
         res_sec[idx] = np.einsum("psc,pc->ps", weights, e_cases[:, nc:])
         emf_normal_sec[idx] = bal_sec[idx, 0] + res_sec[idx, 0]
-        fe = induction.fault_emf_per_m(zma, currents.fault_per_unit[inv], p_idx, i_fault[idx])
-        fault_sec[idx, :len(p_idx)] = fe.emf_v_per_m * sec.projected_length_m[idx, None]
-        fault_unscreened[idx, :len(p_idx)] = (fe.unscreened_emf_v_per_m
-                                              * sec.projected_length_m[idx, None])
+        # per ampere flowing along the electrical line from its terminal A to B
+        fe = induction.fault_emf_per_m(zma, currents.fault_per_unit[inv], p_idx, unit[idx])
+        along = (sec.projected_length_m[idx] * sec_dir[idx])[:, None]
+        fault_sec[idx, :len(p_idx)] = fe.emf_v_per_m * along
+        fault_unscreened[idx, :len(p_idx)] = fe.unscreened_emf_v_per_m * along
         # electric field: above-ground assets only
         above = idx[is_above[idx]]
         if len(above):
@@ -358,27 +370,42 @@ def couple(cfg, inputs, geo) -> Coupling:
         as_given > 0, as_given, 1.0), 1.0) * normal.emf_v
     cap_seg = _complex_bincount(sec_seg, cap_sec, n_seg)
 
-    # fault cases: one per (asset, line) pair with any exposure
-    key_asset = sec_asset
-    case_key = key_asset.astype(np.int64) * (len(lines) + 1) + sec_line
+    # fault cases: one per (asset, electrical line) with any exposure
+    n_route = len(sources.route_length_m)
+    case_key = sec_asset.astype(np.int64) * (n_route + 1) + sec_route
     case_ids, case_of_sec = np.unique(case_key, return_inverse=True)
     n_case = len(case_ids)
-    case_asset = case_ids // (len(lines) + 1)
-    case_line = case_ids % (len(lines) + 1)
+    case_asset = case_ids // (n_route + 1)
+    case_route = case_ids % (n_route + 1)
+    case_line = sources.route_feature[case_route] if n_case else np.zeros(0, np.int64)
     exposure = induction.exposure_fault_emf(fault_sec, fault_unscreened, case_of_sec, n_case)
     worst = exposure.worst_phase
-    sec_emf = exposure.section_emf_v
-    # per (case, segment)
+    sec_emf = exposure.section_emf_v  # per ampere
+    # fault positions of each case and the currents fed from either end
+    case_min = np.full(n_case, np.inf)
+    case_max = np.full(n_case, -np.inf)
+    np.minimum.at(case_min, case_of_sec, sec_x)
+    np.maximum.at(case_max, case_of_sec, sec_x)
+    t_line, t_pos = tower_positions(cfg, inputs, total_len)
+    t_route, t_x = faultscan.route_towers(sources, t_line, t_pos)
+    positions = faultscan.fault_positions(sources, case_route, case_min, case_max, t_route, t_x)
+    side_max = np.maximum(np.abs(positions.current_start_a), np.abs(positions.current_end_a))
+    case_current = side_max.max(axis=1) if n_case else np.zeros(0)
+    # per (case, segment): the EMF with the largest current either end feeds
     entry_key = case_of_sec.astype(np.int64) * n_seg + sec_seg
     entries, entry_of_sec = np.unique(entry_key, return_inverse=True)
-    fault_emf = _complex_bincount(entry_of_sec, sec_emf, len(entries))
+    fault_emf = _complex_bincount(entry_of_sec, sec_emf * case_current[case_of_sec],
+                                  len(entries))
     clearing = lines["clearing_time_s"].to_numpy(float)
     hirel = lines["high_reliability"].to_numpy(bool)
 
+    # fault current at each segment's place along the line (largest over lines in reach)
     seg_fault_current = np.zeros(n_seg)
-    np.maximum.at(seg_fault_current, sec_seg, np.abs(i_fault))
+    if len(sec):
+        np.maximum.at(seg_fault_current, sec_seg,
+                      np.abs(sources.currents(sec_route, sec_x).fault_a))
 
-    epr = earth_potential(cfg, inputs, geo, total_len)
+    epr, step = faultscan.tower_earth_potential(cfg, geo, sources, t_route, t_x)
     return Coupling(
         segment_emf_normal_v=segment_emf_normal,
         fault_case_asset=case_asset,
@@ -397,6 +424,12 @@ def couple(cfg, inputs, geo) -> Coupling:
         normal_component_segment=normal.component_segment,
         normal_component_slot=normal.component_slot,
         normal_component_emf_v=normal.component_emf_v,
+        step_voltage_fault_v=step,
+        fault_section_segment=sec_seg.astype(np.int64),
+        fault_section_case=case_of_sec.astype(np.int64),
+        fault_section_position_m=sec_x,
+        fault_section_emf_v_per_a=sec_emf,
+        fault_positions=positions,
     )
 
 
@@ -535,50 +568,3 @@ def tower_positions(cfg, inputs, total_len: np.ndarray):
         pos = (np.arange(len(li)) - np.repeat(np.cumsum(counts) - counts, counts)) * span
     order = np.lexsort((pos, li))
     return li[order], np.asarray(pos, float)[order]
-
-
-def earth_potential(cfg, inputs, geo, total_len: np.ndarray) -> np.ndarray:
-    """Largest earth potential at each segment from a faulted tower's footing [V].
-
-    The tower nearest along the line to the segment's projection (and its two
-    neighbours) is taken; distance is √(separation² + Δs²). Each faulted
-    tower discharges ``run.tower_current_share`` of the local fault current
-    (hemisphere approximation V = ρI/(2πr); IEEE Std 80, Sunde 1968).
-    """
-    seg = geo.segments
-    out = np.zeros(len(seg))
-    pairs = geo.pairs
-    if len(pairs) == 0:
-        return out
-    zone = cfg.run.tower_zone_m
-    near = pairs.min_separation_m <= zone
-    if not near.any():
-        return out
-    t_line, t_pos = tower_positions(cfg, inputs, total_len)
-    if len(t_line) == 0:
-        return out
-    lines = inputs.lines
-    p_line = pairs.line[near]
-    p_pos = pairs.line_position_m[near]
-    p_sep = pairs.separation_m[near]
-    p_seg = pairs.segment[near]
-    key_t = t_line * 1e9 + t_pos
-    key_p = p_line * 1e9 + p_pos
-    base = np.searchsorted(key_t, key_p)
-    frac = np.clip(p_pos / np.maximum(total_len[p_line], 1e-9), 0, 1)
-    if_s = lines["fault_current_start_ka"].to_numpy(float)[p_line] * 1000.0
-    if_e = lines["fault_current_end_ka"].to_numpy(float)[p_line] * 1000.0
-    i_tower = cfg.run.tower_current_share * (if_s + (if_e - if_s) * frac)
-    # the earth potential near a footing senses the top metres: the local soil (§9)
-    rho = getattr(geo, "local_resistivity_ohm_m", geo.soil_resistivity_ohm_m)[p_seg]
-    best = np.zeros(len(p_seg))
-    for off in (-1, 0):
-        k = np.clip(base + off, 0, len(t_line) - 1)
-        same = t_line[k] == p_line
-        ds = t_pos[k] - p_pos
-        r = np.hypot(p_sep, ds)
-        v = conductive.earth_potential_hemisphere(i_tower, rho, r, cfg.run.footing_radius_m)
-        v = np.where(same & (r <= zone), np.abs(v), 0.0)
-        best = np.maximum(best, v)
-    np.maximum.at(out, p_seg, best)
-    return out

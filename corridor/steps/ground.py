@@ -12,6 +12,12 @@ For every asset with utilization ≥ 1, sites are proposed one at a time:
 4. the loop repeats at the new peak until every criterion holds or
    ``run.max_sites_per_asset`` is reached. What still fails is reported.
 
+In an earth fault the voltages are the worst over the scanned fault
+positions (docs/methods.md §8.2): a site's before and after values, and every
+re-assessment, use that worst; a site in a faulted tower's zone of influence
+is flagged (``in_tower_zone``) and, for the criteria that add it, its values
+include the local earth potential.
+
 Where grounding is not the usual remedy a site row still names the place,
 with ``remedy`` saying what is: longitudinal EMF on telecom cables
 (protectors or isolation); coating stress dominated by the earth potential
@@ -107,7 +113,11 @@ def stage_ground(run) -> None:
     state = {c: run.segment_table[c].to_numpy().copy() for c in STATE_COLUMNS}
     state["governing"] = state["governing"].astype(object)
     soil = state["soil_resistivity_ohm_m"]
-    node_v = rs.node_voltage_all_v.copy()  # global nodes, all cases
+    node_v = rs.node_voltage_all_v.copy()  # global nodes: normal, capacitive, worst fault
+    # a segment next to each node (for the earth potential of a faulted tower there)
+    node_seg = np.zeros(n_nodes, np.int64)
+    node_seg[start_node + 1] = np.arange(len(seg))
+    node_seg[start_node] = np.arange(len(seg))
     extra = np.zeros(n_nodes, complex)
     has_site = rs.node_shunt_s != 0  # existing grounds are not proposed again
     sites: list[dict] = []
@@ -123,7 +133,6 @@ def stage_ground(run) -> None:
         gov = state["governing"]
         epr = state["earth_potential_fault_v"]
         v_fault = state["v_fault_v"]
-        fault_case = run.response.fault_case_of_segment
         new_nodes = []
         for a in active:
             s = worst_seg[a]
@@ -133,7 +142,7 @@ def stage_ground(run) -> None:
                 remedy = REMEDY_TELECOM
             elif crit in ("coating_stress", "touch_fault", "step_fault") and epr[s] > v_fault[s]:
                 remedy = REMEDY_SEPARATION if crit == "coating_stress" else REMEDY_TOWER
-            column = _case_column(case, fault_case[s], model.fault_column_case[a])
+            column = _case_column(case)
             mine = node_lo[a] + np.flatnonzero(~has_site[node_lo[a]:node_hi[a]])
             if len(mine) == 0:
                 done[a] = True
@@ -141,9 +150,10 @@ def stage_ground(run) -> None:
             k = mine[np.argmax(np.abs(node_v[mine, column]))]
             v0 = abs(node_v[k, column])
             if remedy is not None:
+                local = _local_earth_potential(crit, epr[node_seg[k]])
                 sites.append(_site(ids[a], kinds[a], node_ch[k], node_x[k], node_y[k], gov[s],
-                                   v0, v0, np.nan, remedy, responsible[a], worst_u[a],
-                                   soil[s], len(sites)))
+                                   v0 + local, v0 + local, np.nan, remedy, responsible[a],
+                                   worst_u[a], soil[s], len(sites), epr[node_seg[k]] > 0))
                 done[a] = True
                 continue
             new_nodes.append((a, k, column, gov[s], v0, worst_u[a], s))
@@ -180,9 +190,13 @@ def stage_ground(run) -> None:
                                     n_assets)
         for (a, k, column, g, v0, _u, s), r_pick in zip(new_nodes, chosen, strict=True):
             remedy = REMEDY_DECOUPLED if decouple[a] else REMEDY_GROUND
-            sites.append(_site(ids[a], kinds[a], node_ch[k], node_x[k], node_y[k], g, v0,
-                               abs(node_v[k, column]), r_pick, remedy, responsible[a],
-                               util_after[a], soil[s], len(sites)))
+            # in a fault the site's voltage is the worst over fault positions (the scan),
+            # plus the earth potential of a faulted tower there for the criteria that add it
+            e_site = state["earth_potential_fault_v"][node_seg[k]]
+            local = _local_earth_potential(str(g).partition(":")[0], e_site)
+            sites.append(_site(ids[a], kinds[a], node_ch[k], node_x[k], node_y[k], g,
+                               v0 + local, abs(node_v[k, column]) + local, r_pick, remedy,
+                               responsible[a], util_after[a], soil[s], len(sites), e_site > 0))
             n_sites[a] += 1
     still = _max_per_asset(state["utilization"], feat, n_assets) >= 1.0
     frame = pd.DataFrame(sites, columns=SITE_COLUMNS)
@@ -279,7 +293,15 @@ def _max_per_asset(values, feat, n_assets):
 
 SITE_COLUMNS = ["asset_id", "asset_kind", "chainage_m", "x", "y", "governing", "v_before_v",
                 "v_after_v", "ground_resistance_ohm", "electrode_length_m", "remedy",
-                "line_ids", "utilization_after", "site_order", "soil_ohm_m"]
+                "line_ids", "utilization_after", "in_tower_zone", "site_order", "soil_ohm_m"]
+
+#: Criteria whose quantity adds the earth potential of a faulted tower (steps/assess.py).
+WITH_EARTH_POTENTIAL = ("touch_fault", "coating_stress", "step_fault")
+
+
+def _local_earth_potential(criterion, earth_potential_v):
+    """Earth potential a site's value includes for its governing criterion [V]."""
+    return float(earth_potential_v) if criterion in WITH_EARTH_POTENTIAL else 0.0
 
 #: Segment columns the grounding loop tracks while it re-solves.
 STATE_COLUMNS = ("utilization", "governing", "hazard_class", "v_normal_v", "v_fault_v",
@@ -287,7 +309,7 @@ STATE_COLUMNS = ("utilization", "governing", "hazard_class", "v_normal_v", "v_fa
 
 
 def _site(asset_id, kind, chainage_m, x, y, governing, v0, v1, r, remedy, line_ids,
-          utilization_after, soil_ohm_m, order):
+          utilization_after, soil_ohm_m, order, in_tower_zone=False):
     return {
         "asset_id": asset_id, "asset_kind": kind,
         "chainage_m": float(chainage_m), "x": float(x), "y": float(y),
@@ -295,6 +317,7 @@ def _site(asset_id, kind, chainage_m, x, y, governing, v0, v1, r, remedy, line_i
         "ground_resistance_ohm": float(r), "electrode_length_m": np.nan,
         "remedy": remedy, "line_ids": line_ids,
         "utilization_after": float(utilization_after),
+        "in_tower_zone": bool(in_tower_zone),
         "site_order": order, "soil_ohm_m": float(soil_ohm_m),
     }
 
@@ -313,15 +336,13 @@ def _worst_segment_per_asset(util, feat, n_assets):
     return out
 
 
-def _case_column(case, fault_case, columns_of_asset):
-    """Solution column of the governing case: 0 normal, 1 capacitive, 2+ faults."""
+def _case_column(case):
+    """Column of the governing case: 0 normal, 1 capacitive, 2 the worst earth fault."""
     if case == "normal":
         return 0
     if case == "capacitive":
         return 1
-    hit = (np.flatnonzero(columns_of_asset == fault_case) if fault_case >= 0
-           else np.empty(0, np.int64))
-    return 2 + int(hit[0]) if len(hit) else 0
+    return 2
 
 
 def _apply_assessment(table, result):

@@ -7,8 +7,10 @@ go into one batched tridiagonal system, factorised once and solved for:
 - column 0: the normal-load EMF;
 - column 1: the capacitive (electric-field) currents injected at the nodes,
   no EMF — the voltage a high-impedance voltmeter would read;
-- columns 2..: fault cases. An asset near n lines has n fault cases (one
-  faulted line at a time); case j of every asset shares column 2 + j.
+- earth faults: every fault case (asset, faulted line) is scanned over its
+  fault positions by superposition of band responses on the same factors
+  (:func:`corridor.network.response.scan_fault_positions`, docs/methods.md
+  §8.2); per segment the worst voltage over positions and cases is kept.
 
 Per kind (defaults in :mod:`corridor.schema`, adapters in :mod:`corridor.kinds`,
 models in :mod:`corridor.network.asset_models`):
@@ -34,7 +36,7 @@ import numpy as np
 from corridor.errors import ConfigError
 from corridor.kinds import KindSegments, asset_column
 from corridor.network import asset_models
-from corridor.network.response import ChainBatch, ChainSystem
+from corridor.network.response import ChainBatch, ChainSystem, scan_fault_positions
 from corridor.registry import registry
 
 log = logging.getLogger(__name__)
@@ -45,9 +47,11 @@ class Response:
 
     v_normal_v: np.ndarray
     i_normal_a: np.ndarray
-    v_fault_v: np.ndarray
+    v_fault_v: np.ndarray  # worst over fault cases and positions
     i_fault_a: np.ndarray
     fault_case_of_segment: np.ndarray  # governing fault case per segment (-1: none)
+    fault_position_m: np.ndarray  # governing fault's chainage along its line (NaN: none)
+    emf_fault_v: np.ndarray  # |segment EMF| in the governing fault
     v_capacitive_open_v: np.ndarray
     i_capacitive_short_ma: np.ndarray
     i_capacitive_body_ma: np.ndarray
@@ -57,17 +61,15 @@ class Response:
     emf_section_normal_v: np.ndarray
     emf_section_fault_v: np.ndarray
     node_voltage_normal_v: np.ndarray
-    node_voltage_fault_v: np.ndarray  # (n_nodes, n_fault_columns)
+    node_voltage_fault_v: np.ndarray  # per node: worst |V| over fault cases and positions
     chain_start: np.ndarray
     system: ChainSystem
     segment_emf_normal_v: np.ndarray  # complex, screened, per segment (chain direction)
-    fault_rhs: np.ndarray  # (n_segments, n_fault_columns) complex EMF
-    fault_column_case: np.ndarray  # (n_assets, n_fault_columns) case index or -1
     node_shunt_s: np.ndarray
     rejected: list
     fault_source_impedance_ohm: np.ndarray  # |Z_th| at the chain's fault peak, per segment
     touch_loading: np.ndarray  # R_body/|R_body + Z_th|, per segment
-    node_voltage_all_v: np.ndarray  # (n_nodes, 2 + n_fault_columns): normal, capacitive, faults
+    node_voltage_all_v: np.ndarray  # (n_nodes, 3): normal, capacitive, worst fault |V|
     chain_of_segment: np.ndarray
     segments: np.ndarray  # global segment index of each row
     nodes: np.ndarray  # global node index of each node row
@@ -226,17 +228,21 @@ class ResponseModel:
     y_start_s: np.ndarray  # per chain
     y_end_s: np.ndarray
     node_shunt_s: np.ndarray  # per node: existing grounds
-    rhs_v: np.ndarray  # (n_segments, 2 + n_fault_columns) segment EMF
-    injection_a: np.ndarray  # (n_nodes, 2 + n_fault_columns) node currents
-    fault_column_case: np.ndarray  # (n_assets, n_fault_columns)
+    rhs_v: np.ndarray  # (n_segments, 2 + n_normal_slots) segment EMF: normal, capacitive
+    injection_a: np.ndarray  # (n_nodes, 2 + n_normal_slots) node currents
     rejected: list
+    # fault scan (docs/methods.md §8.2): sections, sorted by segment, and cases
+    fault_section_segment: np.ndarray
+    fault_section_case: np.ndarray
+    fault_section_position_m: np.ndarray
+    fault_section_emf_v_per_a: np.ndarray  # screened, telecom sheath factor applied
+    fault_case_asset: np.ndarray
+    fault_positions_m: np.ndarray  # (n_case, n_max)
+    fault_current_start_a: np.ndarray
+    fault_current_end_a: np.ndarray
     #: Normal-load components of unknown relative angle (one column each, after the
-    #: fault columns): the worst voltage is the sum of their magnitudes.
+    #: normal and capacitive columns): the worst voltage is the sum of their magnitudes.
     n_normal_slots: int = 0
-
-    @property
-    def n_fault_columns(self) -> int:
-        return self.rhs_v.shape[1] - 2 - self.n_normal_slots
 
     def subset(self, assets: np.ndarray | None):
         """Global segment and node indices of the chains of ``assets`` (None: all)."""
@@ -256,7 +262,7 @@ class ResponseModel:
 
 
 def build_model(cfg, inputs, geo, coup) -> ResponseModel:
-    """Line constants, terminations, grounds, breaks and every right-hand side."""
+    """Line constants, terminations, grounds, breaks, right-hand sides and scan inputs."""
     seg = geo.segments
     n_seg = len(seg)
     chain_start = chain_layout(seg)
@@ -272,35 +278,26 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
     n_chain = len(chain_start)
     chain_of_seg = np.repeat(np.arange(n_chain), np.diff(np.r_[chain_start, n_seg]))
     start_node = np.arange(n_seg) + chain_of_seg
-    # fault columns: case j of each asset in column j
-    n_assets = len(inputs.assets)
-    case_asset = coup.fault_case_asset
-    order = np.lexsort((coup.fault_case_line, case_asset))
-    rank = np.zeros(len(case_asset), np.int64)
-    if len(case_asset):
-        sa = case_asset[order]
-        grp_first = np.searchsorted(sa, sa, side="left")
-        rank[order] = np.arange(len(sa)) - grp_first
-    n_fcol = int(rank.max()) + 1 if len(case_asset) else 0
     slot = getattr(coup, "normal_component_slot", None)
     n_slot = int(slot.max()) + 1 if slot is not None and len(slot) else 0
-    rhs = np.zeros((n_seg, 2 + n_fcol + n_slot), complex)
+    rhs = np.zeros((n_seg, 2 + n_slot), complex)
     rhs[:, 0] = coup.segment_emf_normal_v * scale
     if n_slot and slot is not None:  # (n_slot > 0 only with a slot array)
         comp_seg = coup.normal_component_segment
-        np.add.at(rhs, (comp_seg, 2 + n_fcol + slot),
-                  coup.normal_component_emf_v * scale[comp_seg])
-    col_case = np.full((n_assets, n_fcol), -1, np.int64)
-    if n_fcol:
-        col_case[case_asset, rank] = np.arange(len(case_asset))
-        rhs[coup.fault_seg, 2 + rank[coup.fault_case_of_entry]] = coup.fault_emf_v
-        rhs[:, 2:2 + n_fcol] *= scale[:, None]
-    inj = np.zeros((n_seg + n_chain, 2 + n_fcol + n_slot), complex)
+        np.add.at(rhs, (comp_seg, 2 + slot), coup.normal_component_emf_v * scale[comp_seg])
+    inj = np.zeros((n_seg + n_chain, 2 + n_slot), complex)
     half = 0.5 * coup.capacitive_current_a
     np.add.at(inj[:, 1], start_node, half)
     np.add.at(inj[:, 1], start_node + 1, half)
+    order = np.argsort(coup.fault_section_segment, kind="stable")
+    sec_seg = coup.fault_section_segment[order]
+    pos = coup.fault_positions
     return ResponseModel(seg.length_m, z, y, brk, seg.feature, chain_start, chain_of_seg,
-                         y_start, y_end, node_shunt, rhs, inj, col_case, rejected, n_slot)
+                         y_start, y_end, node_shunt, rhs, inj, rejected, sec_seg,
+                         coup.fault_section_case[order], coup.fault_section_position_m[order],
+                         coup.fault_section_emf_v_per_a[order] * scale[sec_seg],
+                         coup.fault_case_asset, pos.position_m, pos.current_start_a,
+                         pos.current_end_a, n_slot)
 
 
 def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
@@ -350,11 +347,9 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
                                    part(model.y_start_s, chains), part(model.y_end_s, chains))
     system = ChainSystem(batch)
     rhs = part(model.rhs_v, seg_idx)
-    n_fcol = model.n_fault_columns
-    slots = 2 + n_fcol + np.arange(model.n_normal_slots)
+    slots = 2 + np.arange(model.n_normal_slots)
     sol = system.solve(rhs, node_current_a=part(model.injection_a, node_idx),
                        current_cases=[0, *slots.tolist()])
-    feat = part(model.feature, seg_idx)
 
     v_n = sol.segment_voltage_v[:, 0]
     i_n = sol.segment_current_a[:, 0]
@@ -368,27 +363,32 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
         i_n = np.maximum(np.abs(sol.segment_current_start_a[:, slots]).sum(axis=1),
                          np.abs(sol.segment_current_end_a[:, slots]).sum(axis=1))
     v_cap = sol.segment_voltage_v[:, 1]
-    fcols = slice(2, 2 + n_fcol)
-    if n_fcol:
-        vf_all = sol.segment_voltage_v[:, fcols]
-        best = np.argmax(vf_all, axis=1)
-        v_f = vf_all[np.arange(n_seg), best]
-        i_f = system.currents_at(sol.node_voltage_v, rhs, 2 + best)
-        case_of_seg = model.fault_column_case[feat, best]
-        v_f = np.where(case_of_seg >= 0, v_f, 0.0)
-        i_f = np.where(case_of_seg >= 0, i_f, 0.0)
+    # earth faults: every case over its fault positions (docs/methods.md §8.2)
+    sec = model.fault_section_segment
+    if whole:
+        take = slice(None)
+        local = sec
     else:
-        v_f = np.zeros(n_seg)
-        i_f = np.zeros(n_seg)
-        case_of_seg = np.full(n_seg, -1)
+        take = np.isin(sec, seg_idx)
+        local = np.searchsorted(seg_idx, sec[take])
+    scan = scan_fault_positions(
+        system, local, model.fault_section_case[take], model.fault_section_position_m[take],
+        model.fault_section_emf_v_per_a[take], model.fault_positions_m,
+        model.fault_current_start_a, model.fault_current_end_a)
+    v_f = scan.segment_voltage_v
+    i_f = scan.segment_current_a
+    case_of_seg = scan.segment_case
+    has = case_of_seg >= 0
+    pos_m = np.full(n_seg, np.nan)
+    if has.any():
+        pos_m[has] = model.fault_positions_m[case_of_seg[has], scan.segment_position[has]]
 
     # source impedance at each chain's peak (normal, capacitive, fault), one solve
     # (a chain no fault reaches peaks at its first node, whatever else is in the run,
     # so results stay independent of the other assets)
-    fault_mag = (np.abs(sol.node_voltage_v[:, fcols]).max(axis=1) if n_fcol
-                 else np.zeros(batch.n_nodes))
     peaks = [system.peak_node(normal_node_v),
-             system.peak_node(sol.node_voltage_v[:, 1]), system.peak_node(fault_mag)]
+             system.peak_node(sol.node_voltage_v[:, 1]),
+             system.peak_node(scan.chain_node_voltage_v)]
     zth = system.thevenin_impedance(np.stack(peaks, axis=1))
     zth_n = zth[:, 0][chain_of_seg]
     zth_c = zth[:, 1][chain_of_seg]
@@ -409,25 +409,25 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
     if n_seg:
         emf_sec_n = (chain_sum(rhs[:, slots]).sum(axis=1)[chain_of_seg] if len(slots)
                      else chain_sum(rhs[:, 0])[chain_of_seg])
-        emf_sec_f = (chain_sum(rhs[:, fcols]).max(axis=1)[chain_of_seg] if n_fcol
-                     else np.zeros(n_seg))
+        emf_sec_f = scan.chain_emf_v[chain_of_seg]
     else:
         emf_sec_n = emf_sec_f = np.zeros(0)
+    node_all = np.column_stack([sol.node_voltage_v[:, :2], scan.node_voltage_worst_v])
     return Response(
         v_normal_v=v_n, i_normal_a=i_n, v_fault_v=v_f, i_fault_a=i_f,
-        fault_case_of_segment=case_of_seg,
+        fault_case_of_segment=case_of_seg, fault_position_m=pos_m,
+        emf_fault_v=np.abs(scan.segment_worst_emf_v),
         v_capacitive_open_v=v_cap, i_capacitive_short_ma=i_avail_c,
         i_capacitive_body_ma=i_body_c,
         capacitive_source_impedance_ohm=zc, i_normal_body_ma=i_body_n,
         normal_source_impedance_ohm=zn,
         emf_section_normal_v=emf_sec_n, emf_section_fault_v=emf_sec_f,
         node_voltage_normal_v=sol.node_voltage_v[:, 0],
-        node_voltage_fault_v=sol.node_voltage_v[:, fcols],
+        node_voltage_fault_v=scan.node_voltage_worst_v,
         chain_start=chain_start, system=system, segment_emf_normal_v=rhs[:, 0],
-        fault_rhs=rhs[:, fcols], fault_column_case=model.fault_column_case,
         node_shunt_s=node_shunt, rejected=model.rejected,
         fault_source_impedance_ohm=np.abs(zth_f), touch_loading=loading,
-        node_voltage_all_v=sol.node_voltage_v, chain_of_segment=chain_of_seg,
+        node_voltage_all_v=node_all, chain_of_segment=chain_of_seg,
         segments=seg_idx, nodes=node_idx, model=model)
 
 
