@@ -97,8 +97,9 @@ def _select_mask(df: pd.DataFrame, select: list[str]) -> np.ndarray:
     other = df["other_tags"].astype("string") if "other_tags" in df else None
     mask = np.zeros(len(df), bool)
     for entry in select:
-        key, _, value = entry.partition("=")
-        key, value = key.strip(), value.strip() or None
+        key, _, raw_value = entry.partition("=")
+        key = key.strip()
+        value = raw_value.strip() or None
         if key in df.columns and key not in ("other_tags", "geometry"):
             col = df[key].astype("string")
             hit = col.notna() if value in (None, "*") else (col == value)
@@ -214,7 +215,7 @@ def read_osm(src, read) -> gpd.GeoDataFrame:
     """
     _check_xml(src)
     ways = _read_ways(src, read)
-    notes = {"rejected": [], "warnings": [], "defaults": defaultdict(list)}
+    notes: dict[str, Any] = {"rejected": [], "warnings": [], "defaults": defaultdict(list)}
     if src.role == "power_lines":
         out = _power_lines(src, ways, notes, read)
     elif src.role == "assets":

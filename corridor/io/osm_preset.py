@@ -130,7 +130,8 @@ def check_overrides(table: Any, role: str, where: str, kinds: tuple[str, ...]) -
                 if key not in CLASS_KEYS:
                     problems.append(f"{cw}.{key}: unknown key")
             lo, hi = rule.get("min_kv"), rule.get("max_kv")
-            if not all(isinstance(v, int | float) and not isinstance(v, bool) for v in (lo, hi)) \
+            if not (isinstance(lo, int | float) and not isinstance(lo, bool)
+                    and isinstance(hi, int | float) and not isinstance(hi, bool)) \
                     or not lo < hi:
                 problems.append(f"{cw}: min_kv and max_kv must be numbers [kV], min_kv < max_kv")
             for key in ("arrangements", "cables"):

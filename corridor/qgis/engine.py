@@ -266,7 +266,9 @@ def run_job(job: dict) -> int:
         if type(exc).__name__ == "StepCancelled":
             _emit({"cancelled": True})
             return EXIT_CANCELLED
-        problems = [p.replace(str(tmp) + os.sep, "") for p in exc.problems]
+        # LockError and other CorridorErrors carry no problem list: their text is the problem
+        problems = [p.replace(str(tmp) + os.sep, "")
+                    for p in getattr(exc, "problems", [str(exc)])]
         _emit({"error": {"type": type(exc).__name__, "problems": problems}})
         return 2
     finally:

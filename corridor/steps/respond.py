@@ -365,6 +365,7 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
     v_cap = sol.segment_voltage_v[:, 1]
     # earth faults: every case over its fault positions (docs/methods.md §8.2)
     sec = model.fault_section_segment
+    take: slice | np.ndarray
     if whole:
         take = slice(None)
         local = sec

@@ -17,6 +17,7 @@ import subprocess
 import tempfile
 import threading
 import time
+from typing import Any
 
 from qgis.core import (
     QgsProcessing,
@@ -169,7 +170,7 @@ class CorridorAlgorithm(QgsProcessingAlgorithm):
         config = self.parameterAsFile(parameters, CONFIG, context)
         if not config:
             raise QgsProcessingException("choose the run configuration (a TOML file)")
-        layers = {}
+        layers: dict[str, Any] = {}  # a layer's source, or a list of them
         for p in self.spec["inputs"]:
             if p["multiple"]:
                 chosen = self.parameterAsLayerList(parameters, p["name"], context)
@@ -272,8 +273,9 @@ class CorridorAlgorithm(QgsProcessingAlgorithm):
             elif msg.get("cancelled"):
                 cancelled = True
         proc.wait()
-        proc.stdout.close()
-        proc.stderr.close()
+        for pipe in (proc.stdout, proc.stderr):  # both opened as pipes above
+            if pipe is not None:
+                pipe.close()
         for text in stderr:
             feedback.pushConsoleInfo(text.rstrip())
         if cancelled or (cancel_at is not None and result is None):
