@@ -59,6 +59,11 @@ class Result:
         ``not_assessed``, ``rejected_power_lines``, ``defaults_used``,
         ``input_fingerprint``); :func:`corridor.io.write.write_outputs` adds
         the run-wide ones.
+    power_lines : GeoDataFrame, optional
+        The power lines as the run used them (``power_lines`` layer): the
+        canonical fields after [line_defaults] filled missing values
+        (:func:`corridor.io.layers.read_inputs`), so a map shows what causes
+        each hazard.
     extra_layers, extra_csv : dict
         Layers and CSV files a plugin stage added (name -> table).
     """
@@ -74,6 +79,7 @@ class Result:
     limits: pd.DataFrame | None = None
     changes: pd.DataFrame | None = None
     record: dict = field(default_factory=dict)
+    power_lines: gpd.GeoDataFrame | None = None
     extra_layers: dict[str, gpd.GeoDataFrame] = field(default_factory=dict)
     extra_csv: dict[str, pd.DataFrame] = field(default_factory=dict)
 
@@ -81,7 +87,8 @@ class Result:
         """The layers of ``screening.gpkg`` (and the other formats), in writing order."""
         out = {"exposures": self.exposures, "segments": self.segments}
         for name, table in (("sites", self.sites), ("hazards", self.hazards),
-                            ("assets", self.assets), *self.extra_layers.items()):
+                            ("assets", self.assets), ("power_lines", self.power_lines),
+                            *self.extra_layers.items()):
             if isinstance(table, gpd.GeoDataFrame):
                 out[name] = table
         return out
@@ -115,4 +122,5 @@ def result_of(run) -> Result:
         sites=run.sites, grounding_sites=run.grounding_sites,
         after_grounding=run.segment_table_after_grounding, limits=run.limits_table,
         changes=run.changes, record=dict(run.record),
+        power_lines=run.inputs.lines if run.inputs is not None else None,
         extra_layers=layers, extra_csv=csvs)

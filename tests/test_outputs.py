@@ -174,3 +174,19 @@ def test_run_json_lists_criteria_not_assessed(demo_out):
     record = json.loads((demo_out / "run.json").read_text(encoding="utf-8"))
     assert record["not_assessed"] == []
     assert record["counts"]["criteria_not_assessed"] == 0
+
+
+def test_power_lines_layer_shows_what_causes_the_hazards(demo_out):
+    # the lines as the run used them, styled by voltage (the map shows the cause); the
+    # demo's two lines (sample_layers/make_demo.py) with their nominal voltages
+    import sqlite3
+
+    gpkg = demo_out / "screening.gpkg"
+    lines = pyogrio.read_dataframe(gpkg, layer="power_lines")
+    assert dict(zip(lines["line_id"], lines["voltage_kv"], strict=True)) == {
+        "VPC-345-A": 345.0, "VPC-138-B": 138.0}
+    assert {"arrangement", "fault_current_start_ka", "clearing_time_s"} <= set(lines.columns)
+    with sqlite3.connect(gpkg) as con:
+        styles = con.execute("SELECT styleName, useAsDefault FROM layer_styles"
+                             " WHERE f_table_name = 'power_lines'").fetchall()
+    assert styles == [("voltage", 1)]

@@ -428,11 +428,11 @@ def _class_rules() -> list[dict]:
              "width": 3.0, "width_mm": 0.9} for k in HAZARD_CLASSES]
 
 
-def _voltage_rules() -> list[dict]:
+def _voltage_rules(field: str = "line_voltage_kv") -> list[dict]:
     rules = []
     for lo, hi, c in VOLTAGE_BANDS:
         label = f"{lo:g} – {hi:g} kV" if hi is not None else f"≥ {lo:g} kV"
-        rules.append({"field": "line_voltage_kv", "lower": lo, "upper": hi, "colour": c,
+        rules.append({"field": field, "lower": lo, "upper": hi, "colour": c,
                       "label": label, "width": 2.5 + lo / 250.0, "width_mm": 0.6 + lo / 800.0})
     return rules
 
@@ -458,6 +458,9 @@ def layer_style_specs(layer: str, review_threshold: float = DEFAULT_REVIEW_THRES
     if layer == "exposures":
         return [("line voltage", "Coloured by the inducing line's voltage", "line",
                  _voltage_rules())]
+    if layer == "power_lines":
+        return [("voltage", "Coloured by the line's nominal voltage", "line",
+                 _voltage_rules("voltage_kv"))]
     if layer == "sites":
         return [("grounding sites", "Proposed grounding sites", "point", _site_rules())]
     return []

@@ -19,7 +19,7 @@ import sys
 #: Algorithm id of the whole run.
 SCREEN_ID = "screen"
 #: Output layers of the whole run (layers of screening.gpkg), loaded into the project.
-SCREEN_LAYERS = ("hazards", "assets", "sites", "exposures", "segments")
+SCREEN_LAYERS = ("hazards", "assets", "sites", "exposures", "segments", "power_lines")
 
 _GEOMETRY = {"line_layer": "line", "polygon_layer": "polygon", "point_layer": "point"}
 _KIND = {"float": "number", "int": "integer", "bool": "bool", "str": "string", "path": "string",
