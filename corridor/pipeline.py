@@ -58,6 +58,7 @@ from corridor.compute import (
 )
 from corridor.config import Config
 from corridor.io.layers import read_inputs
+from corridor.schema import SAFETY_DEFAULT_FIELDS
 
 log = logging.getLogger(__name__)
 
@@ -86,9 +87,7 @@ def cache_folder(cfg: Config, out_dir: Path) -> Path | None:
 
 
 #: Fields whose filled-in defaults run.json lists by feature id (safety relevant).
-DEFAULT_IDS_LISTED = ("fault_current_start_ka", "fault_current_end_ka", "clearing_time_s",
-                      "post_type", "coating_resistance_ohm_m2", "coating_type",
-                      "start_termination", "end_termination")
+DEFAULT_IDS_LISTED = SAFETY_DEFAULT_FIELDS
 
 
 def _row_role(row: dict, cfg: Config, asset_labels: set[str]) -> str:

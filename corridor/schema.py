@@ -204,3 +204,13 @@ BUILTIN_KIND_DEFAULTS: dict[str, dict[str, object]] = {
         "conductor_radius_m": 0.01,
     },
 }
+
+
+#: Fields whose filled-in defaults run.json and the report list by feature id: the
+#: safety-relevant ones (fault current, clearing time, posts, coating, terminations)
+#: and the electrical data an OpenStreetMap line runs on by rule (arrangement, circuits).
+SAFETY_DEFAULT_FIELDS = (
+    "fault_current_start_ka", "fault_current_end_ka", "clearing_time_s", "post_type",
+    "coating_type", "coating_resistance_ohm_m2", "start_termination", "end_termination",
+    "termination_resistance_ohm", "arrangement", "circuits",
+)

@@ -13,6 +13,7 @@ import pandas as pd
 from corridor.io.outputs import sha256_file
 from corridor.limits.limit_sets import HAZARD_CLASSES
 from corridor.report.html import MAX_ROWS, class_badge, esc, fmt_num, html_table
+from corridor.schema import SAFETY_DEFAULT_FIELDS
 
 log = logging.getLogger(__name__)
 
@@ -20,14 +21,6 @@ log = logging.getLogger(__name__)
 # Sections
 # --------------------------------------------------------------------------
 
-#: Fields whose filled-in defaults the report lists asset by asset (their ids): a
-#: default there can hide a hazard (fault level and duration, fence posts, pipeline
-#: coating, how an asset ends).
-SAFETY_DEFAULT_FIELDS = (
-    "fault_current_start_ka", "fault_current_end_ka", "clearing_time_s", "post_type",
-    "coating_type", "coating_resistance_ohm_m2", "start_termination", "end_termination",
-    "termination_resistance_ohm",
-)
 #: Most ids listed per field in the report (run.json keeps them all).
 MAX_IDS = 200
 
