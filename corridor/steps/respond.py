@@ -9,7 +9,7 @@ go into one batched tridiagonal system, factorised once and solved for:
   no EMF — the voltage a high-impedance voltmeter would read;
 - earth faults: every fault case (asset, faulted line) is scanned over its
   fault positions by superposition of band responses on the same factors
-  (:func:`corridor.network.response.scan_fault_positions`, docs/methods.md
+  (:func:`corridor.network.fault_scan.scan_fault_positions`, docs/methods.md
   §8.2); per segment the worst voltage over positions and cases is kept.
 
 Per kind (defaults in :mod:`corridor.schema`, adapters in :mod:`corridor.kinds`,
@@ -36,7 +36,8 @@ import numpy as np
 from corridor.errors import ConfigError
 from corridor.kinds import KindSegments, asset_column
 from corridor.network import asset_models
-from corridor.network.response import ChainBatch, ChainSystem, scan_fault_positions
+from corridor.network.fault_scan import scan_fault_positions
+from corridor.network.response import ChainBatch, ChainSystem
 from corridor.registry import registry
 
 log = logging.getLogger(__name__)

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from corridor.network import response
+from corridor.network import fault_scan
 from corridor.network.response import ChainBatch, ChainSystem
 from corridor.physics import faults
 
@@ -65,7 +65,7 @@ def test_mid_exposure_fault_matches_the_closed_form(coating):
     towers = np.arange(25e3 - 250.0, 35e3 + 251.0, 250.0)
     positions = np.r_[0.0, towers, 60e3]
     system, sec, sec_pos, i_a, i_b, gamma = _exposure_setup(coating, positions)
-    scan = response.scan_fault_positions(
+    scan = fault_scan.scan_fault_positions(
         system, sec, np.zeros(len(sec), int), sec_pos, np.full(len(sec), E_PER_A * SEG_M),
         positions[None, :], i_a[None, :], i_b[None, :])
     k_mid = int(np.flatnonzero(positions == 30e3)[0])
@@ -87,7 +87,7 @@ def test_fault_at_the_line_start_gives_the_one_direction_end_voltage():
     # with L = 10 km; there the voltage peaks (matched line).
     positions = np.array([0.0])
     system, sec, sec_pos, i_a, i_b, gamma = _exposure_setup(1e5, positions)
-    scan = response.scan_fault_positions(
+    scan = fault_scan.scan_fault_positions(
         system, sec, np.zeros(len(sec), int), sec_pos, np.full(len(sec), E_PER_A * SEG_M),
         positions[None, :], i_a[None, :], i_b[None, :])
     e = E_PER_A * i_b[0]
@@ -103,7 +103,7 @@ def test_scan_equals_direct_solves_for_several_assets_and_lines(monkeypatch, blo
     # fault written out explicitly and solved directly (no superposition). Two chains of
     # one asset group with two lines (cases 0, 1) and a second asset (case 2) share the
     # solve columns; with a tiny block budget every chain is scanned in its own block.
-    monkeypatch.setattr(response, "_SCAN_BLOCK_ENTRIES", block_entries)
+    monkeypatch.setattr(fault_scan, "_SCAN_BLOCK_ENTRIES", block_entries)
     rng = np.random.default_rng(3)
     seg_len = np.full(65, 80.0)
     y = np.r_[np.full(25, _pipe_admittance(2e4)), np.full(20, _pipe_admittance(3e3)),
@@ -129,7 +129,7 @@ def test_scan_equals_direct_solves_for_several_assets_and_lines(monkeypatch, blo
     positions[2, :6] = [0, 500, 800, 900, 1250, 2000]
     cur_a = rng.normal(size=(3, 6)) * 1e3 + 1j * rng.normal(size=(3, 6)) * 1e3
     cur_b = rng.normal(size=(3, 6)) * 1e3 + 1j * rng.normal(size=(3, 6)) * 1e3
-    scan = response.scan_fault_positions(system, sec_seg, sec_case, sec_pos, sec_emf,
+    scan = fault_scan.scan_fault_positions(system, sec_seg, sec_case, sec_pos, sec_emf,
                                          positions, cur_a, cur_b)
     chain_of_seg = np.repeat([0, 1, 2, 3], [25, 20, 15, 5])
     group_of_chain = np.array([0, 0, 1, -1])
