@@ -8,6 +8,9 @@ themselves, plugins' included, are in the registry (:mod:`corridor.registry`).
 
 from __future__ import annotations
 
+import math
+from functools import partial
+
 from corridor.settings import Spec
 
 #: An input field's spec: the one :class:`corridor.settings.Spec` (plugins import it
@@ -19,6 +22,21 @@ FieldSpec = Spec
 BUILTIN_ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
 #: Default of an optional number whose absence means "not known" (never a value).
 _UNKNOWN = float("nan")
+
+
+def _number_list(value, allowed: tuple[float, ...] | None = None):
+    """Rule of a per-circuit field: one number, or numbers separated by ';'."""
+    parts = [p.strip() for p in str(value).replace(",", ";").split(";") if p.strip()]
+    try:
+        numbers = [float(p) for p in parts]
+    except ValueError:
+        return value, f"{value!r} is not a number or a ';'-separated list of numbers"
+    if any(not math.isfinite(n) for n in numbers):
+        return value, f"{value!r} holds a value that is not a finite number"
+    if allowed is not None and any(n not in allowed for n in numbers):
+        return value, (f"{value!r}: each value must be one of"
+                       f" {', '.join(f'{a:+g}' for a in allowed)}")
+    return value, None
 TERMINATIONS = ("open", "grounded", "continuing")
 
 LINE_FIELDS: tuple[FieldSpec, ...] = (
@@ -55,13 +73,14 @@ LINE_FIELDS: tuple[FieldSpec, ...] = (
               doc="True for a high-reliability line in the sense of the ITU-T Directives."),
     # Normal-load loading per circuit and against the other lines (docs/methods.md §2.3, §8).
     # Missing means unknown: the coupling takes the worst case over it.
-    FieldSpec("circuit_load_current_a", "str", default="",
+    FieldSpec("circuit_load_current_a", "str", default="", check=_number_list,
               doc="Load current of each circuit, one number or one per circuit separated by"
                   " ';' [A rms]; empty: load_current_a on every circuit."),
     FieldSpec("circuit_flow_direction", "str", default="",
+              check=partial(_number_list, allowed=(1.0, -1.0)),
               doc="Power-flow direction of each circuit against the digitised direction,"
                   " +1 or -1, one value or one per circuit separated by ';'; empty: +1."),
-    FieldSpec("circuit_phase_offset_deg", "str", default="",
+    FieldSpec("circuit_phase_offset_deg", "str", default="", check=_number_list,
               doc="Phase-angle offset of each circuit against the line's own [deg], one value"
                   " or one per circuit separated by ';'; empty: 0."),
     FieldSpec("flow_direction", "float", default=_UNKNOWN, low=-1.0, high=1.0,
@@ -139,8 +158,9 @@ BUILTIN_KIND_FIELDS: dict[str, tuple[FieldSpec, ...]] = {
 }
 
 SOIL_FIELDS: tuple[FieldSpec, ...] = (
-    FieldSpec("soil_resistivity_ohm_m", "float", low=0.1, high=1e5,
-              doc="Homogeneous soil resistivity [Ω·m]."),
+    FieldSpec("soil_resistivity_ohm_m", "float", default=_UNKNOWN, low=0.1, high=1e5,
+              doc="Homogeneous soil resistivity [Ω·m]; a two-layer polygon may give"
+                  " top_resistivity_ohm_m instead (one of the two is required)."),
     # Two-layer soil and the soil at the asset's depth (docs/methods.md §9); empty: homogeneous.
     FieldSpec("top_resistivity_ohm_m", "float", default=_UNKNOWN, low=0.1, high=1e5,
               doc="Resistivity of the top layer of a two-layer soil [Ω·m]."),

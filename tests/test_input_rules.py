@@ -399,3 +399,45 @@ def test_missing_asset_kind_is_named_missing(scenario):
     (row,) = inputs.rejected.by_role("assets")
     assert (row["feature_id"], row["field"]) == ("F2", "KIND")
     assert row["reason"].startswith("missing asset kind (allowed: ")
+
+
+def test_per_circuit_list_with_a_bad_value_rejects_the_line(scenario):
+    """Issue 12 rule for issue 15's per-circuit fields: a present but invalid value
+    ("400;lots", a direction of 2) rejects the line, naming the field; it never stops
+    the run and is never replaced by a default."""
+    lines = _lines_with(scenario)
+    lines["CIRC_A"] = ["400;300", "400;lots", None]
+    lines["CIRC_DIR"] = ["1;-1", None, "2"]
+    cfg = scenario.build(lines=lines)
+    cfg["layers"]["power_lines"]["fields"].update(
+        {"circuit_load_current_a": "CIRC_A", "circuit_flow_direction": "CIRC_DIR"})
+    inputs = _read(scenario, cfg)
+    rows = {r["feature_id"]: r for r in inputs.rejected.by_role("power_lines")}
+    assert set(rows) == {"L2", "L3"}
+    assert rows["L2"]["field"] == "CIRC_A" and "'400;lots'" in rows["L2"]["reason"]
+    assert rows["L3"]["field"] == "CIRC_DIR" and "+1, -1" in rows["L3"]["reason"]
+    assert list(inputs.lines["line_id"]) == ["L1"]
+
+
+def test_two_layer_soil_polygon_needs_no_homogeneous_value(scenario):
+    """Issue 15: a polygon may give a two-layer soil alone; one with no resistivity at
+    all is rejected, never filled from run.default_soil_resistivity_ohm_m."""
+    from shapely.geometry import box
+
+    soil = gpd.GeoDataFrame(
+        {"RHO": [None, None, 50.0], "TOP": [30.0, None, None], "T": [3.0, None, None],
+         "BOT": [1000.0, None, None]},
+        geometry=[box(X0_M - 10, Y0_M - 10, X0_M + 1000, Y0_M + 500),
+                  box(X0_M + 1000, Y0_M - 10, X0_M + 2000, Y0_M + 500),
+                  box(X0_M + 2000, Y0_M - 10, X0_M + 4000, Y0_M + 500)],
+        crs=scenario.line_frame().crs)
+    cfg = scenario.build()
+    path = scenario.write_layer(soil, "soil")
+    cfg["layers"]["soil"] = {"path": path.name, "layer": "soil", "fields": {
+        "soil_resistivity_ohm_m": "RHO", "top_resistivity_ohm_m": "TOP",
+        "top_thickness_m": "T", "bottom_resistivity_ohm_m": "BOT"}}
+    inputs = _read(scenario, cfg)
+    (row,) = inputs.rejected.by_role("soil")
+    assert row["field"] == "RHO" and "no resistivity" in row["reason"]
+    assert len(inputs.soil) == 2
+    assert inputs.soil["top_resistivity_ohm_m"].iloc[0] == 30.0

@@ -362,6 +362,12 @@ def _coerce(series: pd.Series, spec: Spec
             reasons[i] = f"{text.iloc[i]!r} is not one of {', '.join(spec.choices)}"
         bad = bad | wrong
         text = lowered
+    if spec.check is not None:  # a rule of the field's own, e.g. a ';'-separated list
+        for i in np.flatnonzero(~bad):
+            _value, problem = spec.check(text.iloc[i])
+            if problem:
+                reasons[i] = problem
+                bad[i] = True
     return text.astype("object"), bad, missing, reasons
 
 
@@ -623,6 +629,25 @@ def log_rejected(rejected: Rejected) -> None:
                         len(rows) - REJECTED_SHOWN, what)
 
 
+def _soil_with_resistivity(soil: gpd.GeoDataFrame, src: LayerSource,
+                           rejected: Rejected) -> gpd.GeoDataFrame:
+    """Soil polygons that give a resistivity: the homogeneous one or a top layer's.
+
+    A two-layer polygon may leave ``soil_resistivity_ohm_m`` out; a polygon that gives
+    neither is rejected (it is never filled from ``run.default_soil_resistivity_ohm_m``).
+    """
+    hom = pd.to_numeric(soil["soil_resistivity_ohm_m"], errors="coerce").to_numpy(float)
+    top = (pd.to_numeric(soil["top_resistivity_ohm_m"], errors="coerce").to_numpy(float)
+           if "top_resistivity_ohm_m" in soil else np.full(len(soil), np.nan))
+    none = ~np.isfinite(hom) & ~np.isfinite(top)
+    for i in np.flatnonzero(none):
+        rejected.add(src.label, soil["feature_id"].iloc[i],
+                     src.fields.get("soil_resistivity_ohm_m", "soil_resistivity_ohm_m"),
+                     "no resistivity: give soil_resistivity_ohm_m or top_resistivity_ohm_m",
+                     role="soil")
+    return soil[~none].reset_index(drop=True) if none.any() else soil
+
+
 def read_inputs(cfg: Config) -> Inputs:
     """Read and validate every input layer of a run.
 
@@ -693,10 +718,14 @@ def read_inputs(cfg: Config) -> Inputs:
             optional[role] = None
             continue
         try:
+            # soil: a NULL field is an empty one (homogeneous soil, no local value);
+            # _soil_with_resistivity rejects a polygon that gives no resistivity at all
             optional[role] = _read_layer(src, specs, {}, id_field, types, crs, rejected,
-                                         warnings, False, label_field=label)
+                                         warnings, role == "soil", label_field=label)
         except InputError as exc:
             problems.extend(exc.problems)
+    if optional.get("soil") is not None and cfg.soil is not None:
+        optional["soil"] = _soil_with_resistivity(optional["soil"], cfg.soil, rejected)
     if problems:
         raise InputError(problems)
     assets = pd.concat(asset_frames, ignore_index=True)
