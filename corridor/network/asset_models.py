@@ -1,4 +1,4 @@
-"""Line constants (z, y) and terminations of each asset kind.
+"""Line constants (z, y) of each asset kind.
 
 Each model turns an asset's attributes into the series impedance z [Ω/m] and
 shunt admittance y [S/m] of its earth-return circuit, ready for
@@ -11,6 +11,9 @@ The earth-return self impedance comes from the physics layer,
 above ground, Sunde's surface form for buried conductors, the low-frequency
 form where it is within 1 %); internal impedances from
 :mod:`corridor.physics.conductors` or :func:`wire_internal_impedance`.
+
+The terminations of chain ends are in :mod:`corridor.network.terminations`
+(importable from here too).
 
 Provenance of defaults: ``[memory]`` recalled, check before relying on it;
 ``[practice]`` common practice, no single source.
@@ -25,11 +28,17 @@ import numpy as np
 from scipy import special
 
 from corridor.errors import InputError
-from corridor.network.response import matched_termination_admittance
+from corridor.network.terminations import (
+    TELECOM_GROUNDING_TERMINATIONS,
+    TERMINATION_MODELS,
+    termination_admittance,
+)
 from corridor.physics import conductors, earth_return
 from corridor.physics.constants import EPS0_F_PER_M, MU0_H_PER_M
 
 __all__ = [
+    "TELECOM_GROUNDING_TERMINATIONS",
+    "TERMINATION_MODELS",
     "LineConstants",
     "coating_capacitance",
     "fence_line_constants",
@@ -545,69 +554,3 @@ def _sheath_screening_factor(sheath_resistance_ohm_per_m, sheath_radius_m, heigh
     k = np.abs((r_s * length + 2 * r_e) / ((r_s + z_e) * length + 2 * r_e))
     path = np.vectorize(SHEATH_CURRENT_PATH.get, otypes=[bool])(grounding)
     return np.where(path & (length > 0), k, 1.0)
-
-
-# --------------------------------------------------------------------------
-# Terminations
-# --------------------------------------------------------------------------
-def _open(z, y, r):
-    return np.zeros(np.broadcast(z, y, r).shape, dtype=complex)
-
-
-def _grounded(z, y, r):
-    r = np.asarray(r, dtype=float)
-    if np.any(r <= 0):
-        raise InputError("termination_resistance_ohm: must be > 0 for a grounded end")
-    return np.broadcast_to(1.0 / r + 0j, np.broadcast(z, y, r).shape).copy()
-
-
-def _continuing(z, y, r):
-    return np.broadcast_to(matched_termination_admittance(z, y),
-                           np.broadcast(z, y, r).shape).copy()
-
-
-#: How each termination label turns into an admittance to earth [S].
-TERMINATION_MODELS = {"open": _open, "grounded": _grounded, "continuing": _continuing}
-
-
-def termination_admittance(termination, z_ohm_per_m, y_s_per_m, resistance_ohm=np.inf):
-    """Admittance to earth of chain ends from their termination labels.
-
-    Parameters
-    ----------
-    termination : array_like of str
-        ``"open"``, ``"grounded"`` or ``"continuing"`` per chain end.
-    z_ohm_per_m, y_s_per_m : array_like of complex
-        Line constants of the end segment [Ω/m], [S/m].
-    resistance_ohm : array_like, optional
-        Resistance to earth of grounded ends [Ω].
-
-    Returns
-    -------
-    ndarray of complex
-        0 (open), 1/R (grounded) or 1/Zc (continuing: the line runs on without
-        source beyond the data) [S].
-    """
-    labels = np.asarray(termination)
-    shape = np.broadcast(labels, z_ohm_per_m, y_s_per_m, resistance_ohm).shape
-    unknown = ~np.isin(labels, list(TERMINATION_MODELS))
-    if unknown.any():
-        raise InputError(f"termination: unknown labels {sorted(set(labels[unknown].tolist()))}")
-    out = np.zeros(shape, dtype=complex)
-    labels = np.broadcast_to(labels, shape)
-    z = np.broadcast_to(np.asarray(z_ohm_per_m, dtype=complex), shape)
-    y = np.broadcast_to(np.asarray(y_s_per_m, dtype=complex), shape)
-    r = np.broadcast_to(np.asarray(resistance_ohm, dtype=float), shape)
-    for label, model in TERMINATION_MODELS.items():
-        hit = labels == label
-        if hit.any():
-            out[hit] = model(z[hit], y[hit], r[hit])
-    return out
-
-
-#: Terminations of a telecom pair by where it is grounded.
-TELECOM_GROUNDING_TERMINATIONS = {
-    "one_end": ("grounded", "open"),
-    "both_ends": ("grounded", "grounded"),
-    "isolated": ("open", "open"),
-}
