@@ -40,7 +40,6 @@ import re
 import sys
 from collections import defaultdict
 from dataclasses import replace
-from pathlib import Path
 from typing import Any
 
 import geopandas as gpd
@@ -49,6 +48,8 @@ import pandas as pd
 import shapely
 
 from corridor.errors import InputError
+from corridor.io.osm_config import main, write_config
+from corridor.io.osm_join import by_way_id, chains, group_ways, merged_geometry
 from corridor.io.osm_preset import (  # noqa: F401 - re-exported for users of the reader
     ARRANGEMENTS_PATH,
     DATA_DIR,
@@ -61,8 +62,27 @@ from corridor.io.osm_preset import (  # noqa: F401 - re-exported for users of th
     preset_for,
     source_is_osm,
 )
+from corridor.io.osm_tags import (
+    parse_count,
+    parse_frequencies,
+    parse_other_tags,
+    parse_voltage_kv,
+    select_mask,
+    tags_match,
+    way_tags,
+)
 
 log = logging.getLogger(__name__)
+
+__all__ = [
+    "main",
+    "parse_other_tags",
+    "parse_voltage_kv",
+    "read_osm",
+    "settle",
+    "typical_arrangements",
+    "write_config",
+]
 
 
 
@@ -71,124 +91,6 @@ def typical_arrangements() -> dict:
     from corridor.config import load_arrangements
 
     return load_arrangements(ARRANGEMENTS_PATH)
-
-
-# --------------------------------------------------------------------------- tags
-
-_HSTORE = re.compile(r'"((?:[^"\\]|\\.)*)"=>"((?:[^"\\]|\\.)*)"')
-_UNESCAPE = re.compile(r"\\(.)")
-
-
-def parse_other_tags(text) -> dict[str, str]:
-    """Tags of GDAL's ``other_tags`` hstore text (``"k"=>"v","k2"=>"v2"``)."""
-    if not isinstance(text, str) or not text:
-        return {}
-    return {_UNESCAPE.sub(r"\1", k): _UNESCAPE.sub(r"\1", v) for k, v in _HSTORE.findall(text)}
-
-
-def _hstore_pair(key: str, value: str | None) -> str:
-    def esc(s):
-        return s.replace("\\", "\\\\").replace('"', '\\"')
-    return f'"{esc(key)}"=>' + ("" if value is None else f'"{esc(value)}"')
-
-
-def _select_mask(df: pd.DataFrame, select: list[str]) -> np.ndarray:
-    """Rows matching any ``key=value`` / ``key`` entry (vectorised on the raw columns)."""
-    other = df["other_tags"].astype("string") if "other_tags" in df else None
-    mask = np.zeros(len(df), bool)
-    for entry in select:
-        key, _, raw_value = entry.partition("=")
-        key = key.strip()
-        value = raw_value.strip() or None
-        if key in df.columns and key not in ("other_tags", "geometry"):
-            col = df[key].astype("string")
-            hit = col.notna() if value in (None, "*") else (col == value)
-        elif other is not None:
-            pat = _hstore_pair(key, None if value in (None, "*") else value)
-            hit = other.str.contains(pat, regex=False)
-        else:
-            continue
-        mask |= hit.fillna(False).to_numpy(dtype=bool)
-    return mask
-
-
-def _tags(row: pd.Series, direct: list[str]) -> dict[str, str]:
-    tags = parse_other_tags(row.get("other_tags"))
-    for col in direct:
-        value = row.get(col)
-        if isinstance(value, str) and value != "":
-            tags[col] = value
-    return tags
-
-
-def _matches(tags: dict[str, str], select: list[str]) -> bool:
-    for entry in select:
-        key, _, value = entry.partition("=")
-        key, value = key.strip(), value.strip()
-        if key in tags and (value in ("", "*") or tags[key] == value):
-            return True
-    return False
-
-
-_VOLT = re.compile(r"^\s*([0-9]+(?:\.[0-9]+)?)\s*(kv|v)?\s*$", re.IGNORECASE)
-
-
-def parse_voltage_kv(text: str) -> tuple[list[float], str | None]:
-    """Voltages [kV] of an OSM ``voltage`` value (volts; ``;`` between values).
-
-    Returns the distinct values, highest first, and None; or ``[]`` and why the
-    value cannot be used. ``230000`` and ``230 kV`` are 230 kV; a plain number
-    below 1000 is refused (OSM voltages are in volts: ``230`` would be 230 V).
-    """
-    out: list[float] = []
-    for part in str(text).split(";"):
-        if not part.strip():
-            continue
-        m = _VOLT.match(part)
-        if m is None:
-            return [], (f"voltage {text!r} is not a number of volts (OSM gives voltages in"
-                        " volts, several separated by ';', e.g. '230000' or '110000;20000')")
-        number, unit = float(m.group(1)), (m.group(2) or "v").lower()
-        kv = number if unit == "kv" else number / 1000.0
-        if kv < 1.0:
-            return [], (f"voltage {text!r}: {number:g} V is below 1 kV, not a power line"
-                        " corridor screens; OSM voltages are in volts, so if kilovolts were"
-                        f" meant the tag should read {int(number * 1000)}"
-                        " (several voltages: '110000;20000')")
-        if kv > 1200.0:
-            return [], f"voltage {text!r}: {kv:g} kV is above 1200 kV"
-        if kv not in out:
-            out.append(kv)
-    if not out:
-        return [], "no voltage tag value"
-    return sorted(out, reverse=True), None
-
-
-def _parse_count(text: str | None, tag: str) -> tuple[int | None, str | None]:
-    if text is None or str(text).strip() == "":
-        return None, None
-    parts = [p.strip() for p in str(text).split(";") if p.strip()]
-    try:
-        values = [int(p) for p in parts]
-    except ValueError:
-        return None, f"{tag} {text!r} is not a whole number"
-    if not values or min(values) < 0:
-        return None, f"{tag} {text!r} is not a whole number >= 0"
-    return sum(values), None  # '2;1' (circuits per voltage): all of them
-
-
-def _parse_freqs(text: str | None) -> tuple[list[float], str | None]:
-    if text is None or str(text).strip() == "":
-        return [], None
-    out = []
-    for part in str(text).split(";"):
-        if not part.strip():
-            continue
-        try:
-            out.append(float(part))
-        except ValueError:
-            return [], f"frequency {text!r} is not a number of hertz"
-    return out, None
 
 
 # --------------------------------------------------------------------------- reading
@@ -258,7 +160,7 @@ def _way_ids(frame: pd.DataFrame) -> list[str]:
 
 def _power_lines(src, ways: gpd.GeoDataFrame, notes: dict, read) -> gpd.GeoDataFrame:
     p = preset_for("power_lines", src.osm)
-    sel = ways[_select_mask(ways, p["select"])]
+    sel = ways[select_mask(ways, p["select"])]
     if len(sel) == 0:
         raise InputError(f"layer {src.label}: no way of the extract is tagged as a power line"
                          f" ({', '.join(p['select'])}); check the extract's area, or the"
@@ -267,8 +169,8 @@ def _power_lines(src, ways: gpd.GeoDataFrame, notes: dict, read) -> gpd.GeoDataF
     ids = _way_ids(sel)
     rows = []
     for fid, (_, row) in zip(ids, sel.iterrows(), strict=True):
-        tags = _tags(row, direct)
-        if not _matches(tags, p["select"]):  # the text search matched a lookalike
+        tags = way_tags(row, direct)
+        if not tags_match(tags, p["select"]):  # the text search matched a lookalike
             continue
         rec = _power_way(src, p, fid, tags, notes)
         if rec is not None:
@@ -277,14 +179,14 @@ def _power_lines(src, ways: gpd.GeoDataFrame, notes: dict, read) -> gpd.GeoDataF
             rows.append(rec)
     groups = _relation_groups(src, rows, read) if p["join"] else {}
     lines = []
-    for members, line_id in _group(rows, p["join"], groups):
+    for members, line_id in group_ways(rows, p["join"], groups):
         first = members[0]
         line = {k: first[k] for k in ("voltage_kv", "arrangement", "voltages", "circuits",
                                       "frequencies", "cable")}
         line["line_id"] = line_id
         line["name"] = next((m["name"] for m in members if m["name"]), None)
         line["osm_ways"] = ";".join(m["way"] for m in members)
-        line["geometry"] = _merged([m["geometry"] for m in members])
+        line["geometry"] = merged_geometry([m["geometry"] for m in members])
         for fld in ("arrangement", "circuits", "frequency_hz"):
             if any(fld in m["defaulted"] for m in members):
                 notes["defaults"][fld].append(line_id)
@@ -331,12 +233,12 @@ def _power_way(src, p: dict, fid: str, tags: dict, notes: dict) -> dict | None:
                         f" [line_defaults] currents); the {others} circuits are not screened on"
                         " their own")
     defaulted: set[str] = set()
-    circuits, err = _parse_count(tags.get(p["circuits"]), p["circuits"])
+    circuits, err = parse_count(tags.get(p["circuits"]), p["circuits"])
     if err:
         reject(p["circuits"], err)
         return None
     if circuits is None:
-        cables, err = _parse_count(tags.get(p["cables"]), p["cables"])
+        cables, err = parse_count(tags.get(p["cables"]), p["cables"])
         if err:
             reject(p["cables"], err)
             return None
@@ -345,13 +247,13 @@ def _power_way(src, p: dict, fid: str, tags: dict, notes: dict) -> dict | None:
     if circuits < 1:
         reject(p["circuits"], f"{p['circuits']} {tags.get(p['circuits'])!r}: no circuit")
         return None
-    freqs, err = _parse_freqs(tags.get(p["frequency"]))
+    freqs, err = parse_frequencies(tags.get(p["frequency"]))
     if err:
         reject(p["frequency"], err)
         return None
     if not freqs:
         defaulted.add("frequency_hz")
-    cable = _matches(tags, p["cable_select"])
+    cable = tags_match(tags, p["cable_select"])
     arrangement = tags.get(p["arrangement"]) if p["arrangement"] else None
     if not arrangement:
         rule = next((c for c in p["classes"] if c["min_kv"] <= kvs[0] < c["max_kv"]), None)
@@ -385,7 +287,7 @@ def _relation_groups(src, rows: list[dict], read) -> dict[int, str]:
         return {}
     if len(rels) == 0:
         return {}
-    rels = rels[_select_mask(rels, ["route=power"])]
+    rels = rels[select_mask(rels, ["route=power"])]
     if len(rels) == 0:
         return {}
     geoms = np.array([r["geometry"] for r in rows], dtype=object)
@@ -399,90 +301,13 @@ def _relation_groups(src, rows: list[dict], read) -> dict[int, str]:
     return out
 
 
-def _key(rec: dict) -> tuple:
-    return tuple(rec[k] for k in ("voltages", "circuits", "frequencies", "cable", "arrangement"))
-
-
-def _group(rows: list[dict], join: bool, relations: dict[int, str]):
-    """Yield (member rows, id) per electrical line (or asset)."""
-    if not join:
-        for r in rows:
-            yield [r], r["way"]
-        return
-    by_key: dict[tuple, list[int]] = defaultdict(list)
-    rel_members: dict[tuple, list[int]] = defaultdict(list)
-    for i, r in enumerate(rows):
-        if i in relations:
-            rel_members[(relations[i], _key(r))].append(i)
-        else:
-            by_key[_key(r)].append(i)
-    out = []
-    for (rel, _k), idx in rel_members.items():
-        out.append((sorted((rows[i] for i in idx), key=_by_way_id), rel))
-    for idx in by_key.values():
-        for chain in _chains([rows[i]["geometry"] for i in idx]):
-            members = sorted((rows[idx[c]] for c in chain), key=_by_way_id)
-            out.append((members, members[0]["way"]))
-    seen: dict[str, int] = defaultdict(int)
-    for members, ident in out:
-        # two groups of one relation with different keys: keep ids unique
-        seen[ident] += 1
-        yield members, ident if seen[ident] == 1 else f"{ident}#{seen[ident]}"
-
-
-def _ends(geom) -> list[tuple[float, float]]:
-    parts = shapely.get_parts(geom)
-    if len(parts) != 1:  # a multi-part way: not joined through
-        return []
-    c = shapely.get_coordinates(parts[0])
-    return [tuple(c[0]), tuple(c[-1])]
-
-
-def _chains(geoms: list) -> list[list[int]]:
-    """Groups of lines joined end to end where exactly two of them end at a node."""
-    ends = [_ends(g) for g in geoms]
-    at: dict[tuple, list[int]] = defaultdict(list)
-    for i, e in enumerate(ends):
-        for p in e:
-            at[p].append(i)
-    parent = list(range(len(geoms)))
-
-    def find(i):
-        while parent[i] != i:
-            parent[i] = parent[parent[i]]
-            i = parent[i]
-        return i
-
-    for members in at.values():
-        if len(members) == 2 and members[0] != members[1]:
-            a, b = find(members[0]), find(members[1])
-            if a != b:
-                parent[max(a, b)] = min(a, b)
-    groups: dict[int, list[int]] = defaultdict(list)
-    for i in range(len(geoms)):
-        groups[find(i)].append(i)
-    return list(groups.values())
-
-
-def _by_way_id(rec: dict) -> tuple:
-    """Sort key of member ways: numeric way id (``way/9`` before ``way/10``)."""
-    num = rec["way"].rpartition("/")[2]
-    return (0, int(num), "") if num.isdigit() else (1, 0, num)
-
-
-def _merged(geoms: list):
-    if len(geoms) == 1:
-        return geoms[0]
-    return shapely.line_merge(shapely.union_all(geoms))
-
-
 def _assets(src, ways: gpd.GeoDataFrame, notes: dict) -> gpd.GeoDataFrame:
     from corridor.registry import registry
 
     preset = preset_for("assets", src.osm)
     known = registry.kind_names()
     kinds = [k for k in preset if k in known and (src.kind is None or k == src.kind)]
-    masks = {k: _select_mask(ways, preset[k]["select"]) for k in kinds}
+    masks = {k: select_mask(ways, preset[k]["select"]) for k in kinds}
     anym = np.zeros(len(ways), bool)
     for m in masks.values():
         anym |= m
@@ -496,7 +321,7 @@ def _assets(src, ways: gpd.GeoDataFrame, notes: dict) -> gpd.GeoDataFrame:
     rows = []
     for pos, (fid, (_, row)) in enumerate(zip(ids, sel.iterrows(), strict=True)):
         hit = [k for k in kinds if masks[k][np.flatnonzero(anym)[pos]]]
-        tags = _tags(row, direct)
+        tags = way_tags(row, direct)
         if len(hit) > 1:
             msg = (f"layer {src.label}: feature {fid}: tagged as {' and '.join(hit)}; screened"
                    f" as a {hit[0]}")
@@ -512,11 +337,11 @@ def _assets(src, ways: gpd.GeoDataFrame, notes: dict) -> gpd.GeoDataFrame:
         by_key[(r["asset_kind"], tuple(sorted(r["values"].items(), key=str)))].append(r)
     out = []
     for members_all in by_key.values():
-        for chain in _chains([m["geometry"] for m in members_all]):
-            members = sorted((members_all[c] for c in chain), key=_by_way_id)
+        for chain in chains([m["geometry"] for m in members_all]):
+            members = sorted((members_all[c] for c in chain), key=by_way_id)
             rec = {"asset_id": members[0]["way"], "asset_kind": members[0]["asset_kind"],
                    **members[0]["values"], "osm_ways": ";".join(m["way"] for m in members),
-                   "geometry": _merged([m["geometry"] for m in members])}
+                   "geometry": merged_geometry([m["geometry"] for m in members])}
             out.append(rec)
     if not out:
         return gpd.GeoDataFrame({"asset_id": pd.Series([], dtype="string"),
@@ -593,97 +418,6 @@ def settle(gdf: gpd.GeoDataFrame, src, cfg, rejected, warnings: list[str],
     out = gdf[keep]
     out.attrs = {}
     return out
-
-
-# --------------------------------------------------------------------------- config writer
-
-CONFIG_TEMPLATE = """\
-# corridor run configuration for the OpenStreetMap extract {extract}
-# (written by `python -m corridor.io.osm`). Power lines and assets are read with the
-# built-in tag preset (corridor/data/osm_preset.toml); override any part of it in a
-# layer's osm table. Each line takes a typical arrangement of its voltage class from
-# {arrangements} (a copy of corridor's typical set: edit it to match the real towers).
-# Screening estimates for planning, not a substitute for a study by a licensed engineer
-# under local codes and the asset owner's procedures; treat metal near energised lines
-# as possibly energised.
-
-[run]
-output_dir = "{output_dir}"
-frequency_hz = {frequency_hz}
-limit_set = "{limit_set}"
-arrangements = "{arrangements}"
-
-[line_defaults]
-# OSM carries no currents: these apply to every line (and are listed in run.json).
-load_current_a = 400.0
-fault_current_start_ka = 10.0
-fault_current_end_ka = 10.0
-clearing_time_s = 0.5
-
-[layers.power_lines]
-path = "{extract}"
-
-[[layers.assets]]
-path = "{extract}"
-"""
-
-
-def write_config(extract: Path, config: Path, frequency_hz: float = 50.0,
-                 limit_set: str = "iec_en") -> Path:
-    """Write a run config (and a copy of the typical arrangements) for an OSM extract.
-
-    Parameters
-    ----------
-    extract : Path
-        The ``.osm`` / ``.osm.pbf`` file.
-    config : Path
-        The config file to write; the arrangements copy is written beside it.
-    frequency_hz : float
-        The system frequency [Hz].
-    limit_set : str
-        Name of the limit set.
-
-    Returns
-    -------
-    Path
-        The config file.
-    """
-    config = Path(config)
-    arr = config.with_name(config.stem + "_arrangements.toml")
-    extract_rel = _relative(Path(extract).resolve(), config.resolve().parent)
-    arr.write_text(ARRANGEMENTS_PATH.read_text(encoding="utf-8"), encoding="utf-8")
-    config.write_text(CONFIG_TEMPLATE.format(
-        extract=extract_rel, output_dir=config.stem + "_out", frequency_hz=float(frequency_hz),
-        limit_set=limit_set, arrangements=arr.name), encoding="utf-8")
-    return config
-
-
-def _relative(path: Path, base: Path) -> str:
-    import os
-
-    try:
-        return Path(os.path.relpath(path, base)).as_posix()
-    except ValueError:  # another drive on Windows
-        return path.as_posix()
-
-
-def main(argv: list[str] | None = None) -> int:
-    """``python -m corridor.io.osm EXTRACT CONFIG [--frequency HZ] [--limit-set NAME]``."""
-    import argparse
-
-    ap = argparse.ArgumentParser(prog="python -m corridor.io.osm",
-                                 description="write a corridor run config for an OSM extract")
-    ap.add_argument("extract", type=Path, help=".osm or .osm.pbf file")
-    ap.add_argument("config", type=Path, help="config file to write (TOML)")
-    ap.add_argument("--frequency", type=float, default=50.0, help="system frequency [Hz]")
-    ap.add_argument("--limit-set", default="iec_en", help="limit set name (default iec_en)")
-    args = ap.parse_args(argv)
-    if not args.extract.is_file():
-        print(f"error: {args.extract}: file not found", file=sys.stderr)
-        return 2
-    path = write_config(args.extract, args.config, args.frequency, args.limit_set)
-    print(f"wrote {path}; now run: python -m corridor run {path}")
-    return 0
 
 
 if __name__ == "__main__":
