@@ -345,7 +345,7 @@ def test_previous_cache_format_is_taken_over(tmp_path, cli, capsys):
 
 def test_unwritable_cache_warns_and_the_run_completes(tmp_path, cli, capsys, monkeypatch,
                                                       reference):
-    import corridor.cache as cache_mod
+    import corridor.cache_store as cache_mod  # the store reads and writes the tables
 
     real = cache_mod.write_table
 
@@ -368,7 +368,7 @@ def test_unwritable_cache_warns_and_the_run_completes(tmp_path, cli, capsys, mon
 
 def test_unreadable_cache_warns_and_recomputes(tmp_path, cli, capsys, monkeypatch,
                                                cached_scenario, reference):
-    import corridor.cache as cache_mod
+    import corridor.cache_store as cache_mod  # the store reads and writes the tables
 
     root = shutil.copytree(cached_scenario, tmp_path / "r")
 
