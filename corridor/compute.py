@@ -21,6 +21,7 @@ import logging
 import platform
 import time
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import geopandas as gpd
 import numpy as np
@@ -44,6 +45,11 @@ from corridor.geometry.exposure import (
 )
 from corridor.geometry.segments import Segments, split_lines
 from corridor.io.layers import Inputs
+
+if TYPE_CHECKING:  # the stages' record types (the steps import nothing of this module)
+    from corridor.limits.limit_sets import LimitSet
+    from corridor.steps.couple import Coupling
+    from corridor.steps.respond import Response
 
 log = logging.getLogger(__name__)
 
@@ -79,47 +85,76 @@ class Geometry:
 
 @dataclass
 class Run:
-    """Everything one screening run produced, stage by stage."""
+    """Everything one screening run produced, stage by stage.
 
+    A run is made by :func:`compute` once the exposure geometry exists (or by
+    :func:`corridor.partitions.run_from_tables` from merged per-asset tables), so
+    its inputs, segment table and exposure table always exist. Each later field
+    is set by the stage named beside it; a field is None only until its stage
+    ran, or where the stage did not run (a run merged from the cache or from
+    partitions keeps no :class:`Geometry` and no stage records: their tables
+    hold everything). :func:`corridor.result.result_of` turns a finished run
+    into the typed :class:`corridor.result.Result` the outputs are written from.
+    """
+
+    #: The run configuration.
     config: Config
-    inputs: Inputs | None = None
+    #: Every input layer, canonical, with the rejections so far.
+    inputs: Inputs
+    #: One row per asset segment: geometry columns (:func:`segment_frame`), then the
+    #: columns each stage adds (``couple``, ``respond``, ``assess``; ``segment_id`` and
+    #: ``rank`` after :func:`finalize`).
+    segment_table: gpd.GeoDataFrame
+    #: One row per (asset, power line, continuous run) (:func:`exposure_frame`).
+    exposure_table: gpd.GeoDataFrame
+    #: The exposure geometry (:func:`stage_geometry`); None in a merged run.
     geometry: Geometry | None = None
-    segment_table: gpd.GeoDataFrame | None = None
-    exposure_table: gpd.GeoDataFrame | None = None
-    #: Grounding sites as points (``sites`` layer), from ``steps/ground.py``.
-    sites: gpd.GeoDataFrame | None = None
-    #: The grounding work list (``grounding_sites.csv``), from ``steps/ground.py``.
-    grounding_sites: pd.DataFrame | None = None
-    #: One row per segment at or above the review threshold (``hazards`` layer) and one
-    #: row per asset (``assets`` layer), from ``steps/report_tables.py``.
-    hazards: gpd.GeoDataFrame | None = None
-    assets: gpd.GeoDataFrame | None = None
-    #: Changes since the previous run (``changes.csv``), from :mod:`corridor.changes`.
-    changes: pd.DataFrame | None = None
-    #: Entries the run adds to run.json (criteria not assessed, change summary,
-    #: input state, fingerprint, rejected lines, defaults used).
-    record: dict = field(default_factory=dict)
-    #: A plugin step's own tables: ``layer:<name>`` (GeoDataFrame) or ``csv:<file>``.
-    extra_tables: dict[str, pd.DataFrame] = field(default_factory=dict)
-    timings_s: dict[str, float] = field(default_factory=dict)
-    counts: dict[str, int] = field(default_factory=dict)
-    limit_set: object = None
-    coupling: object = None
-    response: object = None
-    assessment: dict | None = None
-    segment_table_after_grounding: gpd.GeoDataFrame | None = None
-    #: Per-asset pair and section counts of a run merged from partitions or the
-    #: cache, which keeps no :class:`Geometry` (``asset_id``, ``pairs``, ``sections``).
-    asset_counts: pd.DataFrame | None = None
+    #: Stage ``couple``: EMFs, capacitive currents and earth potentials per segment.
+    coupling: Coupling | None = None
+    #: Stage ``respond``: voltages and currents along every asset.
+    response: Response | None = None
+    #: Stage ``assess``: the limit set's evaluation (``quantities``, ``ratios``,
+    #: ``utilization``, ``governing``, ``hazard_class``, ``permitted``).
+    assessment: dict[str, Any] | None = None
+    #: The run's limit set, loaded by the first stage that needs it
+    #: (:func:`corridor.steps.load_run_limit_set`).
+    limit_set: LimitSet | None = None
     #: Permitted value of every criterion on every segment, as the assess step found it
     #: (``asset_id``, ``segment_index``, ``permitted_<criterion>``): the report's profiles
     #: present it (:func:`limits_frame`); a per-asset table, cached and merged.
     limits_table: pd.DataFrame | None = None
+    #: Stage ``ground``: grounding sites as points (``sites`` layer) ...
+    sites: gpd.GeoDataFrame | None = None
+    #: ... the grounding work list (``grounding_sites.csv``) ...
+    grounding_sites: pd.DataFrame | None = None
+    #: ... and the segment voltages with the proposed grounds in place (report profiles).
+    segment_table_after_grounding: gpd.GeoDataFrame | None = None
+    #: Stage ``tables`` (``steps/report_tables.py``): one row per segment at or above the
+    #: review threshold (``hazards`` layer) and one row per asset (``assets`` layer).
+    hazards: gpd.GeoDataFrame | None = None
+    assets: gpd.GeoDataFrame | None = None
+    #: Changes since the previous run (``changes.csv``), from :mod:`corridor.changes`.
+    changes: pd.DataFrame | None = None
+    #: Per-asset pair and section counts of a run merged from partitions or the
+    #: cache, which keeps no :class:`Geometry` (``asset_id``, ``pairs``, ``sections``).
+    asset_counts: pd.DataFrame | None = None
+    #: Entries the run adds to run.json (criteria not assessed, change summary,
+    #: input state, fingerprint, rejected lines, defaults used).
+    record: dict[str, Any] = field(default_factory=dict)
+    #: The plugin hook: a plugin step's own tables, ``layer:<name>`` (GeoDataFrame) or
+    #: ``csv:<file>`` (the built-in stages use the typed fields above).
+    extra_tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    #: Seconds per stage, by stage name.
+    timings_s: dict[str, float] = field(default_factory=dict)
+    #: Counts for run.json and the report (segments, pairs, exposures, ...).
+    counts: dict[str, int] = field(default_factory=dict)
 
 
 class _Timer:
-    def __init__(self, run: Run, name: str, level: int = logging.INFO):
-        self.run, self.name, self.level = run, name, level
+    """Logs a step and records its seconds in ``timings_s[name]``."""
+
+    def __init__(self, timings_s: dict[str, float], name: str, level: int = logging.INFO):
+        self.timings_s, self.name, self.level = timings_s, name, level
 
     def __enter__(self):
         self.t0 = time.perf_counter()
@@ -128,7 +163,7 @@ class _Timer:
 
     def __exit__(self, *exc):
         dt = time.perf_counter() - self.t0
-        self.run.timings_s[self.name] = round(dt, 4)
+        self.timings_s[self.name] = round(dt, 4)
         if exc[0] is None:
             log.log(self.level, "step %s done in %.2f s", self.name, dt)
         return False
@@ -307,19 +342,21 @@ def compute(cfg: Config, inputs: Inputs, stages: dict | None = None,
 
     ``step_log_level`` is the level of the per-step log messages (a partition
     of a larger run logs them at DEBUG and reports once when it is done)."""
-    run = Run(cfg, inputs=inputs)
-    with _Timer(run, "expose", step_log_level):
-        run.geometry = stage_geometry(cfg, inputs)
-        run.segment_table = segment_frame(inputs, run.geometry)
-        run.exposure_table = exposure_frame(inputs, run.geometry)
+    timings_s: dict[str, float] = {}
+    with _Timer(timings_s, "expose", step_log_level):
+        geometry = stage_geometry(cfg, inputs)
+        segment_table = segment_frame(inputs, geometry)
+        exposure_table = exposure_frame(inputs, geometry)
+    run = Run(cfg, inputs, segment_table, exposure_table, geometry=geometry,
+              timings_s=timings_s)
     for name, fn in (stages or {}).items():
-        with _Timer(run, name, step_log_level):
+        with _Timer(run.timings_s, name, step_log_level):
             fn(run)
     run.limits_table = limits_frame(run)
-    run.counts["segments"] = len(run.geometry.segments)
-    run.counts["pairs"] = len(run.geometry.pairs)
-    run.counts["sections"] = len(run.geometry.sections)
-    run.counts["exposures"] = len(run.geometry.exposures)
+    run.counts["segments"] = len(geometry.segments)
+    run.counts["pairs"] = len(geometry.pairs)
+    run.counts["sections"] = len(geometry.sections)
+    run.counts["exposures"] = len(geometry.exposures)
     return run
 
 
@@ -331,7 +368,7 @@ def limits_frame(run: Run) -> pd.DataFrame | None:
     """
     res = run.assessment
     t = run.segment_table
-    if not isinstance(res, dict) or "permitted" not in res or t is None:
+    if res is None or "permitted" not in res:
         return None
     frame = pd.DataFrame({"asset_id": t["asset_id"].to_numpy(dtype=object),
                           "segment_index": t["segment_index"].to_numpy(np.int64)})
@@ -343,8 +380,6 @@ def limits_frame(run: Run) -> pd.DataFrame | None:
 def finalize(run: Run, stages: dict | None = None) -> Run:
     """Run-wide steps on the per-asset results: ids, ranks, summary layers."""
     inputs, t = run.inputs, run.segment_table
-    if inputs is None or t is None:
-        raise ValueError("finalize: the run has not been read and computed")
     ids = pd.Index(inputs.assets["asset_id"].astype(str))
     key = np.lexsort((t["segment_index"].to_numpy(), ids.get_indexer(t["asset_id"])))
     if np.array_equal(key, np.arange(len(t))):  # merged runs arrive in order: no copy
@@ -354,7 +389,7 @@ def finalize(run: Run, stages: dict | None = None) -> Run:
     t.insert(0, "segment_id", np.arange(len(t), dtype=np.int64))
     run.segment_table = t
     for name, fn in (stages or {}).items():
-        with _Timer(run, name):
+        with _Timer(run.timings_s, name):
             fn(run)
     run.counts.update(inputs.counts)
     run.counts["rejected"] = len(inputs.rejected.rows)

@@ -509,9 +509,9 @@ def run_from_tables(cfg: Config, inputs: Inputs, merged: dict[str, pd.DataFrame]
     (:func:`finish_merged_run`); ready for :func:`corridor.pipeline.finalize`."""
     from corridor.compute import Run
 
-    run = Run(cfg, inputs=inputs)
+    run = Run(cfg, inputs, merged["segments"], merged["exposures"])
     for name, table in merged.items():
-        if not name.startswith("_"):
+        if not name.startswith("_") and name not in ("segments", "exposures"):
             place_table(run, name, table)
     finish_merged_run(cfg, inputs, run, merged)
     return run

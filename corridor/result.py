@@ -1,7 +1,7 @@
 """The typed result of a screening run: every table the outputs are written from.
 
-:func:`corridor.pipeline.screen` returns a :class:`corridor.pipeline.Run`
-(stage by stage, for the steps) and :func:`result_of` turns it into a
+:func:`corridor.pipeline.screen` computes a :class:`corridor.compute.Run`
+(the typed stage record, for the steps) and :func:`result_of` turns it into a
 :class:`Result`, from which :mod:`corridor.io.write` writes every output file.
 Where each column is computed is named field by field below (and drawn in
 DEVELOPERS.md, "Architecture").
@@ -10,9 +10,13 @@ DEVELOPERS.md, "Architecture").
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import geopandas as gpd
 import pandas as pd
+
+if TYPE_CHECKING:
+    from corridor.compute import Run
 
 
 @dataclass
@@ -59,7 +63,7 @@ class Result:
         ``not_assessed``, ``rejected_power_lines``, ``defaults_used``,
         ``input_fingerprint``); :func:`corridor.io.write.write_outputs` adds
         the run-wide ones.
-    power_lines : GeoDataFrame, optional
+    power_lines : GeoDataFrame
         The power lines as the run used them (``power_lines`` layer): the
         canonical fields after [line_defaults] filled missing values
         (:func:`corridor.io.layers.read_inputs`), so a map shows what causes
@@ -71,6 +75,7 @@ class Result:
     segments: gpd.GeoDataFrame
     exposures: gpd.GeoDataFrame
     rejected: pd.DataFrame
+    power_lines: gpd.GeoDataFrame
     hazards: gpd.GeoDataFrame | None = None
     assets: gpd.GeoDataFrame | None = None
     sites: gpd.GeoDataFrame | None = None
@@ -79,7 +84,6 @@ class Result:
     limits: pd.DataFrame | None = None
     changes: pd.DataFrame | None = None
     record: dict = field(default_factory=dict)
-    power_lines: gpd.GeoDataFrame | None = None
     extra_layers: dict[str, gpd.GeoDataFrame] = field(default_factory=dict)
     extra_csv: dict[str, pd.DataFrame] = field(default_factory=dict)
 
@@ -104,16 +108,16 @@ class Result:
                 for k, v in out.items()}
 
 
-def result_of(run) -> Result:
+def result_of(run: Run) -> Result:
     """The typed result of a finished run.
 
-    The steps set the run's typed fields; a plugin step's ``layer:<name>`` /
-    ``csv:<file>`` entries in ``Run.extra_tables`` are kept as extras.
+    Every table comes from a typed field of the run; only a plugin step's
+    ``layer:<name>`` / ``csv:<file>`` entries in ``Run.extra_tables`` (the plugin
+    hook) become the extra layers and CSV files.
     """
-    extra = dict(run.extra_tables)
-    layers = {k.split(":", 1)[1]: v for k, v in extra.items()
+    layers = {k.split(":", 1)[1]: v for k, v in run.extra_tables.items()
               if k.startswith("layer:") and isinstance(v, gpd.GeoDataFrame)}
-    csvs = {k.split(":", 1)[1]: v for k, v in extra.items()
+    csvs = {k.split(":", 1)[1]: v for k, v in run.extra_tables.items()
             if k.startswith("csv:") and isinstance(v, pd.DataFrame)}
     return Result(
         segments=run.segment_table, exposures=run.exposure_table,
@@ -121,6 +125,5 @@ def result_of(run) -> Result:
         hazards=run.hazards, assets=run.assets,
         sites=run.sites, grounding_sites=run.grounding_sites,
         after_grounding=run.segment_table_after_grounding, limits=run.limits_table,
-        changes=run.changes, record=dict(run.record),
-        power_lines=run.inputs.lines if run.inputs is not None else None,
+        changes=run.changes, record=dict(run.record), power_lines=run.inputs.lines,
         extra_layers=layers, extra_csv=csvs)

@@ -27,7 +27,7 @@ LIMITS_DIR = DEFAULT_SEARCH_DIR
 
 __all__ = ["LIMITS_DIR", "asset_stages", "run_stages", "categories", "load_config_limit_set",
            "load_run_limit_set", "response_columns", "stage_couple", "stage_respond",
-           "stage_assess", "stage_rank", "id_order_key"]
+           "stage_assess", "stage_rank", "rank_segments", "id_order_key"]
 
 
 def stage_couple(run) -> None:
@@ -69,13 +69,20 @@ def stage_assess(run) -> None:
 def stage_rank(run) -> None:
     """Rank 1 is the worst segment of the run; ties by asset id, then chainage."""
     load_run_limit_set(run)  # merged (cached) runs did not assess in this process
-    t = run.segment_table
+    run.counts["segments_exceeding"] = rank_segments(run.segment_table)
+
+
+def rank_segments(t: pd.DataFrame) -> int:
+    """Add the ``rank`` column to an assessed segment table; the count exceeding a limit.
+
+    Rank 1 is the worst segment (highest ``utilization``); ties by asset id, then
+    chainage."""
     order = np.lexsort((t["chainage_m"].to_numpy(), id_order_key(t["asset_id"]),
                         -t["utilization"].to_numpy(float)))
     rank = np.empty(len(t), np.int64)
     rank[order] = np.arange(1, len(t) + 1)
     t["rank"] = rank
-    run.counts["segments_exceeding"] = int((t["utilization"] >= 1.0).sum())
+    return int((t["utilization"] >= 1.0).sum())
 
 
 def id_order_key(ids) -> np.ndarray:

@@ -210,15 +210,10 @@ def _run_ground(ctx):
     return out, dict(run.counts)
 
 
-def _rank_table(t, cfg):
-    from corridor.compute import Run
-    from corridor.steps import stage_rank
+def _rank_table(t):
+    from corridor.steps import rank_segments
 
-    run = Run(config=cfg)  # stage_rank reads only the table and the (loaded) limit set
-    run.limit_set = object()
-    run.segment_table = t
-    stage_rank(run)
-    return run.segment_table, run.counts
+    return t, {"segments_exceeding": rank_segments(t)}
 
 
 def _run_rank(ctx):
@@ -229,7 +224,7 @@ def _run_rank(ctx):
             _check(ctx, 0.3, "assess")
             t, _ = _assess_saved(ctx, t)
         _check(ctx, 0.7, "rank")
-        t, counts = _rank_table(t.copy(), ctx.config)
+        t, counts = _rank_table(t.copy())
         return {"segments": t}, {"segments": len(t), **counts}
     run = _compute_through(ctx, "ground")
     _check(ctx, 0.95, "rank")
