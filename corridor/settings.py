@@ -176,6 +176,57 @@ class Spec:
                 "high": self.high, "choices": list(self.choices) if self.choices else None}
 
 
+#: Kinds of data a processing step reads or writes (the ``dtype`` of a :class:`DataSpec`):
+#: vector layers by geometry, a CSV table, a file or folder.
+DATA_KINDS = ("line_layer", "point_layer", "polygon_layer", "table", "file")
+
+
+@dataclass(frozen=True)
+class DataSpec(Spec):
+    """A processing step's input or output: a layer, table or file, declared as a :class:`Spec`.
+
+    The step catalog (:mod:`corridor.steps.catalog`) declares its parameters
+    with the run settings' own :class:`Spec` and its inputs and outputs with
+    this extension of it, so that one spec type describes everything a step
+    takes and gives.
+
+    Parameters
+    ----------
+    name, doc, unit, default
+        As for :class:`Spec` (``unit`` ``-``, ``default`` None: the data come from
+        the config's layers or from a path given to the step).
+    dtype : str
+        One of :data:`DATA_KINDS`: ``line_layer``, ``point_layer``,
+        ``polygon_layer`` (vector layers), ``table`` (CSV) or ``file``.
+    optional : bool
+        The data may be absent (no soil layer, no grounding sites).
+    """
+
+    optional: bool = False
+
+    def __post_init__(self) -> None:
+        if self.dtype not in DATA_KINDS:
+            raise ValueError(f"DataSpec {self.name}: dtype {self.dtype!r} is not one of"
+                             f" {', '.join(DATA_KINDS)}")
+
+    def validate(self, value: Any) -> tuple[Any, str | None]:
+        """A path to the data (str or path-like, not empty), and a problem (or None)."""
+        import os
+
+        if not isinstance(value, str | os.PathLike) or not os.fspath(value):
+            return None, f"expected a path to a {self.dtype.replace('_', ' ')}, got" \
+                         f" {_short(value)}"
+        if "\0" in os.fspath(value):
+            return None, f"contains a NUL byte: {value!r}"
+        return value, None
+
+    def describe(self) -> dict[str, Any]:
+        """The declaration as plain data (listings, JSON, the QGIS adapter)."""
+        return {"name": self.name, "type": self.dtype, "unit": self.unit,
+                "default": _plain(self.default), "description": self.doc, "low": self.low,
+                "high": self.high, "optional": self.optional}
+
+
 def _short(value: Any, limit: int = 60) -> str:
     """``repr(value)``, cut to ``limit`` characters for a message."""
     text = repr(value)

@@ -16,7 +16,7 @@ import pytest
 
 from corridor.cli import main
 from corridor.errors import ConfigError
-from corridor.settings import RUN_SETTINGS
+from corridor.settings import DATA_KINDS, RUN_SETTINGS, DataSpec, Spec
 from corridor.steps.catalog import STEPS, StepCancelled, get_step, run_step, step_names
 
 REPO = Path(__file__).resolve().parents[1]
@@ -33,6 +33,24 @@ def test_steps_are_declared_in_run_order_with_setting_metadata():
             assert p is RUN_SETTINGS[p.name]
     assert get_step("expose").parameters[2].name == "segment_length_m"
     assert {p.name for p in get_step("expose").outputs} == {"exposures", "segments"}
+
+
+def test_inputs_and_outputs_are_declared_with_the_settings_spec():
+    # one spec type for everything a step takes and gives: DataSpec extends Spec
+    for spec in STEPS.values():
+        for p in (*spec.inputs, *spec.outputs):
+            assert isinstance(p, DataSpec) and isinstance(p, Spec), (spec.name, p.name)
+            assert p.dtype in DATA_KINDS
+    assert {p.name: p.optional for p in get_step("read").inputs} == {
+        "power_lines": False, "assets": False, "soil": True, "grounds": True, "towers": True}
+    with pytest.raises(ValueError, match="not one of"):
+        DataSpec("segments", "float")
+
+
+def test_a_saved_input_that_is_no_path_is_refused_naming_it(tmp_path):
+    with pytest.raises(ConfigError, match="input segments: expected a path to a line layer"):
+        run_step("assess", DEMO, inputs={"segments": 3}, outputs_dir=tmp_path)
+    assert not tmp_path.exists() or not any(tmp_path.iterdir())
 
 
 def test_corridor_steps_lists_steps_and_parameters(capsys):

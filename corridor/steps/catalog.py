@@ -3,12 +3,15 @@
 read -> segment -> expose -> couple -> respond -> assess -> ground -> rank -> report
 
 Every step declares its typed inputs, outputs and parameters
-(:class:`StepSpec`, :class:`Param`): enough for ``corridor steps`` to list
-them and for a desktop GIS processing framework to wrap them in a thin
-adapter. Parameters are run settings (``[run]`` in the config): each is the
-setting's own :class:`corridor.settings.Spec` from
-:data:`corridor.settings.RUN_SETTINGS` (type, unit, default, range, meaning),
-which also parses and checks ``--set KEY=VALUE``. The step bodies are in
+(:class:`StepSpec`): enough for ``corridor steps`` to list them and for a
+desktop GIS processing framework to wrap them in a thin adapter. Everything is
+declared with the one spec of :mod:`corridor.settings`: parameters are run
+settings (``[run]`` in the config), each the setting's own
+:class:`corridor.settings.Spec` from :data:`corridor.settings.RUN_SETTINGS`
+(type, unit, default, range, meaning), which also parses and checks
+``--set KEY=VALUE``; inputs and outputs are :class:`corridor.settings.DataSpec`
+(the same spec with a data kind, ``line_layer`` .. ``file``, and ``optional``),
+which checks a path given for a saved input. The step bodies are in
 :mod:`corridor.steps.step_runs`.
 
 How a step runs (:func:`run_step`)
@@ -47,7 +50,7 @@ from types import MappingProxyType
 from typing import Any
 
 from corridor.errors import ConfigError
-from corridor.settings import RUN_SETTINGS, Spec
+from corridor.settings import RUN_SETTINGS, DataSpec, Spec
 from corridor.steps.step_runs import (
     StepCancelled,
     StepContext,
@@ -63,45 +66,10 @@ from corridor.steps.step_runs import (
     _run_segment,
 )
 
-__all__ = ["Param", "StepSpec", "StepCancelled", "STEPS", "step_names", "get_step",
+__all__ = ["DataSpec", "StepSpec", "StepCancelled", "STEPS", "step_names", "get_step",
            "run_step", "describe", "convert_parameter", "setting_param"]
 
 log = logging.getLogger(__name__)
-
-
-@dataclass(frozen=True)
-class Param:
-    """One typed input, output or parameter of a step.
-
-    Attributes
-    ----------
-    name : str
-        Name (a run setting for parameters, a layer or table name otherwise).
-    type : str
-        Parameters: ``float``, ``int``, ``bool``, ``str``, ``path``,
-        ``float_list`` or ``str_list``. Inputs and outputs: ``line_layer``,
-        ``point_layer``, ``polygon_layer`` (vector layers), ``table`` (CSV),
-        ``file``.
-    unit : str
-        Unit of a value (``m``, ``Hz``, ``Ω·m``, ``-``), or ``-``.
-    default : object
-        Default value; ``None`` for an input taken from the config.
-    description : str
-        Meaning (and provenance of the default).
-    low, high : float or None
-        Inclusive valid range of a number.
-    optional : bool
-        An input or output that may be absent (e.g. no soil layer).
-    """
-
-    name: str
-    type: str
-    unit: str
-    default: Any
-    description: str
-    low: float | None = None
-    high: float | None = None
-    optional: bool = False
 
 
 @dataclass(frozen=True)
@@ -112,7 +80,8 @@ class StepSpec:
     ----------
     name, title, description : str
         Plain name (CLI and API), a title and what the step does.
-    inputs, outputs : tuple of Param
+    inputs, outputs : tuple of DataSpec
+        The layers, tables and files the step reads and writes.
     parameters : tuple of Spec
         The run settings the step uses.
     run : callable
@@ -124,8 +93,8 @@ class StepSpec:
     name: str
     title: str
     description: str
-    inputs: tuple[Param, ...]
-    outputs: tuple[Param, ...]
+    inputs: tuple[DataSpec, ...]
+    outputs: tuple[DataSpec, ...]
     parameters: tuple[Spec, ...]
     run: Callable
     from_saved: tuple[str, ...] = ()
@@ -143,38 +112,43 @@ def _settings(*names: str) -> tuple[Spec, ...]:
 # --------------------------------------------------------------------------
 # Declared inputs and outputs
 # --------------------------------------------------------------------------
+def _data(name: str, kind: str, doc: str, optional: bool = False) -> DataSpec:
+    """An input or output of kind ``kind`` (:data:`corridor.settings.DATA_KINDS`)."""
+    return DataSpec(name, kind, doc=doc, optional=optional)
+
+
 _CONFIG_LAYERS = (
-    Param("power_lines", "line_layer", "-", None, "Power lines ([layers.power_lines])."),
-    Param("assets", "line_layer", "-", None, "Asset layers ([[layers.assets]])."),
-    Param("soil", "polygon_layer", "-", None, "Soil resistivity polygons ([layers.soil]).",
+    _data("power_lines", "line_layer", "Power lines ([layers.power_lines])."),
+    _data("assets", "line_layer", "Asset layers ([[layers.assets]])."),
+    _data("soil", "polygon_layer", "Soil resistivity polygons ([layers.soil]).",
           optional=True),
-    Param("grounds", "point_layer", "-", None, "Existing grounds and series breaks"
+    _data("grounds", "point_layer", "Existing grounds and series breaks"
           " ([layers.grounds]).", optional=True),
-    Param("towers", "point_layer", "-", None, "Towers ([layers.towers]).", optional=True),
+    _data("towers", "point_layer", "Towers ([layers.towers]).", optional=True),
 )
-_SAVED_SEGMENTS = Param("segments", "line_layer", "-", None, "A saved segments layer to start"
+_SAVED_SEGMENTS = _data("segments", "line_layer", "A saved segments layer to start"
                         " from instead of recomputing (see the module notes for the columns).",
                         optional=True)
 
 
-def _seg_out(what: str) -> Param:
-    return Param("segments", "line_layer", "-", None, f"Asset segments with {what}.")
+def _seg_out(what: str) -> DataSpec:
+    return _data("segments", "line_layer", f"Asset segments with {what}.")
 
 
 _OUT = {
     "read": (
-        Param("lines", "line_layer", "-", None, "Power lines, canonical fields, run CRS."),
-        Param("assets", "line_layer", "-", None, "Assets, canonical fields and kind defaults,"
+        _data("lines", "line_layer", "Power lines, canonical fields, run CRS."),
+        _data("assets", "line_layer", "Assets, canonical fields and kind defaults,"
               " run CRS."),
-        Param("soil", "polygon_layer", "-", None, "Soil polygons, run CRS.", optional=True),
-        Param("grounds", "point_layer", "-", None, "Grounds and breaks, run CRS.",
+        _data("soil", "polygon_layer", "Soil polygons, run CRS.", optional=True),
+        _data("grounds", "point_layer", "Grounds and breaks, run CRS.",
               optional=True),
-        Param("towers", "point_layer", "-", None, "Towers, run CRS.", optional=True),
-        Param("rejected", "table", "-", None, "Input features that could not be used."),
+        _data("towers", "point_layer", "Towers, run CRS.", optional=True),
+        _data("rejected", "table", "Input features that could not be used."),
     ),
     "segment": (_seg_out("identity, chainage_m and length_m"),),
     "expose": (
-        Param("exposures", "line_layer", "-", None, "One row per (asset, power line,"
+        _data("exposures", "line_layer", "One row per (asset, power line,"
               " continuous run) with parallel length and separations."),
         _seg_out("the nearest line, separation, angle, class and soil"),
     ),
@@ -184,14 +158,14 @@ _OUT = {
     "respond": (_seg_out("voltages and currents along the assets (README: segments)"),),
     "assess": (_seg_out("ratio_<criterion>, utilization, governing and hazard_class"),),
     "ground": (
-        Param("sites", "point_layer", "-", None, "Proposed grounding sites."),
-        Param("grounding_sites", "table", "-", None, "The sites without geometry: the work"
+        _data("sites", "point_layer", "Proposed grounding sites."),
+        _data("grounding_sites", "table", "The sites without geometry: the work"
               " list."),
         _seg_out("the state after the proposed grounding"),
     ),
     "rank": (_seg_out("rank (1 = worst of the run)"),),
     "report": (
-        Param("screening", "file", "-", None, "Everything `corridor run` writes:"
+        _data("screening", "file", "Everything `corridor run` writes:"
               " screening.gpkg, CSVs, run.json, report.html."),
     ),
 }
@@ -315,10 +289,10 @@ def _write(outputs: dict, spec: StepSpec, out_dir: Path) -> dict[str, Path]:
         frame = outputs.get(p.name)
         if frame is None:
             continue
-        if p.type.endswith("_layer"):
+        if p.dtype.endswith("_layer"):
             write_layer(frame, gpkg, p.name)
             written[p.name] = gpkg
-        elif p.type == "table":
+        elif p.dtype == "table":
             path = out_dir / f"{p.name}.csv"
             write_csv(frame.drop(columns="geometry", errors="ignore"), path)
             written[p.name] = path
@@ -370,12 +344,17 @@ def run_step(name: str, config_path: str | Path, inputs: Mapping[str, str | Path
 
     spec = get_step(name)
     cfg = _apply(load_config(config_path), spec, dict(params or {}))
-    input_paths = {k: Path(v) for k, v in (inputs or {}).items()}
-    for key in input_paths:
+    declared = {p.name: p for p in spec.inputs}
+    input_paths = {}
+    for key, value in (inputs or {}).items():
         if key not in spec.from_saved:
             can = [s.name for s in STEPS.values() if key in s.from_saved]
             raise ConfigError(f"step {name}: cannot start from a saved {key!r} layer; it reads"
                               f" the config's layers (steps that can: {', '.join(can)})")
+        checked, problem = declared[key].validate(value)
+        if problem:
+            raise ConfigError(f"step {name}: input {key}: {problem}")
+        input_paths[key] = Path(checked)
     out_dir = Path(outputs_dir) if outputs_dir is not None else cfg.output_dir / "steps"
     out_dir = out_dir.resolve()
     ctx = StepContext(cfg, MappingProxyType(input_paths), out_dir,
@@ -400,15 +379,11 @@ def run_step(name: str, config_path: str | Path, inputs: Mapping[str, str | Path
 
 def describe() -> list[dict]:
     """Every step as plain data (for listings and adapters)."""
-    def plain(p: Param) -> dict:
-        return {"name": p.name, "type": p.type, "unit": p.unit, "default": p.default,
-                "description": p.description, "low": p.low, "high": p.high,
-                "optional": p.optional}
-
     def setting(p: Spec) -> dict:
         return {**p.describe(), "optional": False}
 
     return [{"name": s.name, "title": s.title, "description": s.description,
-             "inputs": [plain(p) for p in s.inputs], "outputs": [plain(p) for p in s.outputs],
+             "inputs": [p.describe() for p in s.inputs],
+             "outputs": [p.describe() for p in s.outputs],
              "parameters": [setting(p) for p in s.parameters], "from_saved": list(s.from_saved)}
             for s in STEPS.values()]
