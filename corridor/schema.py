@@ -174,12 +174,30 @@ SOIL_FIELDS: tuple[FieldSpec, ...] = (
 )
 
 GROUND_FIELDS: tuple[FieldSpec, ...] = (
-    FieldSpec("asset_id", "str", doc="Asset the item belongs to."),
+    FieldSpec("asset_id", "str", doc="Asset the item belongs to; the point snaps to the"
+              " asset's nearest node (within one segment length, else rejected). An item"
+              " naming an asset that is in no asset layer, or was rejected, is rejected."),
     FieldSpec("item", "str", choices=("ground", "insulating_joint", "gap"),
-              doc="Ground to earth, or a series break."),
+              doc="Ground to earth, or a series break (insulating joint, gate, gap)."),
     FieldSpec("resistance_ohm", "float", default=10.0, low=0.01, high=1e6,
-              doc="Resistance to earth of a ground [Ω]; unused for breaks."),
+              doc="Resistance to earth of a ground [Ω]; unused for breaks. A text field is"
+                  " read as a number ('5.0'); a ground without a valid value is rejected."),
 )
+
+#: Fields of the towers layer (each point is projected onto its line).
+TOWER_FIELDS: tuple[FieldSpec, ...] = (
+    FieldSpec("line_id", "str", doc="Line the tower belongs to; the point is projected onto"
+              " the line. A tower naming an unknown or rejected line is rejected."),
+)
+
+#: The optional id field of the grounds and towers layers, by layer role: messages and
+#: rejected.csv name a feature by it.
+FEATURE_ID_FIELDS: dict[str, FieldSpec] = {
+    "grounds": FieldSpec("ground_id", "str", default="",
+                         doc="Id used in messages; empty: the feature's row number."),
+    "towers": FieldSpec("tower_id", "str", default="",
+                        doc="Id used in messages; empty: the feature's row number."),
+}
 
 #: Built-in defaults per asset kind. Values are typical of the trade; each
 #: carries its provenance. The config's ``[defaults.<kind>]`` overrides them.

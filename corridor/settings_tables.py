@@ -17,7 +17,14 @@ from pathlib import Path
 
 from corridor.config import LINE_DEFAULT_KEYS
 from corridor.kinds import builtin_kinds
-from corridor.schema import COMMON_ASSET_FIELDS, LINE_FIELDS
+from corridor.schema import (
+    COMMON_ASSET_FIELDS,
+    FEATURE_ID_FIELDS,
+    GROUND_FIELDS,
+    LINE_FIELDS,
+    SOIL_FIELDS,
+    TOWER_FIELDS,
+)
 from corridor.settings import RUN_SETTINGS, Spec, _plain
 
 _BLOCK = re.compile(r"(<!-- BEGIN GENERATED: (?P<name>[a-z_]+) -->\n)(?P<body>.*?)"
@@ -80,11 +87,34 @@ def asset_fields_table() -> str:
     return "\n".join(rows) + "\n"
 
 
+def _field_default(spec: Spec) -> str:
+    """``required`` (no default), ``empty`` (unknown or blank) or the default value."""
+    if spec.default is None:
+        return "required"
+    if spec.default == "" or (isinstance(spec.default, float) and spec.default != spec.default):
+        return "empty"
+    return _value(spec.default)
+
+
+def other_layer_fields_table() -> str:
+    """The fields of the soil, grounds and towers layers (:mod:`corridor.schema`)."""
+    rows = ["| layer | field | type | default | meaning |", "|---|---|---|---|---|"]
+    for layer, specs in (("soil", SOIL_FIELDS), ("grounds", GROUND_FIELDS),
+                         ("towers", TOWER_FIELDS)):
+        if layer in FEATURE_ID_FIELDS:
+            specs = (FEATURE_ID_FIELDS[layer], *specs)
+        for spec in specs:
+            rows.append(f"| {layer} | `{spec.name}` | {spec.type_label} |"
+                        f" {_field_default(spec)} | {_meaning(spec)} |")
+    return "\n".join(rows) + "\n"
+
+
 #: Generated tables by the name their README markers carry.
 TABLES = {
     "run_settings": run_settings_table,
     "power_line_fields": power_line_fields_table,
     "asset_fields": asset_fields_table,
+    "other_layer_fields": other_layer_fields_table,
 }
 
 

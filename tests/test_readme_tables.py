@@ -8,6 +8,7 @@ field that is not carried into the README fails here. Rewrite them with
 
 from __future__ import annotations
 
+import re
 import tomllib
 from pathlib import Path
 
@@ -42,3 +43,46 @@ def test_run_settings_table_lists_every_setting_with_its_default():
     cell = row.split("|")[4].strip().strip("`")
     assert tomllib.loads(f"x = {cell}")["x"] == 50.0
     assert "Valid 1–1000." in row
+
+
+def test_other_layer_fields_are_the_ones_the_config_accepts(tmp_path):
+    """The soil, grounds and towers rows name exactly the fields a config may map.
+
+    The table is generated from corridor.schema; load_config checks field mappings
+    against its own lists, so a field the README lists must load and one it does
+    not list must be refused (exit-2 ConfigError)."""
+    import pytest
+
+    from corridor.config import load_config
+    from corridor.errors import ConfigError
+    from corridor.schema import FEATURE_ID_FIELDS, GROUND_FIELDS, SOIL_FIELDS, TOWER_FIELDS
+
+    table = TABLES["other_layer_fields"]()
+    listed: dict[str, list[str]] = {}
+    for row in table.splitlines()[2:]:
+        layer, field = (c.strip().strip("`") for c in row.split("|")[1:3])
+        listed.setdefault(layer, []).append(field)
+    assert listed == {
+        "soil": [s.name for s in SOIL_FIELDS],
+        "grounds": [FEATURE_ID_FIELDS["grounds"].name, *(s.name for s in GROUND_FIELDS)],
+        "towers": [FEATURE_ID_FIELDS["towers"].name, *(s.name for s in TOWER_FIELDS)],
+    }
+    demo = (README.parent / "config" / "demo.toml").read_text(encoding="utf-8")
+    demo = demo.replace('"../sample_layers/', f'"{README.parent.as_posix()}/sample_layers/')
+    demo = demo.replace('output_dir = "../out/demo"', f'output_dir = "{tmp_path.as_posix()}/o"')
+
+    gpkg = README.parent / "sample_layers" / "brackenford_vale.gpkg"
+    # the demo config without its soil and grounds tables; each case adds one layer
+    base = re.sub(r"\n\[layers\.(soil|grounds)\]\n(?:[^\[].*\n)*", "\n", demo)
+
+    def config_with(role: str, fields: list[str]) -> Path:
+        mapping = ", ".join(f'{f} = "F{i}"' for i, f in enumerate(fields))
+        path = tmp_path / f"{role}.toml"
+        path.write_text(f'{base}\n[layers.{role}]\npath = "{gpkg.as_posix()}"\n'
+                        f'layer = "{role}"\nfields = {{ {mapping} }}\n', encoding="utf-8")
+        return path
+
+    for role, fields in listed.items():
+        load_config(config_with(role, fields))
+        with pytest.raises(ConfigError):
+            load_config(config_with(role, [*fields, "not_a_field"]))
