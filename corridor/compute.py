@@ -56,7 +56,7 @@ log = logging.getLogger(__name__)
 
 @dataclass
 class Geometry:
-    """Asset segments and their exposure to the power lines."""
+    """Asset segments and their exposure to the power lines (:func:`stage_geometry`)."""
 
     segments: Segments
     edges: LineEdges
@@ -64,22 +64,21 @@ class Geometry:
     sections: Sections
     pair_equivalent_separation_m: np.ndarray
     exposures: Exposures
-    nearest: np.ndarray  # per segment: index into pairs, -1 where no line in reach
+    #: Per segment: index into pairs, -1 where no line is in reach.
+    nearest: np.ndarray
     #: Per segment: the soil's top layer (or the homogeneous value), for the earth return.
     soil_resistivity_ohm_m: np.ndarray
     #: Per segment, NaN where the soil is homogeneous: resistivity below the top layer [Ω·m]
     #: and the top layer's thickness [m] (docs/methods.md §9).
-    soil_bottom_resistivity_ohm_m: np.ndarray | None = None
-    soil_top_thickness_m: np.ndarray | None = None
+    soil_bottom_resistivity_ohm_m: np.ndarray
+    soil_top_thickness_m: np.ndarray
     #: Per segment: the soil at the asset's depth (local value, else the top layer), for the
     #: local quantities: holiday density, foot resistance, electrodes, earth potential.
-    soil_local_resistivity_ohm_m: np.ndarray | None = None
+    soil_local_resistivity_ohm_m: np.ndarray
 
     @property
     def local_resistivity_ohm_m(self) -> np.ndarray:
         """Resistivity for the local quantities (the top layer where no local value)."""
-        if self.soil_local_resistivity_ohm_m is None:
-            return self.soil_resistivity_ohm_m
         return self.soil_local_resistivity_ohm_m
 
 
@@ -258,11 +257,8 @@ def segment_frame(inputs: Inputs, geo: Geometry) -> gpd.GeoDataFrame:
         # the local quantities' soil (docs/methods.md §9); the earth return's layers beside it
         "soil_resistivity_ohm_m": geo.local_resistivity_ohm_m,
         "top_resistivity_ohm_m": geo.soil_resistivity_ohm_m,
-        "bottom_resistivity_ohm_m": (geo.soil_bottom_resistivity_ohm_m
-                                     if geo.soil_bottom_resistivity_ohm_m is not None
-                                     else np.full(len(seg), np.nan)),
-        "top_thickness_m": (geo.soil_top_thickness_m if geo.soil_top_thickness_m is not None
-                            else np.full(len(seg), np.nan)),
+        "bottom_resistivity_ohm_m": geo.soil_bottom_resistivity_ohm_m,
+        "top_thickness_m": geo.soil_top_thickness_m,
     })
     return gpd.GeoDataFrame(frame, geometry=seg.geometries(), crs=inputs.crs)
 
