@@ -249,3 +249,25 @@ def test_csv_columns_read_back_with_their_types(tmp_path):
     assert back["v_after_v"].iloc[0] == 12.3 and np.isnan(back["v_after_v"].iloc[1])
     assert back["site_id"].iloc[0] == "A@1" and pd.isna(back["site_id"].iloc[1])
     assert back['odd "name"'].tolist() == ["a,b", "c\rd"]
+
+
+def test_rounding_rules_hold_on_many_values():
+    # properties of rounding to n significant digits / d decimals (common practice):
+    # the result has at most n significant digits (d decimals), and it is off by at most
+    # half a unit of its last digit; Python's correctly rounded formatting is the reference
+    from corridor.io.csv_format import METRES, SIG3, round_array
+
+    rng = np.random.default_rng(7)
+    x = rng.lognormal(0.0, 5.0, 20_000) * rng.choice([-1.0, 1.0], 20_000)
+    y = round_array(x, SIG3)
+    assert all(float(f"{v:.3g}") == v for v in y)
+    unit = 10.0 ** (np.floor(np.log10(np.abs(x))) - 2)
+    assert (np.abs(y - x) <= 0.5 * unit * (1 + 1e-9)).all()
+    m = round_array(x, METRES)
+    big = np.abs(x) >= 1.0
+    assert all(float(f"{v:.2f}") == v for v in m[big])
+    assert (np.abs(m[big] - x[big]) <= 0.005 * (1 + 1e-9)).all()
+    assert all(float(f"{v:.3g}") == v for v in m[~big])
+    # missing and infinite values pass through; a negative zero is written as 0.0
+    odd = round_array(np.array([np.nan, np.inf, -0.0, -1e-9]), SIG3)
+    assert np.isnan(odd[0]) and odd[1] == np.inf and repr(float(odd[2])) == "0.0"

@@ -24,13 +24,12 @@ changed. The GeoPackage layers keep full precision.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
-__all__ = ["Precision", "column_precision", "format_numbers", "round_value"]
+__all__ = ["Precision", "column_precision", "format_numbers", "round_array", "round_value"]
 
 
 @dataclass(frozen=True)
@@ -108,21 +107,40 @@ def round_value(value: float, rule: Precision) -> float:
     The result is the double nearest to the rounded decimal, so ``repr`` of it
     is the short decimal text (``0.123``, never ``0.12300000000000001``).
     """
-    if not math.isfinite(value) or rule.kind == "full" or value == 0.0:
-        return value
+    return float(round_array(np.array([value], dtype=float), rule)[0])
+
+
+def round_array(values: np.ndarray, rule: Precision) -> np.ndarray:
+    """Many numbers rounded by a rule, as :func:`round_value` rounds one (vectorised).
+
+    The rounded value is an integer times a power of ten, formed by one correctly
+    rounded division or multiplication of two exact numbers, so it is the double
+    nearest to the rounded decimal.
+    """
+    x = np.asarray(values, dtype=float)
+    if rule.kind == "full":
+        return x.copy()
+    finite = np.isfinite(x) & (x != 0.0)
+    mag = np.floor(np.log10(np.abs(np.where(finite, x, 1.0)))).astype(int)
     if rule.kind == "significant":
-        return float(f"{value:.{rule.digits}g}")
-    if rule.floor_sig and abs(value) < 1.0:
-        return float(f"{value:.{rule.floor_sig}g}")
-    return float(f"{value:.{rule.digits}f}")
-
-
-def _text(value: float) -> str:
-    if not math.isfinite(value):
-        return "" if math.isnan(value) else ("inf" if value > 0 else "-inf")
-    if value == 0.0:
-        return "0.0"  # never "-0.0"
-    return repr(value)
+        k = rule.digits - 1 - mag  # decimals that keep `digits` significant digits
+    else:
+        k = np.full(x.shape, rule.digits)
+        if rule.floor_sig:
+            small = np.abs(x) < 1.0
+            k = np.where(small, rule.floor_sig - 1 - mag, k)
+    out = x.copy()
+    # beyond 300 decimals (denormal-sized values) the scale overflows: left as they are
+    pos = finite & (k >= 0) & (k <= 300)
+    neg = finite & (k < 0) & (k >= -300)
+    if pos.any():
+        scale = 10.0 ** k[pos]
+        out[pos] = np.rint(x[pos] * scale) / scale
+    if neg.any():
+        scale = 10.0 ** (-k[neg])
+        out[neg] = np.rint(x[neg] / scale) * scale
+    out[out == 0.0] = 0.0  # never "-0.0"
+    return out
 
 
 def format_numbers(values: pd.Series, column: str) -> pd.Series:
@@ -138,9 +156,11 @@ def format_numbers(values: pd.Series, column: str) -> pd.Series:
     Returns
     -------
     Series of str
-        One cell text per value (same index); missing values are empty.
+        One cell text per value (same index): the shortest decimal that reads
+        back as the rounded double; missing values are empty.
     """
     rule = column_precision(column)
-    arr = values.to_numpy(dtype=float, na_value=np.nan)
-    cells = [_text(round_value(float(v), rule)) for v in arr]
+    arr = round_array(values.to_numpy(dtype=float, na_value=np.nan), rule)
+    cells = np.array(list(map(repr, arr.tolist())), dtype=object)
+    cells[np.isnan(arr)] = ""
     return pd.Series(cells, index=values.index, dtype=object)

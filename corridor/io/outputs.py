@@ -111,28 +111,21 @@ def csv_frame(frame: pd.DataFrame, caution: bool = True) -> pd.DataFrame:
     return out
 
 
-def _quoted(text: pd.Series) -> pd.Series:
-    return '"' + text.str.replace('"', '""', regex=False) + '"'
-
-
-def _cells(values: pd.Series, column: str) -> pd.Series:
+def _cells(values: pd.Series, column: str) -> list[str]:
     """The CSV text of one column: numbers bare (rounded by unit), text quoted, missing empty."""
     from corridor.io.csv_format import format_numbers
 
     dtype = values.dtype
     missing = values.isna().to_numpy()
+    if pd.api.types.is_float_dtype(dtype):
+        return format_numbers(values, column).tolist()
+    raw = values.astype(object).tolist()
     if pd.api.types.is_bool_dtype(dtype):
-        out = values.map(lambda v: "" if pd.isna(v) else ("True" if v else "False"))
-    elif pd.api.types.is_integer_dtype(dtype):
-        out = values.map(lambda v: "" if pd.isna(v) else str(int(v)))
-    elif pd.api.types.is_float_dtype(dtype):
-        out = format_numbers(values, column)
-    else:
-        text = values.map(lambda v: "" if v is None or (isinstance(v, float) and v != v)
-                          else str(v))
-        out = _quoted(text.astype(object).astype(str))
-        out[missing] = ""
-    return out.astype(object)
+        return ["" if m else ("True" if v else "False") for v, m in zip(raw, missing, strict=True)]
+    if pd.api.types.is_integer_dtype(dtype):
+        return ["" if m else str(int(v)) for v, m in zip(raw, missing, strict=True)]
+    return ["" if m else '"' + str(v).replace('"', '""') + '"'
+            for v, m in zip(raw, missing, strict=True)]
 
 
 def write_csv(frame: pd.DataFrame, path: Path, caution: bool = True) -> None:
@@ -161,14 +154,11 @@ def write_csv(frame: pd.DataFrame, path: Path, caution: bool = True) -> None:
     """
     out = csv_frame(frame, caution)
     header = ",".join('"' + str(c).replace('"', '""') + '"' for c in out.columns)
-    lines: pd.Series | None = None
-    for col in out.columns:
-        cells = _cells(out[col], str(col))
-        lines = cells if lines is None else lines + "," + cells
+    columns = [_cells(out.iloc[:, i], str(c)) for i, c in enumerate(out.columns)]
     with open(path, "w", newline="", encoding="utf-8") as fh:
         fh.write(header + "\n")
-        if lines is not None and len(lines):
-            fh.write("\n".join(lines.tolist()) + "\n")
+        if len(out) and columns:
+            fh.write("\n".join(map(",".join, zip(*columns, strict=True))) + "\n")
 
 
 def read_csv(path: Path, **kwargs) -> pd.DataFrame:
