@@ -349,7 +349,10 @@ def main(argv: list[str] | None = None) -> int:
 
         out = Path(args.out or cfg.output_dir).resolve()
         run = publish(cfg, out, asset_stages(), run_stages())
-        log.info("outputs written to %s", out)
+        from corridor.runner import published_files
+
+        for what, path in published_files(out):
+            log.info("  %s: %s", what, path)
         return run_exit_code(run, args.fail_on_exceedance)
     except BrokenPipeError:
         _quiet_stdout()

@@ -67,6 +67,40 @@ class FileOnly(logging.Filter):
         return not getattr(record, "file_only", False)
 
 
+class PublishedPaths(logging.Filter):
+    """Names the published path of a file instead of its staging path, in every log record.
+
+    Outputs are written into the staging folder and moved, under the same names,
+    into the output folder when the run publishes; a message naming
+    ``<out>/.corridor-staging-<pid>/report.html`` names ``<out>/report.html``
+    instead, where the user finds the file (and where it is once the run ends;
+    a run that fails says that nothing was published).
+    """
+
+    def __init__(self, staging: Path, out_dir: Path):
+        super().__init__()
+        self.staging = str(staging)
+        self.out_dir = str(out_dir)
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        if isinstance(record.msg, str) and (self.staging in record.msg or any(
+                isinstance(a, str | os.PathLike) and self.staging in os.fspath(a)
+                for a in (record.args if isinstance(record.args, tuple) else ()))):
+            record.msg = record.getMessage().replace(self.staging, self.out_dir)
+            record.args = ()
+        return True
+
+
+def published_files(out_dir: Path) -> list[tuple[str, Path]]:
+    """The main published outputs of a run, ``(what, path)``, for the final summary."""
+    out_dir = Path(out_dir)
+    wanted = [("report", "report.html"), ("grounding work list", "grounding_sites.csv"),
+              ("layers", "screening.gpkg"), ("exposures", "exposures.csv"),
+              ("rejected features", "rejected.csv"), ("changes", "changes.csv"),
+              ("run record", "run.json"), ("caution", "CAUTION.txt"), ("log", LOG_NAME)]
+    return [(what, out_dir / name) for what, name in wanted if (out_dir / name).exists()]
+
+
 def _fixed_outputs() -> tuple[str, ...]:
     return tuple(sorted(owned_mod.FIXED_OUTPUTS))
 
@@ -123,6 +157,10 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
     file_handler.setFormatter(logging.Formatter(LOG_FORMAT))
     root.addHandler(file_handler)
     handler: logging.Handler | None = file_handler
+    renamer = PublishedPaths(staging, out_dir)
+    renamed = list(root.handlers)
+    for h in renamed:
+        h.addFilter(renamer)
     if root.level == logging.NOTSET or root.level > logging.DEBUG:
         root.setLevel(logging.DEBUG)
     published = False
@@ -188,6 +226,8 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
             raise err from exc
         raise
     finally:
+        for h in renamed:
+            h.removeFilter(renamer)
         if handler is not None:
             root.removeHandler(handler)
             handler.close()

@@ -7,6 +7,8 @@ installed plugin. Usage::
     python3 qgis_driver.py PLUGINS_DIR TASK.json RESULT.json
 
 TASK holds ``actions``, run in order; RESULT receives one entry per action.
+PLUGINS_DIR ``-`` starts QGIS without Processing and the plugin (the actions
+``inspect`` and ``render`` need neither).
 """
 
 from __future__ import annotations
@@ -41,14 +43,16 @@ def main(plugins: str, task_path: str, result_path: str) -> int:
 
     app = QgsApplication([], False)
     app.initQgis()
-    from processing.core.Processing import Processing
+    registry = None
+    if plugins != "-":
+        from processing.core.Processing import Processing
 
-    Processing.initialize()
-    import corridor_qgis
+        Processing.initialize()
+        import corridor_qgis
 
-    plugin = corridor_qgis.classFactory(None)
-    plugin.initProcessing()
-    registry = QgsApplication.processingRegistry()
+        plugin = corridor_qgis.classFactory(None)
+        plugin.initProcessing()
+        registry = QgsApplication.processingRegistry()
     with open(task_path, encoding="utf-8") as fh:
         task = json.load(fh)
     results = []
@@ -128,11 +132,56 @@ def main(plugins: str, task_path: str, result_path: str) -> int:
                             "to_load": sorted(context.layersToLoadOnCompletion())})
         elif what == "render":
             results.append(render(action))
+        elif what == "inspect":
+            results.append(inspect(action))
     with open(result_path, "w", encoding="utf-8") as fh:
         json.dump(results, fh, default=str)
     sys.stdout.flush()
     sys.stderr.flush()
     os._exit(0)  # QGIS's Python bindings may crash while tearing down; the results are saved
+
+
+def inspect(action: dict) -> dict:
+    """Load layers as a QGIS user does and report what QGIS made of them.
+
+    ``action["layers"]``: ``[[uri, name, provider], ...]``. Per layer: valid,
+    CRS, feature count, fields (name, type, alias), renderer type and its
+    classes or rules, labels, and the styles QGIS lists in the data source.
+    """
+    from qgis.core import QgsVectorLayer
+
+    out = {}
+    for uri, name, provider in action["layers"]:
+        lyr = QgsVectorLayer(uri, name, provider)
+        info = {"valid": lyr.isValid()}
+        if lyr.isValid():
+            renderer = lyr.renderer()
+            info.update({
+                "crs": lyr.crs().authid(),
+                "features": lyr.featureCount(),
+                "geometry": lyr.geometryType(),
+                "fields": [[f.name(), f.typeName(), f.alias()] for f in lyr.fields()],
+                "renderer": renderer.type() if renderer else None,
+                "labels": lyr.labelsEnabled(),
+                "label_field": (lyr.labeling().settings().fieldName
+                                if lyr.labelsEnabled() and lyr.labeling() else None),
+            })
+            if renderer is not None and renderer.type() == "RuleRenderer":
+                info["rules"] = [[r.label(), r.filterExpression()]
+                                 for r in renderer.rootRule().children()]
+            elif renderer is not None and renderer.type() == "categorizedSymbol":
+                info["rules"] = [[c.label(), str(c.value())] for c in renderer.categories()]
+            elif renderer is not None and renderer.type() == "graduatedSymbol":
+                info["rules"] = [[r.label(), r.lowerValue()] for r in renderer.ranges()]
+            if provider == "ogr":
+                listed = lyr.listStylesInDatabase()
+                info["styles"] = {"count": listed[0], "names": list(listed[2])}
+            ext = lyr.extent()
+            info["extent"] = [ext.xMinimum(), ext.yMinimum(), ext.xMaximum(), ext.yMaximum()]
+        else:
+            info["error"] = lyr.error().summary()
+        out[name] = info
+    return out
 
 
 def render(action: dict) -> dict:

@@ -139,8 +139,10 @@ def _matches(rule, row) -> bool:
     ok = True
     for op in filt.iter():
         if op.tag == f"{{{OGC_NS}}}PropertyIsEqualTo":
-            ok &= str(row[op.find("ogc:PropertyName", NS).text]) == op.find(
-                "ogc:Literal", NS).text
+            value = row[op.find("ogc:PropertyName", NS).text]
+            # OGC literals are text; a boolean field compares as true/false
+            text = str(value).lower() if isinstance(value, bool | np.bool_) else str(value)
+            ok &= text == op.find("ogc:Literal", NS).text
         elif op.tag == f"{{{OGC_NS}}}PropertyIsGreaterThanOrEqualTo":
             ok &= float(row[op.find("ogc:PropertyName", NS).text]) >= float(
                 op.find("ogc:Literal", NS).text)
@@ -162,9 +164,18 @@ def test_sld_rules_name_real_fields_and_cover_every_feature(gpkg, spatial_layers
             assert prop.text in fields, (layer, prop.text)
         # Every feature falls in exactly one rule: no gaps or overlaps in the classes.
         frame = pyogrio.read_dataframe(gpkg, layer=layer, read_geometry=False)
+        # SE 1.1 §10: an ElseFilter rule takes the features no other rule of the style takes
+        else_rules = [r for r in rules if r.find("se:ElseFilter", NS) is not None]
+        ring = [r for r in rules if "unresolved" in r.find("se:Name", NS).text]
+        classes = [r for r in rules if r not in else_rules and r not in ring]
         for row in frame.to_dict("records"):
-            hits = [r.find("se:Name", NS).text for r in rules if _matches(r, row)]
+            hits = [r.find("se:Name", NS).text for r in classes if _matches(r, row)]
+            if not hits and else_rules:
+                hits = [r.find("se:Name", NS).text for r in else_rules]
             assert len(hits) == 1, (layer, rec.styleName, row.get("utilization"), hits)
+            # sites: an unresolved site is ringed besides its remedy's mark, and only it
+            for r in ring:
+                assert _matches(r, row) == bool(row["unresolved"]), (layer, row["site_id"])
             # The ramp's band names the class the limit set gives (HAZARD_CLASSES).
             if rec.styleName == "utilization":
                 assert hits[0].split(",")[0] == row["hazard_class"]

@@ -51,12 +51,28 @@ def test_csv_and_layer_agree_row_for_row(demo_out, csv_name, layer, key):
     for col in csv.columns:
         a, b = csv[col], lyr[col]
         if pd.api.types.is_numeric_dtype(a) and pd.api.types.is_numeric_dtype(b):
-            # CSV keeps 12 significant digits (float_format %.12g)
-            np.testing.assert_allclose(a.to_numpy(float), b.to_numpy(float), rtol=1e-11,
-                                       equal_nan=True, err_msg=col)
+            # the CSV rounds by unit (corridor.io.csv_format): within half its last digit
+            _assert_rounded(a.to_numpy(float), b.to_numpy(float), col)
         else:
             assert a.fillna("").astype(str).str.lower().tolist() == \
                 b.fillna("").astype(str).str.lower().tolist(), col
+
+
+def _assert_rounded(csv_values, layer_values, col):
+    """CSV values equal the layer's rounded as README "Outputs" states for the unit."""
+    np.testing.assert_array_equal(np.isnan(csv_values), np.isnan(layer_values), err_msg=col)
+    ok = ~np.isnan(layer_values)
+    got, ref = csv_values[ok], layer_values[ok]
+    mag = np.abs(ref)
+    if col in ("x", "y", "lon", "lat"):  # coordinates: full precision, exact
+        np.testing.assert_array_equal(got, ref, err_msg=col)
+    elif col.endswith("_m") and not col.endswith("_ohm_m"):  # 0.01 m (3 significant < 1 m)
+        tol = np.where(mag >= 1.0, 0.005 + 1e-9, 0.005 * mag + 1e-12)
+        assert (np.abs(got - ref) <= tol).all(), col
+    elif col.endswith("_deg"):
+        assert (np.abs(got - ref) <= 0.05 + 1e-9).all(), col
+    else:  # 3 significant digits: off by at most half a unit of the third digit
+        assert (np.abs(got - ref) <= 0.005 * mag + 1e-12).all(), col
 
 
 def test_every_csv_carries_the_caution(demo_out):
@@ -161,8 +177,9 @@ def test_sites_have_wgs84_positions_matching_pyproj(demo_out):
     s = read_csv(demo_out / "grounding_sites.csv")
     lon, lat = Transformer.from_crs("EPSG:32615", 4326, always_xy=True).transform(
         s["x"].to_numpy(), s["y"].to_numpy())
-    np.testing.assert_allclose(s["lon"], lon, atol=1e-7)  # 12 significant digits in the CSV
-    np.testing.assert_allclose(s["lat"], lat, atol=1e-7)
+    # coordinates keep full precision in the CSV (corridor.io.csv_format)
+    np.testing.assert_allclose(s["lon"], lon, atol=1e-9)
+    np.testing.assert_allclose(s["lat"], lat, atol=1e-9)
 
 
 def test_run_json_lists_criteria_not_assessed(demo_out):
@@ -190,3 +207,67 @@ def test_power_lines_layer_shows_what_causes_the_hazards(demo_out):
         styles = con.execute("SELECT styleName, useAsDefault FROM layer_styles"
                              " WHERE f_table_name = 'power_lines'").fetchall()
     assert styles == [("voltage", 1)]
+
+
+@pytest.mark.parametrize("column,value,text", [
+    # README "Outputs": metres to 0.01, volts/amperes/ohms and ratios to 3 significant
+    # digits, coordinates in full (the decimal text is what a spreadsheet shows)
+    ("chainage_m", 10566.4954096, "10566.5"),
+    ("electrode_length_m", 384.843357811, "384.84"),
+    ("wire_radius_m", 0.00125, "0.00125"),          # under 1 m: 3 significant digits
+    ("v_before_v", 1240.21035798, "1240.0"),
+    ("i_fault_a", 0.0123456, "0.0123"),
+    ("ground_resistance_ohm", 1.0, "1.0"),
+    ("soil_resistivity_ohm_m", 123.456, "123.0"),   # Ω·m is not metres
+    ("emf_fault_v_per_km", 86.54321, "86.5"),
+    ("utilization_after", 4.91527456541, "4.92"),
+    ("ratio_touch_fault", 0.0456789, "0.0457"),
+    ("angle_deg", 63.80546901, "63.8"),
+    ("x", 527564.78405312345, repr(527564.78405312345)),
+    ("lon", -92.66886748543217, repr(-92.66886748543217)),
+])
+def test_csv_numbers_are_rounded_by_unit(tmp_path, column, value, text):
+    write_csv(pd.DataFrame({column: [value, np.nan]}), tmp_path / "t.csv")
+    with open(tmp_path / "t.csv", newline="", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))
+    assert rows[0] == [column, CAUTION_COLUMN]  # the first line is the header
+    assert rows[1][0] == text
+    assert rows[2][0] == ""  # a missing number is an empty cell
+    raw = (tmp_path / "t.csv").read_text(encoding="utf-8").splitlines()
+    assert raw[1].startswith(text + ",")  # numbers are not quoted
+    assert raw[2].startswith(',"')  # a missing number is empty, not ""
+
+
+def test_csv_columns_read_back_with_their_types(tmp_path):
+    # plain pandas (the README's reader) infers numbers, booleans and text
+    frame = pd.DataFrame({"site_id": ["A@1", None], "n": [1, 2], "unresolved": [True, False],
+                          "v_after_v": [12.345, np.nan], 'odd "name"': ["a,b", "c\rd"]})
+    write_csv(frame, tmp_path / "t.csv")
+    back = pd.read_csv(tmp_path / "t.csv", keep_default_na=False, na_values=[""])
+    assert back["n"].tolist() == [1, 2]
+    assert back["unresolved"].tolist() == [True, False]
+    assert back["v_after_v"].iloc[0] == 12.3 and np.isnan(back["v_after_v"].iloc[1])
+    assert back["site_id"].iloc[0] == "A@1" and pd.isna(back["site_id"].iloc[1])
+    assert back['odd "name"'].tolist() == ["a,b", "c\rd"]
+
+
+def test_rounding_rules_hold_on_many_values():
+    # properties of rounding to n significant digits / d decimals (common practice):
+    # the result has at most n significant digits (d decimals), and it is off by at most
+    # half a unit of its last digit; Python's correctly rounded formatting is the reference
+    from corridor.io.csv_format import METRES, SIG3, round_array
+
+    rng = np.random.default_rng(7)
+    x = rng.lognormal(0.0, 5.0, 20_000) * rng.choice([-1.0, 1.0], 20_000)
+    y = round_array(x, SIG3)
+    assert all(float(f"{v:.3g}") == v for v in y)
+    unit = 10.0 ** (np.floor(np.log10(np.abs(x))) - 2)
+    assert (np.abs(y - x) <= 0.5 * unit * (1 + 1e-9)).all()
+    m = round_array(x, METRES)
+    big = np.abs(x) >= 1.0
+    assert all(float(f"{v:.2f}") == v for v in m[big])
+    assert (np.abs(m[big] - x[big]) <= 0.005 * (1 + 1e-9)).all()
+    assert all(float(f"{v:.3g}") == v for v in m[~big])
+    # missing and infinite values pass through; a negative zero is written as 0.0
+    odd = round_array(np.array([np.nan, np.inf, -0.0, -1e-9]), SIG3)
+    assert np.isnan(odd[0]) and odd[1] == np.inf and repr(float(odd[2])) == "0.0"

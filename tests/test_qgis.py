@@ -95,9 +95,9 @@ def qgis_run(tmp_path_factory):
          "params": {"CONFIG": str(DEMO), "OUTPUT": str(tmp / "step_out"),
                     "screening_distance_m": 500.0}},
         {"do": "render", "png": str(tmp / "screen.png"), "size": [1000, 700],
-         "layers": [[f"{qgis_out}/screening.gpkg|layername=assets", "assets"],
+         "layers": [[f"{qgis_out}/screening.gpkg|layername=power_lines", "power lines"],
+                    [f"{qgis_out}/screening.gpkg|layername=assets", "assets"],
                     [f"{qgis_out}/screening.gpkg|layername=hazards", "hazards"],
-                    [_layer("power_lines"), "power lines"],
                     [f"{qgis_out}/screening.gpkg|layername=sites", "sites"]]},
     ]
     bad_cfg = tmp / "bad_config.toml"
@@ -211,6 +211,8 @@ def test_screenshot_of_the_styled_result(qgis_run):
     assert png.stat().st_size > 20_000
     # the styles embedded in screening.gpkg were applied (not QGIS's single default symbol)
     assert shot["renderers"]["hazards"] != "singleSymbol"
+    assert shot["renderers"]["power lines"] == "graduatedSymbol"  # by voltage
+    assert shot["renderers"]["sites"] == "RuleRenderer"  # by remedy, unresolved ringed
     if os.environ.get("CORRIDOR_UPDATE_DOCS") == "1":
         shutil.copyfile(png, SCREENSHOT)
 

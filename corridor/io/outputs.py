@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import csv
 import hashlib
 import json
 import logging
@@ -112,32 +111,54 @@ def csv_frame(frame: pd.DataFrame, caution: bool = True) -> pd.DataFrame:
     return out
 
 
+def _cells(values: pd.Series, column: str) -> list[str]:
+    """The CSV text of one column: numbers bare (rounded by unit), text quoted, missing empty."""
+    from corridor.io.csv_format import format_numbers
+
+    dtype = values.dtype
+    missing = values.isna().to_numpy()
+    if pd.api.types.is_float_dtype(dtype):
+        return format_numbers(values, column).tolist()
+    raw = values.astype(object).tolist()
+    if pd.api.types.is_bool_dtype(dtype):
+        return ["" if m else ("True" if v else "False") for v, m in zip(raw, missing, strict=True)]
+    if pd.api.types.is_integer_dtype(dtype):
+        return ["" if m else str(int(v)) for v, m in zip(raw, missing, strict=True)]
+    return ["" if m else '"' + str(v).replace('"', '""') + '"'
+            for v, m in zip(raw, missing, strict=True)]
+
+
 def write_csv(frame: pd.DataFrame, path: Path, caution: bool = True) -> None:
     """Write a table as a plain CSV that any reader and spreadsheet opens safely.
 
-    Every row carries the safety caution in a last column named
-    :data:`CAUTION_COLUMN` (a plain CSV, no comment line: readers need no
-    option, ids containing ``#`` stay whole, GIS import the file as it is).
+    The first line is the header. Every row carries the safety caution in a last
+    column named :data:`CAUTION_COLUMN` (a plain CSV, no comment line: readers need
+    no option, ids containing ``#`` stay whole, GIS import the file as it is).
     Text cells starting with a formula trigger (``=``, ``+``, ``-``, ``@``, tab,
     carriage return, or the escape ``'`` itself) get a leading single quote, so a
     spreadsheet shows them as text and never runs them (CSV injection; OWASP).
-    Text is quoted (RFC 4180), numbers are not. :func:`read_csv` undoes both.
+    Text is quoted (RFC 4180); numbers, booleans (``True``/``False``) and missing
+    values (empty) are not, so GIS detect numeric columns. Floats are rounded by
+    the unit their column name carries (:mod:`corridor.io.csv_format`: metres to
+    0.01, volts, amperes and ohms to 3 significant digits, coordinates in full).
+    :func:`read_csv` undoes the quoting and the formula escape.
 
     Parameters
     ----------
     frame : DataFrame
         The table (no geometry column).
     path : Path
-        The file written (UTF-8, Unix line ends, numbers to 12 significant digits).
+        The file written (UTF-8, Unix line ends).
     caution : bool, optional
         Add the caution column (default true; every published CSV has it).
     """
     out = csv_frame(frame, caution)
+    header = ",".join('"' + str(c).replace('"', '""') + '"' for c in out.columns)
+    columns = [_cells(out.iloc[:, i], str(c)) for i, c in enumerate(out.columns)]
     with open(path, "w", newline="", encoding="utf-8") as fh:
-        # text in quotes: a carriage return inside a cell would otherwise be written
-        # bare (the csv module quotes only the line terminator's own characters)
-        out.to_csv(fh, index=False, float_format="%.12g", quoting=csv.QUOTE_NONNUMERIC,
-                   lineterminator="\n")
+        fh.write(header + "\n")
+        if len(out) and columns:
+            fh.write("\n".join(map(",".join, zip(*columns, strict=True))) + "\n")
 
 
 def read_csv(path: Path, **kwargs) -> pd.DataFrame:

@@ -21,7 +21,16 @@ Styles per layer (the palette is corridor's own):
   ``worst_utilization``;
 - ``exposures``: line colour by the inducing line's voltage
   (``line_voltage_kv``);
-- ``sites``: one point symbol for grounding sites.
+- ``power_lines``: line colour and width by the line's voltage
+  (``voltage_kv``), labelled with ``line_id``;
+- ``assets``: labelled with ``asset_id``;
+- ``sites``: rules by ``remedy`` (shape and colour per remedy) and a red ring
+  around every ``unresolved`` site, labelled with ``site_id``.
+
+Every QML document also carries the field aliases (QGIS 3.22 reads them from
+the style, not from ``gpkg_data_columns``). The documents themselves are
+built in :mod:`corridor.io.sld` and :mod:`corridor.io.qml`; the titles come
+from :mod:`corridor.io.glossary`.
 
 Everything is plain SQL through :mod:`sqlite3` on the closed file, after GDAL
 has written the layers.
@@ -39,185 +48,20 @@ References
 from __future__ import annotations
 
 import logging
-import re
 import sqlite3
 from collections.abc import Iterable
 from pathlib import Path
-from xml.sax.saxutils import escape, quoteattr
 
+from corridor.io.glossary import GLOSSARY, alias_for, describe_column
+from corridor.io.qml import qml_document
+from corridor.io.sld import sld_document
 from corridor.limits.limit_sets import DEFAULT_REVIEW_THRESHOLD, HAZARD_CLASSES
 
+__all__ = ["GLOSSARY", "HAZARD_COLOURS", "LABEL_FIELDS", "REMEDY_SYMBOLS", "SITE_COLOUR",
+           "SITE_OUTLINE", "UNRESOLVED_COLOUR", "VOLTAGE_BANDS", "alias_for", "apply_styles",
+           "describe_column", "layer_style_specs", "utilization_bands"]
+
 log = logging.getLogger(__name__)
-
-# --------------------------------------------------------------------------
-# Glossary of canonical column names
-# --------------------------------------------------------------------------
-
-#: Canonical column name -> (title, description with unit in brackets).
-GLOSSARY: dict[str, tuple[str, str]] = {
-    # identifiers and bookkeeping
-    "segment_id": ("Segment id", "Index of the asset segment within the run [-]."),
-    "asset_id": ("Asset id", "Identifier of the asset (pipeline, fence, rail, telecom cable)."),
-    "asset_kind": ("Asset kind", "One of pipeline, fence, rail, telecom."),
-    "asset_rank": ("Asset rank", "1 = the asset with the highest worst utilization [-]."),
-    "source_layer": ("Source layer", "Input file and layer the asset was read from."),
-    "part": ("Part", "Index of the line part within a multi-part asset [-]."),
-    "segment_index": ("Segment index", "Position of the segment along its asset [-]."),
-    "line_id": ("Power line id", "Nearest power line within the screening distance."),
-    "line_ids": ("Power line ids", "Power lines that contribute to the asset's result,"
-                                   " ';'-separated."),
-    "exposure_id": ("Exposure id", "Index of the exposure (asset, power line, continuous"
-                                   " run) [-]."),
-    "exposure_class": ("Exposure class", "Geometric relation to the nearest power line"
-                                         " (parallel, oblique, crossing, none)."),
-    "lines_in_reach": ("Lines in reach", "Number of power lines within the screening"
-                                         " distance [-]."),
-    "rank": ("Rank", "1 = the worst segment of the run, by utilization [-]."),
-    # geometry
-    "chainage_m": ("Chainage", "Distance along the asset from its start to the segment start [m]."),
-    "length_m": ("Length", "Length along the asset [m]."),
-    "separation_m": ("Separation", "Horizontal distance to the nearest power line [m]."),
-    "angle_deg": ("Crossing angle", "Angle between the segment and the nearest power line [deg]."),
-    "projected_length_m": ("Projected length", "Segment length projected on the power line [m]."),
-    "start_chainage_m": ("Start chainage", "Chainage where the exposure starts [m]."),
-    "end_chainage_m": ("End chainage", "Chainage where the exposure ends [m]."),
-    "parallel_length_m": ("Parallel length", "Length of the exposure projected on the power"
-                                             " line [m]."),
-    "min_separation_m": ("Minimum separation", "Smallest separation along the exposure [m]."),
-    "mean_separation_m": ("Mean separation", "Length-weighted mean separation [m]."),
-    "equivalent_separation_m": ("Equivalent separation", "Separation giving the same coupling as"
-                                " the real, varying one (geometric mean of the section ends) [m]."),
-    "mean_angle_deg": ("Mean angle", "Mean angle between the asset and the power line [deg]."),
-    "crossings": ("Crossings", "Number of times the asset crosses the power line [-]."),
-    "line_voltage_kv": ("Line voltage", "Nominal phase-to-phase voltage of the power line [kV]."),
-    "voltage_kv": ("Line voltage", "Nominal phase-to-phase voltage of the power line [kV]."),
-    "soil_resistivity_ohm_m": ("Soil resistivity", "Soil resistivity at the segment [Ω·m]."),
-    # coupling
-    "emf_normal_v_per_km": ("EMF, normal load", "Longitudinal EMF induced by the load currents"
-                            " per unit length [V/km]."),
-    "emf_fault_v_per_km": ("EMF, fault", "Longitudinal EMF induced by the worst earth fault"
-                           " per unit length [V/km]."),
-    "emf_normal_v": ("EMF over segment, normal load", "Longitudinal EMF over the segment [V];"
-                     " the worst case over unknown flow directions and phase angles."),
-    "normal_scenario": ("Normal-load scenario", "Loading that governs the normal-load EMF:"
-                        " as given, or one circuit of a line out of service."),
-    "emf_fault_v": ("EMF over segment, fault", "Longitudinal EMF over the segment [V]."),
-    "emf_section_normal_v": ("Section EMF, normal load", "Longitudinal EMF summed between the"
-                             " cable's grounded ends (telecom) [V]."),
-    "emf_section_fault_v": ("Section EMF, fault", "Longitudinal EMF summed between the cable's"
-                            " grounded ends during the worst fault (telecom) [V]."),
-    # response
-    "v_normal_v": ("Voltage, normal load", "|V| of the asset to remote earth under load [V]."),
-    "i_normal_a": ("Current, normal load", "|I| along the asset under load [A]."),
-    "normal_source_impedance_ohm": ("Source impedance, normal", "Thevenin impedance seen at the"
-                                    " segment under load [Ω]."),
-    "i_normal_short_ma": ("Short-circuit current, normal", "Current the asset can drive through a"
-                          " zero-impedance contact to earth under load [mA]."),
-    "i_normal_body_ma": ("Body current, normal", "Steady-state current through a 1000 Ω body"
-                         " touching the asset under load [mA]."),
-    "fault_source_impedance_ohm": ("Source impedance, fault", "Thevenin impedance seen at the"
-                                   " fault peak of the asset's chain [Ω]."),
-    "v_fault_v": ("Voltage, fault", "|V| of the asset to remote earth in the worst fault [V]."),
-    "i_fault_a": ("Current, fault", "|I| along the asset in the worst fault [A]."),
-    "fault_line_id": ("Faulted line", "Power line whose earth fault gives v_fault_v."),
-    "fault_position_m": ("Fault position", "Position along the faulted line, from its start,"
-                         " of the earth fault that gives v_fault_v [m]."),
-    "v_step_fault_v": ("Step voltage, fault", "Step voltage over 1 m beside the segment from"
-                       " the footing of a faulted tower [V]."),
-    "in_tower_zone": ("In a tower's zone", "The site stands where a faulted tower raises the"
-                      " earth above tower_zone_threshold_v [true/false]."),
-    "fault_phase": ("Faulted phase", "Phase of the worst earth fault."),
-    "clearing_time_s": ("Clearing time", "Fault clearing time of the faulted line [s]."),
-    "high_reliability": ("High-reliability line", "Faulted line counts as high-reliability"
-                         " (ITU-T Directives sense) [true/false]."),
-    "screening_factor": ("Screening factor", "|k| of the earth wires and other screens [-]."),
-    "fault_current_ka": ("Fault current", "Earth-fault current of the faulted line at the"
-                         " segment [kA]."),
-    "earth_potential_fault_v": ("Earth potential, fault", "Rise of the soil potential near"
-                                " faulted towers at the segment [V]."),
-    "v_capacitive_open_v": ("Capacitive voltage, open", "Open-circuit voltage of an above-ground"
-                            " asset from electric-field coupling [V]."),
-    "i_capacitive_short_ma": ("Capacitive current, short", "Short-circuit current of an"
-                              " above-ground asset from electric-field coupling [mA]."),
-    "capacitive_source_impedance_ohm": ("Capacitive source impedance", "Source impedance behind"
-                                        " the capacitive voltage [Ω]."),
-    # assessment
-    "v_touch_fault_v": ("Touch voltage, fault", "Touch voltage during the worst fault: |V| of"
-                        " the asset plus the earth potential rise, loaded by the body [V]."),
-    "v_coating_stress_v": ("Coating stress", "Voltage across a pipeline coating during the worst"
-                           " fault [V]."),
-    "ac_density_a_per_m2": ("AC current density", "AC current density at a 1 cm² coating"
-                            " holiday (pipelines) [A/m²]."),
-    "utilization": ("Utilization", "Largest ratio of a judged quantity to its permitted value;"
-                    " 1 or more exceeds a limit [-]."),
-    "governing": ("Governing criterion", "'<criterion>:<case>' giving the utilization."),
-    "hazard_class": ("Hazard class", "clear (below the review threshold), review (threshold up"
-                     " to 1) or exceeds (utilization 1 or more)."),
-    # assets layer
-    "worst_utilization": ("Worst utilization", "Highest utilization along the asset [-]."),
-    "length_over_limit_m": ("Length over limit", "Asset length with utilization 1 or more [m]."),
-    "worst_chainage_m": ("Worst chainage", "Chainage of the worst segment [m]."),
-    "worst_v_normal_v": ("Voltage at worst, normal", "|V| under load at the worst segment [V]."),
-    "worst_v_fault_v": ("Voltage at worst, fault", "|V| in the worst fault at the worst segment"
-                        " [V]."),
-    "worst_i_capacitive_short_ma": ("Capacitive current at worst", "Capacitive short-circuit"
-                                    " current at the worst segment [mA]."),
-    # grounding sites
-    "site_id": ("Site id", "Identifier of the proposed grounding site."),
-    "x": ("Easting", "Easting of the site in the run CRS [m]."),
-    "y": ("Northing", "Northing of the site in the run CRS [m]."),
-    "lon": ("Longitude", "Longitude of the site, WGS 84 [deg]."),
-    "lat": ("Latitude", "Latitude of the site, WGS 84 [deg]."),
-    "resistance_ohm": ("Ground resistance", "Resistance to earth of a ground [Ω]."),
-    "ground_resistance_ohm": ("Ground resistance", "Resistance to earth of the proposed ground;"
-                              " empty where grounding is not the remedy [Ω]."),
-    "electrode_length_m": ("Electrode length", "Length of buried horizontal conductor giving"
-                           " the ground resistance [m]."),
-    "remedy": ("Remedy", "What the site needs: a ground, a ground through a DC decoupler, or"
-                         " another measure named here."),
-    "unresolved": ("Unresolved", "The asset still exceeds a limit after its last site"
-                                 " [true/false]."),
-    "v_before_v": ("Value before", "Governing quantity at the site before the ground [V]."),
-    "v_after_v": ("Value after", "Governing quantity at the site after the ground [V]."),
-    "utilization_after": ("Utilization after", "Worst utilization of the asset after the site"
-                          " is added [-]."),
-}
-
-_UNIT_SUFFIX = (
-    ("_v_per_km", "V/km"), ("_a_per_m2", "A/m²"), ("_ohm_m2", "Ω·m²"), ("_ohm_m", "Ω·m"),
-    ("_ohm", "Ω"), ("_ma", "mA"), ("_ka", "kA"), ("_kv", "kV"), ("_deg", "deg"),
-    ("_m", "m"), ("_v", "V"), ("_a", "A"), ("_s", "s"), ("_hz", "Hz"),
-)
-
-
-def describe_column(name: str) -> tuple[str, str] | None:
-    """Title and description (with unit) of a column, or None if unknown.
-
-    Parameters
-    ----------
-    name : str
-        Canonical column name.
-
-    Returns
-    -------
-    tuple of str or None
-        ``(title, description)`` from :data:`GLOSSARY`; ``ratio_<criterion>``
-        columns get a generic entry; other names with a unit suffix get a
-        minimal one naming the unit.
-    """
-    if name in GLOSSARY:
-        return GLOSSARY[name]
-    m = re.fullmatch(r"ratio_([a-z0-9_]+)", name)
-    if m:
-        return (f"Ratio, {m.group(1).replace('_', ' ')}",
-                f"Judged quantity over the permitted value of criterion {m.group(1)};"
-                " empty where it does not apply [-].")
-    for suffix, unit in _UNIT_SUFFIX:
-        if name.endswith(suffix) and len(name) > len(suffix):
-            stem = name[: -len(suffix)].replace("_", " ")
-            return stem.capitalize(), f"{stem.capitalize()} [{unit}]."
-    return None
-
 
 # --------------------------------------------------------------------------
 # Palette (corridor's own)
@@ -268,150 +112,6 @@ def utilization_bands(review_threshold: float = DEFAULT_REVIEW_THRESHOLD
     return bands
 
 
-def _rgb(hex_colour: str) -> str:
-    h = hex_colour.lstrip("#")
-    return ",".join(str(int(h[i:i + 2], 16)) for i in (0, 2, 4))
-
-
-# --------------------------------------------------------------------------
-# SLD 1.1 / SE 1.1
-# --------------------------------------------------------------------------
-
-_SLD_HEAD = (
-    '<?xml version="1.0" encoding="UTF-8"?>\n'
-    '<StyledLayerDescriptor version="1.1.0" xmlns="http://www.opengis.net/sld"'
-    ' xmlns:se="http://www.opengis.net/se" xmlns:ogc="http://www.opengis.net/ogc"'
-    ' xmlns:xlink="http://www.w3.org/1999/xlink"'
-    ' xmlns:xsi="http://www.w3.org/2001/XMLSchema-instance"'
-    ' xsi:schemaLocation="http://www.opengis.net/sld'
-    ' http://schemas.opengis.net/sld/1.1.0/StyledLayerDescriptor.xsd">\n'
-)
-
-
-def _se_filter(rule: dict) -> str:
-    field = escape(rule["field"])
-    if "equals" in rule:
-        return (f"<ogc:Filter><ogc:PropertyIsEqualTo><ogc:PropertyName>{field}</ogc:PropertyName>"
-                f"<ogc:Literal>{escape(str(rule['equals']))}</ogc:Literal>"
-                "</ogc:PropertyIsEqualTo></ogc:Filter>")
-    parts = []
-    if rule.get("lower") is not None:
-        parts.append(f"<ogc:PropertyIsGreaterThanOrEqualTo><ogc:PropertyName>{field}"
-                     f"</ogc:PropertyName><ogc:Literal>{rule['lower']:g}</ogc:Literal>"
-                     "</ogc:PropertyIsGreaterThanOrEqualTo>")
-    if rule.get("upper") is not None:
-        parts.append(f"<ogc:PropertyIsLessThan><ogc:PropertyName>{field}</ogc:PropertyName>"
-                     f"<ogc:Literal>{rule['upper']:g}</ogc:Literal></ogc:PropertyIsLessThan>")
-    body = parts[0] if len(parts) == 1 else "<ogc:And>" + "".join(parts) + "</ogc:And>"
-    return f"<ogc:Filter>{body}</ogc:Filter>"
-
-
-def _se_symbolizer(geometry: str, colour: str, width_px: float) -> str:
-    if geometry == "point":
-        return ("<se:PointSymbolizer><se:Graphic><se:Mark>"
-                "<se:WellKnownName>triangle</se:WellKnownName>"
-                f'<se:Fill><se:SvgParameter name="fill">{colour}</se:SvgParameter></se:Fill>'
-                f'<se:Stroke><se:SvgParameter name="stroke">{SITE_OUTLINE}</se:SvgParameter>'
-                '<se:SvgParameter name="stroke-width">1.5</se:SvgParameter></se:Stroke>'
-                f"</se:Mark><se:Size>{width_px:g}</se:Size></se:Graphic></se:PointSymbolizer>")
-    return ("<se:LineSymbolizer><se:Stroke>"
-            f'<se:SvgParameter name="stroke">{colour}</se:SvgParameter>'
-            f'<se:SvgParameter name="stroke-width">{width_px:g}</se:SvgParameter>'
-            '<se:SvgParameter name="stroke-linecap">round</se:SvgParameter>'
-            "</se:Stroke></se:LineSymbolizer>")
-
-
-def sld_document(layer: str, style_name: str, geometry: str, rules: list[dict]) -> str:
-    """An SLD 1.1 document with one Symbology Encoding rule per class.
-
-    Parameters
-    ----------
-    layer : str
-        Layer (table) name.
-    style_name : str
-        Name of the user style.
-    geometry : str
-        ``"line"`` or ``"point"``.
-    rules : list of dict
-        Each with ``label``, ``colour``, ``width`` [px] and either ``field`` with
-        ``lower``/``upper`` (range, lower inclusive) or ``field`` with
-        ``equals``, or no ``field`` for a single symbol.
-    """
-    out = [_SLD_HEAD, f"  <NamedLayer><se:Name>{escape(layer)}</se:Name>\n",
-           f"    <UserStyle><se:Name>{escape(style_name)}</se:Name><se:FeatureTypeStyle>\n"]
-    for r in rules:
-        filt = _se_filter(r) if r.get("field") else ""
-        out.append(f"      <se:Rule><se:Name>{escape(r['label'])}</se:Name>"
-                   f"<se:Description><se:Title>{escape(r['label'])}</se:Title></se:Description>"
-                   f"{filt}{_se_symbolizer(geometry, r['colour'], r['width'])}</se:Rule>\n")
-    out.append("    </se:FeatureTypeStyle></UserStyle>\n  </NamedLayer>\n"
-               "</StyledLayerDescriptor>\n")
-    return "".join(out)
-
-
-# --------------------------------------------------------------------------
-# QML
-# --------------------------------------------------------------------------
-
-
-def _qml_props(props: dict[str, str]) -> str:
-    opts = "".join(f'<Option name={quoteattr(k)} type="QString" value={quoteattr(v)}/>'
-                   for k, v in props.items())
-    legacy = "".join(f"<prop k={quoteattr(k)} v={quoteattr(v)}/>" for k, v in props.items())
-    return f'<Option type="Map">{opts}</Option>{legacy}'
-
-
-def _qml_symbol(name: str, geometry: str, colour: str, width_mm: float) -> str:
-    rgba = _rgb(colour) + ",255"
-    if geometry == "point":
-        props = {"name": "triangle", "color": rgba, "outline_color": _rgb(SITE_OUTLINE) + ",255",
-                 "outline_width": "0.4", "outline_width_unit": "MM", "size": f"{width_mm:g}",
-                 "size_unit": "MM"}
-        return (f'<symbol type="marker" name="{name}" alpha="1" clip_to_extent="1"'
-                f' force_rhr="0"><layer class="SimpleMarker" pass="0" locked="0" enabled="1">'
-                f"{_qml_props(props)}</layer></symbol>")
-    props = {"line_color": rgba, "line_width": f"{width_mm:g}", "line_width_unit": "MM",
-             "capstyle": "round", "joinstyle": "round", "line_style": "solid"}
-    return (f'<symbol type="line" name="{name}" alpha="1" clip_to_extent="1" force_rhr="0">'
-            f'<layer class="SimpleLine" pass="0" locked="0" enabled="1">{_qml_props(props)}'
-            "</layer></symbol>")
-
-
-def qml_document(geometry: str, rules: list[dict]) -> str:
-    """A QML style document: graduated, categorised or single-symbol renderer.
-
-    Parameters are as for :func:`sld_document`; widths are read as mm.
-    """
-    symbols = "".join(_qml_symbol(str(i), geometry, r["colour"], r["width_mm"])
-                      for i, r in enumerate(rules))
-    field = rules[0].get("field")
-    if field is None:
-        renderer = (f'<renderer-v2 type="singleSymbol" symbollevels="0" forceraster="0"'
-                    f' enableorderby="0"><symbols>{symbols}</symbols></renderer-v2>')
-    elif "equals" in rules[0]:
-        cats = "".join(f"<category value={quoteattr(str(r['equals']))} symbol=\"{i}\""
-                       f" label={quoteattr(r['label'])} render=\"true\"/>"
-                       for i, r in enumerate(rules))
-        renderer = (f'<renderer-v2 type="categorizedSymbol" attr={quoteattr(field)}'
-                    f' symbollevels="0" forceraster="0" enableorderby="0">'
-                    f"<categories>{cats}</categories><symbols>{symbols}</symbols></renderer-v2>")
-    else:
-        # QML ranges are closed; the open-ended top class gets a bound no
-        # screening value reaches.
-        ranges = "".join(
-            f'<range lower="{r["lower"]:g}"'
-            f' upper="{(r["upper"] if r["upper"] is not None else 1e12):g}"'
-            f' symbol="{i}" label={quoteattr(r["label"])} render="true"/>'
-            for i, r in enumerate(rules))
-        renderer = (f'<renderer-v2 type="graduatedSymbol" attr={quoteattr(field)}'
-                    f' graduatedMethod="GraduatedColor" symbollevels="0" forceraster="0"'
-                    f' enableorderby="0"><ranges>{ranges}</ranges><symbols>{symbols}</symbols>'
-                    '<mode name="manual"/><rotation/><sizescale/></renderer-v2>')
-    return ("<!DOCTYPE qgis PUBLIC 'http://mrcc.com/qgis.dtd' 'SYSTEM'>\n"
-            '<qgis version="3.28.0" styleCategories="Symbology">\n'
-            f"{renderer}\n</qgis>\n")
-
-
 # --------------------------------------------------------------------------
 # Style definitions per layer
 # --------------------------------------------------------------------------
@@ -437,8 +137,39 @@ def _voltage_rules(field: str = "line_voltage_kv") -> list[dict]:
     return rules
 
 
+#: Remedy (corridor.steps.ground's REMEDY_* texts) -> (label, shape, fill colour).
+#: Shapes are SE well-known names, so the SLD and the QML draw the same marks.
+REMEDY_SYMBOLS: dict[str, tuple[str, str, str]] = {
+    "ground": ("ground", "triangle", SITE_COLOUR),
+    "ground through DC decoupler": ("ground through DC decoupler", "triangle", "#8cc0de"),
+    "fit protectors or isolate the pair": ("protectors or isolation (telecom)", "square",
+                                           "#c3a5d9"),
+    "increase separation or fit a shield wire": ("separation or shield wire", "square",
+                                                 "#f2b36b"),
+    "keep clear of the tower footing: separation, insulating section or gradient control": (
+        "keep clear of the tower footing", "star", "#6a4c93"),
+}
+#: Ring drawn around an unresolved site (an asset still over a limit after its last site).
+UNRESOLVED_COLOUR = "#d7191c"
+
+
 def _site_rules() -> list[dict]:
-    return [{"label": "grounding site", "colour": SITE_COLOUR, "width": 12.0, "width_mm": 3.5}]
+    rules = [{"conditions": [("remedy", remedy)], "label": label, "shape": shape,
+              "colour": fill, "width": 12.0, "width_mm": 3.5}
+             for remedy, (label, shape, fill) in REMEDY_SYMBOLS.items()]
+    rules.append({"else": True, "label": "other remedy", "shape": "circle",
+                  "colour": "#9a9a9a", "width": 10.0, "width_mm": 3.0})
+    # drawn last, over the remedy's mark: a ring that no remedy colour hides
+    rules.append({"conditions": [("unresolved", True)],
+                  "label": "unresolved: the asset still exceeds a limit after its last site",
+                  "shape": "circle", "fill": False, "colour": UNRESOLVED_COLOUR,
+                  "outline": UNRESOLVED_COLOUR, "outline_width": 3.0, "outline_width_mm": 0.8,
+                  "width": 22.0, "width_mm": 6.0})
+    return rules
+
+
+#: Layer -> field whose value labels its features in the QML styles.
+LABEL_FIELDS = {"assets": "asset_id", "sites": "site_id", "power_lines": "line_id"}
 
 
 def layer_style_specs(layer: str, review_threshold: float = DEFAULT_REVIEW_THRESHOLD
@@ -462,7 +193,8 @@ def layer_style_specs(layer: str, review_threshold: float = DEFAULT_REVIEW_THRES
         return [("voltage", "Coloured by the line's nominal voltage", "line",
                  _voltage_rules("voltage_kv"))]
     if layer == "sites":
-        return [("grounding sites", "Proposed grounding sites", "point", _site_rules())]
+        return [("remedy", "Proposed grounding sites by remedy; unresolved sites ringed",
+                 "point", _site_rules())]
     return []
 
 
@@ -581,12 +313,17 @@ def _write_styles(con: sqlite3.Connection, layers: Iterable[str], review_thresho
             log.debug("no style defined for layer %s", table)
             continue
         con.execute("DELETE FROM layer_styles WHERE f_table_name = ?", (table,))
+        # QGIS's fields of a GeoPackage layer: every column but the geometry, FID first
+        fields = [c for c in _columns(con, table) if c != geom_col]
+        label = LABEL_FIELDS.get(table)
+        if label not in fields:
+            label = None
         for i, (name, desc, geometry, rules) in enumerate(specs):
             con.execute(
                 "INSERT INTO layer_styles (f_table_catalog, f_table_schema, f_table_name,"
                 " f_geometry_column, styleName, styleQML, styleSLD, useAsDefault, description,"
                 " owner, ui) VALUES ('', '', ?, ?, ?, ?, ?, ?, ?, 'corridor', NULL)",
-                (table, geom_col, name, qml_document(geometry, rules),
+                (table, geom_col, name, qml_document(geometry, rules, fields, label),
                  sld_document(table, name, geometry, rules), 1 if i == 0 else 0, desc))
             n += 1
     # Register the table as an attributes table so GDAL-based clients list it.
