@@ -46,6 +46,7 @@ from corridor.limits.methods import (
     METHODS,
     Context,
     MethodSpec,
+    _bool,
     _choice,
     _fraction,
     _identifier,
@@ -88,6 +89,19 @@ COMPUTED_QUANTITIES = (
 DEFAULT_SEARCH_DIR = Path(__file__).resolve().parents[1] / "data" / "limits"
 
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_]*$")
+#: ``{name}`` in a criterion's title.
+_PLACEHOLDER = re.compile(r"\{([a-z_][a-z0-9_]*)\}")
+
+
+def _fill(values: Mapping[str, Any], key: str) -> str:
+    v = values.get(key)
+    if v is None:
+        return "{" + key + "}"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, int | float):
+        return f"{float(v):g}"
+    return str(v)
 
 
 class LimitSetError(ConfigError):
@@ -111,6 +125,11 @@ def _common_keys(asset_kinds: tuple[str, ...]) -> dict[str, Spec]:
         "description": _p(_string, "", dtype="str"),
         "source": _p(_string, "", dtype="str"),
         "needs": _p(_names, (), dtype="str_list"),
+        "title": _p(_string, "", dtype="str", doc="Plain-language name for reports."),
+        "formula": _p(_string, "", dtype="str", doc="The check as a formula, plain text."),
+        "edition": _p(_string, "", dtype="str", doc="Edition of the source followed."),
+        "to_verify": _p(_bool, False, dtype="bool",
+                        doc="true: the value is recalled, not read from the standard's text."),
     }
 
 
@@ -142,6 +161,18 @@ class Criterion:
     needs : tuple of str
         Inputs the quantity needs that a run may not have (``needs`` in the
         file); empty when the screening always computes the quantity.
+    title : str
+        Plain-language name for reports, e.g. ``"Touch voltage during earth
+        fault (IEEE Std 80, {body_weight_kg} kg, {clearing_time})"``; ``{p}``
+        is replaced by parameter ``p``, ``{clearing_time}`` by the clearing
+        time (see :meth:`plain_name`).
+    formula : str
+        The check as a plain-text formula.
+    edition : str
+        Edition of the source the value follows, e.g. ``"IEEE Std 80-2013"``.
+    to_verify : bool
+        True where the value was recalled rather than read from the
+        standard's text: a report lists it as a value to be verified.
     """
 
     name: str
@@ -153,6 +184,52 @@ class Criterion:
     description: str = ""
     source: str = ""
     needs: tuple[str, ...] = ()
+    title: str = ""
+    formula: str = ""
+    edition: str = ""
+    to_verify: bool = False
+
+    def plain_name(self, clearing_time_s: float | None = None) -> str:
+        """The criterion's plain-language name, parameters filled in.
+
+        Parameters
+        ----------
+        clearing_time_s : float, optional
+            Fault clearing time the value was read at [s]; without it
+            ``{clearing_time}`` reads "at the clearing time".
+
+        Returns
+        -------
+        str
+            ``title`` with ``{parameter}`` and ``{clearing_time}`` filled in;
+            the description, else the name, where the file gives no title.
+        """
+        text = self.title or self.description or self.name.replace("_", " ")
+        if clearing_time_s is not None and np.isfinite(clearing_time_s):
+            t_text = f"{float(clearing_time_s):g} s"
+        else:
+            t_text = "at the clearing time"
+        values = {**self.params, "clearing_time": t_text}
+        return _PLACEHOLDER.sub(lambda m: _fill(values, m.group(1)), text)
+
+    @property
+    def uses_clearing_time(self) -> bool:
+        """True where the permitted value depends on the fault clearing time."""
+        return METHODS[self.method].uses_clearing_time
+
+    def limit_text(self, unit: str = "") -> str:
+        """The permitted value in words (value, table or formula with constants).
+
+        Parameters
+        ----------
+        unit : str, optional
+            Unit of the judged quantity, e.g. ``"V"``.
+
+        Returns
+        -------
+        str
+        """
+        return METHODS[self.method].limit_text(self.params, unit)
 
     @property
     def computed(self) -> bool:
@@ -400,12 +477,21 @@ def _validate(raw, path, override_paths, asset_kinds):
                     " needs, e.g. needs = [\"dc_current_density_a_per_m2\"] (the run then"
                     " reports it as not assessed)")
                 continue
+            unknown = [m for m in _PLACEHOLDER.findall(common["title"])
+                       if m != "clearing_time" and m not in params]
+            if unknown:
+                problems.append(
+                    f"{where(*key, 'title')}: {{{unknown[0]}}} is neither a parameter of"
+                    f" method {method!r} ({', '.join(sorted(params)) or 'none'}) nor"
+                    " {clearing_time}")
+                continue
             criteria.append(Criterion(
                 name=cname, applies_to=common["applies_to"], case=common["case"],
                 quantity=common["quantity"], method=common["method"],
                 parameters=tuple(sorted(params.items())),
                 description=common["description"], source=common["source"],
-                needs=common["needs"]))
+                needs=common["needs"], title=common["title"], formula=common["formula"],
+                edition=common["edition"], to_verify=common["to_verify"]))
 
     # Unknown keys were reported twice (once per spec pass) when both passes saw
     # them; keep each message once, in order.
