@@ -60,6 +60,7 @@ from corridor.settings import Spec
 
 __all__ = ["BUILTIN_ASSET_KINDS", "CASES", "COMPUTED_QUANTITIES", "Context", "Criterion",
            "DEFAULT_REVIEW_THRESHOLD", "DEFAULT_SEARCH_DIR", "HAZARD_CLASSES", "LimitSet",
+           "QUANTITY_TITLES",
            "LimitSetError", "METHODS", "MethodSpec", "available_limit_sets", "evaluate",
            "load_limit_set", "not_assessed"]
 
@@ -83,6 +84,26 @@ COMPUTED_QUANTITIES = (
     "emf_fault_v", "v_step_fault_v", "iso18086_density_ratio",
     "iso18086_density_ratio_with_dc",
 )
+
+#: Plain titles of the computed quantities, for reports (units follow the names).
+QUANTITY_TITLES = {
+    "v_normal_v": "Voltage to remote earth, normal load",
+    "v_fault_v": "Voltage to remote earth, earth fault",
+    "v_touch_fault_v": "Touch voltage, earth fault",
+    "v_coating_stress_v": "Voltage across the coating, earth fault",
+    "ac_density_a_per_m2": "AC current density at a 1 cm² holiday",
+    "i_normal_body_ma": "Current through a person, normal load",
+    "i_capacitive_body_ma": "Current through a person, capacitive coupling",
+    "i_capacitive_short_ma": "Short-circuit current, capacitive coupling",
+    "v_capacitive_open_v": "Open-circuit voltage, capacitive coupling",
+    "emf_section_normal_v": "Longitudinal EMF between grounded ends, normal load",
+    "emf_section_fault_v": "Longitudinal EMF between grounded ends, earth fault",
+    "emf_normal_v": "Longitudinal EMF, normal load",
+    "emf_fault_v": "Longitudinal EMF, earth fault",
+    "v_step_fault_v": "Step voltage beside a faulted tower, earth fault",
+    "iso18086_density_ratio": "ISO 18086 current-density ratio",
+    "iso18086_density_ratio_with_dc": "ISO 18086 current-density ratio with the DC density",
+}
 
 #: Directory of the shipped limit sets: package data (``corridor/data/limits``),
 #: so that an installed wheel carries them.
