@@ -34,8 +34,8 @@ needs_chromium = pytest.mark.skipif(
     CHROMIUM is None, reason="headless Chromium is not installed (Debian package chromium);"
                              " .ci/run installs it")
 
-SECTIONS = ("summary", "changes", "map", "worst-assets", "worst-exposures", "worst-segments",
-            "profiles", "rejected", "defaults", "limits", "assumptions")
+SECTIONS = ("worklist", "worst-assets", "summary", "changes", "map", "worst-exposures",
+            "worst-segments", "profiles", "rejected", "defaults", "limits", "assumptions")
 
 
 @pytest.fixture(scope="module")
@@ -211,7 +211,10 @@ def test_not_assessed_criteria_are_loud(demo_run, tmp_path):
     banner = banner[:banner.index("</div>")]
     assert text.index('id="not-assessed"') < text.index('id="summary"')
     assert "did NOT pass" in banner
-    assert row["label"] in banner and html.escape(row["reason"]) in banner
+    # the criterion by its plain name from the limit set, never its internal id
+    name = demo_run.limit_set["ac_corrosion_ratio"].plain_name()
+    assert html.escape(name) in banner and row["label"] not in banner
+    assert html.escape(row["reason"]) in banner
     limits = text[text.index('id="limits"'):text.index('id="assumptions"')]
     assert limits.count("NOT ASSESSED") == 1
 
@@ -261,8 +264,9 @@ def test_chromium_dom_has_sections_and_figures(report, tmp_path):
     assert res.returncode == 0, res.stderr[-2000:]
     dom = res.stdout
     assert not _console_errors(res.stderr)
-    for heading in ("Summary", "Overview map", "Worst assets", "Worst exposures",
-                    "Worst segments", "Profiles of assets over a limit", "Method and assumptions"):
+    for heading in ("Grounding work list", "Ranked assets", "Summary", "Overview map",
+                    "Worst exposures", "Worst segments", "Profiles of assets over a limit",
+                    "Criteria", "Assumptions"):
         assert f">{heading}</h2>" in dom, heading
     assert len(re.findall(r"<svg\b", dom)) >= 2
 
