@@ -237,6 +237,7 @@ def _console_errors(stderr: str) -> list[str]:
 
 
 @pytest.mark.slow
+@pytest.mark.chromium
 @needs_chromium
 def test_chromium_renders_report_offline(report, tmp_path):
     png = tmp_path / "report.png"
@@ -258,6 +259,7 @@ def test_chromium_renders_report_offline(report, tmp_path):
 
 
 @pytest.mark.slow
+@pytest.mark.chromium
 @needs_chromium
 def test_chromium_dom_has_sections_and_figures(report, tmp_path):
     res = _chromium(["--dump-dom", report.resolve().as_uri()], tmp_path)
@@ -272,6 +274,7 @@ def test_chromium_dom_has_sections_and_figures(report, tmp_path):
 
 
 @pytest.mark.slow
+@pytest.mark.chromium
 @needs_chromium
 def test_console_error_filter_catches_a_script_error(tmp_path):
     # Control for the two browser tests above: a page that throws must be caught
