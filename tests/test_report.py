@@ -22,6 +22,7 @@ import pytest
 
 from corridor.config import load_config
 from corridor.io.outputs import SAFETY_CAUTION
+from corridor.limits.limit_sets import QUANTITY_TITLES
 from corridor.pipeline import run_screening
 from corridor.report import write_report
 from corridor.steps import asset_stages, run_stages
@@ -214,7 +215,10 @@ def test_not_assessed_criteria_are_loud(demo_run, tmp_path):
     # the criterion by its plain name from the limit set, never its internal id
     name = demo_run.limit_set["ac_corrosion_ratio"].plain_name()
     assert html.escape(name) in banner and row["label"] not in banner
-    assert html.escape(row["reason"]) in banner
+    # the reason, its quantity named in words (the limit set's title), the input field kept
+    assert "iso18086_density_ratio_with_dc" not in banner
+    assert html.escape(QUANTITY_TITLES["iso18086_density_ratio_with_dc"]) in banner
+    assert "dc_current_density_a_per_m2" in banner
     limits = text[text.index('id="limits"'):text.index('id="assumptions"')]
     assert limits.count("NOT ASSESSED") == 1
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import logging
+import re
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -12,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from corridor.io.outputs import sha256_file
-from corridor.limits.limit_sets import HAZARD_CLASSES
+from corridor.limits.limit_sets import HAZARD_CLASSES, QUANTITY_TITLES
 from corridor.report.html import MAX_ROWS, class_badge, esc, fmt_num, html_table
 from corridor.schema import SAFETY_DEFAULT_FIELDS
 
@@ -93,10 +94,18 @@ def not_assessed_banner(rows: list[dict], run=None) -> str:
         label = r.get("label", r.get("criterion", ""))
         return plain_criterion(run, label) if run is not None else str(label)
 
+    def reason(r):
+        # the run's reason names quantities by id: the report names them in words
+        text = str(r.get("reason", ""))
+        for q in sorted({str(r.get("quantity", "")), *QUANTITY_TITLES}, key=len, reverse=True):
+            if q:
+                text = re.sub(rf"\b{re.escape(q)}\b", quantity_title(q), text)
+        return text
+
     items = "".join(f"<li><b>{esc(name(r))}</b>"
                     f" ({esc(quantity_title(str(r.get('quantity', ''))))}"
                     + (f", {fmt_num(r['segments'])} segments" if "segments" in r else "")
-                    + f"): {esc(r.get('reason', ''))}</li>" for r in rows)
+                    + f"): {esc(reason(r))}</li>" for r in rows)
     return ('<div class="alert" id="not-assessed" role="alert"><strong>Not assessed</strong>'
             f"{len(rows)} criteri{'a' if len(rows) != 1 else 'on'} of the limit set could not be"
             " judged on any segment. They did NOT pass: a segment shown clear was not checked"

@@ -17,7 +17,7 @@ CSS = """
 *{box-sizing:border-box}
 body{margin:0;font:14px/1.45 system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",
  "Liberation Sans",Arial,sans-serif;color:var(--ink);background:var(--bg)}
-main{max-width:1180px;margin:0 auto;padding:18px 28px 48px}
+main{max-width:1500px;margin:0 auto;padding:18px 24px 48px}
 h1{font-size:24px;margin:6px 0 2px}h2{font-size:19px;margin:30px 0 8px;padding-bottom:4px;
  border-bottom:2px solid var(--line)}h3{font-size:15px;margin:18px 0 6px}
 .sub{color:var(--muted);margin:0 0 12px}
@@ -32,9 +32,9 @@ h1{font-size:24px;margin:6px 0 2px}h2{font-size:19px;margin:30px 0 8px;padding-b
 dl.facts{display:grid;grid-template-columns:max-content 1fr;gap:3px 16px;margin:8px 0}
 dl.facts dt{color:var(--muted)}dl.facts dd{margin:0}
 .tablewrap{overflow-x:auto;margin:6px 0 12px;max-width:100%}
-table{border-collapse:collapse;font-size:12.5px;min-width:40%}
+table{border-collapse:collapse;font-size:12px;min-width:40%}
 caption{text-align:left;color:var(--muted);padding:4px 0}
-th,td{border-bottom:1px solid var(--line);padding:4px 8px;text-align:left;vertical-align:top;
+th,td{border-bottom:1px solid var(--line);padding:4px 6px;text-align:left;vertical-align:top;
  white-space:normal;overflow-wrap:normal}
 td.n{white-space:nowrap;overflow-wrap:normal}
 th{background:var(--soft);font-weight:600;overflow-wrap:normal}
