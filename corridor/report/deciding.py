@@ -88,8 +88,38 @@ def fmt_value(value, unit: str) -> str:
     return f"{text} {esc(unit)}" if unit else text
 
 
-def permitted_at(run, crit, asset_ids, segment_index) -> np.ndarray:
-    """Permitted value of ``crit`` at the given segments, from ``run.limits_table``.
+def _limits_rows(run) -> np.ndarray | None:
+    """Row of ``run.limits_table`` of every segment-table row (-1 where none), or None.
+
+    Computed once per pair of tables and kept on the run (with the tables it was
+    computed from, so a replaced table is never matched by a stale mapping).
+    """
+    limits = getattr(run, "limits_table", None)
+    t = run.segment_table
+    if limits is None or t is None:
+        return None
+    cached = getattr(run, "_report_limits_rows", None)
+    if cached is not None and cached[0] is limits and cached[1] is t:
+        return cached[2]
+    a_t = t["asset_id"].to_numpy(dtype=object)
+    s_t = t["segment_index"].to_numpy(np.int64)
+    if (len(limits) == len(t)
+            and np.array_equal(limits["segment_index"].to_numpy(np.int64), s_t)
+            and np.array_equal(limits["asset_id"].to_numpy(dtype=object), a_t)):
+        rows = np.arange(len(t))  # the usual case: the same rows in the same order
+    else:
+        where = pd.MultiIndex.from_arrays([limits["asset_id"].astype(str),
+                                           limits["segment_index"].to_numpy(np.int64)])
+        rows = where.get_indexer(pd.MultiIndex.from_arrays([pd.Index(a_t).astype(str), s_t]))
+    try:
+        run._report_limits_rows = (limits, t, rows)
+    except AttributeError:  # a run that takes no new attributes: compute again next time
+        pass
+    return rows
+
+
+def permitted_at(run, crit, pos) -> np.ndarray:
+    """Permitted value of ``crit`` at segment-table rows ``pos``, from ``run.limits_table``.
 
     Parameters
     ----------
@@ -97,26 +127,33 @@ def permitted_at(run, crit, asset_ids, segment_index) -> np.ndarray:
         The run.
     crit : corridor.limits.limit_sets.Criterion
         The criterion.
-    asset_ids, segment_index : array_like
-        Keys of the segments.
+    pos : array_like of int
+        Positions in ``run.segment_table``.
 
     Returns
     -------
     ndarray of float
         NaN where the run has no such table, column or segment.
     """
-    n = len(asset_ids)
+    pos = np.asarray(pos, dtype=np.intp)
     limits = getattr(run, "limits_table", None)
     col = f"permitted_{crit.name}"
-    if limits is None or col not in limits or n == 0:
-        return np.full(n, np.nan)
-    where = pd.MultiIndex.from_arrays([limits["asset_id"].astype(str),
-                                       limits["segment_index"].to_numpy(np.int64)])
-    want = pd.MultiIndex.from_arrays([pd.Index(np.asarray(asset_ids, dtype=object)).astype(str),
-                                      np.asarray(segment_index, np.int64)])
-    pos = where.get_indexer(want)
+    rows = _limits_rows(run)
+    if limits is None or col not in limits or rows is None or len(pos) == 0:
+        return np.full(len(pos), np.nan)
+    r = rows[pos]
     values = limits[col].to_numpy(float)
-    return np.where(pos >= 0, values[np.maximum(pos, 0)], np.nan)
+    return np.where(r >= 0, values[np.maximum(r, 0)], np.nan)
+
+
+def _permitted_by_key(run, crit, rows: pd.DataFrame) -> np.ndarray:
+    t = run.segment_table
+    key = pd.MultiIndex.from_arrays([t["asset_id"].astype(str),
+                                     t["segment_index"].to_numpy(np.int64)])
+    pos = key.get_indexer(pd.MultiIndex.from_arrays([rows["asset_id"].astype(str),
+                                                     rows["segment_index"].to_numpy(np.int64)]))
+    out = permitted_at(run, crit, np.maximum(pos, 0))
+    return np.where(pos >= 0, out, np.nan)
 
 
 def deciding_rows(run, pos, table=None, labels=None) -> pd.DataFrame:
@@ -166,8 +203,10 @@ def deciding_rows(run, pos, table=None, labels=None) -> pd.DataFrame:
         s = sub.iloc[rows]
         ratio = (s[f"ratio_{c.name}"].to_numpy(float) if f"ratio_{c.name}" in s
                  else s["utilization"].to_numpy(float))
-        limit = permitted_at(run, c, s["asset_id"].to_numpy(dtype=object),
-                             s["segment_index"].to_numpy(np.int64))
+        if table is None:
+            limit = permitted_at(run, c, pos[rows])
+        else:  # another table: by asset and segment index
+            limit = _permitted_by_key(run, c, s)
         if c.quantity in s:
             value = np.abs(s[c.quantity].to_numpy(float))
         else:  # a quantity derived in the assess step: the ratio times the permitted value

@@ -31,7 +31,12 @@ from corridor.io.styles import (
     utilization_bands,
 )
 from corridor.limits.limit_sets import HAZARD_CLASSES
-from corridor.report.deciding import criterion_of, plain_criterion, quantity_title
+from corridor.report.deciding import (
+    criterion_of,
+    permitted_at,
+    plain_criterion,
+    quantity_title,
+)
 from corridor.report.html import MAP_LABELS, PROFILE_POINTS, RASTER_ABOVE, fmt_num, unit_of
 
 log = logging.getLogger(__name__)
@@ -285,25 +290,19 @@ def _governing_values(run, crit, idx: np.ndarray):
         return None, None
     t = run.segment_table
     sub = t.iloc[idx]
-    q = (np.abs(sub[crit.quantity].to_numpy(float)) if crit.quantity in t else None)
-    limits = getattr(run, "limits_table", None)
-    col = f"permitted_{crit.name}"
-    if limits is not None and col in limits:
-        where = pd.MultiIndex.from_arrays([limits["asset_id"].astype(str),
-                                           limits["segment_index"].to_numpy(np.int64)])
-        want = pd.MultiIndex.from_arrays([sub["asset_id"].astype(str),
-                                          sub["segment_index"].to_numpy(np.int64)])
-        pos = where.get_indexer(want)
-        permitted = np.where(pos >= 0, limits[col].to_numpy(float)[np.maximum(pos, 0)], np.nan)
-        return q, permitted
     ratio_col = f"ratio_{crit.name}"
-    if q is not None and ratio_col in t:
-        r = sub[ratio_col].to_numpy(float)
+    r = sub[ratio_col].to_numpy(float) if ratio_col in t else None
+    permitted = permitted_at(run, crit, idx)
+    if crit.quantity in t:
+        q = np.abs(sub[crit.quantity].to_numpy(float))
+    elif r is not None:  # a quantity derived in the assess step: ratio times permitted
+        q = r * permitted
+    else:
+        return None, None
+    if not np.isfinite(permitted).any() and r is not None:
         ok = np.isfinite(r) & (r > 0)
-        permitted = np.full(len(idx), np.nan)
         np.divide(q, r, out=permitted, where=ok)
-        return q, permitted
-    return None, None
+    return q, permitted
 
 
 def _after_grounding(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | None):
