@@ -366,9 +366,9 @@ def profile_plot(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | N
         series = [vn, vf]
         if after is not None:
             ax.plot(xs, an, color=_NORMAL_COLOUR, lw=0.9, alpha=0.55, ls=(0, (4, 1.5)),
-                    label=_wrap("|V| under normal load, with the proposed grounds"))
+                    label="|V| normal load, with proposed grounds")
             ax.plot(xs, af, color=_FAULT_COLOUR, lw=0.9, alpha=0.55, ls=(0, (4, 1.5)),
-                    label=_wrap("|V| during earth fault, with the proposed grounds"))
+                    label="|V| earth fault, with proposed grounds")
             series += [an, af]
         if is_voltage and crit is not None:
             if extra is not None:
