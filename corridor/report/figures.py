@@ -335,8 +335,9 @@ def profile_plot(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | N
     q_name = crit.quantity if crit is not None else ""
     q_title = quantity_title(q_name) if q_name else ""
     clearing = t["clearing_time_s"].to_numpy(float)[idx] if "clearing_time_s" in t else None
-    t_worst = (float(np.nanmax(clearing)) if clearing is not None and np.isfinite(clearing).any()
-               else None)
+    finite = clearing[np.isfinite(clearing)] if clearing is not None else np.zeros(0)
+    # one clearing time along the asset: name it; several: "at the clearing time"
+    t_worst = float(finite[0]) if len(finite) and np.all(finite == finite[0]) else None
     limit_label = _wrap("limit: " + plain_criterion(run, asset.get("governing", ""), t_worst))
     q_vals, permitted = _governing_values(run, crit, idx)
     is_voltage = unit_of(q_name) == "V" or q_name.endswith("_v")
@@ -383,7 +384,7 @@ def profile_plot(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | N
         if len(vals) and vals.max() / max(vals.min(), 1e-300) > 100.0:
             ax.set_yscale("log")
             _quiet_log_axis(ax.yaxis)
-        ax.set_ylabel("voltage to remote earth [V]")
+        ax.set_ylabel("voltage [V]")
         ax.grid(True, which="major", color="#e5e5e5", lw=0.6)
         ax2 = ax.twinx()
         ax2.spines["right"].set_visible(True)

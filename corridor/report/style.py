@@ -67,6 +67,7 @@ footer{color:var(--muted);font-size:12px;margin-top:36px;border-top:1px solid va
  tr,figure,dl.facts{break-inside:avoid}
  caption{break-after:avoid}
  figure svg{max-width:100%;max-height:170mm;width:auto}
+ figure.profile svg{max-height:82mm}
  figcaption{font-size:8pt}
  footer{font-size:8pt}
 }
