@@ -104,6 +104,9 @@ def test_work_list_has_every_site_worst_first_with_its_deciding_value(demo_run, 
                                                                 abs=5e-4 * max(
                                                                     1, site["chainage_m"] / 1e3))
         assert ("UNRESOLVED" in r[col["Unresolved / notes"]]) == bool(site["unresolved"])
+        coords = r[col["Coordinates [m] (lat, lon)"]]
+        assert f"{site['x']:.1f} E" in coords and f"{site['y']:.1f} N" in coords
+        assert f"{site['lat']:.5f}°, {site['lon']:.5f}°" in coords
         assert set(r[col["Power line ids"]].replace(" ", "").split(";")) == set(
             str(site["line_ids"]).split(";"))
         if np.isfinite(site["ground_resistance_ohm"]):
@@ -214,3 +217,13 @@ def test_criteria_table_and_values_to_verify(demo_run, text):
     # the defaults the run used are listed there too
     assert f"{demo_run.config.run.default_soil_resistivity_ohm_m:g} Ω·m" in assumptions
     assert "Clearing time 0.5 s" in assumptions  # config/demo.toml [line_defaults]
+
+
+def test_work_list_says_when_no_site_is_proposed(demo_run, tmp_path):
+    import copy
+
+    run = copy.copy(demo_run)
+    run.grounding_sites = demo_run.grounding_sites.iloc[:0]
+    run.sites = None
+    section = _section(write_report(run, tmp_path).read_text(encoding="utf-8"), "worklist")
+    assert "No site proposed" in section and "<table" not in section

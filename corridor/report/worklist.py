@@ -76,6 +76,19 @@ def _after_values(run, pos: np.ndarray, d: pd.DataFrame, labels) -> np.ndarray:
     return out
 
 
+def _coords(site: pd.Series) -> str:
+    """Easting, northing and latitude, longitude of a site (HTML), "–" where missing."""
+    def num(key, fmt):
+        try:
+            v = float(site.get(key, np.nan))
+        except (TypeError, ValueError):
+            return "–"
+        return format(v, fmt) if np.isfinite(v) else "–"
+
+    return (f"{num('x', '.1f')} E<br>{num('y', '.1f')} N<br><span class='small'>"
+            f"{num('lat', '.5f')}°, {num('lon', '.5f')}°</span>")
+
+
 def worklist_section(run) -> str:
     """The grounding work list: every proposed site, worst first."""
     parts = ['<section id="worklist"><h2>Grounding work list</h2>']
@@ -114,8 +127,7 @@ def worklist_section(run) -> str:
             "site": f"<b>{esc(s['site_id'])}</b>",
             "asset": f"{esc(s['asset_id'])}<br><span class='small'>{esc(s['asset_kind'])}</span>",
             "chainage": fmt_num(float(s["chainage_m"]) / 1000.0, 4),
-            "coords": (f"{float(s['x']):.1f} E<br>{float(s['y']):.1f} N<br><span class='small'>"
-                       f"{float(s['lat']):.5f}°, {float(s['lon']):.5f}°</span>"),
+            "coords": _coords(s),
             "remedy": esc(s["remedy"]),
             "criterion": esc(before.at[i, "criterion"]),
             "before": fmt_value(before.at[i, "value"], u),
