@@ -22,6 +22,7 @@ import pytest
 
 from corridor.config import load_config
 from corridor.io.outputs import SAFETY_CAUTION
+from corridor.limits.limit_sets import QUANTITY_TITLES
 from corridor.pipeline import run_screening
 from corridor.report import write_report
 from corridor.steps import asset_stages, run_stages
@@ -34,8 +35,8 @@ needs_chromium = pytest.mark.skipif(
     CHROMIUM is None, reason="headless Chromium is not installed (Debian package chromium);"
                              " .ci/run installs it")
 
-SECTIONS = ("summary", "changes", "map", "worst-assets", "worst-exposures", "worst-segments",
-            "profiles", "rejected", "defaults", "limits", "assumptions")
+SECTIONS = ("worklist", "worst-assets", "summary", "changes", "map", "worst-exposures",
+            "worst-segments", "profiles", "rejected", "defaults", "limits", "assumptions")
 
 
 @pytest.fixture(scope="module")
@@ -211,7 +212,13 @@ def test_not_assessed_criteria_are_loud(demo_run, tmp_path):
     banner = banner[:banner.index("</div>")]
     assert text.index('id="not-assessed"') < text.index('id="summary"')
     assert "did NOT pass" in banner
-    assert row["label"] in banner and html.escape(row["reason"]) in banner
+    # the criterion by its plain name from the limit set, never its internal id
+    name = demo_run.limit_set["ac_corrosion_ratio"].plain_name()
+    assert html.escape(name) in banner and row["label"] not in banner
+    # the reason, its quantity named in words (the limit set's title), the input field kept
+    assert "iso18086_density_ratio_with_dc" not in banner
+    assert html.escape(QUANTITY_TITLES["iso18086_density_ratio_with_dc"]) in banner
+    assert "dc_current_density_a_per_m2" in banner
     limits = text[text.index('id="limits"'):text.index('id="assumptions"')]
     assert limits.count("NOT ASSESSED") == 1
 
@@ -234,6 +241,7 @@ def _console_errors(stderr: str) -> list[str]:
 
 
 @pytest.mark.slow
+@pytest.mark.chromium
 @needs_chromium
 def test_chromium_renders_report_offline(report, tmp_path):
     png = tmp_path / "report.png"
@@ -255,19 +263,22 @@ def test_chromium_renders_report_offline(report, tmp_path):
 
 
 @pytest.mark.slow
+@pytest.mark.chromium
 @needs_chromium
 def test_chromium_dom_has_sections_and_figures(report, tmp_path):
     res = _chromium(["--dump-dom", report.resolve().as_uri()], tmp_path)
     assert res.returncode == 0, res.stderr[-2000:]
     dom = res.stdout
     assert not _console_errors(res.stderr)
-    for heading in ("Summary", "Overview map", "Worst assets", "Worst exposures",
-                    "Worst segments", "Profiles of assets over a limit", "Method and assumptions"):
+    for heading in ("Grounding work list", "Ranked assets", "Summary", "Overview map",
+                    "Worst exposures", "Worst segments", "Profiles of assets over a limit",
+                    "Criteria", "Assumptions"):
         assert f">{heading}</h2>" in dom, heading
     assert len(re.findall(r"<svg\b", dom)) >= 2
 
 
 @pytest.mark.slow
+@pytest.mark.chromium
 @needs_chromium
 def test_console_error_filter_catches_a_script_error(tmp_path):
     # Control for the two browser tests above: a page that throws must be caught

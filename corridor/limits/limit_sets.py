@@ -46,6 +46,7 @@ from corridor.limits.methods import (
     METHODS,
     Context,
     MethodSpec,
+    _bool,
     _choice,
     _fraction,
     _identifier,
@@ -59,6 +60,7 @@ from corridor.settings import Spec
 
 __all__ = ["BUILTIN_ASSET_KINDS", "CASES", "COMPUTED_QUANTITIES", "Context", "Criterion",
            "DEFAULT_REVIEW_THRESHOLD", "DEFAULT_SEARCH_DIR", "HAZARD_CLASSES", "LimitSet",
+           "QUANTITY_TITLES",
            "LimitSetError", "METHODS", "MethodSpec", "available_limit_sets", "evaluate",
            "load_limit_set", "not_assessed"]
 
@@ -83,11 +85,44 @@ COMPUTED_QUANTITIES = (
     "iso18086_density_ratio_with_dc",
 )
 
+#: Plain titles of the computed quantities, for reports (units follow the names).
+QUANTITY_TITLES = {
+    "v_normal_v": "Voltage to remote earth, normal load",
+    "v_fault_v": "Voltage to remote earth, earth fault",
+    "v_touch_fault_v": "Touch voltage, earth fault",
+    "v_coating_stress_v": "Voltage across the coating, earth fault",
+    "ac_density_a_per_m2": "AC current density at a 1 cm² holiday",
+    "i_normal_body_ma": "Current through a person, normal load",
+    "i_capacitive_body_ma": "Current through a person, capacitive coupling",
+    "i_capacitive_short_ma": "Short-circuit current, capacitive coupling",
+    "v_capacitive_open_v": "Open-circuit voltage, capacitive coupling",
+    "emf_section_normal_v": "Longitudinal EMF between grounded ends, normal load",
+    "emf_section_fault_v": "Longitudinal EMF between grounded ends, earth fault",
+    "emf_normal_v": "Longitudinal EMF, normal load",
+    "emf_fault_v": "Longitudinal EMF, earth fault",
+    "v_step_fault_v": "Step voltage beside a faulted tower, earth fault",
+    "iso18086_density_ratio": "ISO 18086 current-density ratio",
+    "iso18086_density_ratio_with_dc": "ISO 18086 current-density ratio with the DC density",
+}
+
 #: Directory of the shipped limit sets: package data (``corridor/data/limits``),
 #: so that an installed wheel carries them.
 DEFAULT_SEARCH_DIR = Path(__file__).resolve().parents[1] / "data" / "limits"
 
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_]*$")
+#: ``{name}`` in a criterion's title.
+_PLACEHOLDER = re.compile(r"\{([a-z_][a-z0-9_]*)\}")
+
+
+def _fill(values: Mapping[str, Any], key: str) -> str:
+    v = values.get(key)
+    if v is None:
+        return "{" + key + "}"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, int | float):
+        return f"{float(v):g}"
+    return str(v)
 
 
 class LimitSetError(ConfigError):
@@ -111,6 +146,11 @@ def _common_keys(asset_kinds: tuple[str, ...]) -> dict[str, Spec]:
         "description": _p(_string, "", dtype="str"),
         "source": _p(_string, "", dtype="str"),
         "needs": _p(_names, (), dtype="str_list"),
+        "title": _p(_string, "", dtype="str", doc="Plain-language name for reports."),
+        "formula": _p(_string, "", dtype="str", doc="The check as a formula, plain text."),
+        "edition": _p(_string, "", dtype="str", doc="Edition of the source followed."),
+        "to_verify": _p(_bool, False, dtype="bool",
+                        doc="true: the value is recalled, not read from the standard's text."),
     }
 
 
@@ -142,6 +182,18 @@ class Criterion:
     needs : tuple of str
         Inputs the quantity needs that a run may not have (``needs`` in the
         file); empty when the screening always computes the quantity.
+    title : str
+        Plain-language name for reports, e.g. ``"Touch voltage during earth
+        fault (IEEE Std 80, {body_weight_kg} kg, {clearing_time})"``; ``{p}``
+        is replaced by parameter ``p``, ``{clearing_time}`` by the clearing
+        time (see :meth:`plain_name`).
+    formula : str
+        The check as a plain-text formula.
+    edition : str
+        Edition of the source the value follows, e.g. ``"IEEE Std 80-2013"``.
+    to_verify : bool
+        True where the value was recalled rather than read from the
+        standard's text: a report lists it as a value to be verified.
     """
 
     name: str
@@ -153,6 +205,52 @@ class Criterion:
     description: str = ""
     source: str = ""
     needs: tuple[str, ...] = ()
+    title: str = ""
+    formula: str = ""
+    edition: str = ""
+    to_verify: bool = False
+
+    def plain_name(self, clearing_time_s: float | None = None) -> str:
+        """The criterion's plain-language name, parameters filled in.
+
+        Parameters
+        ----------
+        clearing_time_s : float, optional
+            Fault clearing time the value was read at [s]; without it
+            ``{clearing_time}`` reads "at the clearing time".
+
+        Returns
+        -------
+        str
+            ``title`` with ``{parameter}`` and ``{clearing_time}`` filled in;
+            the description, else the name, where the file gives no title.
+        """
+        text = self.title or self.description or self.name.replace("_", " ")
+        if clearing_time_s is not None and np.isfinite(clearing_time_s):
+            t_text = f"{float(clearing_time_s):g} s"
+        else:
+            t_text = "at the clearing time"
+        values = {**self.params, "clearing_time": t_text}
+        return _PLACEHOLDER.sub(lambda m: _fill(values, m.group(1)), text)
+
+    @property
+    def uses_clearing_time(self) -> bool:
+        """True where the permitted value depends on the fault clearing time."""
+        return METHODS[self.method].uses_clearing_time
+
+    def limit_text(self, unit: str = "") -> str:
+        """The permitted value in words (value, table or formula with constants).
+
+        Parameters
+        ----------
+        unit : str, optional
+            Unit of the judged quantity, e.g. ``"V"``.
+
+        Returns
+        -------
+        str
+        """
+        return METHODS[self.method].limit_text(self.params, unit)
 
     @property
     def computed(self) -> bool:
@@ -400,12 +498,21 @@ def _validate(raw, path, override_paths, asset_kinds):
                     " needs, e.g. needs = [\"dc_current_density_a_per_m2\"] (the run then"
                     " reports it as not assessed)")
                 continue
+            unknown = [m for m in _PLACEHOLDER.findall(common["title"])
+                       if m != "clearing_time" and m not in params]
+            if unknown:
+                problems.append(
+                    f"{where(*key, 'title')}: {{{unknown[0]}}} is neither a parameter of"
+                    f" method {method!r} ({', '.join(sorted(params)) or 'none'}) nor"
+                    " {clearing_time}")
+                continue
             criteria.append(Criterion(
                 name=cname, applies_to=common["applies_to"], case=common["case"],
                 quantity=common["quantity"], method=common["method"],
                 parameters=tuple(sorted(params.items())),
                 description=common["description"], source=common["source"],
-                needs=common["needs"]))
+                needs=common["needs"], title=common["title"], formula=common["formula"],
+                edition=common["edition"], to_verify=common["to_verify"]))
 
     # Unknown keys were reported twice (once per spec pass) when both passes saw
     # them; keep each message once, in order.

@@ -210,13 +210,85 @@ def _permitted_by_category(p, ctx):
     return out
 
 
+def _num(v: float, unit: str) -> str:
+    return f"{float(v):g} {unit}".rstrip() if unit and unit != "-" else f"{float(v):g}"
+
+
+def _text_constant(p, unit):
+    return _num(p["value"], unit)
+
+
+def _text_table(p, unit):
+    d, v = p["table_duration_s"], p["table_value"]
+    points = "; ".join(f"{_num(b, unit)} at {a:g} s" for a, b in zip(d, v, strict=True))
+    return f"read at the clearing time from {len(d)} points: {points}"
+
+
+def _text_ieee80(kind):
+    def text(p, unit):
+        feet = "1.5" if kind == "touch" else "6"
+        k = crit.IEEE80_K_BY_BODY_WEIGHT_KG[int(p["body_weight_kg"])]
+        ground = (f"a {p['surface_thickness_m']:g} m surface layer of"
+                  f" {p['surface_resistivity_ohm_m']:g} Ω·m" if p["surface_layer"]
+                  else "native soil (Cs = 1, ρs = soil resistivity)")
+        return (f"(1000 Ω + {feet}·Cs·ρs)·{k:g}/√t V for {p['body_weight_kg']:g} kg, standing"
+                f" on {ground}; t the clearing time [s]")
+    return text
+
+
+def _text_itu(p, unit):
+    return (f"{_num(p['normal_limit_v'], 'V')}; {_num(p['high_reliability_limit_v'], 'V')}"
+            " on a high-reliability line cleared within"
+            f" {p['high_reliability_max_clearing_s']:g} s")
+
+
+def _text_by_category(p, unit):
+    table = dict(p["value_by_category"])
+    items = ", ".join(f"{k}: {_num(v, unit)}" for k, v in sorted(table.items()))
+    return (f"by {p['category'].replace('_', ' ')}: {items} (an unknown one takes"
+            f" {_num(min(table.values()), unit)})")
+
+
 @dataclass(frozen=True)
 class MethodSpec:
-    """A criterion method: its parameters and its permitted-value function."""
+    """A criterion method: its parameters and its permitted-value function.
+
+    Parameters
+    ----------
+    params : Mapping of str to Spec
+        The method's parameters.
+    permitted : callable
+        ``permitted(params, ctx)``: permitted value per segment.
+    doc : str
+        One line on the method.
+    text : callable, optional
+        ``text(params, unit)``: the permitted value in words, for reports
+        (e.g. ``"15 V"``, or the formula with its constants).
+    uses_clearing_time : bool
+        True where the permitted value depends on the fault clearing time.
+    """
 
     params: Mapping[str, Spec]
     permitted: Callable[[Mapping[str, Any], Context], np.ndarray]
     doc: str = ""
+    text: Callable[[Mapping[str, Any], str], str] | None = None
+    uses_clearing_time: bool = False
+
+    def limit_text(self, params: Mapping[str, Any], unit: str = "") -> str:
+        """The permitted value in words, for reports.
+
+        Parameters
+        ----------
+        params : Mapping
+            The criterion's parameters (defaults filled in).
+        unit : str, optional
+            Unit of the judged quantity, e.g. ``"V"``.
+
+        Returns
+        -------
+        str
+        """
+        return self.text(params, unit) if self.text is not None else self.doc
 
 
 _IEEE80_PARAMS = {
@@ -234,18 +306,21 @@ _IEEE80_PARAMS = {
 METHODS: Mapping[str, MethodSpec] = {
     "constant": MethodSpec(
         {"value": _p(_positive, doc="Permitted value, in the quantity's unit.")},
-        _permitted_constant, "One permitted value everywhere."),
+        _permitted_constant, "One permitted value everywhere.", _text_constant),
     "table_vs_time": MethodSpec(
         {"table_duration_s": _p(_increasing_list,
                                        doc="Durations [s], strictly increasing."),
          "table_value": _p(_positive_list,
                                   doc="Permitted values at those durations, quantity's unit.")},
         _permitted_table,
-        "Published value-vs-duration table read at the clearing time, log-log interpolated."),
+        "Published value-vs-duration table read at the clearing time, log-log interpolated.",
+        _text_table, uses_clearing_time=True),
     "ieee80_touch": MethodSpec(_IEEE80_PARAMS, _permitted_ieee80_touch,
-                               "IEEE Std 80 tolerable touch voltage at the clearing time."),
+                               "IEEE Std 80 tolerable touch voltage at the clearing time.",
+                               _text_ieee80("touch"), uses_clearing_time=True),
     "ieee80_step": MethodSpec(_IEEE80_PARAMS, _permitted_ieee80_step,
-                              "IEEE Std 80 tolerable step voltage at the clearing time."),
+                              "IEEE Std 80 tolerable step voltage at the clearing time.",
+                              _text_ieee80("step"), uses_clearing_time=True),
     "itu_telecom_fault": MethodSpec(
         {"normal_limit_v": _p(_positive, 430.0, "Ordinary lines [V]."),
          "high_reliability_limit_v": _p(_positive, 650.0,
@@ -253,14 +328,16 @@ METHODS: Mapping[str, MethodSpec] = {
          "high_reliability_max_clearing_s": _p(_positive, 0.2,
                                                       "Longest clearing time for the higher "
                                                       "limit [s], inclusive.")},
-        _permitted_itu, "ITU-T Directives fault EMF limit."),
+        _permitted_itu, "ITU-T Directives fault EMF limit.", _text_itu,
+        uses_clearing_time=True),
     "constant_by_category": MethodSpec(
         {"category": _p(_identifier,
                                doc="Name of the per-segment label, e.g. 'coating_type'."),
          "value_by_category": _p(_value_by_category,
                                         doc="Table label = permitted value; an unknown or "
                                             "missing label takes the smallest value.")},
-        _permitted_by_category, "Permitted value chosen by a per-segment label."),
+        _permitted_by_category, "Permitted value chosen by a per-segment label.",
+        _text_by_category),
 }
 
 

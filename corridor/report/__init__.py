@@ -4,14 +4,21 @@
 drawn with matplotlib from the run's own geometries (no web tiles, fonts or
 scripts). It opens with a banner for every rejected power line (the results
 are incomplete near it) and one for the limit-set criteria the run could not
-assess (they never count as passing). Sections: safety caution, summary
-(inputs with date and SHA-256 prefix, CRS, limit set, counts by hazard
-class, worst assets, change since the previous run), overview map, ranked
-tables of the worst assets, exposures and segments, a |V|-along-chainage profile for each asset that
-exceeds a limit (capped), rejected input features (power lines, assets,
-others), the defaults used per field (with the feature ids for the
-safety-relevant fields), the limit set's criteria (with what was not
-assessed), and the method's assumptions.
+assess (they never count as passing), then the safety caution. Sections:
+the grounding work list (every proposed site, worst first), the ranked
+assets, the summary (inputs with date and SHA-256 prefix, CRS, limit set,
+counts by hazard class, change since the previous run), overview map, worst
+exposures and segments, a profile along chainage for each asset that exceeds
+a limit (capped), rejected input features, the defaults used per field (with
+the feature ids for the safety-relevant fields), the criteria (plain name,
+limit value, formula, source, edition; what was not assessed) and the
+assumptions (values to be verified, method, defaults and settings used).
+
+Every table and plot shows the deciding quantity: the value compared with
+the limit, the limit and their ratio, under the criterion's plain name
+(:mod:`corridor.report.deciding`). The report presents the run's tables; it
+never assesses again. A print stylesheet fits A4 and Letter landscape
+(:mod:`corridor.report.style`).
 
 Large runs stay small and fast: map geometries are simplified to well below
 the drawing resolution and drawn as one ``LineCollection`` per layer
@@ -32,8 +39,10 @@ import pandas as pd
 from corridor import __version__
 from corridor.io.outputs import SAFETY_CAUTION
 from corridor.limits.limit_sets import DEFAULT_REVIEW_THRESHOLD
-from corridor.report.figures import criterion_of, overview_map, profile_plot
+from corridor.report.deciding import deciding_cells, deciding_rows, plain_criterion
+from corridor.report.figures import overview_map, profile_plot
 from corridor.report.html import MAX_PROFILES, MAX_ROWS, SEGMENTS_PER_ASSET, esc, html_table
+from corridor.report.limits_section import assumptions_section, criteria_section
 from corridor.report.sections import (
     defaults_section,
     not_assessed_banner,
@@ -43,62 +52,10 @@ from corridor.report.sections import (
     summary_section,
     worst_exposures,
 )
+from corridor.report.style import CSS
+from corridor.report.worklist import ranked_assets_section, worklist_section
 
 log = logging.getLogger(__name__)
-
-_ASSUMPTIONS = [
-    "Steady-state phasors at the run frequency; |V| is the magnitude to remote earth.",
-    "Earth-return coupling from Carson's equations (Sunde's surface form for buried assets),"
-    " in homogeneous or two-layer soil (Sunde's layered kernel) per segment from the soil"
-    " layer or the default; holiday density, foot resistance, electrodes and earth potential"
-    " use the local (or top-layer) resistivity.",
-    "Oblique exposures are split until the end separations differ by at most a factor of 3,"
-    " each section taking the geometric-mean separation (ITU-T Directives practice).",
-    "One earth fault at a time; each segment takes its worst case. Earth-wire screening is"
-    " computed from the tower geometry.",
-    "Touch voltage during a fault adds |V| of the asset and the earth potential rise near the"
-    " faulted towers (hemisphere footing) as magnitudes: conservative, the phase is unknown.",
-    "Assets respond as transmission lines with distributed sources; terminations and grounds"
-    " as given, or the asset kind's defaults.",
-    "Capacitive (electric-field) coupling only for above-ground assets.",
-    "A ratio of 1 or more to a limit of the chosen set exceeds it; from the review threshold"
-    " upwards a segment is flagged for review. Limit values follow the editions named above.",
-]
-
-_CSS = """
-:root{--ink:#1f2328;--muted:#5b6470;--line:#d8dde3;--bg:#ffffff;--soft:#f5f7f9}
-*{box-sizing:border-box}
-body{margin:0;font:14px/1.45 system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",
- "Liberation Sans",Arial,sans-serif;color:var(--ink);background:var(--bg)}
-main{max-width:1180px;margin:0 auto;padding:18px 28px 48px}
-h1{font-size:24px;margin:6px 0 2px}h2{font-size:19px;margin:30px 0 8px;padding-bottom:4px;
- border-bottom:2px solid var(--line)}h3{font-size:15px;margin:18px 0 6px}
-.sub{color:var(--muted);margin:0 0 12px}
-.caution{border:3px solid #b8322f;background:#fff4f2;padding:12px 16px;border-radius:6px;
- font-size:15px;margin:12px 0 8px}
-.caution strong{color:#8a1f1f;text-transform:uppercase;letter-spacing:.04em;margin-right:6px}
-.alert{border:4px solid #8a1f1f;background:#ffe3de;padding:12px 16px;border-radius:6px;
- font-size:15px;margin:12px 0 8px}
-.alert strong{display:block;color:#8a1f1f;font-size:18px;text-transform:uppercase;
- letter-spacing:.04em;margin-bottom:4px}
-.alert ul{margin:6px 0 0 18px;padding:0}
-dl.facts{display:grid;grid-template-columns:max-content 1fr;gap:3px 16px;margin:8px 0}
-dl.facts dt{color:var(--muted)}dl.facts dd{margin:0}
-.tablewrap{overflow-x:auto;margin:6px 0 12px}
-table{border-collapse:collapse;font-size:12.5px;min-width:40%}
-caption{text-align:left;color:var(--muted);padding:4px 0}
-th,td{border-bottom:1px solid var(--line);padding:4px 8px;text-align:left;vertical-align:top}
-td{white-space:nowrap}
-th{background:var(--soft);font-weight:600}td.n{text-align:right;font-variant-numeric:tabular-nums}
-.badge{display:inline-block;padding:0 7px;border-radius:9px;font-size:12px;color:#fff}
-.badge.clear{background:#4f9a6b}.badge.review{background:#e2a72e;color:#1f1f1f}
-.badge.exceeds{background:#b8322f}
-figure{margin:10px 0 20px}figure svg{max-width:100%;height:auto;display:block}
-figcaption{color:var(--muted);font-size:12.5px;margin-top:4px}
-code{font-size:12px;background:var(--soft);padding:0 3px;border-radius:3px}
-footer{color:var(--muted);font-size:12px;margin-top:36px;border-top:1px solid var(--line);
- padding-top:8px}
-"""
 
 
 def write_report(run, out_dir: Path, previous: dict | None = None,
@@ -149,57 +106,65 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
             f"{esc(Path(str(run.config.path)).name)} · written {now} · corridor {__version__}"
             "</p></header>",
             rejected_lines_banner(run),
-            not_assessed_banner(missing),
+            not_assessed_banner(missing, run),
             f'<div class="caution" role="alert"><strong>Caution</strong>{esc(SAFETY_CAUTION)}'
             "</div>",
+            worklist_section(run),
+            ranked_assets_section(run, assets_df, max_rows),
             summary_section(run, out_dir, assets_df, previous, thr, inputs)]
 
     body.append('<section id="map"><h2>Overview map</h2><figure>')
     body.append(overview_map(run, thr))
     body.append(f"<figcaption>Power lines (dashed, by voltage), asset segments coloured by"
-                f" utilization in the clear / review / exceeds bands (review from {thr:g},"
-                f" exceeds from 1), grounding sites where proposed. Grid north and scale of"
-                f" {esc(run.inputs.crs.name)}.</figcaption></figure></section>")
-
-    body.append('<section id="worst-assets"><h2>Worst assets</h2>')
-    if assets_df is not None:
-        cols = ["asset_rank", "asset_id", "asset_kind", "worst_utilization", "hazard_class",
-                "governing", "worst_chainage_m", "worst_v_normal_v", "worst_v_fault_v",
-                "worst_i_capacitive_short_ma", "length_over_limit_m", "length_m", "line_ids"]
-        body.append(html_table(assets_df.head(max_rows), cols,
-                           f"{min(max_rows, len(assets_df))} of {len(assets_df)} assets, worst"
-                           " first", km=("worst_chainage_m", "length_over_limit_m", "length_m")))
-    else:
-        body.append("<p>No assets table in this run.</p>")
-    body.append("</section>")
+                f" their ratio to the limit in the clear / review / exceeds bands (review from"
+                f" {thr:g}, exceeds from 1), grounding sites where proposed. Grid north and"
+                f" scale of {esc(run.inputs.crs.name)}.</figcaption></figure></section>")
 
     ex = worst_exposures(run)
     body.append('<section id="worst-exposures"><h2>Worst exposures</h2>')
-    body.append(html_table(ex.head(max_rows), [
-        "exposure_id", "asset_id", "asset_kind", "line_id", "line_voltage_kv",
-        "worst_utilization", "start_chainage_m", "end_chainage_m", "parallel_length_m",
-        "min_separation_m", "equivalent_separation_m", "crossings"],
+    ex_head = ex.head(max_rows).reset_index(drop=True)
+    ex_cols = ["exposure_id", "asset_id", "asset_kind", "line_id", "line_voltage_kv"]
+    if "worst_position" in ex_head and len(ex_head):
+        pos = ex_head["worst_position"].to_numpy(float)
+        ok = np.isfinite(pos)
+        d = deciding_rows(run, np.where(ok, pos, 0).astype(np.intp))
+        d.loc[~ok, ["value", "limit", "ratio"]] = np.nan
+        d.loc[~ok, "criterion"] = "–"
+        cells = deciding_cells(d)
+        ex_head = pd.concat([ex_head, cells], axis=1)
+        ex_cols += list(cells.columns)
+    ex_cols += ["start_chainage_m", "end_chainage_m", "parallel_length_m", "min_separation_m",
+                "equivalent_separation_m", "crossings"]
+    body.append(html_table(
+        ex_head, ex_cols,
         f"{min(max_rows, len(ex))} of {len(ex)} exposures (asset, power line, continuous run),"
-        " by the worst utilization along them",
-        km=("start_chainage_m", "end_chainage_m")))
+        " by the worst ratio to a limit along them; the deciding value at that worst segment",
+        km=("start_chainage_m", "end_chainage_m"),
+        raw=("Deciding criterion", "Deciding value", "Limit", "Ratio to limit"),
+        numeric=("Deciding value", "Limit", "Ratio to limit")))
     body.append("</section>")
 
     body.append('<section id="worst-segments"><h2>Worst segments</h2>')
     if "rank" in t:
         # only the worst rows are needed: rank a bounded head, not the whole table
         cols = [c for c in ("rank", "asset_id", "asset_kind", "chainage_m", "separation_m",
-                            "line_id", "v_normal_v", "v_fault_v", "utilization", "governing",
-                            "hazard_class") if c in t.columns]
+                            "line_id", "fault_line_id", "hazard_class") if c in t.columns]
         head = min(len(t), max_rows * SEGMENTS_PER_ASSET * 50)
         order = np.argsort(t["rank"].to_numpy(), kind="stable")[:head]
         ranked = pd.DataFrame(t[cols].iloc[order])
+        ranked["_pos"] = order
         top = ranked[ranked.groupby("asset_id", sort=False).cumcount() < SEGMENTS_PER_ASSET]
-        top = top.head(max_rows)
-        body.append(html_table(top, ["rank", "asset_id", "asset_kind", "chainage_m", "separation_m",
-                                 "line_id", "v_normal_v", "v_fault_v", "utilization",
-                                 "governing", "hazard_class"],
-                           f"{len(top)} of {len(t)} segments, worst first, at most"
-                           f" {SEGMENTS_PER_ASSET} per asset", km=("chainage_m",)))
+        top = top.head(max_rows).reset_index(drop=True)
+        cells = deciding_cells(deciding_rows(run, top["_pos"].to_numpy(np.intp)))
+        top = pd.concat([top, cells], axis=1)
+        body.append(html_table(
+            top, ["rank", "asset_id", "asset_kind", "chainage_m", "separation_m", "line_id",
+                  "fault_line_id", *cells.columns, "hazard_class"],
+            f"{len(top)} of {len(t)} segments, worst first, at most {SEGMENTS_PER_ASSET} per"
+            " asset", km=("chainage_m",),
+            headers={"rank": "Rank", "asset_id": "Asset", "asset_kind": "Kind",
+                     "line_id": "Nearest power line", "fault_line_id": "Faulted line"},
+            raw=tuple(cells.columns), numeric=("Deciding value", "Limit", "Ratio to limit")))
     body.append("</section>")
 
     body.append('<section id="profiles"><h2>Profiles of assets over a limit</h2>')
@@ -219,14 +184,13 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
             s_idx = site_groups.get(r["asset_id"])
             s_rows = (sites_df.iloc[s_idx] if s_idx is not None and sites_df is not None
                       else None)
-            crit = criterion_of(run, r.get("governing", ""))
-            desc = f" — {crit.description}" if crit is not None and crit.description else ""
             body.append(f'<figure class="profile" id="profile-{i + 1}">')
             body.append(profile_plot(run, r, np.asarray(idx), s_rows, f"corridor-profile-{i}"))
-            body.append(f"<figcaption>{esc(r['asset_id'])}: governing criterion"
-                        f" <code>{esc(r.get('governing', ''))}</code>{esc(desc)}; limit drawn"
-                        " from the limit set's permitted value per segment. Separation to the"
-                        " nearest power line on the right axis.</figcaption></figure>")
+            body.append(f"<figcaption>{esc(r['asset_id'])}: deciding criterion"
+                        f" {esc(plain_criterion(run, r.get('governing', '')))}. The limit line"
+                        " is the permitted value per segment from the limit set; the earth-fault"
+                        " curve is the worst over the scanned fault positions. Separation to"
+                        " the nearest power line on the right axis.</figcaption></figure>")
         left_out = len(over) - len(shown)
         if left_out > 0:
             body.append(f"<p class='sub'>{left_out} more assets over a limit are not plotted"
@@ -235,32 +199,14 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
 
     body.append(rejected_section(run))
     body.append(defaults_section(run))
-
-    if ls is not None:
-        unjudged = {r.get("criterion"): r for r in missing}
-        crows = pd.DataFrame([{"criterion": c.name, "case": c.case, "quantity": c.quantity,
-                               "applies to": ", ".join(c.applies_to),
-                               "assessed": ("NOT ASSESSED" if c.name in unjudged else "yes"),
-                               "needs": ", ".join(getattr(c, "needs", ())),
-                               "source": c.source}
-                              for c in ls.criteria])
-        body.append('<section id="limits"><h2>Limit set criteria</h2>')
-        body.append(html_table(crows, list(crows.columns), f"{ls.name}: {len(crows)} criteria"))
-        body.append("</section>")
-
-    run_assumptions = list(_ASSUMPTIONS)
-    record = getattr(run, "record", None) or {}
-    if isinstance(record, dict) and record.get("normal_load_assumption"):
-        # the normal-load worst case over unknown directions and angles (docs/methods.md §8)
-        run_assumptions.insert(1, str(record["normal_load_assumption"]))
-    body.append('<section id="assumptions"><h2>Method and assumptions</h2><ul>'
-                + "".join(f"<li>{esc(a)}</li>" for a in run_assumptions) + "</ul></section>")
+    body.append(criteria_section(run, missing))
+    body.append(assumptions_section(run))
     body.append(f"<footer>{esc(SAFETY_CAUTION)}</footer>")
 
     doc = ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
            f"<title>Corridor screening report — {esc(Path(str(run.config.path)).stem)}</title>"
-           f"<style>{_CSS}</style></head><body><main>{''.join(body)}</main></body></html>\n")
+           f"<style>{CSS}</style></head><body><main>{''.join(body)}</main></body></html>\n")
     path = out_dir / "report.html"
     path.write_text(doc, encoding="utf-8")
     log.info("report written to %s (%.0f kB)", path, len(doc) / 1024)

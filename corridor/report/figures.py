@@ -6,6 +6,7 @@ from __future__ import annotations
 import io
 import logging
 import re
+import textwrap
 from typing import TYPE_CHECKING
 
 import matplotlib as mpl
@@ -30,6 +31,12 @@ from corridor.io.styles import (
     utilization_bands,
 )
 from corridor.limits.limit_sets import HAZARD_CLASSES
+from corridor.report.deciding import (
+    criterion_of,
+    permitted_at,
+    plain_criterion,
+    quantity_title,
+)
 from corridor.report.html import MAP_LABELS, PROFILE_POINTS, RASTER_ABOVE, fmt_num, unit_of
 
 log = logging.getLogger(__name__)
@@ -212,7 +219,7 @@ def overview_map(run, review_threshold: float) -> str:
             ax.add_collection(coll)
             cb = fig.colorbar(coll, cax=cax, spacing="uniform", ticks=edges[:-1])
             cb.ax.set_yticklabels([f"{e:g}" for e in edges[:-1]])
-            cb.set_label("utilization [-]  (clear · review · exceeds)")
+            cb.set_label("ratio to the limit [-]  (clear · review · exceeds)")
         if sites is not None and len(sites):
             pts = shapely.get_coordinates(shapely.centroid(sites.geometry.to_numpy()))
             ax.scatter(pts[:, 0], pts[:, 1], marker="^", s=70, c=SITE_COLOUR,
@@ -270,14 +277,6 @@ def _envelope(x, ys_max, ys_min, limit: int):
     return xm, mx, mn
 
 
-def criterion_of(run, label: str):
-    name = str(label).split(":", 1)[0]
-    for c in getattr(getattr(run, "limit_set", None), "criteria", ()):
-        if c.name == name:
-            return c
-    return None
-
-
 def _governing_values(run, crit, idx: np.ndarray):
     """Judged quantity and permitted value of one criterion on segments ``idx``.
 
@@ -291,25 +290,19 @@ def _governing_values(run, crit, idx: np.ndarray):
         return None, None
     t = run.segment_table
     sub = t.iloc[idx]
-    q = (np.abs(sub[crit.quantity].to_numpy(float)) if crit.quantity in t else None)
-    limits = getattr(run, "limits_table", None)
-    col = f"permitted_{crit.name}"
-    if limits is not None and col in limits:
-        where = pd.MultiIndex.from_arrays([limits["asset_id"].astype(str),
-                                           limits["segment_index"].to_numpy(np.int64)])
-        want = pd.MultiIndex.from_arrays([sub["asset_id"].astype(str),
-                                          sub["segment_index"].to_numpy(np.int64)])
-        pos = where.get_indexer(want)
-        permitted = np.where(pos >= 0, limits[col].to_numpy(float)[np.maximum(pos, 0)], np.nan)
-        return q, permitted
     ratio_col = f"ratio_{crit.name}"
-    if q is not None and ratio_col in t:
-        r = sub[ratio_col].to_numpy(float)
+    r = sub[ratio_col].to_numpy(float) if ratio_col in t else None
+    permitted = permitted_at(run, crit, idx)
+    if crit.quantity in t:
+        q = np.abs(sub[crit.quantity].to_numpy(float))
+    elif r is not None:  # a quantity derived in the assess step: ratio times permitted
+        q = r * permitted
+    else:
+        return None, None
+    if not np.isfinite(permitted).any() and r is not None:
         ok = np.isfinite(r) & (r > 0)
-        permitted = np.full(len(idx), np.nan)
         np.divide(q, r, out=permitted, where=ok)
-        return q, permitted
-    return None, None
+    return q, permitted
 
 
 def _after_grounding(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | None):
@@ -340,6 +333,12 @@ def profile_plot(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | N
     sep = t["separation_m"].to_numpy(float)[idx]
     crit = criterion_of(run, asset.get("governing", ""))
     q_name = crit.quantity if crit is not None else ""
+    q_title = quantity_title(q_name) if q_name else ""
+    clearing = t["clearing_time_s"].to_numpy(float)[idx] if "clearing_time_s" in t else None
+    finite = clearing[np.isfinite(clearing)] if clearing is not None else np.zeros(0)
+    # one clearing time along the asset: name it; several: "at the clearing time"
+    t_worst = float(finite[0]) if len(finite) and np.all(finite == finite[0]) else None
+    limit_label = _wrap("limit: " + plain_criterion(run, asset.get("governing", ""), t_worst))
     q_vals, permitted = _governing_values(run, crit, idx)
     is_voltage = unit_of(q_name) == "V" or q_name.endswith("_v")
     extra = q_vals if (q_vals is not None and q_name not in ("v_normal_v", "v_fault_v")) else None
@@ -347,46 +346,50 @@ def profile_plot(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | N
     qv = extra if extra is not None else np.full(len(idx), np.nan)
     after = _after_grounding(run, asset, idx, sites)
     an, af = after if after is not None else (np.full(len(idx), np.nan),) * 2
+    scanned = ("fault_position_m" in t
+               and bool(np.isfinite(t["fault_position_m"].to_numpy(float)[idx]).any()))
+    fault_label = _wrap("|V| during earth fault: worst of the scanned fault positions"
+                        if scanned else "|V| during earth fault: worst case")
     xs, (vn, vf, sep, qv, an, af), (lim,) = _envelope(x_km, [vn, vf, sep, qv, an, af], [lim],
                                                       PROFILE_POINTS)
     two_panels = extra is not None and not is_voltage
 
     with mpl.rc_context({**_RC, "svg.hashsalt": salt}):
-        fig = _figure(9.5, 4.6 if two_panels else 3.4)
+        fig = _figure(9.5, 4.6 if two_panels else 3.6)
         if two_panels:
             ax, axq = fig.subplots(2, 1, sharex=True, height_ratios=(2.2, 1.0))
-            fig.subplots_adjust(left=0.08, right=0.68, top=0.93, bottom=0.10, hspace=0.12)
+            fig.subplots_adjust(left=0.08, right=0.64, top=0.93, bottom=0.10, hspace=0.12)
         else:
             ax, axq = fig.add_subplot(), None
-            fig.subplots_adjust(left=0.08, right=0.68, top=0.90, bottom=0.14)
-        ax.plot(xs, vn, color=_NORMAL_COLOUR, lw=1.4, label="|V| normal load")
-        ax.plot(xs, vf, color=_FAULT_COLOUR, lw=1.4, label="|V| earth fault")
+            fig.subplots_adjust(left=0.08, right=0.64, top=0.90, bottom=0.14)
+        ax.plot(xs, vn, color=_NORMAL_COLOUR, lw=1.4, label="|V| under normal load")
+        ax.plot(xs, vf, color=_FAULT_COLOUR, lw=1.4, label=fault_label)
         series = [vn, vf]
         if after is not None:
             ax.plot(xs, an, color=_NORMAL_COLOUR, lw=0.9, alpha=0.55, ls=(0, (4, 1.5)),
-                    label="|V| normal, with proposed grounds")
+                    label="|V| normal load, with proposed grounds")
             ax.plot(xs, af, color=_FAULT_COLOUR, lw=0.9, alpha=0.55, ls=(0, (4, 1.5)),
-                    label="|V| fault, with proposed grounds")
+                    label="|V| earth fault, with proposed grounds")
             series += [an, af]
         if is_voltage and crit is not None:
             if extra is not None:
                 ax.plot(xs, qv, color=_JUDGED_COLOUR, lw=1.0, ls="--",
-                        label=f"{q_name} (judged)")
+                        label=_wrap(f"{q_title}: the deciding quantity"))
                 series.append(qv)
             if np.isfinite(lim).any():
                 ax.plot(xs, lim, color=_LIMIT_COLOUR, lw=1.3, ls="-.", drawstyle="steps-mid",
-                        label=f"limit: {crit.name} [V]")
+                        label=limit_label)
                 series.append(lim)
         vals = np.concatenate([s[np.isfinite(s) & (s > 0)] for s in series])
         if len(vals) and vals.max() / max(vals.min(), 1e-300) > 100.0:
             ax.set_yscale("log")
             _quiet_log_axis(ax.yaxis)
-        ax.set_ylabel("|V| to remote earth [V]")
+        ax.set_ylabel("voltage [V]")
         ax.grid(True, which="major", color="#e5e5e5", lw=0.6)
         ax2 = ax.twinx()
         ax2.spines["right"].set_visible(True)
         ax2.plot(xs, sep, color=_SEPARATION_COLOUR, lw=0.9, ls=":",
-                 label="separation to nearest line")
+                 label="separation to the nearest power line")
         ax2.set_ylabel("separation [m]", color="#666666")
         ax2.set_ylim(bottom=0.0)
         handles = ax.get_legend_handles_labels()[0] + ax2.get_legend_handles_labels()[0]
@@ -405,31 +408,36 @@ def profile_plot(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | N
                 ax.plot(sx, vb, ls="", marker="o", ms=5, mfc="none", mec=SITE_OUTLINE)
                 ax.plot(sx, va, ls="", marker="o", ms=5, mfc=SITE_OUTLINE, mec=SITE_OUTLINE)
                 handles += [Line2D([], [], marker="o", ls="", mfc="none", mec=SITE_OUTLINE,
-                                   label="|V| before grounding"),
+                                   label="voltage at the site before its ground"),
                             Line2D([], [], marker="o", ls="", mfc=SITE_OUTLINE,
-                                   mec=SITE_OUTLINE, label="|V| after grounding")]
-        ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.13, 1.0), fontsize=8,
+                                   mec=SITE_OUTLINE, label="voltage at the site after it")]
+        ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.13, 1.0), fontsize=7.5,
                   frameon=False)
         if axq is not None:
             unit = unit_of(q_name)
             axq.plot(xs, qv, color=_FAULT_COLOUR if crit.case == "fault" else _NORMAL_COLOUR,
-                     lw=1.2, label=f"{q_name}")
+                     lw=1.2, label=_wrap(f"{q_title}: the deciding quantity"))
             if np.isfinite(lim).any():
                 axq.plot(xs, lim, color=_LIMIT_COLOUR, lw=1.3, ls="-.", drawstyle="steps-mid",
-                         label=f"limit: {crit.name}")
+                         label=limit_label)
             pos = qv[np.isfinite(qv) & (qv > 0)]
             if len(pos) and pos.max() / max(pos.min(), 1e-300) > 100.0:
                 axq.set_yscale("log")
                 _quiet_log_axis(axq.yaxis)
-            axq.set_ylabel(f"{q_name} [{unit}]" if unit else q_name)
+            axq.set_ylabel(_wrap(f"{q_title} [{unit}]" if unit else f"{q_title} [-]", 24))
             axq.grid(True, color="#e5e5e5", lw=0.6)
-            axq.legend(loc="upper left", bbox_to_anchor=(1.13, 1.0), fontsize=8, frameon=False)
-            axq.set_xlabel("chainage [km]")
+            axq.legend(loc="upper left", bbox_to_anchor=(1.13, 1.0), fontsize=7.5,
+                       frameon=False)
+            axq.set_xlabel("chainage along the asset [km]")
         else:
-            ax.set_xlabel("chainage [km]")
-        ax.set_title(f"{asset['asset_id']} ({asset.get('asset_kind', '')}) — worst utilization"
-                     f" {fmt_num(asset.get('worst_utilization', np.nan))}", loc="left")
+            ax.set_xlabel("chainage along the asset [km]")
+        ax.set_title(f"{asset['asset_id']} ({asset.get('asset_kind', '')}): worst ratio"
+                     f" {fmt_num(asset.get('worst_utilization', np.nan))} to the limit",
+                     loc="left")
         svg = _svg(fig)
     return svg
 
 
+def _wrap(text: str, width: int = 40) -> str:
+    """A legend label broken into lines of at most ``width`` characters."""
+    return textwrap.fill(text, width)

@@ -79,29 +79,58 @@ def class_badge(value) -> str:
 
 
 def html_table(frame: pd.DataFrame, columns: list[str], caption: str = "",
-           km: tuple[str, ...] = ()) -> str:
-    """An HTML table of ``columns`` (those present), numbers formatted."""
+               km: tuple[str, ...] = (), headers: dict[str, str] | None = None,
+               raw: tuple[str, ...] = (), numeric: tuple[str, ...] = ()) -> str:
+    """An HTML table of ``columns`` (those present), numbers formatted.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        The rows.
+    columns : list of str
+        Columns to show, in order; absent ones are skipped.
+    caption : str, optional
+        Caption above the table.
+    km : tuple of str, optional
+        Columns in metres shown in km.
+    headers : dict, optional
+        Header text by column (plain text); default the glossary title and unit.
+    raw : tuple of str, optional
+        Columns whose values are HTML already (escaped by the caller).
+    numeric : tuple of str, optional
+        ``raw`` columns to align as numbers.
+    """
+    headers = headers or {}
     cols = [c for c in columns if c in frame.columns]
-    head = "".join(
-        f"<th>{_header(c) if c not in km else esc(_title(c)) + ' [km]'}</th>"
-        for c in cols)
+
+    def head_of(c):
+        if c in headers:
+            return esc(headers[c])
+        return _header(c) if c not in km else esc(_title(c)) + " [km]"
+
+    head = "".join(f"<th>{head_of(c)}</th>" for c in cols)
     rows = []
     data = {c: frame[c].to_numpy() for c in cols}
     for i in range(len(frame)):
         cells = []
         for c in cols:
             v = data[c][i]
-            if c == "hazard_class":
+            if c in raw:
+                cls = ' class="n"' if c in numeric else ""
+                cells.append(f"<td{cls}>{v}</td>")
+            elif c == "hazard_class":
                 cells.append(f"<td>{class_badge(v)}</td>")
             elif c in km:
                 cells.append(f'<td class="n">{fmt_num(float(v) / 1000.0, 4)}</td>')
             elif isinstance(v, int | float | np.number) and not isinstance(v, bool | np.bool_):
                 cells.append(f'<td class="n">{fmt_num(v)}</td>')
+            elif c == "line_ids" or c.endswith("_ids"):
+                # ';'-joined ids: a break opportunity after each separator
+                ids = [esc(x) for x in str("" if v is None else v).split(";") if x]
+                cells.append(f"<td>{';<wbr> '.join(ids)}</td>")
             else:
                 cells.append(f"<td>{esc('' if v is None or v is pd.NA else v)}</td>")
         rows.append("<tr>" + "".join(cells) + "</tr>")
     cap = f"<caption>{esc(caption)}</caption>" if caption else ""
     return (f'<div class="tablewrap"><table>{cap}<thead><tr>{head}</tr></thead>'
             f"<tbody>{''.join(rows)}</tbody></table></div>")
-
-

@@ -5,13 +5,15 @@ from __future__ import annotations
 
 import json
 import logging
+import re
 from datetime import UTC, datetime
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from corridor.io.outputs import sha256_file
-from corridor.limits.limit_sets import HAZARD_CLASSES
+from corridor.limits.limit_sets import HAZARD_CLASSES, QUANTITY_TITLES
 from corridor.report.html import MAX_ROWS, class_badge, esc, fmt_num, html_table
 from corridor.schema import SAFETY_DEFAULT_FIELDS
 
@@ -82,13 +84,28 @@ def not_assessed_rows(run) -> list[dict]:
     return list(rows)
 
 
-def not_assessed_banner(rows: list[dict]) -> str:
+def not_assessed_banner(rows: list[dict], run=None) -> str:
+    """The banner of the criteria the run could not assess (plain names)."""
     if not rows:
         return ""
-    items = "".join(f"<li><code>{esc(r.get('label', r.get('criterion', '')))}</code>"
-                    f" (<code>{esc(r.get('quantity', ''))}</code>"
+    from corridor.report.deciding import plain_criterion, quantity_title
+
+    def name(r):
+        label = r.get("label", r.get("criterion", ""))
+        return plain_criterion(run, label) if run is not None else str(label)
+
+    def reason(r):
+        # the run's reason names quantities by id: the report names them in words
+        text = str(r.get("reason", ""))
+        for q in sorted({str(r.get("quantity", "")), *QUANTITY_TITLES}, key=len, reverse=True):
+            if q:
+                text = re.sub(rf"\b{re.escape(q)}\b", quantity_title(q), text)
+        return text
+
+    items = "".join(f"<li><b>{esc(name(r))}</b>"
+                    f" ({esc(quantity_title(str(r.get('quantity', ''))))}"
                     + (f", {fmt_num(r['segments'])} segments" if "segments" in r else "")
-                    + f"): {esc(r.get('reason', ''))}</li>" for r in rows)
+                    + f"): {esc(reason(r))}</li>" for r in rows)
     return ('<div class="alert" id="not-assessed" role="alert"><strong>Not assessed</strong>'
             f"{len(rows)} criteri{'a' if len(rows) != 1 else 'on'} of the limit set could not be"
             " judged on any segment. They did NOT pass: a segment shown clear was not checked"
@@ -212,12 +229,18 @@ def summary_section(run, out_dir: Path, assets: pd.DataFrame | None, previous: d
                      "<th>Hazard class</th><th>Segments</th><th>Segment length [km]</th>"
                      f"<th>Assets</th></tr></thead><tbody>{''.join(rows)}</tbody></table></div>")
     if assets is not None and len(assets):
-        top = assets.head(5)
+        from corridor.report.deciding import deciding_rows, fmt_value, worst_positions
+
+        top = assets.head(5).reset_index(drop=True)
+        pos = worst_positions(run, top["asset_id"])
+        d = deciding_rows(run, np.maximum(pos, 0))
         items = "".join(
-            f"<li><b>{esc(r.asset_id)}</b> ({esc(r.asset_kind)}): worst utilization "
-            f"{fmt_num(r.worst_utilization)} {class_badge(r.hazard_class)}, governed by "
-            f"<code>{esc(r.governing)}</code> at chainage {fmt_num(r.worst_chainage_m / 1e3, 4)}"
-            " km</li>" for r in top.itertuples())
+            f"<li><b>{esc(r.asset_id)}</b> ({esc(r.asset_kind)}): {esc(d.at[i, 'criterion'])}"
+            f" {fmt_value(d.at[i, 'value'], d.at[i, 'unit'])} against a limit of"
+            f" {fmt_value(d.at[i, 'limit'], d.at[i, 'unit'])}, ratio"
+            f" {fmt_num(r.worst_utilization)} {class_badge(r.hazard_class)}, at chainage"
+            f" {fmt_num(r.worst_chainage_m / 1e3, 4)} km</li>"
+            for i, r in enumerate(top.itertuples()) if pos[i] >= 0)
         parts.append(f"<h3>Worst assets</h3><ol>{items}</ol>")
     # inputs
     recs = inputs if inputs is not None else _input_records(run, out_dir)
@@ -248,6 +271,11 @@ def _changes(run, previous: dict | None) -> str:
                        "</p>")
         if len(changes):
             frame = pd.DataFrame(changes.drop(columns="geometry", errors="ignore"))
+            from corridor.report.deciding import plain_criterion
+
+            for col in [c for c in frame.columns if str(c).startswith("governing")]:
+                frame[col] = [plain_criterion(run, v) if isinstance(v, str) and v else ""
+                              for v in frame[col]]
             out.append(html_table(frame.head(MAX_ROWS), list(frame.columns)))
             if len(frame) > MAX_ROWS:
                 out.append(f"<p>{len(frame) - MAX_ROWS} more changes not shown.</p>")
@@ -274,20 +302,29 @@ def _changes(run, previous: dict | None) -> str:
 
 
 def worst_exposures(run) -> pd.DataFrame:
+    """Exposures by the worst ratio to a limit along them, with that segment's position.
+
+    ``worst_utilization`` is the highest utilization of the exposure's asset
+    segments near its line within its chainage range; ``worst_position`` the
+    segment-table row of that segment (NaN where none).
+    """
     ex = pd.DataFrame(run.exposure_table.drop(columns="geometry"))
     t = run.segment_table
     if not len(ex) or "utilization" not in t:
         return ex
     s = pd.DataFrame({"asset_id": t["asset_id"].astype(str), "line_id": t["line_id"].astype(str),
                       "chainage_m": t["chainage_m"].to_numpy(float),
-                      "utilization": t["utilization"].to_numpy(float)})
+                      "utilization": t["utilization"].to_numpy(float),
+                      "position": np.arange(len(t))})
     m = ex[["exposure_id", "asset_id", "line_id", "start_chainage_m", "end_chainage_m"]].astype(
         {"asset_id": str, "line_id": str}).merge(s, on=["asset_id", "line_id"])
     m = m[(m["chainage_m"] >= m["start_chainage_m"] - 1e-6)
           & (m["chainage_m"] <= m["end_chainage_m"] + 1e-6)]
-    worst = m.groupby("exposure_id")["utilization"].max().rename("worst_utilization")
+    m = m.sort_values(["exposure_id", "utilization", "chainage_m"],
+                      ascending=[True, False, True], kind="stable", na_position="last")
+    first = m.drop_duplicates("exposure_id")
+    worst = first.set_index("exposure_id")[["utilization", "position"]].rename(
+        columns={"utilization": "worst_utilization", "position": "worst_position"})
     ex = ex.merge(worst, left_on="exposure_id", right_index=True, how="left")
     return ex.sort_values(["worst_utilization", "exposure_id"], ascending=[False, True],
                           kind="stable", na_position="last")
-
-

@@ -305,7 +305,11 @@ def _local_earth_potential(criterion, earth_potential_v):
 
 #: Segment columns the grounding loop tracks while it re-solves.
 STATE_COLUMNS = ("utilization", "governing", "hazard_class", "v_normal_v", "v_fault_v",
-                 "v_touch_fault_v", "earth_potential_fault_v", "soil_resistivity_ohm_m")
+                 "v_touch_fault_v", "earth_potential_fault_v", "soil_resistivity_ohm_m",
+                 # the other judged quantities, for the report's after-grounding values
+                 "v_step_fault_v", "v_coating_stress_v", "i_normal_body_ma",
+                 "i_capacitive_body_ma", "emf_section_normal_v", "emf_section_fault_v",
+                 "ac_density_a_per_m2")
 
 
 def _site(asset_id, kind, chainage_m, x, y, governing, v0, v1, r, remedy, line_ids,
