@@ -217,9 +217,16 @@ def unit_solve(run, bands: Bands, physics: dict[str, float], poly_of_seg: np.nda
         geo, inputs, cp, rs = run.geometry, run.inputs, run.coupling, run.response
     else:
         geo, inputs = perturbed(run, bands, physics, poly_of_seg, poly_rows)
+        changes = {}
         if fault_factor_zone != 1.0:
-            cfg = cfg.with_run(tower_zone_threshold_v=cfg.run.tower_zone_threshold_v
-                               / fault_factor_zone)
+            changes["tower_zone_threshold_v"] = (cfg.run.tower_zone_threshold_v
+                                                 / fault_factor_zone)
+        soil_factor = physics.get("soil_resistivity_factor", 1.0)
+        if soil_factor != 1.0:  # the lines' own impedances (fault sources) use the default
+            changes["default_soil_resistivity_ohm_m"] = (
+                cfg.run.default_soil_resistivity_ohm_m * soil_factor)
+        if changes:
+            cfg = cfg.with_run(**changes)
         cp = couple(cfg, inputs, geo)
         rs = respond(cfg, inputs, geo, cp)
     t = run.segment_table
