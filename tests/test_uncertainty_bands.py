@@ -416,3 +416,27 @@ def test_demo_bands_outputs(demo_bands_out):
     # the uncertain segments name what decides them
     uncertain = seg[seg["band_verdict"] == "uncertain"]
     assert len(uncertain) and (uncertain["band_driver"] != "").all()
+
+
+def test_partitions_and_cache_give_the_same_bands(demo, tmp_path):
+    # Per-asset results do not depend on the other assets (corridor.compute.subset_inputs):
+    # the bands of a run in partitions, and of a rerun from the cache, are the full run's.
+    from corridor.pipeline import screen
+
+    cfg, _ = demo
+    bands = _bands(Range("load_current_factor", 0.8, 1.2),
+                   Range("post_resistance_factor", 0.5, 2.0, "log-uniform"), members=4)
+    cfg = dataclasses.replace(cfg, uncertainty=bands)
+    whole = screen(cfg, tmp_path / "a", asset_stages(), run_stages())
+    runs = [screen(cfg.with_run(threads=2, partitions=3), tmp_path / "b", asset_stages(),
+                   run_stages())]
+    cached = cfg.with_run(cache_dir=str(tmp_path / "cache"))
+    runs += [screen(cached, tmp_path / "c", asset_stages(), run_stages()) for _ in range(2)]
+    assert runs[-1].counts["assets_from_cache"] == len(whole.assets)
+    for run in runs:
+        for col in ("utilization_p05", "utilization_p95", "band_verdict", "band_driver"):
+            np.testing.assert_array_equal(run.segment_table[col].to_numpy(),
+                                          whole.segment_table[col].to_numpy())
+        cols = ["asset_id", "worst_utilization_p95", "band_driver", "band_driver_rho"]
+        assert run.assets[cols].equals(whole.assets[cols])
+        assert "utilization_p95" in run.hazards
