@@ -10,7 +10,8 @@ Per segment (columns of the segment table, docs/methods.md §16):
     The verdict is the same across the band: the 5th percentile is 1 or more (exceeds
     in the band) or the 95th is below 1 (clear in the band).
 ``band_verdict``
-    ``exceeds``, ``clear`` or ``uncertain`` (the band straddles 1).
+    ``exceeds``, ``clear`` or ``uncertain`` (the band straddles 1); ``not assessed``
+    where no member has a utilization (never read as clear).
 ``band_driver``
     On an uncertain segment, the input its utilization is most sensitive to by
     Spearman rank correlation (:func:`segment_drivers`); empty elsewhere.
@@ -50,8 +51,10 @@ ASSET_COLUMNS = ("worst_utilization_p05", "worst_utilization_p50", "worst_utiliz
 
 
 def _verdicts(p05: np.ndarray, p95: np.ndarray):
+    """Robust flag and verdict; a band without values (nothing judged) is "not assessed"."""
     robust = (p05 >= 1.0) | (p95 < 1.0)
     verdict = np.where(p05 >= 1.0, "exceeds", np.where(p95 < 1.0, "clear", "uncertain"))
+    verdict = np.where(np.isnan(p05) | np.isnan(p95), "not assessed", verdict)
     return robust, verdict.astype(object)
 
 
