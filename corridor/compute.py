@@ -348,6 +348,11 @@ def compute(cfg: Config, inputs: Inputs, stages: dict | None = None,
     for name, fn in (stages or {}).items():
         with _Timer(run.timings_s, name, step_log_level):
             fn(run)
+    if getattr(cfg, "uncertainty", None) is not None and run.assessment is not None:
+        from corridor.uncertainty.ensemble import stage_bands  # [uncertainty] (§16)
+
+        with _Timer(run, "bands", step_log_level):
+            stage_bands(run)
     run.limits_table = limits_frame(run)
     run.counts["segments"] = len(geometry.segments)
     run.counts["pairs"] = len(geometry.pairs)
@@ -387,6 +392,10 @@ def finalize(run: Run, stages: dict | None = None) -> Run:
     for name, fn in (stages or {}).items():
         with _Timer(run.timings_s, name):
             fn(run)
+    if "bands" in run.extra_tables:
+        from corridor.uncertainty.tables import add_band_columns  # [uncertainty] (§16)
+
+        add_band_columns(run)
     run.counts.update(inputs.counts)
     run.counts["rejected"] = len(inputs.rejected.rows)
     return run

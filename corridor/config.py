@@ -43,7 +43,7 @@ LINE_DEFAULT_KEYS = {
 }
 
 LAYER_KEYS = {"path", "layer", "fields", "kind", "crs", "format", "osm"}
-TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits"}
+TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits", "uncertainty"}
 LAYER_ROLES = {"power_lines", "assets", "soil", "grounds", "towers"}
 
 
@@ -133,6 +133,8 @@ class Config:
     arrangements_path: Path
     limit_overrides: FrozenMap
     resolved: FrozenMap = field(repr=False)
+    #: The ``[uncertainty]`` section (corridor.uncertainty.settings.Bands); None: no bands.
+    uncertainty: Any = None
 
     @property
     def output_dir(self) -> Path:
@@ -581,6 +583,14 @@ def load_config(path: str | Path) -> Config:
         problems.append(f"{name}: limits: expected a table of overrides")
         limit_overrides = {}
 
+    from corridor.uncertainty.settings import parse_uncertainty
+
+    bands, found = parse_uncertainty(raw.get("uncertainty"), name)
+    problems.extend(found)
+    if bands is not None and bands.soil_polygons and optional["soil"] is None:
+        problems.append(f"{name}: uncertainty.soil_resistivity_ohm_m: per-polygon ranges need"
+                        " a soil layer ([layers.soil])")
+
     if problems:
         raise ConfigError(problems)
     assert power_lines is not None  # a missing or bad power-line layer is a problem above
@@ -597,6 +607,8 @@ def load_config(path: str | Path) -> Config:
         "limits": limit_overrides,
         "arrangements_file": str(arr_path),
     }
+    if bands is not None:
+        resolved["uncertainty"] = bands.as_dict()
     return Config(
         path=path,
         run=run_settings,
@@ -611,6 +623,7 @@ def load_config(path: str | Path) -> Config:
         arrangements_path=arr_path,
         limit_overrides=FrozenMap(limit_overrides),
         resolved=FrozenMap(resolved),
+        uncertainty=bands,
     )
 
 

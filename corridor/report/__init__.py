@@ -197,6 +197,9 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
                         f" (cap of {max_profiles}); see the assets layer.</p>")
     body.append("</section>")
 
+    from corridor.report.bands import bands_section  # [uncertainty] runs only (§16)
+
+    body.append(bands_section(run, max_rows))
     body.append(rejected_section(run))
     body.append(defaults_section(run))
     body.append(criteria_section(run, missing))
