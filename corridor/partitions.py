@@ -4,7 +4,7 @@ Per-asset results do not depend on the other assets
 (:func:`corridor.pipeline.subset_inputs`), so a run may be computed in pieces
 of whole assets and merged. Three callers do that, all through this module:
 
-- the local backend (:mod:`corridor.backends.local`): spatial partitions on threads;
+- the local backend (:mod:`corridor.backends.local`): partitions of consecutive assets on threads;
 - the dask backend (:mod:`corridor.backends.dask_backend`): partitions on workers;
 - the per-asset cache (:mod:`corridor.cache`): cached rows plus fresh rows.
 
@@ -163,6 +163,45 @@ def plan_partitions(geometries: np.ndarray, segment_length_m: float,
         if len(idx):
             out.append(idx)
     return out
+
+
+def input_order_partitions(geometries: np.ndarray, segment_length_m: float,
+                           n_partitions: int) -> list[np.ndarray]:
+    """Cut the assets into runs of consecutive input indices of about equal work.
+
+    The local backend's partitions: the merged tables of a run come out of a
+    plain concatenation of the partitions' tables in the order a full run
+    gives (assets in input order), so the merge makes no reordering copy of
+    them (:func:`order_rows` finds the order already right). Per-asset results
+    do not depend on the other assets in a partition, so the rows are those of
+    :func:`plan_partitions`' spatial partitions or of one piece.
+
+    Parameters
+    ----------
+    geometries : ndarray of shapely geometries
+        Asset geometries in input order, metric CRS [m].
+    segment_length_m : float
+        Maximum segment length [m] (for the workload estimate).
+    n_partitions : int
+        Wanted partitions, at least 1; never more than the number of assets.
+
+    Returns
+    -------
+    list of ndarray of int
+        Per partition, consecutive input indices, ascending; the partitions
+        follow each other in input order. Asset ``k`` goes to partition
+        ``floor(n * W_k / W)`` (``W_k``: estimated segments of the assets
+        before it, ``W`` the total); no partition is empty.
+    """
+    n_assets = len(geometries)
+    if n_assets == 0:
+        return []
+    w = estimated_segments(geometries, segment_length_m).astype(float)
+    n = max(1, min(int(n_partitions), n_assets))
+    before = np.cumsum(w) - w
+    part = np.minimum((before * n / max(w.sum(), 1.0)).astype(np.int64), n - 1)
+    cuts = np.flatnonzero(np.diff(part)) + 1
+    return [idx for idx in np.split(np.arange(n_assets), cuts) if len(idx)]
 
 
 def column_kinds(frame: pd.DataFrame) -> dict[str, tuple[str, object]]:

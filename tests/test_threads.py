@@ -105,3 +105,23 @@ def test_release_free_memory_is_safe():
     del blocks
     assert release_free_memory() is (sys.platform.startswith("linux")
                                       and platform.libc_ver()[0] == "glibc")
+
+
+def test_input_order_partitions_cover_every_asset_once_in_order(tmp_path):
+    """The local backend's partitions are runs of consecutive assets that together list
+    every asset once, in input order (so the merge is a plain concatenation), each
+    holding about 1/n of the estimated segments (an asset is never split)."""
+    from corridor.partitions import estimated_segments, input_order_partitions
+
+    cfg = load_config(network.write(tmp_path, 200.0, 1000.0, seed=3))
+    geoms = read_inputs(cfg).assets.geometry.to_numpy()
+    w = estimated_segments(geoms, cfg.run.segment_length_m)
+    for n in (1, 2, 7, len(geoms), len(geoms) + 5):
+        parts = input_order_partitions(geoms, cfg.run.segment_length_m, n)
+        assert 1 <= len(parts) <= min(n, len(geoms))
+        assert all(len(p) for p in parts)
+        np.testing.assert_array_equal(np.concatenate(parts), np.arange(len(geoms)))
+        if n == 7:  # each share within one asset's weight of W/n
+            loads = np.array([w[p].sum() for p in parts])
+            assert np.all(np.abs(loads - w.sum() / 7) <= w.max() + 1)
+    assert input_order_partitions(geoms[:0], cfg.run.segment_length_m, 3) == []

@@ -1,8 +1,8 @@
 """The local backend: the whole compute in this process.
 
 A small run is :func:`corridor.pipeline.compute` itself. A large one (or one
-with ``run.threads`` above 1) is cut into spatial partitions of whole assets
-(the dask backend's planner) of at most about
+with ``run.threads`` above 1) is cut into partitions of consecutive whole
+assets (:func:`corridor.partitions.input_order_partitions`) of at most about
 :data:`LOCAL_SEGMENTS_PER_PARTITION` segments, computed on a pool of
 ``run.threads`` threads — GEOS, numpy and LAPACK release the GIL for most of
 the work — and merged as the cache merges cached and fresh rows, so the rows
@@ -99,13 +99,14 @@ def local_plan(cfg: Config, inputs: Inputs) -> tuple[int, int]:
 
 def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: int,
                      n_partitions: int | None = None):
-    """Partitions of whole assets computed on ``threads`` threads, merged in input order.
+    """Partitions of consecutive whole assets computed on ``threads`` threads, merged in
+    input order (a concatenation: the partitions follow each other in input order).
 
     Parameters
     ----------
     n_partitions : int, optional
         Wanted partitions (default: ``threads``); see
-        :func:`corridor.partitions.plan_partitions`.
+        :func:`corridor.partitions.input_order_partitions`.
     """
     import threading
     import time
@@ -116,12 +117,13 @@ def compute_threaded(cfg: Config, inputs: Inputs, stages: dict | None, threads: 
     from corridor.memory import release_free_memory
 
     t0 = time.perf_counter()
-    parts = partitions.plan_partitions(inputs.assets.geometry.to_numpy(),
-                                       cfg.run.segment_length_m, n_partitions or threads)
+    # runs of consecutive assets: the merge then needs no reordering copy
+    parts = partitions.input_order_partitions(inputs.assets.geometry.to_numpy(),
+                                              cfg.run.segment_length_m, n_partitions or threads)
     lock = threading.Lock()
     bar = progress.bar("compute", total=len(parts))
     done = [0]
-    log.info("%d assets in %d spatial partitions on %d thread(s)", len(inputs.assets),
+    log.info("%d assets in %d partitions of consecutive assets on %d thread(s)", len(inputs.assets),
              len(parts), threads)
 
     def one(index):

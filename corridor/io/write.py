@@ -15,6 +15,7 @@ import time
 from datetime import UTC, datetime
 from pathlib import Path
 
+from corridor.io import background
 from corridor.io.outputs import SAFETY_CAUTION, write_csv, write_json, write_layer
 from corridor.io.provenance import input_records
 from corridor.result import Result, result_of
@@ -24,6 +25,11 @@ log = logging.getLogger(__name__)
 #: Outputs that depend only on the per-asset results and the inputs: a run whose
 #: inputs are all unchanged since the previous run copies them as they are.
 REUSABLE_OUTPUTS = ("screening.gpkg", "exposures.csv", "rejected.csv", "grounding_sites.csv")
+
+#: A run with at least this many segments writes ``screening.gpkg`` in a forked
+#: process (:mod:`corridor.io.background`, Linux) while this process writes the
+#: other files and renders the report; a smaller run writes it on this thread.
+GPKG_PROCESS_ABOVE_ROWS = 200_000
 
 
 def output_paths(out_dir: Path) -> dict[str, Path]:
@@ -51,7 +57,11 @@ def write_caution(path: Path) -> None:
 
 
 def write_gpkg(result: Result, path: Path, review_threshold: float = 0.5) -> None:
-    """Every layer of ``screening.gpkg``, then its styles and field descriptions."""
+    """Every layer of ``screening.gpkg``, then its styles and field descriptions.
+
+    Runs in a forked process for large runs (:func:`write_outputs`): it changes
+    nothing but the file.
+    """
     from corridor.io.styles import apply_styles
 
     layers = result.layers()
@@ -66,10 +76,17 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
     """Write every output of a finished run into ``out_dir``.
 
     The GeoPackage, the other formats, the CSV files and the report, then
-    ``run.json`` (with the write and report times) last. The layers are
-    written one after the other on this thread: pyogrio holds the GIL while
-    GDAL inserts rows, so a second thread would not overlap the report with
-    them (measured: the report took 6x longer beside a GeoPackage write).
+    ``run.json`` (with the write and report times) last. pyogrio holds the
+    GIL while GDAL inserts rows, so a second thread would not overlap the
+    report with the layers (measured: the report took 6x longer beside a
+    GeoPackage write): a run of :data:`GPKG_PROCESS_ABOVE_ROWS` segments or
+    more writes ``screening.gpkg`` in a forked process
+    (:mod:`corridor.io.background`) while this one writes the other files and
+    renders the report. The file is the same either way.
+
+    Times in ``run.timings_s``: ``report`` (rendering), ``write`` (the wall
+    time of the whole output phase less ``report``: what the data files add),
+    ``write_gpkg`` (the GeoPackage write itself, in whichever process).
 
     Parameters
     ----------
@@ -101,6 +118,7 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
 
     reused = reuse_from is not None and all((reuse_from / n).exists() and ours(n)
                                             for n in REUSABLE_OUTPUTS)
+    gpkg_write = None
     if reused and reuse_from is not None:
         for name in REUSABLE_OUTPUTS:
             shutil.copy2(reuse_from / name, out_dir / name)
@@ -109,20 +127,37 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
                 shutil.copy2(fmt_file, out_dir / fmt_file.name)
         log.info("inputs unchanged since the previous run: its layers are reused")
     else:
-        write_gpkg(result, paths["gpkg"],
-                   review_threshold=getattr(run.limit_set, "review_threshold", 0.5))
-        write_extra_formats(result.layers(), out_dir, formats)
-    for name, table in result.csv_files().items():
-        target = out_dir / name
-        if not (reused and name in REUSABLE_OUTPUTS):
-            write_csv(table, target)
-        if name not in ("exposures.csv", "rejected.csv"):
-            paths[target.stem] = target
-    write_caution(paths["caution"])
-    run.timings_s["write"] = round(time.perf_counter() - t0, 4)
-    t1 = time.perf_counter()
-    paths["report"] = write_report(run, out_dir, previous, inputs=records)
-    run.timings_s["report"] = round(time.perf_counter() - t1, 4)
+        # a large GeoPackage is written by a forked process while this one writes
+        # the rest and renders the report (corridor.io.background)
+        rows = len(result.segments) if result.segments is not None else 0
+        gpkg_write = background.start(
+            write_gpkg, result, paths["gpkg"],
+            getattr(run.limit_set, "review_threshold", 0.5),
+            fork=rows >= GPKG_PROCESS_ABOVE_ROWS)
+    try:
+        if not reused:
+            write_extra_formats(result.layers(), out_dir, formats)
+        for name, table in result.csv_files().items():
+            target = out_dir / name
+            if not (reused and name in REUSABLE_OUTPUTS):
+                write_csv(table, target)
+            if name not in ("exposures.csv", "rejected.csv"):
+                paths[target.stem] = target
+        write_caution(paths["caution"])
+        t1 = time.perf_counter()
+        paths["report"] = write_report(run, out_dir, previous, inputs=records)
+        run.timings_s["report"] = round(time.perf_counter() - t1, 4)
+        if gpkg_write is not None:
+            gpkg_write.wait()
+    finally:
+        if gpkg_write is not None:
+            gpkg_write.cancel()  # an error or an interrupt above: the writer stops too
+    # the data files' wall time, the report (rendered alongside a forked GeoPackage
+    # write, or on this thread before the wait) excluded
+    run.timings_s["write"] = round(time.perf_counter() - t0 - run.timings_s["report"], 4)
+    if gpkg_write is not None:
+        run.timings_s["write_gpkg"] = round(gpkg_write.seconds, 4)
+        run.counts["gpkg_written_in_process"] = int(gpkg_write.forked)
     run.counts["outputs_reused"] = int(reused)
     record = {
         "caution": SAFETY_CAUTION,

@@ -1,0 +1,114 @@
+"""The GeoPackage written in a forked process is the same file content as one written
+in the run's own process, and a failure in the child fails the run as it would inline.
+
+References: the project's own output contract (README, Outputs: same layers and
+values whichever way they are written); POSIX ``fork`` and ``errno`` semantics
+(a child's exit code and an ``OSError``'s errno survive the trip, common practice).
+"""
+
+import errno
+import json
+import logging
+import os
+import shutil
+from pathlib import Path
+
+import pandas as pd
+import pyogrio
+import pytest
+
+from corridor.cli import main
+from corridor.io import background
+from corridor.io import write as write_mod
+
+ROOT = Path(__file__).resolve().parents[1]
+
+needs_fork = pytest.mark.skipif(not background.forking_available(),
+                                reason="the forked writer is Linux only")
+
+
+def _write_text(path, text):
+    Path(path).write_text(text, encoding="utf-8")
+
+
+def _fail_disk_full(path):
+    raise OSError(errno.ENOSPC, "No space left on device", str(path))
+
+
+def _die(path):
+    os._exit(3)
+
+
+@needs_fork
+def test_child_writes_the_file_in_another_process(tmp_path):
+    target = tmp_path / "a.txt"
+    job = background.start(_write_text, target, f"pid {os.getpid()}")
+    assert job.forked
+    job.wait()
+    assert target.read_text(encoding="utf-8") == f"pid {os.getpid()}"
+    assert job.seconds >= 0.0
+
+
+@needs_fork
+def test_an_error_in_the_child_is_raised_here_with_its_errno(tmp_path):
+    job = background.start(_fail_disk_full, tmp_path / "b.gpkg")
+    with pytest.raises(OSError) as info:
+        job.wait()
+    assert info.value.errno == errno.ENOSPC
+
+
+@needs_fork
+def test_a_child_that_dies_fails_loudly(tmp_path):
+    job = background.start(_die, tmp_path / "c.gpkg")
+    with pytest.raises(RuntimeError, match="exit code 3"):
+        job.wait()
+
+
+def test_without_fork_the_write_runs_at_once(tmp_path):
+    target = tmp_path / "d.txt"
+    job = background.start(_write_text, target, "inline", fork=False)
+    assert not job.forked
+    assert target.read_text(encoding="utf-8") == "inline"  # before wait
+    job.wait()
+
+
+def _run(cfg, out):
+    rc = main(["run", str(cfg), "--out", str(out), "-q"])
+    for h in list(logging.getLogger("corridor").handlers):
+        logging.getLogger("corridor").removeHandler(h)
+    return rc
+
+
+@needs_fork
+def test_demo_geopackage_forked_equals_inline(tmp_path, monkeypatch):
+    work = tmp_path / "w"
+    shutil.copytree(ROOT / "config", work / "config")
+    shutil.copytree(ROOT / "sample_layers", work / "sample_layers")
+    cfg = work / "config" / "demo.toml"
+    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 10**12)
+    assert _run(cfg, tmp_path / "inline") == 0
+    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 0)
+    assert _run(cfg, tmp_path / "forked") == 0
+    rec = json.loads((tmp_path / "forked" / "run.json").read_text())
+    assert rec["counts"]["gpkg_written_in_process"] == 1
+    assert rec["timings_s"]["write_gpkg"] > 0
+    a, b = tmp_path / "inline" / "screening.gpkg", tmp_path / "forked" / "screening.gpkg"
+    names_a = [str(n) for n in pyogrio.list_layers(a)[:, 0]]
+    assert names_a == [str(n) for n in pyogrio.list_layers(b)[:, 0]]
+    for layer in names_a:
+        fa = pyogrio.read_dataframe(a, layer=layer)
+        fb = pyogrio.read_dataframe(b, layer=layer)
+        # (the style table stamps each row with the time it was written)
+        drop = ["geometry", "update_time"]
+        pd.testing.assert_frame_equal(pd.DataFrame(fa.drop(columns=drop, errors="ignore")),
+                                      pd.DataFrame(fb.drop(columns=drop, errors="ignore")))
+        if "geometry" in fa.columns:
+            assert fa.geometry.geom_equals_exact(fb.geometry, 0.0).all()
+    # the styles and field descriptions the child adds after the layers
+    import sqlite3
+
+    def styles(path):
+        with sqlite3.connect(path) as con:
+            return sorted(con.execute("SELECT f_table_name, styleName FROM layer_styles"))
+
+    assert styles(a) == styles(b) and styles(b)
