@@ -135,7 +135,8 @@ def read_raw(src: LayerSource) -> gpd.GeoDataFrame:
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            gdf = pyogrio.read_dataframe(src.path, layer=src.layer, use_arrow=True)
+            gdf = pyogrio.read_dataframe(src.path, layer=src.layer, use_arrow=True,
+                                         fid_as_index=True)
         for w in caught:
             log.warning("layer %s: reader: %s", src.label, w.message)
     except pyogrio.errors.DataLayerError as exc:
@@ -267,17 +268,30 @@ def id_text(values: pd.Series) -> pd.Series:
     return out.mask(out == "", pd.NA)
 
 
+def feature_labels(index: pd.Index) -> np.ndarray:
+    """Labels of features by their place in the layer: ``fid:<FID>`` or ``row:<n>``.
+
+    A layer read by :func:`read_raw` carries GDAL's feature id (FID) as its
+    index (named ``fid``): 1 first in a GeoPackage, 0 first in a Shapefile.
+    A frame without it (an OpenStreetMap extract's joined lines) is labelled by
+    its row number (0 first).
+    """
+    kind = "fid" if index.name == "fid" else "row"
+    rows = (index.to_numpy() if pd.api.types.is_integer_dtype(index)
+            else np.arange(len(index)))
+    return np.array([f"{kind}:{int(i)}" for i in rows], dtype=object)
+
+
 def _feature_ids(gdf: gpd.GeoDataFrame, id_col: str | None) -> pd.Series:
-    """Feature ids as text; a feature without one is ``#<row>``, its row number in the
-    layer as read (0 first), also when ``gdf`` holds only some rows of it (one asset kind)."""
-    rows = (gdf.index.to_numpy() if pd.api.types.is_integer_dtype(gdf.index)
-            else np.arange(len(gdf)))
+    """Feature ids as text; a feature without one is named by its FID (:func:`feature_labels`),
+    e.g. ``fid:12``, also when ``gdf`` holds only some rows of the layer (one asset kind)."""
+    labels = feature_labels(gdf.index)
     if id_col is None:
-        return pd.Series([f"#{i}" for i in rows], index=gdf.index, dtype="string")
+        return pd.Series(labels, index=gdf.index, dtype="string")
     out = id_text(gdf[id_col])
     missing = out.isna().to_numpy()
     out = out.astype(object)
-    out[missing] = [f"#{i}" for i in rows[missing]]
+    out[missing] = labels[missing]
     return out.astype("string")
 
 
