@@ -22,6 +22,7 @@ from pyproj import CRS
 
 from corridor.config import Config, LayerSource
 from corridor.errors import InputError
+from corridor.io import line_parts
 from corridor.registry import registry
 from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS
 from corridor.settings import Spec
@@ -570,7 +571,7 @@ def _read_layer(src: LayerSource, specs: tuple[Spec, ...], defaults: dict,
         for i in np.flatnonzero(raw_ids.isna().to_numpy()):
             rejected.add(src.label, ids.iloc[i], key_col, f"missing {what}", src.role)
             keep[i] = False
-        if src.role in ("power_lines", "assets"):
+        if src.role == "assets":  # a power line may come in several features (one line)
             dup = raw_ids[keep].duplicated(keep=False)
             if dup.any():
                 names = sorted(set(raw_ids[keep][dup].tolist()))
@@ -591,6 +592,8 @@ def _read_layer(src: LayerSource, specs: tuple[Spec, ...], defaults: dict,
             warnings_module.simplefilter("ignore", RuntimeWarning)  # inf from far coordinates
             out = out.to_crs(crs)
     out = _within_extent(out, src, crs, rejected)
+    if src.role == "power_lines":
+        out = line_parts.settle_parts(out, src, rejected)
     if defaults_used is not None and id_field:
         kept = set(out[id_field])
         for name, mask in filled.items():
@@ -713,7 +716,8 @@ def read_inputs(cfg: Config) -> Inputs:
         if unknown:
             problems.append(f"layer {cfg.power_lines.label}: arrangements referred to but not"
                             f" defined in {cfg.arrangements_path.name}: {', '.join(unknown)}")
-        lines = lines.reset_index(drop=True)
+        lines = line_parts.drop_incomplete(lines.reset_index(drop=True), cfg.power_lines,
+                                           rejected)
     asset_frames = []
     for i, src in enumerate(cfg.assets, start=1):
         try:

@@ -167,7 +167,8 @@ def _per_circuit(lines, li, field, n, default):
     return values
 
 
-def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
+def line_loading(cfg, lines, n_circuits_by_arrangement, route=None,
+                 route_direction=None) -> LineLoading:
     """Per-circuit loading of every line, its phase group and the outage scenarios.
 
     Line fields (all optional): ``circuit_load_current_a``, ``circuit_flow_direction``
@@ -177,6 +178,11 @@ def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
     is unknown, and the coupling takes the worst case over it (docs/methods.md §8).
     Run setting ``outage_scenario`` (default true): also evaluate each circuit of a
     multi-circuit line out of service with the others carrying the line's total.
+
+    ``route`` (per feature, the electrical line: features sharing a ``line_id``) and
+    ``route_direction`` (+1 where the feature runs with its line's route, -1 against)
+    make the features of one line one phase group with one flow direction where the
+    direction is unknown (docs/methods.md §18); by default every feature is a line.
     """
     n_lines = len(lines)
     load = lines["load_current_a"].to_numpy(float)
@@ -186,7 +192,10 @@ def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
     offset = (lines["phase_offset_deg"].to_numpy(float) if "phase_offset_deg" in lines
               else np.full(n_lines, np.nan))
     known = np.isfinite(direction) & np.isfinite(offset)
-    group = np.where(known, 0, 1 + np.arange(n_lines))
+    route = np.arange(n_lines) if route is None else np.asarray(route, np.int64)
+    route_dir = (np.ones(n_lines) if route_direction is None
+                 else np.asarray(route_direction, float))
+    group = np.where(known, 0, 1 + route)
     outage = bool(cfg.run.outage_scenario)
     max_nc = max(n_circuits_by_arrangement.values(), default=1)
     n_scen = 1 + max_nc if (outage and max_nc > 1) else 1
@@ -197,7 +206,7 @@ def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
         c_load = _per_circuit(lines, li, "circuit_load_current_a", nc, load[li])
         c_dir = _per_circuit(lines, li, "circuit_flow_direction", nc, 1.0)
         c_off = _per_circuit(lines, li, "circuit_phase_offset_deg", nc, 0.0)
-        line_dir = direction[li] if np.isfinite(direction[li]) else 1.0
+        line_dir = direction[li] if np.isfinite(direction[li]) else route_dir[li]
         line_off = offset[li] if np.isfinite(offset[li]) else 0.0
         loads.append(c_load)
         dirs.append(c_dir * line_dir)
@@ -214,6 +223,8 @@ def normal_load_assumption(cfg, lines) -> str:
 
     For run.json (``normal_load_assumption``) and the report (docs/methods.md §8).
     """
+    # one count per electrical line (the features of one line give these alike)
+    lines = lines.drop_duplicates("line_id") if "line_id" in lines else lines
     n_lines = len(lines)
     given = np.zeros(n_lines, bool)
     if "flow_direction" in lines and "phase_offset_deg" in lines:
@@ -272,7 +283,8 @@ def couple(cfg, inputs, geo) -> Coupling:
     unit = np.ones(len(sec))
 
     emf_normal_sec = np.zeros(len(sec), complex)
-    loading = line_loading(cfg, lines, {n: a.n_circuits for n, a in cfg.arrangements.items()})
+    loading = line_loading(cfg, lines, {n: a.n_circuits for n, a in cfg.arrangements.items()},
+                           sources.route, sources.direction)
     n_scen = loading.n_scenarios
     # per section: balanced and residual EMF of its line in each loading scenario [V]
     bal_sec = np.zeros((len(sec), n_scen), complex)
@@ -290,7 +302,7 @@ def couple(cfg, inputs, geo) -> Coupling:
     is_above = asset_h > 0.0
     asset_radius = _asset_radius(assets)[sec_asset]
     wire_count = _bonded_wire_count(assets)[sec_asset]
-    share = section_share(pairs, sec)
+    share = section_share(pairs, sec) * _alongside(pairs, seg, geo.edges)[sec.pair]
 
     for name in sorted(set(arr_names)):
         arr = cfg.arrangements[name]
@@ -362,7 +374,7 @@ def couple(cfg, inputs, geo) -> Coupling:
 
     segment_emf_normal = _complex_bincount(sec_seg, emf_normal_sec, n_seg)
     normal = worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading, n_seg,
-                               lines["line_id"].to_numpy(dtype=object))
+                               lines["line_id"].to_numpy(dtype=object), sources.route)
     # the EMF columns carry the worst case over the unknowns, with the phase of the loading
     # as given (the response solves the components separately: Coupling.normal_*)
     as_given = np.abs(segment_emf_normal)
@@ -445,7 +457,7 @@ class WorstNormal:
 
 
 def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: LineLoading,
-                      n_seg, line_ids) -> WorstNormal:
+                      n_seg, line_ids, route=None) -> WorstNormal:
     """Worst-case normal-load EMF per segment and its independent components.
 
     The worst |EMF| over unknown relative directions and angles and over the N−1 outage
@@ -454,14 +466,22 @@ def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: L
     components (each phase group's balanced EMF, each line's residual EMF, in the
     segment's governing scenario) are what the response solves one by one: the worst
     voltage at a node is then Σ |V_component| (docs/methods.md §8).
+
+    ``route`` (per feature) joins the features of one electrical line: their EMFs add
+    as phasors, their residual is one unknown angle and their outage one scenario
+    (docs/methods.md §18).
     """
-    worst = induction.worst_normal_emf(sec_seg, sec_line, loading.group[sec_line], bal_sec,
+    n_lines = len(loading.group)
+    route = np.arange(n_lines) if route is None else np.asarray(route, np.int64)
+    sec_route = route[sec_line] if len(sec_line) else np.zeros(0, np.int64)
+    worst = induction.worst_normal_emf(sec_seg, sec_route, loading.group[sec_line], bal_sec,
                                        res_sec, n_seg)
     n_sec = len(sec_seg)
     # scenario of each section: the governing outage where it concerns the section's line
     gov_line = np.where(worst.governing_entry >= 0,
                         sec_line[np.maximum(worst.governing_entry, 0)] if n_sec else -1, -1)
-    scen = np.where(gov_line[sec_seg] == sec_line, worst.governing_scenario[sec_seg], 0)
+    gov_route = np.where(gov_line >= 0, route[np.maximum(gov_line, 0)], -1)
+    scen = np.where(gov_route[sec_seg] == sec_route, worst.governing_scenario[sec_seg], 0)
     rows = np.arange(n_sec)
     bal = bal_sec[rows, scen] if n_sec else np.zeros(0, complex)
     res = res_sec[rows, scen] if n_sec else np.zeros(0, complex)
@@ -470,11 +490,10 @@ def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: L
         governing[k] = (f"outage {line_ids[gov_line[k]]} circuit"
                         f" {int(worst.governing_scenario[k])}")
     # components: (asset, phase group) balanced, (asset, line) residual
-    n_lines = len(loading.group)
     comp_key = np.concatenate([sec_asset.astype(np.int64) * (2 * n_lines + 2)
                                + loading.group[sec_line],
                                sec_asset.astype(np.int64) * (2 * n_lines + 2) + n_lines + 1
-                               + sec_line])
+                               + sec_route])
     values = np.concatenate([bal, res])
     segs = np.concatenate([sec_seg, sec_seg])
     comps, comp_of = np.unique(comp_key, return_inverse=True)
@@ -511,6 +530,39 @@ def section_share(pairs, sec) -> np.ndarray:
                                                                          1.0), by_sep)
 
 
+def _alongside(pairs, segments, edges) -> np.ndarray:
+    """Fraction of each pair's segment that lies alongside the line feature, 0-1.
+
+    The segment's projection on its edge clipped at the feature's ends, over the
+    unclipped one: 1 beside the line, 0 for a segment wholly beyond an end, the
+    part alongside for one straddling an end. A segment at 90° counts whole where
+    its foot lies on the feature. The electric field of a line (two-dimensional
+    model, docs/methods.md §3) acts only alongside it, so a segment beyond a line's
+    end picks up nothing from it, and a line drawn as several features gives the
+    pickup of the line as one feature (no segment counted twice at a joint;
+    docs/methods.md §18).
+    """
+    n = len(pairs)
+    if n == 0:
+        return np.ones(0)
+    e = edges.segments
+    ej = pairs.edge
+    si = pairs.segment
+    elen = np.where(e.length_m[ej] > 0, e.length_m[ej], 1.0)
+    tx = (e.x1_m[ej] - e.x0_m[ej]) / elen
+    ty = (e.y1_m[ej] - e.y0_m[ej]) / elen
+    sa = (segments.x0_m[si] - e.x0_m[ej]) * tx + (segments.y0_m[si] - e.y0_m[ej]) * ty
+    sb = (segments.x1_m[si] - e.x0_m[ej]) * tx + (segments.y1_m[si] - e.y0_m[ej]) * ty
+    lo = np.where(edges.is_first[ej], 0.0, -np.inf)
+    hi = np.where(edges.is_last[ej], e.length_m[ej], np.inf)
+    raw = np.abs(sb - sa)
+    clipped = np.abs(np.clip(sb, lo, hi) - np.clip(sa, lo, hi))
+    tiny = raw <= 1e-9 * np.maximum(segments.length_m[si], 1e-9)
+    foot = 0.5 * (sa + sb)
+    inside = ((foot >= lo) & (foot <= hi)).astype(float)
+    return np.where(tiny, inside, np.minimum(clipped / np.where(tiny, 1.0, raw), 1.0))
+
+
 #: Vertical spacing of bonded fence wires for the electric-field bundle [m] (common
 #: practice; the induction model uses the same, asset_models.FENCE_WIRE_SPACING_M).
 FENCE_WIRE_SPACING_M = 0.3
@@ -544,6 +596,29 @@ def _asset_radius(assets) -> np.ndarray:
     return out
 
 
+def _tower_feature(lines, towers) -> np.ndarray:
+    """Feature each tower stands on: the nearest feature of its line (-1: unknown line).
+
+    A line drawn in several features (one ``line_id``) gets each tower on the feature
+    it is nearest to (docs/methods.md §18).
+    """
+    import shapely
+
+    parts: dict[str, list[int]] = {}
+    for i, v in enumerate(lines["line_id"].astype(str)):
+        parts.setdefault(v, []).append(i)
+    geoms = lines.geometry.to_numpy()
+    out = np.full(len(towers), -1, np.int64)
+    for k, (v, pt) in enumerate(zip(towers["line_id"].astype(str), towers.geometry,
+                                    strict=True)):
+        cand = parts.get(v)
+        if not cand:
+            continue
+        out[k] = cand[int(np.argmin(shapely.distance(geoms[cand], pt)))] if len(cand) > 1 \
+            else cand[0]
+    return out
+
+
 def tower_positions(cfg, inputs, total_len: np.ndarray):
     """Towers as (line index, position along the line [m]), sorted.
 
@@ -554,9 +629,8 @@ def tower_positions(cfg, inputs, total_len: np.ndarray):
     if inputs.towers is not None and len(inputs.towers):
         import shapely
 
-        ids = {v: i for i, v in enumerate(lines["line_id"])}
         t = inputs.towers
-        li = np.array([ids.get(v, -1) for v in t["line_id"]], dtype=np.int64)
+        li = _tower_feature(lines, t)
         ok = li >= 0
         pos = shapely.line_locate_point(lines.geometry.to_numpy()[li[ok]],
                                         t.geometry.to_numpy()[ok])
