@@ -28,7 +28,7 @@ if TYPE_CHECKING:
     import geopandas as gpd
 
     from corridor.config import LayerSource
-    from corridor.io.layers import Rejected
+    from corridor.io.rejected import Rejected
 
 log = logging.getLogger(__name__)
 
@@ -41,7 +41,7 @@ SHARED_FIELDS = tuple(s.name for s in LINE_FIELDS if s.name not in PER_PART_FIEL
 
 
 def _labels(index: pd.Index) -> np.ndarray:
-    from corridor.io.layers import feature_labels
+    from corridor.io.fields import feature_labels
 
     return feature_labels(index)
 
