@@ -113,7 +113,12 @@ def test_split_line_is_fed_from_its_own_two_terminals(scenario, second):
     tail = (SPLIT_M, LENGTH_M) if second == "with the first" else (LENGTH_M, SPLIT_M)
     run = _run(scenario, [("L1", 0.0, SPLIT_M, {}), ("L1", *tail, {})])
     pos = run.coupling.fault_positions
-    assert len(np.unique(run.coupling.fault_case_asset)) == len(run.coupling.fault_case_asset)
+    cp = run.coupling
+    # one route: per asset one case per faulted phase, each phase once, all on L1's route
+    for a in np.unique(cp.fault_case_asset):
+        phases = list(cp.fault_case_phase[cp.fault_case_asset == a])
+        assert len(phases) == len(set(phases))
+    assert set(run.inputs.lines["line_id"].to_numpy()[cp.fault_case_line]) == {"L1"}
     for c in range(pos.position_m.shape[0]):
         x = pos.position_m[c]
         ok = np.isfinite(x)

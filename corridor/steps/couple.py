@@ -12,8 +12,9 @@ Rules (documented in the README, Method):
   lines share one phase reference (phase A at 0°), the usual assumption for
   one synchronous network.
 - Earth fault: one faulted electrical line at a time (the features sharing a
-  ``line_id``); for each (asset, line) the faulted phase is the one giving the
-  largest total EMF on the asset per ampere. The fault is fed from both ends
+  ``line_id``), and every phase of it in turn: one fault case per (asset, line,
+  phase) (:mod:`corridor.steps.fault_cases`), so the response stage keeps the worst
+  over fault positions and faulted phases. The fault is fed from both ends
   of the line (two-terminal source model, docs/methods.md §8.1): this stage
   gives each section its EMF per ampere and its position along the line, and
   each case its fault positions with the currents from either end; the
@@ -33,7 +34,7 @@ import numpy as np
 from corridor.kinds import DEFAULT_RADIUS_M
 from corridor.physics import capacitive, induction
 from corridor.registry import registry
-from corridor.steps import faultscan
+from corridor.steps import fault_cases, faultscan
 
 log = logging.getLogger(__name__)
 
@@ -48,18 +49,18 @@ class Coupling:
         EMF of the section along the asset's direction, normal load [V].
     segment_emf_normal_v : complex, per segment
     fault_case_asset, fault_case_line : int, per fault case
-        One case per (asset, line within reach).
+        One case per (asset, line within reach, faulted phase).
     fault_seg, fault_case_of_entry, fault_emf_v : per (case, segment)
         The segment's EMF per case with the largest current either end feeds
         for any scanned position [V] (the scan itself is in the response stage).
-    fault_phase : str, per case
-        The faulted phase chosen.
+    fault_case_phase : str, per case
+        The case's faulted phase (``A1``: phase A of circuit 1).
     capacitive_current_a : complex, per segment
         Current the segment would drive to earth if grounded [A].
     earth_potential_fault_v : float, per segment
         Largest earth potential at the segment from a tower footing in a fault [V].
-    screening_factor : complex, per fault case
-        |E with earth wires| / |E without| for the chosen phase.
+    fault_case_screening : complex, per fault case
+        Σ E with earth wires / Σ E without, over the case's sections, for its phase.
     """
 
     segment_emf_normal_v: np.ndarray
@@ -290,12 +291,11 @@ def couple(cfg, inputs, geo) -> Coupling:
     bal_sec = np.zeros((len(sec), n_scen), complex)
     res_sec = np.zeros((len(sec), n_scen), complex)
     cap_sec = np.zeros(len(sec), complex)
-    # fault EMF per section per candidate phase (up to 6 phases per arrangement)
-    max_phases = max((len(_arrangement_arrays(a)[5]) for a in cfg.arrangements.values()),
-                     default=3)
-    fault_sec = np.zeros((len(sec), max_phases), complex)
-    fault_unscreened = np.zeros((len(sec), max_phases), complex)
-    phase_labels = np.full((len(lines), max_phases), "", dtype=object)
+    # fault EMF per section per phase label (A1, B1, ..., matched across arrangements)
+    labels, label_cols = fault_cases.phase_columns(cfg.arrangements)
+    fault_sec = np.zeros((len(sec), len(labels)), complex)
+    fault_unscreened = np.zeros((len(sec), len(labels)), complex)
+    phase_present = np.zeros((len(sec), len(labels)), bool)
     resid = lines["residual_current_pct"].to_numpy(float)
     kv = lines["voltage_kv"].to_numpy(float)
     arr_names = lines["arrangement"].to_numpy(dtype=object)
@@ -309,10 +309,7 @@ def couple(cfg, inputs, geo) -> Coupling:
         x, h, r, gmr, res, p_idx, s_idx, phasing = _arrangement_arrays(arr)
         conductor_phase = [c.phase if c.circuit >= 0 else "" for c in arr.conductors]
         line_rows = np.flatnonzero(arr_names == name)
-        for li in line_rows:
-            for j, k in enumerate(p_idx):
-                ckt = arr.conductors[k].circuit + 1
-                phase_labels[li, j] = f"{arr.conductors[k].phase}{ckt}"
+        cols = label_cols[name]
         in_arr = np.isin(sec_line, line_rows)
         if not in_arr.any():
             continue
@@ -357,8 +354,9 @@ def couple(cfg, inputs, geo) -> Coupling:
         # per ampere flowing along the electrical line from its terminal A to B
         fe = induction.fault_emf_per_m(zma, currents.fault_per_unit[inv], p_idx, unit[idx])
         along = (sec.projected_length_m[idx] * sec_dir[idx])[:, None]
-        fault_sec[idx, :len(p_idx)] = fe.emf_v_per_m * along
-        fault_unscreened[idx, :len(p_idx)] = fe.unscreened_emf_v_per_m * along
+        fault_sec[np.ix_(idx, cols)] = fe.emf_v_per_m * along
+        fault_unscreened[np.ix_(idx, cols)] = fe.unscreened_emf_v_per_m * along
+        phase_present[np.ix_(idx, cols)] = True
         # electric field: above-ground assets only
         above = idx[is_above[idx]]
         if len(above):
@@ -382,31 +380,37 @@ def couple(cfg, inputs, geo) -> Coupling:
         as_given > 0, as_given, 1.0), 1.0) * normal.emf_v
     cap_seg = _complex_bincount(sec_seg, cap_sec, n_seg)
 
-    # fault cases: one per (asset, electrical line) with any exposure
+    # fault cases: one per (asset, electrical line, faulted phase) with any exposure; the
+    # scan keeps the worst over positions and phases (docs/methods.md §18.3)
     n_route = len(sources.route_length_m)
-    case_key = sec_asset.astype(np.int64) * (n_route + 1) + sec_route
-    case_ids, case_of_sec = np.unique(case_key, return_inverse=True)
-    n_case = len(case_ids)
-    case_asset = case_ids // (n_route + 1)
-    case_route = case_ids % (n_route + 1)
-    case_line = sources.route_feature[case_route] if n_case else np.zeros(0, np.int64)
-    exposure = induction.exposure_fault_emf(fault_sec, fault_unscreened, case_of_sec, n_case)
-    worst = exposure.worst_phase
-    sec_emf = exposure.section_emf_v  # per ampere
-    # fault positions of each case and the currents fed from either end
-    case_min = np.full(n_case, np.inf)
-    case_max = np.full(n_case, -np.inf)
-    np.minimum.at(case_min, case_of_sec, sec_x)
-    np.maximum.at(case_max, case_of_sec, sec_x)
+    fc = fault_cases.fault_cases(sec_asset, sec_route, fault_sec, fault_unscreened,
+                                    phase_present, n_route)
+    n_case = len(fc)
+    n_base = int(fc.case_base.max()) + 1 if n_case else 0
+    base_route = np.zeros(n_base, np.int64)
+    base_route[fc.case_base] = fc.case_route
+    case_line = sources.route_feature[fc.case_route] if n_case else np.zeros(0, np.int64)
+    entry_sec = fc.section
+    entry_case = fc.case_of_entry
+    entry_emf = fc.emf_v_per_a  # per ampere
+    # fault positions of each (asset, line) and the currents fed from either end
+    base_of_entry = fc.case_base[entry_case]
+    case_min = np.full(n_base, np.inf)
+    case_max = np.full(n_base, -np.inf)
+    np.minimum.at(case_min, base_of_entry, sec_x[entry_sec])
+    np.maximum.at(case_max, base_of_entry, sec_x[entry_sec])
     t_line, t_pos = tower_positions(cfg, inputs, total_len)
     t_route, t_x = faultscan.route_towers(sources, t_line, t_pos)
-    positions = faultscan.fault_positions(sources, case_route, case_min, case_max, t_route, t_x)
+    base_positions = faultscan.fault_positions(sources, base_route, case_min, case_max, t_route,
+                                               t_x)
+    positions = fault_cases.expand_positions(base_positions, fc.case_base)
     side_max = np.maximum(np.abs(positions.current_start_a), np.abs(positions.current_end_a))
     case_current = side_max.max(axis=1) if n_case else np.zeros(0)
     # per (case, segment): the EMF with the largest current either end feeds
-    entry_key = case_of_sec.astype(np.int64) * n_seg + sec_seg
-    entries, entry_of_sec = np.unique(entry_key, return_inverse=True)
-    fault_emf = _complex_bincount(entry_of_sec, sec_emf * case_current[case_of_sec],
+    entry_seg = sec_seg[entry_sec]
+    entry_key = entry_case.astype(np.int64) * n_seg + entry_seg
+    entries, entry_of = np.unique(entry_key, return_inverse=True)
+    fault_emf = _complex_bincount(entry_of.ravel(), entry_emf * case_current[entry_case],
                                   len(entries))
     clearing = lines["clearing_time_s"].to_numpy(float)
     hirel = lines["high_reliability"].to_numpy(bool)
@@ -420,12 +424,13 @@ def couple(cfg, inputs, geo) -> Coupling:
     epr, step = faultscan.tower_earth_potential(cfg, geo, sources, t_route, t_x)
     return Coupling(
         segment_emf_normal_v=segment_emf_normal,
-        fault_case_asset=case_asset,
+        fault_case_asset=fc.case_asset,
         fault_case_line=case_line,
-        fault_case_phase=phase_labels[case_line, worst] if n_case else np.zeros(0, object),
+        fault_case_phase=np.asarray(labels, dtype=object)[fc.case_label] if n_case
+        else np.zeros(0, object),
         fault_case_clearing_s=clearing[case_line],
         fault_case_high_reliability=hirel[case_line],
-        fault_case_screening=exposure.screening_factor,
+        fault_case_screening=fc.screening,
         fault_seg=(entries % n_seg).astype(np.int64),
         fault_case_of_entry=(entries // n_seg).astype(np.int64),
         fault_emf_v=fault_emf,
@@ -437,10 +442,10 @@ def couple(cfg, inputs, geo) -> Coupling:
         normal_component_slot=normal.component_slot,
         normal_component_emf_v=normal.component_emf_v,
         step_voltage_fault_v=step,
-        fault_section_segment=sec_seg.astype(np.int64),
-        fault_section_case=case_of_sec.astype(np.int64),
-        fault_section_position_m=sec_x,
-        fault_section_emf_v_per_a=sec_emf,
+        fault_section_segment=entry_seg.astype(np.int64),
+        fault_section_case=entry_case,
+        fault_section_position_m=sec_x[entry_sec],
+        fault_section_emf_v_per_a=entry_emf,
         fault_positions=positions,
     )
 
