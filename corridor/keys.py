@@ -233,6 +233,11 @@ def asset_keys(cfg: Config, inputs: Inputs) -> AssetKeys:
     order = np.lexsort((rl, ra))
     ra, rl = ra[order].astype(np.int64), rl[order].astype(np.int64)
     lines_h = _grouped(n, ra, rl, line_d)
+    subs = getattr(inputs, "substations", None)
+    if subs is not None and len(subs):  # substations' earth potential reaches far: every
+        # asset's key covers the whole substation layer (docs/methods.md §18.4)
+        sub_h = _sha(*(d.encode() for d in row_digests(subs)))
+        lines_h = [_sha(h.encode(), sub_h.encode()) for h in lines_h]
     # soil polygons under the asset
     if inputs.soil is not None and len(inputs.soil):
         soil_d = row_digests(inputs.soil)

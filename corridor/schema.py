@@ -181,6 +181,19 @@ GROUND_FIELDS: tuple[FieldSpec, ...] = (
               doc="Resistance to earth of a ground [Ω]; unused for breaks."),
 )
 
+SUBSTATION_FIELDS: tuple[FieldSpec, ...] = (
+    FieldSpec("fault_current_ka", "float", low=0.0, high=300.0,
+              doc="Earth-fault current the substation's grounding grid discharges into the"
+                  " soil [kA rms]; give the whole single line-to-earth fault current for a"
+                  " conservative screen (docs/methods.md §18.4)."),
+    FieldSpec("grid_resistance_ohm", "float", low=0.001, high=1000.0,
+              doc="Resistance to remote earth of the grounding grid [Ω]; the earth"
+                  " potential rise of the grid is fault current times this resistance."),
+    FieldSpec("clearing_time_s", "float", default=None, low=0.01, high=10.0,
+              doc="Clearing time of a fault at the substation [s]; empty: the"
+                  " [line_defaults] clearing_time_s."),
+)
+
 #: Built-in defaults per asset kind. Values are typical of the trade; each
 #: carries its provenance. The config's ``[defaults.<kind>]`` overrides them.
 BUILTIN_KIND_DEFAULTS: dict[str, dict[str, object]] = {

@@ -37,7 +37,7 @@ from corridor.io.rejected import (
     log_rejected,
 )
 from corridor.registry import registry
-from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS
+from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS, SUBSTATION_FIELDS
 from corridor.settings import Spec
 
 __all__ = ["EXTENT_LIMIT_M", "LINEAR_TYPES", "REJECTED_SHOWN", "REJECT_COLUMNS", "REJECT_ROLES",
@@ -68,6 +68,8 @@ class Inputs:
     counts: dict[str, int]
     warnings: list[str]
     defaults_used: dict[str, list[str]] = field(default_factory=dict)
+    #: Optional substations (points with a fault current and a grid resistance).
+    substations: gpd.GeoDataFrame | None = None
 
 
 def _read_layer(src: LayerSource, specs: tuple[Spec, ...], defaults: dict,
@@ -240,17 +242,23 @@ def read_inputs(cfg: Config) -> Inputs:
     for role, specs, id_field, types in (
             ("soil", SOIL_FIELDS, None, ("Polygon", "MultiPolygon")),
             ("grounds", GROUND_FIELDS, "asset_id", ("Point",)),
-            ("towers", (), "line_id", ("Point",))):
-        label = {"grounds": "ground_id", "towers": "tower_id"}.get(role)
-        src = getattr(cfg, role)
-        if src is None:
+            ("towers", (), "line_id", ("Point",)),
+            ("substations", SUBSTATION_FIELDS, None, ("Point",))):
+        label = {"grounds": "ground_id", "towers": "tower_id",
+                 "substations": "substation_id"}.get(role)
+        opt_src: LayerSource | None = getattr(cfg, role, None)
+        if opt_src is None:
             optional[role] = None
             continue
+        defaults = ({"clearing_time_s": cfg.line_defaults["clearing_time_s"]}
+                    if role == "substations" and "clearing_time_s" in cfg.line_defaults
+                    else {})
         try:
             # soil: a NULL field is an empty one (homogeneous soil, no local value);
             # _soil_with_resistivity rejects a polygon that gives no resistivity at all
-            optional[role] = _read_layer(src, specs, {}, id_field, types, crs, rejected,
-                                         warnings, role == "soil", label_field=label)
+            optional[role] = _read_layer(opt_src, specs, defaults, id_field, types, crs, rejected,
+                                         warnings, role in ("soil", "substations"),
+                                         label_field=label)
         except InputError as exc:
             problems.extend(exc.problems)
     if optional.get("soil") is not None and cfg.soil is not None:
@@ -281,7 +289,7 @@ def read_inputs(cfg: Config) -> Inputs:
             counts[role] = len(frame)
     log_rejected(rejected)
     return Inputs(crs, lines, assets, optional["soil"], optional["grounds"], optional["towers"],
-                  rejected, counts, warnings, defaults_used)
+                  rejected, counts, warnings, defaults_used, optional.get("substations"))
 
 
 def _read_assets(src, cfg, crs, rejected, warnings, allow, raw,

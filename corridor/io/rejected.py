@@ -14,7 +14,7 @@ import pandas as pd
 log = logging.getLogger(__name__)
 
 #: Roles of the rows of :class:`Rejected`: which kind of input a rejected feature was.
-REJECT_ROLES = ("power_lines", "assets", "soil", "grounds", "towers")
+REJECT_ROLES = ("power_lines", "assets", "soil", "grounds", "towers", "substations")
 #: Columns of :meth:`Rejected.frame` (and of ``rejected.csv``).
 REJECT_COLUMNS = ["layer", "feature_id", "field", "reason", "role"]
 
@@ -78,7 +78,8 @@ def log_rejected(rejected: Rejected) -> None:
                     " induces are NOT assessed and the results are incomplete",
                     row["feature_id"], row["layer"], row["field"], row["reason"])
     for role, what in (("assets", "asset"), ("soil", "soil polygon"),
-                       ("grounds", "ground item"), ("towers", "tower")):
+                       ("grounds", "ground item"), ("towers", "tower"),
+                       ("substations", "substation")):
         rows = rejected.by_role(role)
         for row in rows[:REJECTED_SHOWN]:
             log.warning("%s %s rejected (layer %s, field '%s'): %s", what, row["feature_id"],

@@ -34,7 +34,7 @@ import numpy as np
 from corridor.kinds import DEFAULT_RADIUS_M
 from corridor.physics import capacitive, induction
 from corridor.registry import registry
-from corridor.steps import fault_cases, faultscan
+from corridor.steps import fault_cases, faultscan, substations
 
 log = logging.getLogger(__name__)
 
@@ -90,6 +90,9 @@ class Coupling:
     normal_component_segment: np.ndarray | None = None
     normal_component_slot: np.ndarray | None = None
     normal_component_emf_v: np.ndarray | None = None
+    #: Per segment: clearing time of the substation whose earth potential governs
+    #: earth_potential_fault_v (NaN: a tower's, or none; docs/methods.md §18.4).
+    substation_clearing_s: np.ndarray | None = None
 
 
 def _complex_bincount(index, values, n):
@@ -422,6 +425,11 @@ def couple(cfg, inputs, geo) -> Coupling:
                       np.abs(sources.currents(sec_route, sec_x).fault_a))
 
     epr, step = faultscan.tower_earth_potential(cfg, geo, sources, t_route, t_x)
+    # substations: a fault there is an event of its own; the larger earth potential counts
+    sub = substations.substation_earth_potential(cfg, inputs, geo)
+    sub_governs = sub.earth_potential_v > epr
+    epr = np.maximum(epr, sub.earth_potential_v)
+    step = np.maximum(step, sub.step_voltage_v)
     return Coupling(
         segment_emf_normal_v=segment_emf_normal,
         fault_case_asset=fc.case_asset,
@@ -447,6 +455,7 @@ def couple(cfg, inputs, geo) -> Coupling:
         fault_section_position_m=sec_x[entry_sec],
         fault_section_emf_v_per_a=entry_emf,
         fault_positions=positions,
+        substation_clearing_s=np.where(sub_governs, sub.clearing_time_s, np.nan),
     )
 
 
