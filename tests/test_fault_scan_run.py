@@ -5,7 +5,6 @@ Checks a production run (couple -> respond -> assess) against closed forms:
 - the worst over faulted phases: the scanned peak against the matched line's Green's
   function superposed for every phase and fault position (Sunde 1968; docs/methods.md
   §8.2, §18.3);
-
 - the matched-line closed form of docs/methods.md §8.2 for a fault opposite the middle
   of a uniform exposure, fed from both ends (superposition of the Green's function,
   Sunde 1968);
