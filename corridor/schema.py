@@ -40,7 +40,8 @@ def _number_list(value, allowed: tuple[float, ...] | None = None):
 TERMINATIONS = ("open", "grounded", "continuing")
 
 LINE_FIELDS: tuple[FieldSpec, ...] = (
-    FieldSpec("line_id", "str", doc="Unique id of the power line."),
+    FieldSpec("line_id", "str", doc="Id of the power line; features sharing an id are one"
+              " electrical line (docs/methods.md §18.1)."),
     FieldSpec("voltage_kv", "float", low=1.0, high=1200.0,
               doc="Nominal phase-to-phase voltage [kV]."),
     FieldSpec("arrangement", "str",

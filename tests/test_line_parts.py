@@ -15,7 +15,7 @@ import geopandas as gpd
 import numpy as np
 import pytest
 import shapely.affinity
-from shapely.geometry import LineString
+from shapely.geometry import LineString, Point
 
 from corridor.config import load_config
 from corridor.io.layers import read_inputs
@@ -42,9 +42,9 @@ def _lines(parts):
     return gpd.GeoDataFrame(rows, geometry=geoms, crs=PROJECTED_CRS)
 
 
-def _assets():
-    rows = [("P1", "pipeline", 5_000.0, 15_000.0, 100.0),
-            ("F1", "fence", 7_000.0, 9_500.0, -40.0)]
+def _assets(rows=None):
+    rows = rows or [("P1", "pipeline", 5_000.0, 15_000.0, 100.0),
+                    ("F1", "fence", 7_000.0, 9_500.0, -40.0)]
     geoms, attrs = [], {"AID": [], "KIND": [], "POST_OHM": []}
     for aid, kind, x0, x1, off in rows:
         geoms.append(LineString([(X0_M + x0, Y0_M + off), (X0_M + x1, Y0_M + off)]))
@@ -54,11 +54,11 @@ def _assets():
     return gpd.GeoDataFrame(attrs, geometry=geoms, crs=PROJECTED_CRS)
 
 
-def _config(scenario, lines, **line_defaults):
+def _config(scenario, lines, assets=None, **line_defaults):
     for i, a in enumerate(lines["TOWER"]):
         if a is None:
             lines.loc[i, "TOWER"] = scenario.arrangement
-    cfg = scenario.build(lines=lines, assets=_assets())
+    cfg = scenario.build(lines=lines, assets=_assets() if assets is None else assets)
     cfg["run"].update({"limit_set": "ieee_na", "frequency_hz": 60.0, "crs": PROJECTED_CRS,
                        "tower_span_m": 500.0, "default_soil_resistivity_ohm_m": 100.0})
     cfg["line_defaults"] = {"load_current_a": 600.0, "residual_current_pct": 5.0,
@@ -168,3 +168,62 @@ def test_line_with_a_rejected_feature_is_rejected_whole(scenario):
     assert len(rows) == 2 and len(inputs.lines) == 0
     assert "zero-length" in rows[0]["reason"]
     assert "fid:1" in rows[1]["reason"] and "another feature of line 'L1'" in rows[1]["reason"]
+
+
+def _towers(spacing_m=500.0):
+    xs = np.arange(0.0, LENGTH_M + 1.0, spacing_m)
+    return gpd.GeoDataFrame({"line_id": ["L1"] * len(xs)},
+                            geometry=[Point(X0_M + x, Y0_M) for x in xs], crs=PROJECTED_CRS)
+
+
+def test_tower_layer_on_a_split_line_gives_the_whole_line_results(scenario, tmp_path, whole):
+    # The same tower layer (one tower every 500 m, all naming L1) with the line drawn as
+    # one feature or as two: each tower stands on the part it is nearest to, so the
+    # tower earth potential and the scanned fault agree.
+    def run(root, parts):
+        lines = _lines(parts)
+        lines["TOWER"] = root.arrangement
+        cfg = root.build(lines=lines, assets=_assets())
+        cfg["run"].update({"limit_set": "ieee_na", "frequency_hz": 60.0,
+                           "crs": PROJECTED_CRS, "tower_span_m": 500.0,
+                           "default_soil_resistivity_ohm_m": 100.0})
+        cfg["line_defaults"] = {"load_current_a": 600.0, "residual_current_pct": 5.0,
+                                "fault_current_start_ka": 12.0, "fault_current_end_ka": 7.0,
+                                "clearing_time_s": 0.5}
+        path = root.write_layer(_towers(), "towers")
+        cfg["layers"]["towers"] = {"path": path.name, "layer": "towers"}
+        return run_screening(load_config(root.write_config(cfg)), asset_stages(),
+                             run_stages())
+
+    (tmp_path / "a").mkdir()
+    (tmp_path / "b").mkdir()
+    one = _table(run(scenario.__class__(tmp_path / "a"), [("L1", 0.0, LENGTH_M, {})]))
+    two = _table(run(scenario.__class__(tmp_path / "b"),
+                     [("L1", SPLIT_M, LENGTH_M, {}), ("L1", 0.0, SPLIT_M, {})]))
+    for col in ("earth_potential_fault_v", "v_step_fault_v", "v_fault_v", "fault_position_m"):
+        np.testing.assert_allclose(two[col].to_numpy(float), one[col].to_numpy(float),
+                                   rtol=1e-6, atol=1e-9, err_msg=col)
+    assert (one["earth_potential_fault_v"] > 0).any()
+
+
+def test_cache_key_of_an_asset_covers_every_part_of_its_line(scenario, tmp_path):
+    # An asset near the second part only: lengthening the first part changes the fault
+    # currents along the whole line (one route, fed from its two ends), so the asset's
+    # cache key must change with it.
+    from corridor.keys import asset_keys
+
+    far = _assets([("Q1", "pipeline", 16_000.0, 19_000.0, 100.0)])
+
+    def key(root, first_start_m):
+        cfg = _config(root, _lines([("L1", first_start_m, SPLIT_M, {}),
+                                    ("L1", SPLIT_M, LENGTH_M, {})]), assets=far)
+        inputs = read_inputs(cfg)
+        keys = asset_keys(cfg, inputs)
+        # Q1 is within reach of the second part only
+        assert list(keys.lines_of(0)) == [1]
+        return keys.table.set_index("asset_id").loc["Q1", "lines"]
+
+    (tmp_path / "a").mkdir()
+    (tmp_path / "b").mkdir()
+    assert key(scenario.__class__(tmp_path / "a"), 0.0) != key(
+        scenario.__class__(tmp_path / "b"), -3_000.0)
