@@ -193,7 +193,8 @@ def _usable_summary(cfg, inputs) -> list[tuple[str, int, int]]:
         n = (int((inputs.assets["source_layer"] == src.label).sum()) if has_source
              else len(inputs.assets) if len(cfg.assets) == 1 else -1)
         out.append((f"assets ({src.label})", n, n_rej(src.label)))
-    for role, name in (("soil", "soil"), ("grounds", "grounds"), ("towers", "towers")):
+    for role, name in (("soil", "soil"), ("grounds", "grounds"), ("towers", "towers"),
+                       ("substations", "substations")):
         src, frame = getattr(cfg, role), getattr(inputs, role)
         if src is not None:
             out.append((f"{name} ({src.label})", 0 if frame is None else len(frame),

@@ -19,7 +19,7 @@ from typing import Any
 
 from corridor.errors import ConfigError
 from corridor.registry import load_plugins, registry
-from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS
+from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS, SUBSTATION_FIELDS
 from corridor.settings import RUN_SETTINGS, FrozenMap, RunSettings
 
 __all__ = ["RUN_SETTINGS", "RunSettings", "Config", "LayerSource", "Arrangement", "Conductor",
@@ -44,7 +44,7 @@ LINE_DEFAULT_KEYS = {
 
 LAYER_KEYS = {"path", "layer", "fields", "kind", "crs", "format", "osm"}
 TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits", "uncertainty"}
-LAYER_ROLES = {"power_lines", "assets", "soil", "grounds", "towers"}
+LAYER_ROLES = {"power_lines", "assets", "soil", "grounds", "towers", "substations"}
 
 
 @dataclass(frozen=True)
@@ -54,7 +54,7 @@ class LayerSource:
     Attributes
     ----------
     role : str
-        ``power_lines``, ``assets``, ``soil``, ``grounds`` or ``towers``.
+        ``power_lines``, ``assets``, ``soil``, ``grounds``, ``towers`` or ``substations``.
     path : Path
         File path (any vector format GDAL reads).
     layer : str or None
@@ -133,6 +133,7 @@ class Config:
     arrangements_path: Path
     limit_overrides: FrozenMap
     resolved: FrozenMap = field(repr=False)
+    substations: LayerSource | None = None  # optional substation layer (docs/methods.md §18.4)
     #: The ``[uncertainty]`` section (corridor.uncertainty.settings.Bands); None: no bands.
     uncertainty: Any = None
 
@@ -556,7 +557,8 @@ def load_config(path: str | Path) -> Config:
     optional: dict[str, LayerSource | None] = {}
     for role, names in (("soil", {s.name for s in SOIL_FIELDS}),
                         ("grounds", {s.name for s in GROUND_FIELDS} | {"ground_id"}),
-                        ("towers", {"line_id", "tower_id"})):
+                        ("towers", {"line_id", "tower_id"}),
+                        ("substations", {s.name for s in SUBSTATION_FIELDS} | {"substation_id"})):
         optional[role] = (_layer(layers[role], role, f"{name}: layers.{role}", base, problems,
                                  names) if role in layers else None)
 
@@ -619,6 +621,7 @@ def load_config(path: str | Path) -> Config:
         soil=optional["soil"],
         grounds=optional["grounds"],
         towers=optional["towers"],
+        substations=optional["substations"],
         arrangements=FrozenMap(arrangements),
         arrangements_path=arr_path,
         limit_overrides=FrozenMap(limit_overrides),

@@ -216,6 +216,14 @@ def asset_keys(cfg: Config, inputs: Inputs) -> AssetKeys:
         keep = t_line >= 0  # towers of unknown lines: ignored (the reader rejects them)
         tower_h = _grouped(len(lines), t_line[keep], np.flatnonzero(keep), tw_d)
         line_d = [_sha(a.encode(), b.encode()) for a, b in zip(line_d, tower_h, strict=True)]
+    ids = lines["line_id"].astype(str).to_numpy()
+    if len(set(ids)) < len(ids):  # a line in several features is one electrical line (its
+        # fault currents depend on every part): each part's key covers all parts
+        by_id: dict[str, list[str]] = {}
+        for v, d in zip(ids, line_d, strict=True):
+            by_id.setdefault(v, []).append(d)
+        whole = {v: _sha(*(d.encode() for d in ds)) for v, ds in by_id.items() if len(ds) > 1}
+        line_d = [whole.get(v, d) for v, d in zip(ids, line_d, strict=True)]
     reach = float(cfg.run.screening_distance_m) * (1.0 + 1e-6) + 1.0
     if len(lines):
         tree = shapely.STRtree(lines.geometry.to_numpy())
@@ -225,6 +233,11 @@ def asset_keys(cfg: Config, inputs: Inputs) -> AssetKeys:
     order = np.lexsort((rl, ra))
     ra, rl = ra[order].astype(np.int64), rl[order].astype(np.int64)
     lines_h = _grouped(n, ra, rl, line_d)
+    subs = getattr(inputs, "substations", None)
+    if subs is not None and len(subs):  # substations' earth potential reaches far: every
+        # asset's key covers the whole substation layer (docs/methods.md §18.4)
+        sub_h = _sha(*(d.encode() for d in row_digests(subs)))
+        lines_h = [_sha(h.encode(), sub_h.encode()) for h in lines_h]
     # soil polygons under the asset
     if inputs.soil is not None and len(inputs.soil):
         soil_d = row_digests(inputs.soil)

@@ -40,7 +40,8 @@ def _number_list(value, allowed: tuple[float, ...] | None = None):
 TERMINATIONS = ("open", "grounded", "continuing")
 
 LINE_FIELDS: tuple[FieldSpec, ...] = (
-    FieldSpec("line_id", "str", doc="Unique id of the power line."),
+    FieldSpec("line_id", "str", doc="Id of the power line; features sharing an id are one"
+              " electrical line (docs/methods.md §18.1)."),
     FieldSpec("voltage_kv", "float", low=1.0, high=1200.0,
               doc="Nominal phase-to-phase voltage [kV]."),
     FieldSpec("arrangement", "str",
@@ -184,19 +185,35 @@ GROUND_FIELDS: tuple[FieldSpec, ...] = (
                   " read as a number ('5.0'); a ground without a valid value is rejected."),
 )
 
+SUBSTATION_FIELDS: tuple[FieldSpec, ...] = (
+    FieldSpec("fault_current_ka", "float", low=0.0, high=300.0,
+              doc="Earth-fault current the substation's grounding grid discharges into the"
+                  " soil [kA rms]; give the whole single line-to-earth fault current for a"
+                  " conservative screen (docs/methods.md §18.4)."),
+    FieldSpec("grid_resistance_ohm", "float", low=0.001, high=1000.0,
+              doc="Resistance to remote earth of the grounding grid [Ω]; the earth"
+                  " potential rise of the grid is fault current times this resistance."),
+    FieldSpec("clearing_time_s", "float", default=None, low=0.01, high=10.0,
+              doc="Clearing time of a fault at the substation [s]; empty: the"
+                  " [line_defaults] clearing_time_s."),
+)
+
 #: Fields of the towers layer (each point is projected onto its line).
 TOWER_FIELDS: tuple[FieldSpec, ...] = (
     FieldSpec("line_id", "str", doc="Line the tower belongs to; the point is projected onto"
               " the line. A tower naming an unknown or rejected line is rejected."),
 )
 
-#: The optional id field of the grounds and towers layers, by layer role: messages and
+#: The optional id field of the grounds, towers and substations layers, by layer role: messages and
 #: rejected.csv name a feature by it.
 FEATURE_ID_FIELDS: dict[str, FieldSpec] = {
     "grounds": FieldSpec("ground_id", "str", default="",
-                         doc="Id used in messages; empty: the feature's row number."),
+                         doc="Id used in messages; empty: the feature's layer FID as GDAL"
+                             " reports it, e.g. fid:12."),
     "towers": FieldSpec("tower_id", "str", default="",
-                        doc="Id used in messages; empty: the feature's row number."),
+                        doc="Id used in messages; empty: the feature's layer FID."),
+    "substations": FieldSpec("substation_id", "str", default="",
+                             doc="Id used in messages; empty: the feature's layer FID."),
 }
 
 #: Built-in defaults per asset kind. Values are typical of the trade; each

@@ -23,6 +23,7 @@ from corridor.schema import (
     GROUND_FIELDS,
     LINE_FIELDS,
     SOIL_FIELDS,
+    SUBSTATION_FIELDS,
     TOWER_FIELDS,
 )
 from corridor.settings import RUN_SETTINGS, Spec, _plain
@@ -96,16 +97,22 @@ def _field_default(spec: Spec) -> str:
     return _value(spec.default)
 
 
+#: Optional fields whose missing value comes from another table of the config.
+_FILLED_ELSEWHERE = {("substations", "clearing_time_s"): "`[line_defaults]`"}
+
+
 def other_layer_fields_table() -> str:
-    """The fields of the soil, grounds and towers layers (:mod:`corridor.schema`)."""
+    """The fields of the soil, grounds, towers and substations layers (:mod:`corridor.schema`)."""
     rows = ["| layer | field | type | default | meaning |", "|---|---|---|---|---|"]
     for layer, specs in (("soil", SOIL_FIELDS), ("grounds", GROUND_FIELDS),
-                         ("towers", TOWER_FIELDS)):
+                         ("towers", TOWER_FIELDS),
+                         ("substations", SUBSTATION_FIELDS)):
         if layer in FEATURE_ID_FIELDS:
             specs = (FEATURE_ID_FIELDS[layer], *specs)
         for spec in specs:
+            default = _FILLED_ELSEWHERE.get((layer, spec.name)) or _field_default(spec)
             rows.append(f"| {layer} | `{spec.name}` | {spec.type_label} |"
-                        f" {_field_default(spec)} | {_meaning(spec)} |")
+                        f" {default} | {_meaning(spec)} |")
     return "\n".join(rows) + "\n"
 
 

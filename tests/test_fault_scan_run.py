@@ -2,6 +2,9 @@
 
 Checks a production run (couple -> respond -> assess) against closed forms:
 
+- the worst over faulted phases: the scanned peak against the matched line's Green's
+  function superposed for every phase and fault position (Sunde 1968; docs/methods.md
+  §8.2, §18.3);
 - the matched-line closed form of docs/methods.md §8.2 for a fault opposite the middle
   of a uniform exposure, fed from both ends (superposition of the Green's function,
   Sunde 1968);
@@ -36,7 +39,8 @@ resistance_ohm_per_km = 0.0796
 """
 
 
-def _run(scenario, line_length_m, assets, arrangement=None, fault_ka=10.0):
+def _run(scenario, line_length_m, assets, arrangement=None, fault_ka=10.0,
+         coating_ohm_m2=None):
     lines = gpd.GeoDataFrame(
         {"LINE_ID": ["L1"], "KV": [138.0], "TOWER": [arrangement or scenario.arrangement]},
         geometry=[LineString([(X0_M, Y0_M), (X0_M + line_length_m, Y0_M)])], crs=PROJECTED_CRS)
@@ -49,6 +53,8 @@ def _run(scenario, line_length_m, assets, arrangement=None, fault_ka=10.0):
     cfg["line_defaults"] = {"load_current_a": 400.0, "residual_current_pct": 5.0,
                             "fault_current_start_ka": fault_ka,
                             "fault_current_end_ka": fault_ka, "clearing_time_s": 0.5}
+    if coating_ohm_m2 is not None:
+        cfg["defaults"] = {"pipeline": {"coating_resistance_ohm_m2": coating_ohm_m2}}
     return run_screening(load_config(scenario.write_config(cfg)), asset_stages(), run_stages())
 
 
@@ -74,12 +80,14 @@ def test_mid_exposure_fault_fed_from_both_ends_matches_the_closed_form(scenario)
     # the EMF per metre per ampere of the uniform exposure, and the pipe's γ, from the run
     sec = cp.fault_section_segment
     mid_seg = int(np.flatnonzero(t["chainage_m"].to_numpy() == x_f - a_m)[0])
-    e_per_a = cp.fault_section_emf_v_per_a[sec == mid_seg].sum() / 50.0
+    case = rs.fault_case_of_segment[mid_seg]  # the governing faulted phase's case
+    e_per_a = cp.fault_section_emf_v_per_a[(sec == mid_seg)
+                                           & (cp.fault_section_case == case)].sum() / 50.0
     gamma = np.sqrt(rs.model.z_ohm_per_m[mid_seg] * rs.model.y_s_per_m[mid_seg])
     # the currents fed from either end for the fault at the middle tower
     pos = cp.fault_positions
-    k = int(np.flatnonzero(pos.position_m[0] == x_f)[0])
-    i_a, i_b = pos.current_start_a[0, k], pos.current_end_a[0, k]
+    k = int(np.flatnonzero(pos.position_m[case] == x_f)[0])
+    i_a, i_b = pos.current_start_a[case, k], pos.current_end_a[case, k]
     assert i_a == pytest.approx(i_b, rel=1e-9)  # equal terminals, fault at the midpoint
     want = abs((e_per_a * i_a * (1 - np.exp(-gamma * (x_f - a_m)))
                 + e_per_a * i_b * (1 - np.exp(-gamma * (b_m - x_f)))) / (2 * gamma))
@@ -169,3 +177,59 @@ def test_grounding_site_after_voltage_is_the_worst_over_fault_positions(scenario
     local = t["earth_potential_fault_v"].to_numpy()[min(k, len(seg) - 1)]
     assert last["v_after_v"] - (local if last["in_tower_zone"] else 0.0) == pytest.approx(
         worst[k], rel=1e-6)
+
+
+def _green_peak(t, cp, case, gamma):
+    """Largest |V| at the pipeline's nodes over the case's fault positions, from the
+    matched line's Green's function (Sunde 1968; docs/methods.md §8.2):
+    V(x) = ½ ∫ E(s) sgn(x − s) e^{−γ|x − s|} ds, each segment's EMF uniform over it."""
+    sel = cp.fault_section_case == case
+    seg = cp.fault_section_segment[sel]
+    e = cp.fault_section_emf_v_per_a[sel]
+    x_line = cp.fault_section_position_m[sel]
+    c0 = t["chainage_m"].to_numpy(float)
+    c1 = c0 + t["length_m"].to_numpy(float)
+    nodes = np.r_[c0, c1[-1]]
+    pos = cp.fault_positions
+    best = 0.0
+    for k in np.flatnonzero(np.isfinite(pos.position_m[case])):
+        x_f = pos.position_m[case, k]
+        emf = np.where(x_line < x_f, e * pos.current_start_a[case, k],
+                       -e * pos.current_end_a[case, k])
+        s0, s1 = c0[seg], c1[seg]
+        ahead = nodes[:, None] >= s1[None, :]  # the segment lies before the node
+        d_near = np.where(ahead, nodes[:, None] - s1, s0 - nodes[:, None])
+        d_far = d_near + (s1 - s0)
+        w = (np.exp(-gamma * d_near) - np.exp(-gamma * d_far)) / (gamma * (s1 - s0))
+        v = 0.5 * (np.where(ahead, 1.0, -1.0) * w * emf).sum(axis=1)
+        best = max(best, float(np.abs(v).max()))
+    return best
+
+
+def test_scan_keeps_the_worst_faulted_phase_not_the_largest_total(scenario):
+    # A pipeline (leaky 2,000 Ω·m² coating, continuing beyond both ends) 5 m beside an
+    # outer phase for 3 km, then 40 m off on the line's other side for 8 km. The largest
+    # total EMF over the exposure comes from the phase nearest the long far run, but the
+    # largest voltage comes from the phase nearest the close run. The scan keeps the worst
+    # over fault positions and faulted phases (issue 14 §2). Reference: the matched
+    # line's Green's function superposed over the sections for every phase and position
+    # (docs/methods.md §8.2), within 2 %.
+    pts = [(2000.0, -5.0), (5000.0, -5.0), (5000.0, 40.0), (13000.0, 40.0)]
+    assets = gpd.GeoDataFrame({"AID": ["P1"], "KIND": ["pipeline"], "POST_OHM": [100.0]},
+                              geometry=[LineString([(X0_M + x, Y0_M + y) for x, y in pts])],
+                              crs=PROJECTED_CRS)
+    run = _run(scenario, 20_000.0, assets, coating_ohm_m2=2000.0)
+    cp, rs = run.coupling, run.response
+    t = run.segment_table.sort_values("chainage_m").reset_index(drop=True)
+    assert list(cp.fault_case_phase) == ["A1", "B1", "C1"]  # one case per faulted phase
+    gamma = np.sqrt(rs.model.z_ohm_per_m[0] * rs.model.y_s_per_m[0])
+    peaks = {cp.fault_case_phase[c]: _green_peak(t, cp, c, gamma) for c in range(3)}
+    totals = {cp.fault_case_phase[c]: abs(cp.fault_section_emf_v_per_a[
+        cp.fault_section_case == c].sum()) for c in range(3)}
+    by_total = max(totals, key=totals.get)
+    worst = max(peaks, key=peaks.get)
+    assert worst != by_total  # the one-phase rule of old would pick the wrong phase
+    assert peaks[worst] > 1.01 * peaks[by_total]
+    k = int(np.argmax(t["v_fault_v"].to_numpy()))
+    assert t["v_fault_v"].iloc[k] == pytest.approx(peaks[worst], rel=0.02)
+    assert t["fault_phase"].iloc[k] == worst

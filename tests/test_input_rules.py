@@ -49,7 +49,8 @@ def test_rejected_rows_carry_a_role():
     assert list(Rejected().frame().columns) == REJECT_COLUMNS  # empty, same columns
     with pytest.raises(ValueError, match="unknown role"):
         rej.add("x", "1", "f", "r", role="lines")
-    assert set(REJECT_ROLES) == {"power_lines", "assets", "soil", "grounds", "towers"}
+    assert set(REJECT_ROLES) == {"power_lines", "assets", "soil", "grounds", "towers",
+                                 "substations"}
 
 
 def _lines_with(scenario, **columns) -> gpd.GeoDataFrame:

@@ -211,6 +211,35 @@ def _bad_assets() -> gpd.GeoDataFrame:
         ], crs=PROJECTED_CRS)
 
 
+@pytest.mark.parametrize("driver", ["GPKG", "ESRI Shapefile"])
+def test_feature_without_id_is_named_by_its_fid(scenario, driver):
+    # Issue 16 §3: an asset without an id is named by its layer FID, as GDAL reports it
+    # (GeoPackage: the primary key, from 1; Shapefile: the record number, from 0). The
+    # reference is pyogrio's own FID (read_dataframe(fid_as_index=True)), not the row.
+    source = _three_assets()
+    source.loc[1, "AID"] = None
+    source.loc[2, "AID"] = None
+    source.loc[2, "POST_OHM"] = -1.0  # a bad value too: rejected, named by its FID
+    source.loc[2, "KIND"] = "fence"
+    cfg = scenario.build(driver, assets=source)
+    entry = cfg["layers"]["assets"][0]
+    cfg["run"]["use_kind_defaults"] = False
+    fids = pyogrio.read_dataframe(scenario.root / entry["path"], layer=entry.get("layer"),
+                                  fid_as_index=True).index.to_numpy()
+    assert fids[1] == (2 if driver == "GPKG" else 1)  # GDAL's FID conventions
+    inputs = _read(scenario, cfg)
+    rows = {r["feature_id"]: r for r in inputs.rejected.rows}
+    assert set(rows) == {f"fid:{fids[1]}", f"fid:{fids[2]}"}
+    assert rows[f"fid:{fids[1]}"]["reason"] == "missing id"
+    assert rows[f"fid:{fids[2]}"]["reason"] == "missing id"
+    # a feature with an id but a bad value keeps its id
+    source.loc[2, "AID"] = "F9"
+    cfg = scenario.build(driver, assets=source)
+    cfg["run"]["use_kind_defaults"] = False
+    inputs = _read(scenario, cfg)
+    assert {r["feature_id"] for r in inputs.rejected.rows} == {f"fid:{fids[1]}", "F9"}
+
+
 # Shapefile and FlatGeobuf cannot hold a Point beside lines or an empty geometry.
 @pytest.mark.parametrize("driver", ["GPKG", "GeoJSON"])
 def test_bad_features_rejected_with_reasons(scenario, driver):
@@ -228,7 +257,11 @@ def test_bad_features_rejected_with_reasons(scenario, driver):
     reason_a4 = rows[("A4", "geometry")]["reason"]
     assert "empty" in reason_a4 or "no geometry" in reason_a4  # a driver may store NULL
     assert "zero-length" in rows[("A5", "geometry")]["reason"]
-    assert rows[("#5", "AID")]["reason"] == "missing id"  # feature #5: 0-based position
+    # the feature without an id is named by its FID as GDAL reports it (pyogrio, fid_as_index)
+    fids = pyogrio.read_dataframe(scenario.root / cfg["layers"]["assets"][0]["path"],
+                                  layer=cfg["layers"]["assets"][0].get("layer"),
+                                  fid_as_index=True).index
+    assert rows[(f"fid:{fids[5]}", "AID")]["reason"] == "missing id"
     assert len(inputs.rejected.rows) == 4
 
 

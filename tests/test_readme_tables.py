@@ -55,7 +55,13 @@ def test_other_layer_fields_are_the_ones_the_config_accepts(tmp_path):
 
     from corridor.config import load_config
     from corridor.errors import ConfigError
-    from corridor.schema import FEATURE_ID_FIELDS, GROUND_FIELDS, SOIL_FIELDS, TOWER_FIELDS
+    from corridor.schema import (
+        FEATURE_ID_FIELDS,
+        GROUND_FIELDS,
+        SOIL_FIELDS,
+        SUBSTATION_FIELDS,
+        TOWER_FIELDS,
+    )
 
     table = TABLES["other_layer_fields"]()
     listed: dict[str, list[str]] = {}
@@ -66,6 +72,8 @@ def test_other_layer_fields_are_the_ones_the_config_accepts(tmp_path):
         "soil": [s.name for s in SOIL_FIELDS],
         "grounds": [FEATURE_ID_FIELDS["grounds"].name, *(s.name for s in GROUND_FIELDS)],
         "towers": [FEATURE_ID_FIELDS["towers"].name, *(s.name for s in TOWER_FIELDS)],
+        "substations": [FEATURE_ID_FIELDS["substations"].name,
+                        *(s.name for s in SUBSTATION_FIELDS)],
     }
     demo = (README.parent / "config" / "demo.toml").read_text(encoding="utf-8")
     demo = demo.replace('"../sample_layers/', f'"{README.parent.as_posix()}/sample_layers/')

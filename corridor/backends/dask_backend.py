@@ -193,7 +193,8 @@ def compute_partition(packed_cfg, shared: dict, path: str, kinds: dict, stages: 
         grounds = grounds[grounds["asset_id"].isin(assets["asset_id"])].reset_index(drop=True)
     inputs = Inputs(crs=shared["crs"], lines=shared["lines"], assets=assets,
                     soil=shared["soil"], grounds=grounds, towers=shared["towers"],
-                    rejected=Rejected(), counts=dict(shared["counts"]), warnings=[])
+                    rejected=Rejected(), counts=dict(shared["counts"]), warnings=[],
+                    substations=shared.get("substations"))
     read_s = time.perf_counter() - t0
     run = pipeline_compute(cfg, inputs, stages)
     tables = partitions.partition_tables(run, inputs)
@@ -333,7 +334,7 @@ def compute_dask(cfg: Config, inputs: Inputs, stages: dict | None = None,
             t0 = time.perf_counter()
             shared = {"crs": inputs.crs, "lines": inputs.lines, "soil": inputs.soil,
                       "grounds": inputs.grounds, "towers": inputs.towers,
-                      "counts": dict(inputs.counts)}
+                      "substations": inputs.substations, "counts": dict(inputs.counts)}
             shared_f, cfg_f = client.scatter([shared, pack_config(cfg)], broadcast=True,
                                              hash=False)
             futures = [client.submit(compute_partition, cfg_f, shared_f, p, kinds, stages,

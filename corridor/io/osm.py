@@ -108,7 +108,7 @@ def read_osm(src, read) -> gpd.GeoDataFrame:
     one row per joined line or asset, in the extract's CRS (EPSG:4326). Its
     ``attrs[NOTES]`` holds what :func:`settle` records: rejected ways, warnings
     and the defaults used. ``read(src)`` reads a plain GDAL layer (the caller's
-    :func:`corridor.io.layers.read_raw`, with its error messages).
+    :func:`corridor.io.raw.read_raw`, with its error messages).
 
     Raises
     ------

@@ -68,6 +68,11 @@ def response_columns(run, rs, t) -> None:
     t["fault_position_m"] = rs.fault_position_m
     t["fault_phase"] = by_case(cp.fault_case_phase, "")
     t["clearing_time_s"] = by_case(cp.fault_case_clearing_s, np.nan).astype(float)
+    sub_clear = getattr(cp, "substation_clearing_s", None)
+    if sub_clear is not None:  # a substation's earth potential governs: the longer time
+        sc = np.asarray(sub_clear, float)[sel]
+        ct = t["clearing_time_s"].to_numpy(float)
+        t["clearing_time_s"] = np.where(np.isfinite(sc), np.fmax(ct, sc), ct)
     t["high_reliability"] = by_case(cp.fault_case_high_reliability, False).astype(bool)
     t["screening_factor"] = by_case(np.abs(cp.fault_case_screening), np.nan).astype(float)
     t["fault_current_ka"] = cp.segment_fault_current_a[sel] / 1000.0

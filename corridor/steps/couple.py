@@ -12,8 +12,9 @@ Rules (documented in the README, Method):
   lines share one phase reference (phase A at 0°), the usual assumption for
   one synchronous network.
 - Earth fault: one faulted electrical line at a time (the features sharing a
-  ``line_id``); for each (asset, line) the faulted phase is the one giving the
-  largest total EMF on the asset per ampere. The fault is fed from both ends
+  ``line_id``), and every phase of it in turn: one fault case per (asset, line,
+  phase) (:mod:`corridor.steps.fault_cases`), so the response stage keeps the worst
+  over fault positions and faulted phases. The fault is fed from both ends
   of the line (two-terminal source model, docs/methods.md §8.1): this stage
   gives each section its EMF per ampere and its position along the line, and
   each case its fault positions with the currents from either end; the
@@ -33,7 +34,14 @@ import numpy as np
 from corridor.kinds import DEFAULT_RADIUS_M
 from corridor.physics import capacitive, induction
 from corridor.registry import registry
-from corridor.steps import faultscan
+from corridor.steps import fault_cases, faultscan, substations
+from corridor.steps.normal_load import (  # noqa: F401  (public names of this stage)
+    LineLoading,
+    WorstNormal,
+    line_loading,
+    normal_load_assumption,
+    worst_case_normal,
+)
 
 log = logging.getLogger(__name__)
 
@@ -48,18 +56,18 @@ class Coupling:
         EMF of the section along the asset's direction, normal load [V].
     segment_emf_normal_v : complex, per segment
     fault_case_asset, fault_case_line : int, per fault case
-        One case per (asset, line within reach).
+        One case per (asset, line within reach, faulted phase).
     fault_seg, fault_case_of_entry, fault_emf_v : per (case, segment)
         The segment's EMF per case with the largest current either end feeds
         for any scanned position [V] (the scan itself is in the response stage).
-    fault_phase : str, per case
-        The faulted phase chosen.
+    fault_case_phase : str, per case
+        The case's faulted phase (``A1``: phase A of circuit 1).
     capacitive_current_a : complex, per segment
         Current the segment would drive to earth if grounded [A].
     earth_potential_fault_v : float, per segment
         Largest earth potential at the segment from a tower footing in a fault [V].
-    screening_factor : complex, per fault case
-        |E with earth wires| / |E without| for the chosen phase.
+    fault_case_screening : complex, per fault case
+        Σ E with earth wires / Σ E without, over the case's sections, for its phase.
     """
 
     segment_emf_normal_v: np.ndarray
@@ -89,6 +97,9 @@ class Coupling:
     normal_component_segment: np.ndarray | None = None
     normal_component_slot: np.ndarray | None = None
     normal_component_emf_v: np.ndarray | None = None
+    #: Per segment: clearing time of the substation whose earth potential governs
+    #: earth_potential_fault_v (NaN: a tower's, or none; docs/methods.md §18.4).
+    substation_clearing_s: np.ndarray | None = None
 
 
 def _complex_bincount(index, values, n):
@@ -109,127 +120,6 @@ def _arrangement_arrays(arr):
     for ci in range(arr.n_circuits):
         phasing.append("".join(c.phase for c in cond if c.circuit == ci))
     return x, h, r, gmr, res, phase_idx, ew_idx, phasing
-
-
-@dataclass
-class LineLoading:
-    """Per-circuit normal loading of every line and the N−1 outage scenarios.
-
-    Attributes
-    ----------
-    circuit_load_a, circuit_direction, circuit_offset_deg : list of ndarray, per line
-        Load current [A], flow direction (+1 along the digitised direction, −1
-        against) and phase-angle offset [deg] of each circuit, the line's own
-        direction and offset folded in where they are given.
-    group : ndarray of int, per line
-        Phase group: 0 for lines whose flow direction and phase offset are both
-        given (one common reference), a group of its own for every other line
-        (relative direction and angle unknown: the worst case over them).
-    known : ndarray of bool, per line
-        Direction and angle given.
-    weights : ndarray, shape (n_lines, n_scenarios, max_circuits)
-        Circuit weights per scenario (:func:`corridor.physics.induction.outage_weights`);
-        scenario 0 is the loading as given, rows a line lacks repeat it.
-    n_scenarios : int
-    """
-
-    circuit_load_a: list
-    circuit_direction: list
-    circuit_offset_deg: list
-    group: np.ndarray
-    known: np.ndarray
-    weights: np.ndarray
-    n_scenarios: int
-
-
-def _per_circuit(lines, li, field, n, default):
-    """Per-circuit values of a line field: ``"400;300"``, one number for all, or missing."""
-    from corridor.errors import InputError
-
-    if field not in lines:
-        return np.full(n, default, float)
-    raw = lines[field].iloc[li]
-    if raw is None or (isinstance(raw, float) and not np.isfinite(raw)):
-        return np.full(n, default, float)
-    parts = [p.strip() for p in str(raw).replace(",", ";").split(";") if p.strip()]
-    if not parts:
-        return np.full(n, default, float)
-    try:
-        values = np.array([float(p) for p in parts])
-    except ValueError:
-        raise InputError(f"power_lines: line {lines['line_id'].iloc[li]!r}, field {field}:"
-                         f" {raw!r} is not a number or a ';'-separated list of numbers") from None
-    if values.size == 1:
-        values = np.full(n, values[0])
-    if values.size != n:
-        raise InputError(f"power_lines: line {lines['line_id'].iloc[li]!r}, field {field}:"
-                         f" {values.size} values for {n} circuits")
-    return values
-
-
-def line_loading(cfg, lines, n_circuits_by_arrangement) -> LineLoading:
-    """Per-circuit loading of every line, its phase group and the outage scenarios.
-
-    Line fields (all optional): ``circuit_load_current_a``, ``circuit_flow_direction``
-    and ``circuit_phase_offset_deg`` (one value or ``"a;b"`` per circuit; defaults
-    ``load_current_a``, +1 and 0), ``flow_direction`` (±1) and ``phase_offset_deg``
-    against the common reference. Where the line's direction or offset is missing it
-    is unknown, and the coupling takes the worst case over it (docs/methods.md §8).
-    Run setting ``outage_scenario`` (default true): also evaluate each circuit of a
-    multi-circuit line out of service with the others carrying the line's total.
-    """
-    n_lines = len(lines)
-    load = lines["load_current_a"].to_numpy(float)
-    arr_names = lines["arrangement"].to_numpy(dtype=object)
-    direction = (lines["flow_direction"].to_numpy(float) if "flow_direction" in lines
-                 else np.full(n_lines, np.nan))
-    offset = (lines["phase_offset_deg"].to_numpy(float) if "phase_offset_deg" in lines
-              else np.full(n_lines, np.nan))
-    known = np.isfinite(direction) & np.isfinite(offset)
-    group = np.where(known, 0, 1 + np.arange(n_lines))
-    outage = bool(cfg.run.outage_scenario)
-    max_nc = max(n_circuits_by_arrangement.values(), default=1)
-    n_scen = 1 + max_nc if (outage and max_nc > 1) else 1
-    weights = np.ones((n_lines, n_scen, max_nc))
-    loads, dirs, offs = [], [], []
-    for li in range(n_lines):
-        nc = n_circuits_by_arrangement.get(arr_names[li], 1)
-        c_load = _per_circuit(lines, li, "circuit_load_current_a", nc, load[li])
-        c_dir = _per_circuit(lines, li, "circuit_flow_direction", nc, 1.0)
-        c_off = _per_circuit(lines, li, "circuit_phase_offset_deg", nc, 0.0)
-        line_dir = direction[li] if np.isfinite(direction[li]) else 1.0
-        line_off = offset[li] if np.isfinite(offset[li]) else 0.0
-        loads.append(c_load)
-        dirs.append(c_dir * line_dir)
-        offs.append(c_off + line_off)
-        if n_scen > 1 and nc > 1:
-            w = induction.outage_weights(c_load)
-            weights[li, :len(w), :nc] = w
-    return LineLoading(loads, dirs, offs, group, known, weights, n_scen)
-
-
-
-def normal_load_assumption(cfg, lines) -> str:
-    """Plain-language statement of the normal-load unknowns and how they are bounded.
-
-    For run.json (``normal_load_assumption``) and the report (docs/methods.md §8).
-    """
-    n_lines = len(lines)
-    given = np.zeros(n_lines, bool)
-    if "flow_direction" in lines and "phase_offset_deg" in lines:
-        given = (np.isfinite(lines["flow_direction"].to_numpy(float))
-                 & np.isfinite(lines["phase_offset_deg"].to_numpy(float)))
-    text = ("Normal load: the flow direction and phase angle of each power line relative to"
-            " the others are unknown unless the line gives flow_direction and phase_offset_deg"
-            f" ({int(n_lines - given.sum())} of {n_lines} lines give neither or only one), and"
-            " the residual current's angle is unknown; the normal-load EMF, voltage and current"
-            " are the worst case over these angles (the sum of the magnitudes of the"
-            " independent parts).")
-    if bool(cfg.run.outage_scenario):
-        text += (" Each circuit of a multi-circuit line is also taken out of service in turn,"
-                 " the others carrying the line's total load; the worse case is kept and named"
-                 " in the column normal_scenario.")
-    return text
 
 
 def couple(cfg, inputs, geo) -> Coupling:
@@ -272,35 +162,32 @@ def couple(cfg, inputs, geo) -> Coupling:
     unit = np.ones(len(sec))
 
     emf_normal_sec = np.zeros(len(sec), complex)
-    loading = line_loading(cfg, lines, {n: a.n_circuits for n, a in cfg.arrangements.items()})
+    loading = line_loading(cfg, lines, {n: a.n_circuits for n, a in cfg.arrangements.items()},
+                           sources.route, sources.direction)
     n_scen = loading.n_scenarios
     # per section: balanced and residual EMF of its line in each loading scenario [V]
     bal_sec = np.zeros((len(sec), n_scen), complex)
     res_sec = np.zeros((len(sec), n_scen), complex)
     cap_sec = np.zeros(len(sec), complex)
-    # fault EMF per section per candidate phase (up to 6 phases per arrangement)
-    max_phases = max((len(_arrangement_arrays(a)[5]) for a in cfg.arrangements.values()),
-                     default=3)
-    fault_sec = np.zeros((len(sec), max_phases), complex)
-    fault_unscreened = np.zeros((len(sec), max_phases), complex)
-    phase_labels = np.full((len(lines), max_phases), "", dtype=object)
+    # fault EMF per section per phase label (A1, B1, ..., matched across arrangements)
+    labels, label_cols = fault_cases.phase_columns(cfg.arrangements)
+    fault_sec = np.zeros((len(sec), len(labels)), complex)
+    fault_unscreened = np.zeros((len(sec), len(labels)), complex)
+    phase_present = np.zeros((len(sec), len(labels)), bool)
     resid = lines["residual_current_pct"].to_numpy(float)
     kv = lines["voltage_kv"].to_numpy(float)
     arr_names = lines["arrangement"].to_numpy(dtype=object)
     is_above = asset_h > 0.0
     asset_radius = _asset_radius(assets)[sec_asset]
     wire_count = _bonded_wire_count(assets)[sec_asset]
-    share = section_share(pairs, sec)
+    share = section_share(pairs, sec) * _alongside(pairs, seg, geo.edges)[sec.pair]
 
     for name in sorted(set(arr_names)):
         arr = cfg.arrangements[name]
         x, h, r, gmr, res, p_idx, s_idx, phasing = _arrangement_arrays(arr)
         conductor_phase = [c.phase if c.circuit >= 0 else "" for c in arr.conductors]
         line_rows = np.flatnonzero(arr_names == name)
-        for li in line_rows:
-            for j, k in enumerate(p_idx):
-                ckt = arr.conductors[k].circuit + 1
-                phase_labels[li, j] = f"{arr.conductors[k].phase}{ckt}"
+        cols = label_cols[name]
         in_arr = np.isin(sec_line, line_rows)
         if not in_arr.any():
             continue
@@ -345,8 +232,9 @@ def couple(cfg, inputs, geo) -> Coupling:
         # per ampere flowing along the electrical line from its terminal A to B
         fe = induction.fault_emf_per_m(zma, currents.fault_per_unit[inv], p_idx, unit[idx])
         along = (sec.projected_length_m[idx] * sec_dir[idx])[:, None]
-        fault_sec[idx, :len(p_idx)] = fe.emf_v_per_m * along
-        fault_unscreened[idx, :len(p_idx)] = fe.unscreened_emf_v_per_m * along
+        fault_sec[np.ix_(idx, cols)] = fe.emf_v_per_m * along
+        fault_unscreened[np.ix_(idx, cols)] = fe.unscreened_emf_v_per_m * along
+        phase_present[np.ix_(idx, cols)] = True
         # electric field: above-ground assets only
         above = idx[is_above[idx]]
         if len(above):
@@ -362,7 +250,7 @@ def couple(cfg, inputs, geo) -> Coupling:
 
     segment_emf_normal = _complex_bincount(sec_seg, emf_normal_sec, n_seg)
     normal = worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading, n_seg,
-                               lines["line_id"].to_numpy(dtype=object))
+                               lines["line_id"].to_numpy(dtype=object), sources.route)
     # the EMF columns carry the worst case over the unknowns, with the phase of the loading
     # as given (the response solves the components separately: Coupling.normal_*)
     as_given = np.abs(segment_emf_normal)
@@ -370,31 +258,37 @@ def couple(cfg, inputs, geo) -> Coupling:
         as_given > 0, as_given, 1.0), 1.0) * normal.emf_v
     cap_seg = _complex_bincount(sec_seg, cap_sec, n_seg)
 
-    # fault cases: one per (asset, electrical line) with any exposure
+    # fault cases: one per (asset, electrical line, faulted phase) with any exposure; the
+    # scan keeps the worst over positions and phases (docs/methods.md §18.3)
     n_route = len(sources.route_length_m)
-    case_key = sec_asset.astype(np.int64) * (n_route + 1) + sec_route
-    case_ids, case_of_sec = np.unique(case_key, return_inverse=True)
-    n_case = len(case_ids)
-    case_asset = case_ids // (n_route + 1)
-    case_route = case_ids % (n_route + 1)
-    case_line = sources.route_feature[case_route] if n_case else np.zeros(0, np.int64)
-    exposure = induction.exposure_fault_emf(fault_sec, fault_unscreened, case_of_sec, n_case)
-    worst = exposure.worst_phase
-    sec_emf = exposure.section_emf_v  # per ampere
-    # fault positions of each case and the currents fed from either end
-    case_min = np.full(n_case, np.inf)
-    case_max = np.full(n_case, -np.inf)
-    np.minimum.at(case_min, case_of_sec, sec_x)
-    np.maximum.at(case_max, case_of_sec, sec_x)
+    fc = fault_cases.fault_cases(sec_asset, sec_route, fault_sec, fault_unscreened,
+                                    phase_present, n_route)
+    n_case = len(fc)
+    n_base = int(fc.case_base.max()) + 1 if n_case else 0
+    base_route = np.zeros(n_base, np.int64)
+    base_route[fc.case_base] = fc.case_route
+    case_line = sources.route_feature[fc.case_route] if n_case else np.zeros(0, np.int64)
+    entry_sec = fc.section
+    entry_case = fc.case_of_entry
+    entry_emf = fc.emf_v_per_a  # per ampere
+    # fault positions of each (asset, line) and the currents fed from either end
+    base_of_entry = fc.case_base[entry_case]
+    case_min = np.full(n_base, np.inf)
+    case_max = np.full(n_base, -np.inf)
+    np.minimum.at(case_min, base_of_entry, sec_x[entry_sec])
+    np.maximum.at(case_max, base_of_entry, sec_x[entry_sec])
     t_line, t_pos = tower_positions(cfg, inputs, total_len)
     t_route, t_x = faultscan.route_towers(sources, t_line, t_pos)
-    positions = faultscan.fault_positions(sources, case_route, case_min, case_max, t_route, t_x)
+    base_positions = faultscan.fault_positions(sources, base_route, case_min, case_max, t_route,
+                                               t_x)
+    positions = fault_cases.expand_positions(base_positions, fc.case_base)
     side_max = np.maximum(np.abs(positions.current_start_a), np.abs(positions.current_end_a))
     case_current = side_max.max(axis=1) if n_case else np.zeros(0)
     # per (case, segment): the EMF with the largest current either end feeds
-    entry_key = case_of_sec.astype(np.int64) * n_seg + sec_seg
-    entries, entry_of_sec = np.unique(entry_key, return_inverse=True)
-    fault_emf = _complex_bincount(entry_of_sec, sec_emf * case_current[case_of_sec],
+    entry_seg = sec_seg[entry_sec]
+    entry_key = entry_case.astype(np.int64) * n_seg + entry_seg
+    entries, entry_of = np.unique(entry_key, return_inverse=True)
+    fault_emf = _complex_bincount(entry_of.ravel(), entry_emf * case_current[entry_case],
                                   len(entries))
     clearing = lines["clearing_time_s"].to_numpy(float)
     hirel = lines["high_reliability"].to_numpy(bool)
@@ -406,14 +300,20 @@ def couple(cfg, inputs, geo) -> Coupling:
                       np.abs(sources.currents(sec_route, sec_x).fault_a))
 
     epr, step = faultscan.tower_earth_potential(cfg, geo, sources, t_route, t_x)
+    # substations: a fault there is an event of its own; the larger earth potential counts
+    sub = substations.substation_earth_potential(cfg, inputs, geo)
+    sub_governs = sub.earth_potential_v > epr
+    epr = np.maximum(epr, sub.earth_potential_v)
+    step = np.maximum(step, sub.step_voltage_v)
     return Coupling(
         segment_emf_normal_v=segment_emf_normal,
-        fault_case_asset=case_asset,
+        fault_case_asset=fc.case_asset,
         fault_case_line=case_line,
-        fault_case_phase=phase_labels[case_line, worst] if n_case else np.zeros(0, object),
+        fault_case_phase=np.asarray(labels, dtype=object)[fc.case_label] if n_case
+        else np.zeros(0, object),
         fault_case_clearing_s=clearing[case_line],
         fault_case_high_reliability=hirel[case_line],
-        fault_case_screening=exposure.screening_factor,
+        fault_case_screening=fc.screening,
         fault_seg=(entries % n_seg).astype(np.int64),
         fault_case_of_entry=(entries // n_seg).astype(np.int64),
         fault_emf_v=fault_emf,
@@ -425,70 +325,13 @@ def couple(cfg, inputs, geo) -> Coupling:
         normal_component_slot=normal.component_slot,
         normal_component_emf_v=normal.component_emf_v,
         step_voltage_fault_v=step,
-        fault_section_segment=sec_seg.astype(np.int64),
-        fault_section_case=case_of_sec.astype(np.int64),
-        fault_section_position_m=sec_x,
-        fault_section_emf_v_per_a=sec_emf,
+        fault_section_segment=entry_seg.astype(np.int64),
+        fault_section_case=entry_case,
+        fault_section_position_m=sec_x[entry_sec],
+        fault_section_emf_v_per_a=entry_emf,
         fault_positions=positions,
+        substation_clearing_s=np.where(sub_governs, sub.clearing_time_s, np.nan),
     )
-
-
-@dataclass
-class WorstNormal:
-    """Result of :func:`worst_case_normal`."""
-
-    emf_v: np.ndarray  # worst |EMF| per segment [V]
-    governing: np.ndarray  # scenario label per segment
-    component_segment: np.ndarray
-    component_slot: np.ndarray
-    component_emf_v: np.ndarray
-
-
-def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: LineLoading,
-                      n_seg, line_ids) -> WorstNormal:
-    """Worst-case normal-load EMF per segment and its independent components.
-
-    The worst |EMF| over unknown relative directions and angles and over the N−1 outage
-    scenarios comes from :func:`corridor.physics.induction.worst_normal_emf` (closed form:
-    Σ over phase groups of |group phasor sum| + Σ over lines of |residual|). The
-    components (each phase group's balanced EMF, each line's residual EMF, in the
-    segment's governing scenario) are what the response solves one by one: the worst
-    voltage at a node is then Σ |V_component| (docs/methods.md §8).
-    """
-    worst = induction.worst_normal_emf(sec_seg, sec_line, loading.group[sec_line], bal_sec,
-                                       res_sec, n_seg)
-    n_sec = len(sec_seg)
-    # scenario of each section: the governing outage where it concerns the section's line
-    gov_line = np.where(worst.governing_entry >= 0,
-                        sec_line[np.maximum(worst.governing_entry, 0)] if n_sec else -1, -1)
-    scen = np.where(gov_line[sec_seg] == sec_line, worst.governing_scenario[sec_seg], 0)
-    rows = np.arange(n_sec)
-    bal = bal_sec[rows, scen] if n_sec else np.zeros(0, complex)
-    res = res_sec[rows, scen] if n_sec else np.zeros(0, complex)
-    governing = np.full(n_seg, "as given", dtype=object)
-    for k in np.flatnonzero(worst.governing_entry >= 0):
-        governing[k] = (f"outage {line_ids[gov_line[k]]} circuit"
-                        f" {int(worst.governing_scenario[k])}")
-    # components: (asset, phase group) balanced, (asset, line) residual
-    n_lines = len(loading.group)
-    comp_key = np.concatenate([sec_asset.astype(np.int64) * (2 * n_lines + 2)
-                               + loading.group[sec_line],
-                               sec_asset.astype(np.int64) * (2 * n_lines + 2) + n_lines + 1
-                               + sec_line])
-    values = np.concatenate([bal, res])
-    segs = np.concatenate([sec_seg, sec_seg])
-    comps, comp_of = np.unique(comp_key, return_inverse=True)
-    comp_of = comp_of.ravel()
-    entry_key = comp_of.astype(np.int64) * max(n_seg, 1) + segs
-    entries, entry_of = np.unique(entry_key, return_inverse=True)
-    emf = _complex_bincount(entry_of.ravel(), values, len(entries))
-    entry_comp = entries // max(n_seg, 1)
-    entry_seg = entries % max(n_seg, 1)
-    comp_asset = comps // (2 * n_lines + 2)
-    first = np.searchsorted(comp_asset, comp_asset, side="left")
-    slot = (np.arange(len(comps)) - first)[entry_comp]
-    return WorstNormal(worst.emf_v, governing, entry_seg.astype(np.int64),
-                       slot.astype(np.int64), emf)
 
 
 def section_share(pairs, sec) -> np.ndarray:
@@ -509,6 +352,39 @@ def section_share(pairs, sec) -> np.ndarray:
     projects = pair_proj > 1e-9
     return np.where(projects, np.abs(sec.projected_length_m) / np.where(projects, pair_proj,
                                                                          1.0), by_sep)
+
+
+def _alongside(pairs, segments, edges) -> np.ndarray:
+    """Fraction of each pair's segment that lies alongside the line feature, 0-1.
+
+    The segment's projection on its edge clipped at the feature's ends, over the
+    unclipped one: 1 beside the line, 0 for a segment wholly beyond an end, the
+    part alongside for one straddling an end. A segment at 90° counts whole where
+    its foot lies on the feature. The electric field of a line (two-dimensional
+    model, docs/methods.md §3) acts only alongside it, so a segment beyond a line's
+    end picks up nothing from it, and a line drawn as several features gives the
+    pickup of the line as one feature (no segment counted twice at a joint;
+    docs/methods.md §18).
+    """
+    n = len(pairs)
+    if n == 0:
+        return np.ones(0)
+    e = edges.segments
+    ej = pairs.edge
+    si = pairs.segment
+    elen = np.where(e.length_m[ej] > 0, e.length_m[ej], 1.0)
+    tx = (e.x1_m[ej] - e.x0_m[ej]) / elen
+    ty = (e.y1_m[ej] - e.y0_m[ej]) / elen
+    sa = (segments.x0_m[si] - e.x0_m[ej]) * tx + (segments.y0_m[si] - e.y0_m[ej]) * ty
+    sb = (segments.x1_m[si] - e.x0_m[ej]) * tx + (segments.y1_m[si] - e.y0_m[ej]) * ty
+    lo = np.where(edges.is_first[ej], 0.0, -np.inf)
+    hi = np.where(edges.is_last[ej], e.length_m[ej], np.inf)
+    raw = np.abs(sb - sa)
+    clipped = np.abs(np.clip(sb, lo, hi) - np.clip(sa, lo, hi))
+    tiny = raw <= 1e-9 * np.maximum(segments.length_m[si], 1e-9)
+    foot = 0.5 * (sa + sb)
+    inside = ((foot >= lo) & (foot <= hi)).astype(float)
+    return np.where(tiny, inside, np.minimum(clipped / np.where(tiny, 1.0, raw), 1.0))
 
 
 #: Vertical spacing of bonded fence wires for the electric-field bundle [m] (common
@@ -544,6 +420,29 @@ def _asset_radius(assets) -> np.ndarray:
     return out
 
 
+def _tower_feature(lines, towers) -> np.ndarray:
+    """Feature each tower stands on: the nearest feature of its line (-1: unknown line).
+
+    A line drawn in several features (one ``line_id``) gets each tower on the feature
+    it is nearest to (docs/methods.md §18).
+    """
+    import shapely
+
+    parts: dict[str, list[int]] = {}
+    for i, v in enumerate(lines["line_id"].astype(str)):
+        parts.setdefault(v, []).append(i)
+    geoms = lines.geometry.to_numpy()
+    out = np.full(len(towers), -1, np.int64)
+    for k, (v, pt) in enumerate(zip(towers["line_id"].astype(str), towers.geometry,
+                                    strict=True)):
+        cand = parts.get(v)
+        if not cand:
+            continue
+        out[k] = cand[int(np.argmin(shapely.distance(geoms[cand], pt)))] if len(cand) > 1 \
+            else cand[0]
+    return out
+
+
 def tower_positions(cfg, inputs, total_len: np.ndarray):
     """Towers as (line index, position along the line [m]), sorted.
 
@@ -554,9 +453,8 @@ def tower_positions(cfg, inputs, total_len: np.ndarray):
     if inputs.towers is not None and len(inputs.towers):
         import shapely
 
-        ids = {v: i for i, v in enumerate(lines["line_id"])}
         t = inputs.towers
-        li = np.array([ids.get(v, -1) for v in t["line_id"]], dtype=np.int64)
+        li = _tower_feature(lines, t)
         ok = li >= 0
         pos = shapely.line_locate_point(lines.geometry.to_numpy()[li[ok]],
                                         t.geometry.to_numpy()[ok])

@@ -72,6 +72,14 @@ class LineSources:
         p = np.clip(np.asarray(position_m, float), 0.0, self.length_m[f])
         return self.offset_m[f] + np.where(self.direction[f] > 0, p, self.length_m[f] - p)
 
+    def feature_at(self, route, position_m):
+        """Feature of the line at a route chainage (the later one at a joint)."""
+        r = np.asarray(route, np.int64)
+        x = np.clip(np.asarray(position_m, float), 0.0, self.route_length_m[r])
+        key_f = self.route[self._sorted] * 1e9 + self.offset_m[self._sorted]
+        k = np.clip(np.searchsorted(key_f, r * 1e9 + x, side="right") - 1, 0, len(key_f) - 1)
+        return self._sorted[k]
+
     def impedances(self, route, position_m):
         """Sequence impedances from terminal A to the point, and from it to B [Ω]."""
         r = np.asarray(route, np.int64)
@@ -111,8 +119,56 @@ def _end_points(geometries):
     return start, end
 
 
+#: Gap between two features' ends [m] below which they are taken as joined (common
+#: practice: digitising tolerance of utility line data is metres).
+JOIN_TOLERANCE_M = 1.0
+
+
+def _chain(members, start, end):
+    """Order and orient the features of one line end to end.
+
+    The route starts at a free end (one no other feature of the line touches within
+    :data:`JOIN_TOLERANCE_M`): the first vertex of the first feature in layer order
+    that has a free first vertex, else the free last vertex of the first such feature
+    (else, a line closing on itself, the first feature's first vertex). Each next
+    feature is the one whose nearer end lies closest to the tip, whatever the layer
+    order.
+
+    Returns
+    -------
+    order : list of int
+        The members in route order.
+    direction : dict
+        +1 where the feature runs with the route, -1 against.
+    """
+    ends = {f: (start[f], end[f]) for f in members}
+
+    def gap(p, others):
+        return min((np.hypot(*(p - q)) for g in others for q in ends[g]), default=np.inf)
+
+    head, head_dir = members[0], 1
+    free = [(f, d) for d in (1, -1) for f in members  # free first vertices first
+            if gap(start[f] if d > 0 else end[f], [g for g in members if g != f])
+            > JOIN_TOLERANCE_M]
+    if free:
+        head, head_dir = free[0]
+    order, direction = [head], {head: head_dir}
+    tip = end[head] if head_dir > 0 else start[head]
+    left = [g for g in members if g != head]
+    while left:
+        d = [(min(np.hypot(*(start[g] - tip)), np.hypot(*(end[g] - tip))), k)
+             for k, g in enumerate(left)]
+        _, k = min(d)
+        g = left.pop(k)
+        direction[g] = 1 if np.hypot(*(start[g] - tip)) <= np.hypot(*(end[g] - tip)) else -1
+        tip = end[g] if direction[g] > 0 else start[g]
+        order.append(g)
+    return order, direction
+
+
 def _routes(lines, feature_length_m):
-    """Route, offset and direction of every feature (features sharing a line_id chained)."""
+    """Route, offset and direction of every feature (features sharing a line_id chained
+    end to end by :func:`_chain`)."""
     n = len(lines)
     ids = lines["line_id"].to_numpy(dtype=object)
     route_ids, route = np.unique(ids.astype(str), return_inverse=True)
@@ -122,24 +178,15 @@ def _routes(lines, feature_length_m):
         return route.astype(np.int64), offset, direction
     start, end = _end_points(lines.geometry.to_numpy())
     for r in range(len(route_ids)):
-        members = np.flatnonzero(route == r)  # layer order
+        members = [int(f) for f in np.flatnonzero(route == r)]  # layer order
         if len(members) < 2:
             continue
-        tip = None
+        order, dirs = _chain(members, start, end)
         along = 0.0
-        for j, f in enumerate(members):
-            if j == 0:
-                nxt = members[1]
-                d_end = min(np.hypot(*(end[f] - start[nxt])), np.hypot(*(end[f] - end[nxt])))
-                d_start = min(np.hypot(*(start[f] - start[nxt])),
-                              np.hypot(*(start[f] - end[nxt])))
-                direction[f] = 1 if d_end <= d_start else -1
-            else:
-                direction[f] = 1 if (np.hypot(*(start[f] - tip))
-                                     <= np.hypot(*(end[f] - tip))) else -1
+        for f in order:
+            direction[f] = dirs[f]
             offset[f] = along
             along += feature_length_m[f]
-            tip = end[f] if direction[f] > 0 else start[f]
     return route.astype(np.int64), offset, direction
 
 
@@ -211,9 +258,13 @@ def line_sources(cfg, inputs, feature_length_m) -> LineSources:
         route_len[r] = max(route_len[r], offset[f] + feature_length_m[f])
     i_start = lines["fault_current_start_ka"].to_numpy(float) * 1000.0
     i_end = lines["fault_current_end_ka"].to_numpy(float) * 1000.0
-    # terminal A is the route-start end of the first feature, B the route-end of the last
-    i_a = np.where(direction[first] > 0, i_start[first], i_end[first])
-    i_b = np.where(direction[last] > 0, i_end[last], i_start[last])
+    # terminal A is the route's start, B its end. The features of one line carry the same
+    # terminal data (corridor.io.line_parts); a feature's "start" is its first vertex, so
+    # the route's start takes fault_current_start_ka where its first feature runs with
+    # the route, fault_current_end_ka where against (docs/methods.md §18).
+    fwd = direction[first] > 0
+    i_a = np.where(fwd, i_start[first], i_end[first])
+    i_b = np.where(fwd, i_end[first], i_start[first])
 
     def field(name, default):
         if name in lines:
@@ -225,10 +276,10 @@ def line_sources(cfg, inputs, feature_length_m) -> LineSources:
         "source_x_over_r_end", SOURCE_FIELDS["source_x_over_r_end"])
     k_s, k_e = field("source_z0_over_z1_start", SOURCE_FIELDS["source_z0_over_z1_start"]), field(
         "source_z0_over_z1_end", SOURCE_FIELDS["source_z0_over_z1_end"])
-    xr_a = np.where(direction[first] > 0, xr_s[first], xr_e[first])
-    xr_b = np.where(direction[last] > 0, xr_e[last], xr_s[last])
-    k_a = np.where(direction[first] > 0, k_s[first], k_e[first])
-    k_b = np.where(direction[last] > 0, k_e[last], k_s[last])
+    xr_a = np.where(fwd, xr_s[first], xr_e[first])
+    xr_b = np.where(fwd, xr_e[first], xr_s[first])
+    k_a = np.where(fwd, k_s[first], k_e[first])
+    k_b = np.where(fwd, k_e[first], k_s[first])
     voltage = lines["voltage_kv"].to_numpy(float)[first] * 1000.0 / np.sqrt(3.0)
     z1_total = np.zeros(n_route, complex)
     z0_total = np.zeros(n_route, complex)
@@ -342,9 +393,8 @@ def tower_earth_potential(cfg, geo, sources: LineSources, t_route, t_pos):
         span = np.nanmean(np.stack([gap_prev, gap_next]), axis=0)
     span = np.where(np.isfinite(span), span, span_default)
     ladders = same_prev.astype(int) + same_next.astype(int)
-    # earth wire of the feature the tower sits on: the route's features share it in
-    # practice; take the first feature's
-    ew = sources.earth_wire_ohm_per_m[sources.route_feature[t_route]]
+    # earth wire of the feature the tower sits on (a line may change tower type)
+    ew = sources.earth_wire_ohm_per_m[sources.feature_at(t_route, t_pos)]
     for off in (-1, 0):
         k = np.clip(base + off, 0, len(t_route) - 1)
         same = t_route[k] == route

@@ -148,6 +148,10 @@ def stage_ground(run) -> None:
                 done[a] = True
                 continue
             k = mine[np.argmax(np.abs(node_v[mine, column]))]
+            if remedy in (REMEDY_TOWER, REMEDY_SEPARATION):
+                # an earth-potential hazard is reported where it is: at the worst segment
+                k = start_node[s] + int(abs(node_v[start_node[s] + 1, column])
+                                        > abs(node_v[start_node[s], column]))
             v0 = abs(node_v[k, column])
             if remedy is not None:
                 local = _local_earth_potential(crit, epr[node_seg[k]])
