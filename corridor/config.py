@@ -43,7 +43,7 @@ LINE_DEFAULT_KEYS = {
 }
 
 LAYER_KEYS = {"path", "layer", "fields", "kind", "crs", "format", "osm"}
-TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits"}
+TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits", "load_series"}
 LAYER_ROLES = {"power_lines", "assets", "soil", "grounds", "towers"}
 
 
@@ -133,6 +133,8 @@ class Config:
     arrangements_path: Path
     limit_overrides: FrozenMap
     resolved: FrozenMap = field(repr=False)
+    #: Optional load time series (``[load_series]``, :mod:`corridor.series`).
+    load_series: Any = None
 
     @property
     def output_dir(self) -> Path:
@@ -581,6 +583,10 @@ def load_config(path: str | Path) -> Config:
         problems.append(f"{name}: limits: expected a table of overrides")
         limit_overrides = {}
 
+    from corridor.series.settings import parse_load_series
+
+    load_series = parse_load_series(raw.get("load_series"), name, base, problems)
+
     if problems:
         raise ConfigError(problems)
     assert power_lines is not None  # a missing or bad power-line layer is a problem above
@@ -597,6 +603,8 @@ def load_config(path: str | Path) -> Config:
         "limits": limit_overrides,
         "arrangements_file": str(arr_path),
     }
+    if load_series is not None:
+        resolved["load_series"] = load_series.as_dict()
     return Config(
         path=path,
         run=run_settings,
@@ -611,6 +619,7 @@ def load_config(path: str | Path) -> Config:
         arrangements_path=arr_path,
         limit_overrides=FrozenMap(limit_overrides),
         resolved=FrozenMap(resolved),
+        load_series=load_series,
     )
 
 

@@ -1,0 +1,259 @@
+"""Streaming evaluation of a load series on every asset, by superposition.
+
+Node voltages are linear in the circuits' current phasors m_g(t). Per asset,
+each (circuit, part) that reaches it gets one column of unit EMF; all columns
+of all assets are solved in one call on the response stage's factorised
+system (:meth:`corridor.network.response.ChainSystem.solve`), never once per
+step. A step is then, per asset and per component k of unknown relative
+angle (docs/methods.md §8), V_k(t) = U_k · m_k(t), a matrix product, and
+
+    |V(node, t)| = Σ_k |V_k(node, t)|,   v_seg(t) = max(|V| at its two nodes).
+
+The time axis is streamed in blocks of ``block_steps``, one asset at a time,
+so memory holds one asset's nodes × one block, never segments × hours
+(docs/methods.md §15).
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass, field
+
+import numpy as np
+
+log = logging.getLogger(__name__)
+
+__all__ = ["SeriesInputs", "SeriesResult", "unit_columns", "evaluate_series"]
+
+
+@dataclass
+class SeriesInputs:
+    """Per-segment thresholds and the phasors for :func:`evaluate_series`.
+
+    Attributes
+    ----------
+    threshold_v : ndarray, shape (n_segments, n_criteria)
+        Voltage at which each time-varying steady-state criterion is reached
+        on each segment [V] (inf where it does not apply).
+    constant_exceeds : ndarray of bool, shape (n_segments,)
+        A criterion that does not vary with load (capacitive current) is
+        exceeded: every step counts.
+    coated : ndarray of bool, per segment
+        Segments whose ISO 18086 mean is wanted.
+    phasors_a : ndarray of complex, shape (n_circuits, n_steps)
+    window_steps : int
+        Steps in the representative period.
+    rolling : bool
+        Rolling windows (else back-to-back windows).
+    block_steps : int
+    curve_assets : ndarray of int
+        Assets whose per-step peak voltage is kept (duration curves).
+    """
+
+    threshold_v: np.ndarray
+    constant_exceeds: np.ndarray
+    coated: np.ndarray
+    phasors_a: np.ndarray
+    window_steps: int
+    rolling: bool = True
+    block_steps: int = 2048
+    curve_assets: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+    curve_points: int = 101
+
+
+@dataclass
+class SeriesResult:
+    """Per-segment and per-asset results of :func:`evaluate_series`.
+
+    Attributes
+    ----------
+    steps_above : ndarray of int, shape (n_segments, n_criteria)
+    steps_above_any : ndarray of int, per segment
+    peak_v : ndarray, per segment
+        Largest |V| over the series [V].
+    peak_step : ndarray of int, per segment
+    mean_max_v : ndarray, per segment
+        Largest mean of v over a representative period [V] (NaN: not coated).
+    mean_end_step : ndarray of int, per segment
+        Last step of that window (-1: none).
+    asset_steps_above : ndarray of int, per asset (of the model)
+        Steps where any segment of the asset is above a limit.
+    asset_peak_v : dict
+        asset -> ndarray (curve_points,): the duration curve of the asset's
+        peak voltage, the value exceeded during a fraction 0, 1/(points − 1),
+        …, 1 of the steps [V], for the curve assets.
+    """
+
+    steps_above: np.ndarray
+    steps_above_any: np.ndarray
+    peak_v: np.ndarray
+    peak_step: np.ndarray
+    mean_max_v: np.ndarray
+    mean_end_step: np.ndarray
+    asset_steps_above: np.ndarray
+    asset_peak_v: dict
+
+
+def unit_columns(feature, ue, slot_of_entry, emf_scale):
+    """Per-asset columns of unit EMF: the right-hand sides of one solve.
+
+    Parameters
+    ----------
+    feature : ndarray of int, per segment
+        Asset of each segment.
+    ue : corridor.series.unit_emf.UnitEmf
+    slot_of_entry : ndarray of int, per entry of ``ue``
+        Component key of each entry (entries with the same key add as phasors).
+    emf_scale : ndarray, per segment
+        EMF factor of the asset kind (telecom sheath screening factor), as the
+        response stage applies it.
+
+    Returns
+    -------
+    rhs : ndarray of complex, shape (n_segments, n_columns)
+    col_circuit, col_slot : ndarray of int, shape (n_assets, n_columns)
+        Circuit and local component of each asset's column (-1: unused).
+    """
+    n_seg = len(feature)
+    n_assets = int(feature.max()) + 1 if n_seg else 0
+    asset = feature[ue.segment]
+    ckey = ue.circuit * 2 + ue.part
+    pair_key = asset.astype(np.int64) * (int(ckey.max()) + 1 if ckey.size else 1) + ckey
+    pairs, pair_of = np.unique(pair_key, return_inverse=True)
+    pair_of = pair_of.ravel()
+    pair_asset = pairs // (int(ckey.max()) + 1 if ckey.size else 1)
+    first = np.searchsorted(pair_asset, pair_asset, side="left")
+    col_of_pair = np.arange(pairs.size) - first
+    n_col = int(col_of_pair.max()) + 1 if pairs.size else 0
+    rhs = np.zeros((n_seg, n_col), complex)
+    col = col_of_pair[pair_of]
+    np.add.at(rhs, (ue.segment, col), ue.emf_v_per_a * emf_scale[ue.segment])
+    col_circuit = np.full((n_assets, n_col), -1, np.int64)
+    col_slot = np.full((n_assets, n_col), -1, np.int64)
+    col_circuit[pair_asset, col_of_pair] = (pairs % (int(ckey.max()) + 1 if ckey.size else 1)) // 2
+    # local component of each column: rank of its key within the asset
+    s_key = asset.astype(np.int64) * (int(slot_of_entry.max()) + 1 if slot_of_entry.size else 1) \
+        + slot_of_entry
+    s_uniq, s_of = np.unique(s_key, return_inverse=True)
+    s_asset = s_uniq // (int(slot_of_entry.max()) + 1 if slot_of_entry.size else 1)
+    s_local = np.arange(s_uniq.size) - np.searchsorted(s_asset, s_asset, side="left")
+    col_slot[asset, col] = s_local[s_of.ravel()]
+    return rhs, col_circuit, col_slot
+
+
+def _windows(tail, block, t0, w, rolling, best, best_end):
+    """Update the best window mean with the windows ending in this block."""
+    ext = np.concatenate([tail, block], axis=1) if tail.shape[1] else block
+    start = t0 - tail.shape[1]  # global step of ext[:, 0]
+    cs = np.zeros((ext.shape[0], ext.shape[1] + 1))
+    np.cumsum(ext, axis=1, out=cs[:, 1:])
+    ends = np.arange(t0, t0 + block.shape[1])
+    ok = ends >= w - 1
+    if not rolling:
+        ok &= (ends + 1) % w == 0
+    if ok.any():
+        e = ends[ok] - start + 1
+        means = (cs[:, e] - cs[:, e - w]) / w
+        k = np.argmax(means, axis=1)
+        m = means[np.arange(means.shape[0]), k]
+        better = m > best
+        best[better] = m[better]
+        best_end[better] = ends[ok][k[better]]
+    keep = min(w - 1, ext.shape[1])
+    return ext[:, ext.shape[1] - keep:] if keep else ext[:, :0]
+
+
+def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slot,
+                    inp: SeriesInputs) -> SeriesResult:
+    """Every step of the series on every segment, streamed.
+
+    Parameters
+    ----------
+    system : corridor.network.response.ChainSystem
+        The factorised system of the response stage (all chains of the run).
+    feature, chain_of_segment : ndarray of int, per segment
+    rhs, col_circuit, col_slot
+        From :func:`unit_columns`.
+    inp : SeriesInputs
+
+    Returns
+    -------
+    SeriesResult
+    """
+    n_seg = len(feature)
+    n_assets = col_circuit.shape[0]
+    n_crit = inp.threshold_v.shape[1]
+    n_t = inp.phasors_a.shape[1]
+    w = int(inp.window_steps)
+    res = SeriesResult(np.zeros((n_seg, n_crit), np.int64), np.zeros(n_seg, np.int64),
+                       np.zeros(n_seg), np.zeros(n_seg, np.int64), np.full(n_seg, np.nan),
+                       np.full(n_seg, -1, np.int64), np.zeros(n_assets, np.int64), {})
+    if n_seg == 0 or n_t == 0:
+        return res
+    if rhs.shape[1]:
+        unit = system.solve(rhs, current_cases=[]).node_voltage_v
+        if unit.ndim == 1:
+            unit = unit[:, None]
+    else:
+        unit = np.zeros((n_seg + int(chain_of_segment.max()) + 1, 0), complex)
+    seg_first_node = np.arange(n_seg) + chain_of_segment
+    thr_any = np.min(inp.threshold_v, axis=1) if n_crit else np.full(n_seg, np.inf)
+    curve = set(int(a) for a in inp.curve_assets)
+    bounds = np.searchsorted(feature, np.arange(n_assets + 1))
+    for a in range(n_assets):
+        s0, s1 = int(bounds[a]), int(bounds[a + 1])
+        if s1 <= s0:
+            continue
+        n0 = int(seg_first_node[s0])
+        n1 = int(seg_first_node[s1 - 1]) + 2
+        first = seg_first_node[s0:s1] - n0
+        cols = np.flatnonzero(col_circuit[a] >= 0)
+        u = unit[n0:n1, cols]
+        circ = col_circuit[a, cols]
+        slots = col_slot[a, cols]
+        groups = [np.flatnonzero(slots == s) for s in np.unique(slots)]
+        thr = inp.threshold_v[s0:s1]
+        t_any = thr_any[s0:s1]
+        const = inp.constant_exceeds[s0:s1]
+        coated = np.flatnonzero(inp.coated[s0:s1])
+        tail = np.zeros((coated.size, 0))
+        best = np.full(coated.size, -np.inf)
+        best_end = np.full(coated.size, -1, np.int64)
+        peak = np.full(s1 - s0, -1.0)
+        peak_step = np.zeros(s1 - s0, np.int64)
+        keep_curve = a in curve
+        asset_curve = np.zeros(n_t) if keep_curve else None
+        # block length: about 4 million node-steps per block at most
+        block = max(1, min(int(inp.block_steps), 4_000_000 // max(n1 - n0, 1)))
+        for t0 in range(0, n_t, block):
+            t1 = min(n_t, t0 + block)
+            mag = np.zeros((n1 - n0, t1 - t0))
+            for g in groups:
+                mag += np.abs(u[:, g] @ inp.phasors_a[circ[g], t0:t1])
+            v = np.maximum(mag[first], mag[first + 1])  # (segments of a, steps)
+            k = np.argmax(v, axis=1)
+            vk = v[np.arange(v.shape[0]), k]
+            better = vk > peak
+            peak[better] = vk[better]
+            peak_step[better] = k[better] + t0
+            for c in range(n_crit):
+                res.steps_above[s0:s1, c] += np.count_nonzero(v >= thr[:, c, None], axis=1)
+            over = v >= t_any[:, None]
+            over |= const[:, None]
+            res.steps_above_any[s0:s1] += np.count_nonzero(over, axis=1)
+            res.asset_steps_above[a] += int(np.count_nonzero(over.any(axis=0)))
+            if asset_curve is not None:
+                asset_curve[t0:t1] = v.max(axis=0)
+            if coated.size:
+                tail = _windows(tail, v[coated], t0, min(w, n_t), inp.rolling or w > n_t,
+                                best, best_end)
+        res.peak_v[s0:s1] = peak
+        res.peak_step[s0:s1] = peak_step
+        if coated.size:
+            res.mean_max_v[s0 + coated] = best
+            res.mean_end_step[s0 + coated] = best_end
+        if asset_curve is not None:
+            frac = np.linspace(0.0, 1.0, int(inp.curve_points))
+            pos = np.minimum((frac * n_t).astype(np.int64), n_t - 1)
+            res.asset_peak_v[a] = np.sort(asset_curve)[::-1][pos]
+    return res
