@@ -91,6 +91,11 @@ class LoadSeries:
         return np.where(idx >= 0, np.char.add(text.astype(str), "Z"), "")
 
 
+def _iso(t_ns) -> str:
+    """ISO 8601 UTC text of a time in ns since the epoch (int or datetime64[ns])."""
+    return str(np.datetime_as_string(np.datetime64(int(np.int64(t_ns)), "ns"), unit="s")) + "Z"
+
+
 def _read_frame(path, file_format) -> pd.DataFrame:
     try:
         if file_format == "parquet":
@@ -212,6 +217,7 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
     key_codes, key_uniques = pd.factorize(pd.Series(
         [f"{ids[i]}\x1f{circuit[i]}" for i in range(n)], dtype=object))
     last_time: dict[int, tuple[int, int]] = {}
+    marks_grid = ~bad
     for i in np.flatnonzero(ok):
         k = int(key_codes[i])
         prev = last_time.get(k)
@@ -221,6 +227,7 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
             add(i, "timestamp", f"{what}: {stamp_text[i]} is not after"
                 f" {row_label(prev[1])} of the same line and circuit")
             ok[i] = False
+            marks_grid[i] = False
             continue
         last_time[k] = (int(t_ns[i]), int(i))
     used = np.flatnonzero(ok)
@@ -228,8 +235,10 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
         raise InputError([f"load series {name}: no usable row ({n} read)"]
                          + [f"{p['row']}: {p['field']}: {p['reason']}"
                             for p in problems[:MAX_LISTED]])
-    # regular grid: the most common step between distinct times
-    times = np.unique(t_ns[used])
+    # regular grid: the most common step between the distinct times of every row with a
+    # readable timestamp (a row rejected for another field still marks its step)
+    all_ns = stamps.to_numpy(dtype="datetime64[ns]")[marks_grid].astype("int64", copy=False)
+    times = np.unique(all_ns)
     if times.size > 1:
         diffs, counts = np.unique(np.diff(times), return_counts=True)
         step = int(diffs[np.argmax(counts)])
@@ -239,10 +248,12 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
     off_grid = (t_ns[used] - t0) % step != 0
     for i in used[off_grid]:
         add(i, "timestamp", f"{stamp_text[i]} is off the series' regular"
-            f" {step / 3.6e12:g} h grid starting {np.datetime64(t0, 'ns')}")
+            f" {step / 3.6e12:g} h grid starting {_iso(t0)}")
         ok[i] = False
     used = used[~off_grid]
     n_steps = int((int(times[-1]) - t0) // step) + 1
+    if not used.size:
+        raise InputError(f"load series {name}: no row on the regular grid")
     step_of = ((t_ns[used] - t0) // step).astype(np.int64)
     kcodes, kuniq = pd.factorize(pd.Series(key_codes[used]))
     n_keys = len(kuniq)
@@ -268,7 +279,8 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
         line, c = keys[k]
         who = f"line {line!r}" + (f" circuit {c}" if c else "")
         for s, e in zip(starts, ends, strict=True):
-            add(-1, "current_a", f"gap: no value for {who} from {grid[s]} to {grid[e]}"
+            add(-1, "current_a", f"gap: no value for {who} from {_iso(grid[s])} to"
+                f" {_iso(grid[e])}"
                 f" ({e - s + 1} step{'s' if e > s else ''}); filled with the series maximum"
                 f" of that circuit, {fill:g} A (conservative)", action="filled")
     listed = {key[0] for key in keys}
