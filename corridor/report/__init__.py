@@ -165,7 +165,8 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
     if assets_df is not None:
         cols = ["asset_rank", "asset_id", "asset_kind", "worst_utilization", "hazard_class",
                 "governing", "worst_chainage_m", "worst_v_normal_v", "worst_v_fault_v",
-                "worst_i_capacitive_short_ma", "length_over_limit_m", "length_m", "line_ids"]
+                "worst_i_capacitive_short_ma", "hours_above_limit_h", "length_over_limit_m",
+                "length_m", "line_ids"]
         body.append(html_table(assets_df.head(max_rows), cols,
                            f"{min(max_rows, len(assets_df))} of {len(assets_df)} assets, worst"
                            " first", km=("worst_chainage_m", "length_over_limit_m", "length_m")))
@@ -189,7 +190,7 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
         # only the worst rows are needed: rank a bounded head, not the whole table
         cols = [c for c in ("rank", "asset_id", "asset_kind", "chainage_m", "separation_m",
                             "line_id", "v_normal_v", "v_fault_v", "utilization", "governing",
-                            "hazard_class") if c in t.columns]
+                            "hazard_class", "hours_above_limit_h") if c in t.columns]
         head = min(len(t), max_rows * SEGMENTS_PER_ASSET * 50)
         order = np.argsort(t["rank"].to_numpy(), kind="stable")[:head]
         ranked = pd.DataFrame(t[cols].iloc[order])
@@ -197,7 +198,7 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
         top = top.head(max_rows)
         body.append(html_table(top, ["rank", "asset_id", "asset_kind", "chainage_m", "separation_m",
                                  "line_id", "v_normal_v", "v_fault_v", "utilization",
-                                 "governing", "hazard_class"],
+                                 "governing", "hazard_class", "hours_above_limit_h"],
                            f"{len(top)} of {len(t)} segments, worst first, at most"
                            f" {SEGMENTS_PER_ASSET} per asset", km=("chainage_m",)))
     body.append("</section>")
@@ -233,6 +234,9 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
                         f" (cap of {max_profiles}); see the assets layer.</p>")
     body.append("</section>")
 
+    from corridor.report.series import series_section
+
+    body.append(series_section(run))  # with a load series only
     body.append(rejected_section(run))
     body.append(defaults_section(run))
 
