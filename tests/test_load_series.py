@@ -29,8 +29,12 @@ DEMO = ROOT / "config" / "demo_series.toml"
 
 
 def _config(tmp_path: Path, frame: pd.DataFrame, extra_run: str = "outage_scenario = false",
-            section: str = "") -> Path:
-    """demo_series.toml with absolute paths, another series file and extra run settings."""
+            section: str = "\nscreen_below = 0.0") -> Path:
+    """demo_series.toml with absolute paths, another series file and extra settings.
+
+    By default every segment is stepped (``screen_below = 0``): the checks compare exact
+    values.
+    """
     series = tmp_path / "loads.csv"
     frame.to_csv(series, index=False)
     text = DEMO.read_text(encoding="utf-8")
@@ -179,6 +183,27 @@ def test_constant_series_reproduces_the_snapshot(tmp_path):
     pipe = np.isfinite(iso)
     assert pipe.any() and np.allclose(mean[pipe], iso[pipe], rtol=1e-9)
     assert np.isnan(mean[~pipe]).all()
+
+
+def test_screen_bounds_the_unstepped_segments(varied, tmp_path):
+    """With the default screen, a segment not stepped has an upper bound and 0 hours; the rest
+    are the same as with every segment stepped."""
+    _, exact, v = varied
+    _, run = _series_run(_config(tmp_path, _rows(_times(6), STEPS), section=""))
+    t, e = run.segment_table, exact.segment_table
+    bounded = t["series_bounded"].to_numpy(bool)
+    assert bounded.any() and (~bounded).any()
+    peak, true_peak = t["v_normal_peak_v"].to_numpy(float), v.max(axis=0)
+    assert (peak[bounded] >= true_peak[bounded] * (1 - 1e-12)).all()  # an upper bound
+    assert np.allclose(peak[~bounded], true_peak[~bounded], rtol=1e-9)
+    assert (t["v_normal_peak_utc"].to_numpy(dtype=str)[bounded] == "").all()
+    for col in [c for c in e.columns if c.startswith("hours_above")]:
+        assert np.array_equal(t[col].to_numpy(float), e[col].to_numpy(float),
+                              equal_nan=True), col
+    # below half of every threshold at every step: the bound is below half the smallest
+    permitted = run.assessment["permitted"]["steady_state_voltage"]
+    ok = bounded & np.isfinite(permitted)
+    assert (peak[ok] < 0.5 * permitted[ok]).all()
 
 
 def test_run_without_the_section_is_unchanged():

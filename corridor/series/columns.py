@@ -36,6 +36,11 @@ SERIES_GLOSSARY: dict[str, tuple[str, str]] = {
         "ISO 18086 mean ratio", "Load series: the ISO 18086 clause 7 combination judged on the"
         " worst period mean of the AC density, over its permitted value; 1 or more exceeds"
         " [-]."),
+    "series_bounded": (
+        "Bounded, not stepped", "Load series: the segment's voltage bound over the whole series"
+        " stays below screen_below times every limit that applies, so no step can reach a"
+        " limit (hours above 0, exact); its peak voltage and mean AC density are that upper"
+        " bound and their times are empty [true/false]."),
     "hours_exceeded_h": (
         "Hours exceeded", "Duration curve: hours of the series during which the asset's peak"
         " voltage reaches the value beside it [h]."),

@@ -59,6 +59,14 @@ class SeriesInputs:
     block_steps: int = 2048
     curve_assets: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
     curve_points: int = 101
+    #: Voltage of the ISO 18086 mean limit per segment [V] (inf: not coated).
+    mean_threshold_v: np.ndarray | None = None
+    #: Segments whose bound stays below this fraction of their thresholds are not stepped.
+    screen_below: float = 0.0
+
+    def __post_init__(self):
+        if self.mean_threshold_v is None:
+            self.mean_threshold_v = np.full(self.threshold_v.shape[0], np.inf)
 
 
 @dataclass
@@ -78,6 +86,9 @@ class SeriesResult:
         Last step of that window (-1: none).
     asset_steps_above : ndarray of int, per asset (of the model)
         Steps where any segment of the asset is above a limit.
+    bounded : ndarray of bool, per segment
+        Not stepped: the screen proved it below every limit; ``peak_v`` and
+        ``mean_max_v`` are upper bounds there and the steps are -1.
     asset_peak_v : dict
         asset -> ndarray (curve_points,): the duration curve of the asset's
         peak voltage, the value exceeded during a fraction 0, 1/(points − 1),
@@ -92,6 +103,7 @@ class SeriesResult:
     mean_end_step: np.ndarray
     asset_steps_above: np.ndarray
     asset_peak_v: dict
+    bounded: np.ndarray = field(default_factory=lambda: np.zeros(0, bool))
 
 
 def unit_columns(feature, ue, slot_of_entry, emf_scale):
@@ -163,6 +175,32 @@ def _windows(tail, block, t0, w, rolling, best, best_end):
     return ext[:, ext.shape[1] - keep:] if keep else ext[:, :0]
 
 
+def _asset_blocks(u, circ, slots, phasors, abs_phasors, nodes_sel, first_pos, n_t, block):
+    """Yield (t0, v) per block: v = segment |V| of the selected segments over the block.
+
+    A component with one column is |U|·|m| (a real product, no complex modulus per
+    step); the others are summed as phasors, then taken in magnitude.
+    """
+    uu = u[nodes_sel]
+    single: list[np.ndarray] = []
+    multi: list[np.ndarray] = []
+    for s in np.unique(slots):
+        cols = np.flatnonzero(slots == s)
+        (single if cols.size == 1 else multi).append(cols)
+    single_cols = np.concatenate(single) if single else np.zeros(0, np.int64)
+    u_abs = np.abs(uu[:, single_cols]) if single_cols.size else None
+    for t0 in range(0, n_t, block):
+        t1 = min(n_t, t0 + block)
+        if u_abs is not None:
+            mag = u_abs @ abs_phasors[circ[single_cols], t0:t1]
+        else:
+            mag = np.zeros((uu.shape[0], t1 - t0))
+        for cols in multi:
+            w = uu[:, cols] @ phasors[circ[cols], t0:t1]
+            mag += np.sqrt(w.real * w.real + w.imag * w.imag)
+        yield t0, np.maximum(mag[first_pos], mag[first_pos + 1])
+
+
 def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slot,
                     inp: SeriesInputs) -> SeriesResult:
     """Every step of the series on every segment, streamed.
@@ -179,6 +217,16 @@ def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slo
     Returns
     -------
     SeriesResult
+
+    Notes
+    -----
+    Screen (``inp.screen_below`` > 0): a segment's voltage can never exceed
+    the bound B = max over its nodes of Σ_j |U_j|·max_t |m_j(t)|. Where B is
+    below ``screen_below`` times every threshold that applies to the segment
+    (its steady-state thresholds and, coated, the voltage of the ISO 18086
+    mean limit), no step can reach a limit: its hours above are 0 (exact), and
+    its peak and mean are reported as B, an upper bound (``bounded``), without
+    stepping it.
     """
     n_seg = len(feature)
     n_assets = col_circuit.shape[0]
@@ -187,7 +235,8 @@ def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slo
     w = int(inp.window_steps)
     res = SeriesResult(np.zeros((n_seg, n_crit), np.int64), np.zeros(n_seg, np.int64),
                        np.zeros(n_seg), np.zeros(n_seg, np.int64), np.full(n_seg, np.nan),
-                       np.full(n_seg, -1, np.int64), np.zeros(n_assets, np.int64), {})
+                       np.full(n_seg, -1, np.int64), np.zeros(n_assets, np.int64), {},
+                       np.zeros(n_seg, bool))
     if n_seg == 0 or n_t == 0:
         return res
     if rhs.shape[1]:
@@ -198,8 +247,16 @@ def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slo
         unit = np.zeros((n_seg + int(chain_of_segment.max()) + 1, 0), complex)
     seg_first_node = np.arange(n_seg) + chain_of_segment
     thr_any = np.min(inp.threshold_v, axis=1) if n_crit else np.full(n_seg, np.inf)
+    mean_thr = (inp.mean_threshold_v if inp.mean_threshold_v is not None
+                else np.full(n_seg, np.inf))
+    screen_v = np.minimum(thr_any, np.where(inp.coated, mean_thr, np.inf))
+    abs_phasors = np.abs(inp.phasors_a)
+    max_phasor = abs_phasors.max(axis=1) if abs_phasors.size else np.zeros(0)
+    const_steps = np.where(inp.constant_exceeds, n_t, 0)
+    res.steps_above_any[:] = const_steps
     curve = set(int(a) for a in inp.curve_assets)
     bounds = np.searchsorted(feature, np.arange(n_assets + 1))
+    frac = np.linspace(0.0, 1.0, int(inp.curve_points))
     for a in range(n_assets):
         s0, s1 = int(bounds[a]), int(bounds[a + 1])
         if s1 <= s0:
@@ -211,49 +268,74 @@ def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slo
         u = unit[n0:n1, cols]
         circ = col_circuit[a, cols]
         slots = col_slot[a, cols]
-        groups = [np.flatnonzero(slots == s) for s in np.unique(slots)]
-        thr = inp.threshold_v[s0:s1]
-        t_any = thr_any[s0:s1]
-        const = inp.constant_exceeds[s0:s1]
-        coated = np.flatnonzero(inp.coated[s0:s1])
+        # upper bound of every segment's voltage over the whole series
+        b_node = np.abs(u) @ max_phasor[circ]
+        bound = np.maximum(b_node[first], b_node[first + 1])
+        step = (bound >= inp.screen_below * screen_v[s0:s1]) if inp.screen_below > 0 else \
+            np.ones(s1 - s0, bool)
+        res.bounded[s0:s1] = ~step
+        res.peak_v[s0:s1] = bound
+        res.peak_step[s0:s1] = -1
+        coated_all = inp.coated[s0:s1]
+        res.mean_max_v[s0:s1] = np.where(coated_all, bound, np.nan)
+        const_any = bool(inp.constant_exceeds[s0:s1].any())
+        if const_any:
+            res.asset_steps_above[a] = n_t
+        keep_curve = a in curve
+        sel = np.flatnonzero(step)
+        if not sel.size:
+            if keep_curve:
+                res.asset_peak_v[a] = np.full(frac.size, bound.max())
+            continue
+        nodes_sel, inv = np.unique(np.concatenate([first[sel], first[sel] + 1]),
+                                   return_inverse=True)
+        first_pos = inv.ravel()[:sel.size]
+        glob = s0 + sel
+        thr = inp.threshold_v[glob]
+        t_any = thr_any[glob]
+        coated = np.flatnonzero(inp.coated[glob])
         tail = np.zeros((coated.size, 0))
         best = np.full(coated.size, -np.inf)
         best_end = np.full(coated.size, -1, np.int64)
-        peak = np.full(s1 - s0, -1.0)
-        peak_step = np.zeros(s1 - s0, np.int64)
-        keep_curve = a in curve
+        peak = np.full(sel.size, -1.0)
+        peak_step = np.zeros(sel.size, np.int64)
+        counts = np.zeros((sel.size, n_crit), np.int64)
+        any_count = np.zeros(sel.size, np.int64)
+        asset_over = 0
         asset_curve = np.zeros(n_t) if keep_curve else None
         # block length: about 4 million node-steps per block at most
-        block = max(1, min(int(inp.block_steps), 4_000_000 // max(n1 - n0, 1)))
-        for t0 in range(0, n_t, block):
-            t1 = min(n_t, t0 + block)
-            mag = np.zeros((n1 - n0, t1 - t0))
-            for g in groups:
-                mag += np.abs(u[:, g] @ inp.phasors_a[circ[g], t0:t1])
-            v = np.maximum(mag[first], mag[first + 1])  # (segments of a, steps)
+        block = max(1, min(int(inp.block_steps), 4_000_000 // max(nodes_sel.size, 1)))
+        rows = np.arange(sel.size)
+        for t0, v in _asset_blocks(u, circ, slots, inp.phasors_a, abs_phasors, nodes_sel,
+                                   first_pos, n_t, block):
             k = np.argmax(v, axis=1)
-            vk = v[np.arange(v.shape[0]), k]
+            vk = v[rows, k]
             better = vk > peak
             peak[better] = vk[better]
             peak_step[better] = k[better] + t0
-            for c in range(n_crit):
-                res.steps_above[s0:s1, c] += np.count_nonzero(v >= thr[:, c, None], axis=1)
-            over = v >= t_any[:, None]
-            over |= const[:, None]
-            res.steps_above_any[s0:s1] += np.count_nonzero(over, axis=1)
-            res.asset_steps_above[a] += int(np.count_nonzero(over.any(axis=0)))
+            hot = np.flatnonzero(vk >= t_any)  # only rows that reach a limit in the block
+            if hot.size:
+                vh = v[hot]
+                for c in range(n_crit):
+                    counts[hot, c] += np.count_nonzero(vh >= thr[hot, c, None], axis=1)
+                over = vh >= t_any[hot, None]
+                any_count[hot] += np.count_nonzero(over, axis=1)
+                asset_over += int(np.count_nonzero(over.any(axis=0)))
             if asset_curve is not None:
-                asset_curve[t0:t1] = v.max(axis=0)
+                asset_curve[t0:t0 + v.shape[1]] = v.max(axis=0)
             if coated.size:
                 tail = _windows(tail, v[coated], t0, min(w, n_t), inp.rolling or w > n_t,
                                 best, best_end)
-        res.peak_v[s0:s1] = peak
-        res.peak_step[s0:s1] = peak_step
+        res.peak_v[glob] = peak
+        res.peak_step[glob] = peak_step
+        res.steps_above[glob] = counts
+        res.steps_above_any[glob] = np.where(inp.constant_exceeds[glob], n_t, any_count)
+        if not const_any:
+            res.asset_steps_above[a] = asset_over
         if coated.size:
-            res.mean_max_v[s0 + coated] = best
-            res.mean_end_step[s0 + coated] = best_end
-        if asset_curve is not None:
-            frac = np.linspace(0.0, 1.0, int(inp.curve_points))
+            res.mean_max_v[glob[coated]] = best
+            res.mean_end_step[glob[coated]] = best_end
+        if asset_curve is not None:  # exact above the screen level (bounded rows stay below)
             pos = np.minimum((frac * n_t).astype(np.int64), n_t - 1)
             res.asset_peak_v[a] = np.sort(asset_curve)[::-1][pos]
     return res

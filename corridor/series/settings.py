@@ -8,6 +8,8 @@ Keys (all but ``path`` optional)::
     averaging = "rolling"       # "rolling" (every window of period_h) or "fixed" (back to back)
     block_steps = 2048          # time steps per block of the streamed evaluation
     curve_assets = 5            # assets whose peak-voltage duration curve the report draws
+    screen_below = 0.5          # segments bounded below this fraction of every limit are not
+                                # stepped (hours 0, peak an upper bound); 0 steps every segment
 
 The file's SHA-256 is part of the resolved config, so the cache recomputes the
 assets when the series changes (docs/methods.md §15).
@@ -23,7 +25,7 @@ from typing import Any
 __all__ = ["SeriesSettings", "parse_load_series", "SERIES_KEYS"]
 
 #: Keys of the ``[load_series]`` section.
-SERIES_KEYS = ("path", "period_h", "averaging", "block_steps", "curve_assets")
+SERIES_KEYS = ("path", "period_h", "averaging", "block_steps", "curve_assets", "screen_below")
 _FORMATS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 
 
@@ -45,6 +47,9 @@ class SeriesSettings:
         Time steps evaluated together (memory is segments of one asset × block).
     curve_assets : int
         Number of worst assets whose duration curve is kept for the report.
+    screen_below : float
+        Fraction of a segment's thresholds below which its voltage bound over
+        the series lets it skip the step-by-step evaluation (0: none skip).
     sha256 : str
         Hash of the file's bytes.
     """
@@ -56,12 +61,13 @@ class SeriesSettings:
     block_steps: int = 2048
     curve_assets: int = 5
     sha256: str = ""
+    screen_below: float = 0.5
 
     def as_dict(self) -> dict[str, Any]:
         """The settings for the resolved config (run.json, cache key)."""
         return {"path": str(self.path), "period_h": self.period_h, "averaging": self.averaging,
                 "block_steps": self.block_steps, "curve_assets": self.curve_assets,
-                "sha256": self.sha256}
+                "screen_below": self.screen_below, "sha256": self.sha256}
 
 
 def _number(raw, key, where, problems, *, integer=False, low=0.0):
@@ -119,6 +125,10 @@ def parse_load_series(raw: Any, where: str, base: Path,
             values[key] = got if got is not None else default
         else:
             values[key] = default
+    screen = raw.get("screen_below", 0.5)
+    if (not isinstance(screen, int | float) or isinstance(screen, bool) or not 0 <= screen < 1):
+        problems.append(f"{where}.screen_below: expected a number from 0 up to (not"
+                        f" including) 1, got {screen!r}")
     averaging = raw.get("averaging", "rolling")
     if averaging not in ("rolling", "fixed"):
         problems.append(f"{where}.averaging: expected 'rolling' or 'fixed', got {averaging!r}")
@@ -126,4 +136,5 @@ def parse_load_series(raw: Any, where: str, base: Path,
         return None
     digest = hashlib.sha256(path.read_bytes()).hexdigest()
     return SeriesSettings(path, fmt, float(values["period_h"]), str(averaging),
-                          int(values["block_steps"]), int(values["curve_assets"]), digest)
+                          int(values["block_steps"]), int(values["curve_assets"]), digest,
+                          float(screen))

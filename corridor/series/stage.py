@@ -32,7 +32,7 @@ TIME_VARYING_QUANTITIES = ("v_normal_v", "i_normal_body_ma", "ac_density_a_per_m
 #: Per-segment columns the stage adds (``hours_above_<criterion>_h`` come on top).
 SERIES_COLUMNS = ("hours_above_limit_h", "fraction_above_limit", "asset_hours_above_limit_h",
                   "v_normal_peak_v", "v_normal_peak_utc", "ac_density_mean_max_a_per_m2",
-                  "ac_density_mean_end_utc", "iso18086_mean_ratio")
+                  "ac_density_mean_end_utc", "iso18086_mean_ratio", "series_bounded")
 CURVE_POINTS = 101
 CURVES_CSV = "csv:load_series_curves.csv"
 
@@ -113,9 +113,18 @@ def stage_series(run) -> None:
     coated = kinds_with(kind, "coated")
     window = max(1, int(round(st.period_h / series.step_h)))
     phasors = circuit_phasors(cfg, lines, series)
+    iso = [c for c in getattr(run.limit_set, "criteria", ())
+           if c.quantity == "iso18086_density_ratio"]
+    p_iso = (np.asarray(permitted.get(iso[0].name, np.full(n_seg, np.nan)), float) if iso
+             else np.ones(n_seg))
+    p_iso = np.where(np.isfinite(p_iso) & (p_iso > 0), p_iso, 1.0)
+    # voltage whose mean reaches the ISO 18086 limit: J_ac = 30 A/m² × permitted ratio
+    j_per_v = per_volt["ac_density_a_per_m2"]
+    mean_thr = np.where(coated & (j_per_v > 0), 30.0 * p_iso / np.where(j_per_v > 0, j_per_v,
+                                                                        1.0), np.inf)
     inp = SeriesInputs(thr, const, coated, phasors, window, st.averaging == "rolling",
                        st.block_steps, np.arange(int(model.feature.max()) + 1 if n_seg else 0),
-                       CURVE_POINTS)
+                       CURVE_POINTS, mean_thr, float(getattr(st, "screen_below", 0.0)))
     res = evaluate_series(rs.system, model.feature, model.chain_of_segment, rhs, col_circuit,
                           col_slot, inp)
     h = series.step_h
@@ -145,12 +154,8 @@ def stage_series(run) -> None:
             if "dc_current_density_a_per_m2" in t else np.full(n_seg, np.nan))
     strict = np.where(coated, iso18086_utilization(j_mean, j_dc), np.nan)
     ratio = np.where(np.isnan(strict) & coated, j_mean / 30.0, strict)
-    iso = [c for c in getattr(run.limit_set, "criteria", ())
-           if c.quantity == "iso18086_density_ratio"]
-    if iso:
-        p = np.asarray(permitted.get(iso[0].name, np.full(n_seg, np.nan)), float)
-        ratio = np.where(np.isfinite(p) & (p > 0), ratio / np.where(p > 0, p, 1.0), ratio)
-    t["iso18086_mean_ratio"] = ratio
+    t["iso18086_mean_ratio"] = ratio / p_iso
+    t["series_bounded"] = res.bounded
     # duration curve of each asset's peak voltage, a few points (the report draws the worst)
     rows = []
     ids = inputs.assets["asset_id"].to_numpy(dtype=object)
