@@ -154,34 +154,50 @@ def unit_columns(feature, ue, slot_of_entry, emf_scale):
 
 
 def _windows(tail, block, t0, w, rolling, best, best_end):
-    """Update the best window mean with the windows ending in this block."""
-    ext = np.concatenate([tail, block], axis=1) if tail.shape[1] else block
-    start = t0 - tail.shape[1]  # global step of ext[:, 0]
-    cs = np.zeros((ext.shape[0], ext.shape[1] + 1))
+    """Update the best window mean with the windows ending in this block.
+
+    ``tail`` holds the last ``w − 1`` values before the block (fewer at the start);
+    window sums are differences of one cumulative sum, taken on slices.
+    """
+    n_tail = tail.shape[1]
+    ext = np.concatenate([tail, block], axis=1) if n_tail else block
+    cs = np.empty((ext.shape[0], ext.shape[1] + 1))
+    cs[:, 0] = 0.0
     np.cumsum(ext, axis=1, out=cs[:, 1:])
-    ends = np.arange(t0, t0 + block.shape[1])
-    ok = ends >= w - 1
-    if not rolling:
-        ok &= (ends + 1) % w == 0
-    if ok.any():
-        e = ends[ok] - start + 1
-        means = (cs[:, e] - cs[:, e - w]) / w
-        k = np.argmax(means, axis=1)
-        m = means[np.arange(means.shape[0]), k]
-        better = m > best
-        best[better] = m[better]
-        best_end[better] = ends[ok][k[better]]
+    start = t0 - n_tail  # global step of ext[:, 0]
+    j0 = max(w - 1 - start, n_tail)  # first ext index ending a full window in this block
+    if j0 < ext.shape[1]:
+        sums = cs[:, j0 + 1:] - cs[:, j0 + 1 - w:ext.shape[1] + 1 - w]
+        ends = start + np.arange(j0, ext.shape[1])
+        if not rolling:
+            pick = np.flatnonzero((ends + 1) % w == 0)
+            sums, ends = sums[:, pick], ends[pick]
+        if ends.size:
+            k = np.argmax(sums, axis=1)
+            m = sums[np.arange(sums.shape[0]), k] / w
+            better = m > best
+            best[better] = m[better]
+            best_end[better] = ends[k[better]]
     keep = min(w - 1, ext.shape[1])
-    return ext[:, ext.shape[1] - keep:] if keep else ext[:, :0]
+    return ext[:, ext.shape[1] - keep:].copy() if keep else ext[:, :0]
 
 
-def _asset_blocks(u, circ, slots, phasors, abs_phasors, nodes_sel, first_pos, n_t, block):
+def _asset_blocks(u, circ, slots, phasors, abs_phasors, same, nodes_sel, first_pos, n_t,
+                  block):
     """Yield (t0, v) per block: v = segment |V| of the selected segments over the block.
 
     A component with one column is |U|·|m| (a real product, no complex modulus per
     step); the others are summed as phasors, then taken in magnitude.
     """
     uu = u[nodes_sel]
+    contiguous = first_pos.size == uu.shape[0] - 1 and bool(
+        np.array_equal(first_pos, np.arange(first_pos.size)))
+    # columns of one component whose circuits carry the same phasor at every step add
+    # before the modulus: one column (a real product) instead of several
+    keys = np.unique(np.stack([slots, same[circ]]), axis=1)
+    merged = np.stack([uu[:, (slots == k0) & (same[circ] == k1)].sum(axis=1)
+                       for k0, k1 in keys.T], axis=1) if keys.size else uu[:, :0]
+    uu, slots, circ = merged, keys[0], keys[1]
     single: list[np.ndarray] = []
     multi: list[np.ndarray] = []
     for s in np.unique(slots):
@@ -198,7 +214,8 @@ def _asset_blocks(u, circ, slots, phasors, abs_phasors, nodes_sel, first_pos, n_
         for cols in multi:
             w = uu[:, cols] @ phasors[circ[cols], t0:t1]
             mag += np.sqrt(w.real * w.real + w.imag * w.imag)
-        yield t0, np.maximum(mag[first_pos], mag[first_pos + 1])
+        pair = np.maximum(mag[:-1], mag[1:])  # node k and k + 1
+        yield t0, (pair if contiguous else pair[first_pos])
 
 
 def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slot,
@@ -253,6 +270,10 @@ def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slo
     abs_phasors = np.abs(inp.phasors_a)
     max_phasor = abs_phasors.max(axis=1) if abs_phasors.size else np.zeros(0)
     const_steps = np.where(inp.constant_exceeds, n_t, 0)
+    # circuits whose phasors are equal at every step share a representative
+    _, first_same, same = np.unique(inp.phasors_a, axis=0, return_index=True,
+                                    return_inverse=True)
+    same = first_same[same.ravel()]
     res.steps_above_any[:] = const_steps
     curve = set(int(a) for a in inp.curve_assets)
     bounds = np.searchsorted(feature, np.arange(n_assets + 1))
@@ -303,10 +324,10 @@ def evaluate_series(system, feature, chain_of_segment, rhs, col_circuit, col_slo
         any_count = np.zeros(sel.size, np.int64)
         asset_over = 0
         asset_curve = np.zeros(n_t) if keep_curve else None
-        # block length: about 4 million node-steps per block at most
-        block = max(1, min(int(inp.block_steps), 4_000_000 // max(nodes_sel.size, 1)))
+        # block length: about 256 k node-steps per block at most (stays in cache)
+        block = max(1, min(int(inp.block_steps), 262_144 // max(nodes_sel.size, 1)))
         rows = np.arange(sel.size)
-        for t0, v in _asset_blocks(u, circ, slots, inp.phasors_a, abs_phasors, nodes_sel,
+        for t0, v in _asset_blocks(u, circ, slots, inp.phasors_a, abs_phasors, same, nodes_sel,
                                    first_pos, n_t, block):
             k = np.argmax(v, axis=1)
             vk = v[rows, k]
