@@ -42,8 +42,10 @@ __all__ = ["LoadSeries", "read_load_series", "REQUIRED_COLUMNS", "OPTIONAL_COLUM
 
 REQUIRED_COLUMNS = ("timestamp", "line_id", "current_a")
 OPTIONAL_COLUMNS = ("circuit", "phase_offset_deg", "flow_direction")
-#: Problems listed one by one at most (the rest are counted).
+#: Problems logged one by one at most (the rest are counted).
 MAX_LISTED = 200
+#: Problems kept for run.json and the report at most (then one line with the count).
+MAX_KEPT = 1000
 
 
 @dataclass
@@ -107,9 +109,9 @@ def _read_frame(path, file_format) -> pd.DataFrame:
 
 
 def _text(values) -> np.ndarray:
-    out = np.array(["" if v is None or (isinstance(v, float) and v != v) else str(v).strip()
-                    for v in values], dtype=object)
-    return out
+    """Stripped text of every cell; empty where the cell is empty or missing."""
+    text = pd.Series(values, dtype=object).astype("string")
+    return text.fillna("").str.strip().to_numpy(dtype=object)
 
 
 def _numbers(text: np.ndarray) -> np.ndarray:
@@ -165,36 +167,32 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
         add(i, "timestamp", f"{stamp_text[i]!r} is not an ISO 8601 date and time")
     ok &= ~bad
     ids = _text(frame["line_id"])
-    for i in np.flatnonzero(ok):
-        if ids[i] == "":
-            add(i, "line_id", "empty")
-            ok[i] = False
-        elif ids[i] not in line_circuits:
-            add(i, "line_id", f"{ids[i]!r} is not among the screened power lines")
-            ok[i] = False
+    nc_of = pd.Series(ids, dtype=object).map(line_circuits).to_numpy(float)  # NaN: unknown
+    for i in np.flatnonzero(ok & np.isnan(nc_of)):
+        add(i, "line_id", "empty" if ids[i] == "" else
+            f"{ids[i]!r} is not among the screened power lines")
+    ok &= ~np.isnan(nc_of)
     circuit = np.zeros(n, np.int64)
     if "circuit" in frame.columns:
         ctext = _text(frame["circuit"])
         cnum = _numbers(ctext)
-        for i in np.flatnonzero(ok & (ctext != "")):
-            nc = line_circuits[ids[i]]
-            c = cnum[i]
-            if not np.isfinite(c) or c != int(c) or not 1 <= c <= nc:
-                add(i, "circuit", f"{ctext[i]!r}: expected a whole number from 1 to {nc}"
-                    f" (line {ids[i]!r} has {nc} circuit{'s' if nc > 1 else ''})")
-                ok[i] = False
-            else:
-                circuit[i] = int(c)
+        given = ok & (ctext != "")
+        good = np.isfinite(cnum) & (cnum == np.round(cnum)) & (cnum >= 1) & (cnum <= nc_of)
+        for i in np.flatnonzero(given & ~good):
+            nc = int(nc_of[i])
+            add(i, "circuit", f"{ctext[i]!r}: expected a whole number from 1 to {nc}"
+                f" (line {ids[i]!r} has {nc} circuit{'s' if nc > 1 else ''})")
+        ok &= ~(given & ~good)
+        circuit = np.where(given & good, np.nan_to_num(cnum), 0).astype(np.int64)
     itext = _text(frame["current_a"])
     current = _numbers(itext)
-    for i in np.flatnonzero(ok):
-        if not np.isfinite(current[i]):
-            add(i, "current_a", f"{itext[i]!r} is not a finite number")
-            ok[i] = False
-        elif current[i] < 0:
-            add(i, "current_a", f"{current[i]:g} A is negative (a current is an rms value;"
-                " give the direction in flow_direction)")
-            ok[i] = False
+    for i in np.flatnonzero(ok & ~np.isfinite(current)):
+        add(i, "current_a", f"{itext[i]!r} is not a finite number")
+    ok &= np.isfinite(current)
+    for i in np.flatnonzero(ok & (current < 0)):
+        add(i, "current_a", f"{current[i]:g} A is negative (a current is an rms value;"
+            " give the direction in flow_direction)")
+    ok &= ~(current < 0)
     offset = np.full(n, np.nan)
     direction = np.full(n, np.nan)
     for col, target in (("phase_offset_deg", offset), ("flow_direction", direction)):
@@ -202,34 +200,40 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
             continue
         text = _text(frame[col])
         values = _numbers(text)
-        for i in np.flatnonzero(ok & (text != "")):
-            v = values[i]
-            wrong = (not np.isfinite(v)) if col == "phase_offset_deg" else v not in (1.0, -1.0)
-            if wrong:
-                add(i, col, f"{text[i]!r}: expected "
-                    + ("a finite angle in degrees" if col == "phase_offset_deg" else "+1 or -1"))
-                ok[i] = False
-            else:
-                target[i] = v
-    # order within each circuit: strictly increasing time in file order
-    t_ns = np.where(ok, stamps.to_numpy(dtype="datetime64[ns]").astype("int64", copy=False)
-                    if n else np.zeros(0, np.int64), 0)
-    key_codes, key_uniques = pd.factorize(pd.Series(
-        [f"{ids[i]}\x1f{circuit[i]}" for i in range(n)], dtype=object))
-    last_time: dict[int, tuple[int, int]] = {}
+        given = ok & (text != "")
+        good = np.isfinite(values) if col == "phase_offset_deg" else np.isin(values, (1.0, -1.0))
+        for i in np.flatnonzero(given & ~good):
+            add(i, col, f"{text[i]!r}: expected "
+                + ("a finite angle in degrees" if col == "phase_offset_deg" else "+1 or -1"))
+        ok &= ~(given & ~good)
+        target[given & good] = values[given & good]
+    # order within each circuit: strictly increasing time in file order. A row at or before
+    # the latest earlier time of its circuit is rejected (the rejected rows never raise it).
+    t_all = stamps.to_numpy(dtype="datetime64[ns]").astype("int64", copy=False) if n else \
+        np.zeros(0, np.int64)
+    key_codes, key_uniques = pd.factorize(pd.Series(ids, dtype=object) + "\x1f"
+                                          + pd.Series(circuit).astype(str))
+    rows_ok = np.flatnonzero(ok)
     marks_grid = ~bad
-    for i in np.flatnonzero(ok):
-        k = int(key_codes[i])
-        prev = last_time.get(k)
-        if prev is not None and t_ns[i] <= prev[0]:
-            what = ("duplicate timestamp" if t_ns[i] == prev[0]
-                    else "time goes backwards")
-            add(i, "timestamp", f"{what}: {stamp_text[i]} is not after"
-                f" {row_label(prev[1])} of the same line and circuit")
-            ok[i] = False
-            marks_grid[i] = False
-            continue
-        last_time[k] = (int(t_ns[i]), int(i))
+    if rows_ok.size:
+        k_ok, t_ok = key_codes[rows_ok], t_all[rows_ok]
+        order = np.argsort(k_ok, kind="stable")  # file order within each circuit
+        ks, ts = k_ok[order], t_ok[order]
+        running = pd.Series(ts).groupby(ks).cummax().to_numpy(np.int64)
+        first = np.r_[True, ks[1:] != ks[:-1]]
+        prev = np.r_[np.int64(0), running[:-1]]
+        back = np.zeros(rows_ok.size, bool)
+        back[order] = ~first & (ts <= prev)
+        for r in np.flatnonzero(back):
+            row = int(rows_ok[r])
+            same = rows_ok[:r][key_codes[rows_ok[:r]] == key_codes[row]]
+            m_row = int(same[np.argmax(t_all[same])])
+            what = "duplicate timestamp" if t_all[row] == t_all[m_row] else "time goes backwards"
+            add(row, "timestamp", f"{what}: {stamp_text[row]} is not after"
+                f" {row_label(m_row)} of the same line and circuit")
+        ok[rows_ok[back]] = False
+        marks_grid[rows_ok[back]] = False
+    t_ns = np.where(ok, t_all, 0)
     used = np.flatnonzero(ok)
     if used.size == 0:
         raise InputError([f"load series {name}: no usable row ({n} read)"]
@@ -259,8 +263,8 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
     n_keys = len(kuniq)
     keys = []
     for code in kuniq:
-        line, c = str(key_uniques[int(code)]).split("\x1f")
-        keys.append((line, int(c)))
+        line_text, circuit_text = str(key_uniques[int(code)]).split("\x1f")
+        keys.append((line_text, int(circuit_text)))
     cur = np.full((n_keys, n_steps), np.nan)
     off_m = np.full((n_keys, n_steps), np.nan)
     dir_m = np.full((n_keys, n_steps), np.nan)
@@ -287,10 +291,15 @@ def read_load_series(settings, line_circuits: dict[str, int]) -> LoadSeries:
     for line in sorted(set(line_circuits) - listed):
         add(-1, "line_id", f"line {line!r} has no rows in the series: its layer load is used"
             " at every step", action="note")
+    if len(problems) > MAX_KEPT:  # run.json keeps the first ones and the count
+        more = len(problems) - MAX_KEPT
+        problems = problems[:MAX_KEPT] + [{
+            "file": name, "row": "", "field": "", "action": "note",
+            "reason": f"{more} more problems not listed (fix the ones above and run again)"}]
     if len(problems) > MAX_LISTED:
         log.warning("load series %s: %d problems, the first %d listed", name, len(problems),
                     MAX_LISTED)
-    for p in problems[:20]:
+    for p in problems[:MAX_LISTED]:
         log.warning("load series %s: %s %s: %s (%s)", name, p["row"], p["field"], p["reason"],
                     p["action"])
     return LoadSeries(grid.astype("datetime64[s]"), step / 3.6e12, keys, cur, off_m, dir_m,
