@@ -218,3 +218,40 @@ def test_run_without_the_section_is_unchanged():
     assert "load_series" not in run.record
     assert not run.extra_tables
     assert "hours_above_limit_h" not in run.assets.columns
+
+
+def test_outputs_and_report_of_the_demo_series(tmp_path):
+    """The demo series config: run.json, curves CSV with the caution, layers and report."""
+    import json
+
+    import pyogrio
+
+    from corridor.io.outputs import read_csv
+    from corridor.runner import publish
+
+    text = DEMO.read_text(encoding="utf-8").replace('"../', f'"{ROOT}/').replace(
+        f'"{ROOT}/out/demo_series"', f'"{tmp_path / "out"}"')
+    path = tmp_path / "demo_series.toml"
+    path.write_text(text, encoding="utf-8")
+    cfg = load_config(path)
+    publish(cfg, cfg.output_dir, asset_stages(), run_stages())
+    out = cfg.output_dir
+    record = json.loads((out / "run.json").read_text(encoding="utf-8"))["load_series"]
+    assert record["steps"] == 168 and record["step_h"] == 1.0 and record["problems"] == []
+    assert "ISO 18086:2019 clause 7" in record["iso18086"]
+    curves = read_csv(out / "load_series_curves.csv")
+    header = (out / "load_series_curves.csv").read_text(encoding="utf-8").splitlines()[0]
+    assert header.endswith('"caution"') and 0 < curves["asset_id"].nunique() <= 5
+    for _, rows in curves.groupby("asset_id"):
+        v = rows["v_normal_peak_v"].to_numpy(float)
+        assert (np.diff(v) <= 1e-12).all()  # a duration curve falls
+    assets = pyogrio.read_dataframe(out / "screening.gpkg", layer="assets")
+    hazards = pyogrio.read_dataframe(out / "screening.gpkg", layer="hazards")
+    assert "hours_above_limit_h" in assets.columns and "hours_above_limit_h" in hazards.columns
+    # a pipeline of the demo is above its steady-state limit for part of the week
+    pipe = assets[assets["asset_kind"] == "pipeline"]
+    assert (pipe["hours_above_limit_h"] > 0).any()
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert 'id="load-series"' in html and "Hours above limit" in html
+    assert html.count("<svg") >= 2  # overview map, profiles ... and the duration curve
+    assert "Duration curve of the peak normal-load voltage" in html
