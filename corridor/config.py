@@ -43,7 +43,7 @@ LINE_DEFAULT_KEYS = {
 }
 
 LAYER_KEYS = {"path", "layer", "fields", "kind", "crs", "format", "osm"}
-TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits", "uncertainty"}
+TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits", "uncertainty", "load_series"}
 LAYER_ROLES = {"power_lines", "assets", "soil", "grounds", "towers", "substations"}
 
 
@@ -136,6 +136,8 @@ class Config:
     substations: LayerSource | None = None  # optional substation layer (docs/methods.md §18.4)
     #: The ``[uncertainty]`` section (corridor.uncertainty.settings.Bands); None: no bands.
     uncertainty: Any = None
+    #: Optional load time series (``[load_series]``, :mod:`corridor.series`).
+    load_series: Any = None
 
     @property
     def output_dir(self) -> Path:
@@ -593,6 +595,10 @@ def load_config(path: str | Path) -> Config:
         problems.append(f"{name}: uncertainty.soil_resistivity_ohm_m: per-polygon ranges need"
                         " a soil layer ([layers.soil])")
 
+    from corridor.series.settings import parse_load_series
+
+    load_series = parse_load_series(raw.get("load_series"), name, base, problems)
+
     if problems:
         raise ConfigError(problems)
     assert power_lines is not None  # a missing or bad power-line layer is a problem above
@@ -611,6 +617,8 @@ def load_config(path: str | Path) -> Config:
     }
     if bands is not None:
         resolved["uncertainty"] = bands.as_dict()
+    if load_series is not None:
+        resolved["load_series"] = load_series.as_dict()
     return Config(
         path=path,
         run=run_settings,
@@ -627,6 +635,7 @@ def load_config(path: str | Path) -> Config:
         limit_overrides=FrozenMap(limit_overrides),
         resolved=FrozenMap(resolved),
         uncertainty=bands,
+        load_series=load_series,
     )
 
 

@@ -178,6 +178,13 @@ def describe_column(name: str) -> tuple[str, str] | None:
     """
     if name in GLOSSARY:
         return GLOSSARY[name]
+    from corridor.series.columns import SERIES_GLOSSARY, series_criterion_description
+
+    if name in SERIES_GLOSSARY:  # load-series columns (corridor.series)
+        return SERIES_GLOSSARY[name]
+    m = re.fullmatch(r"hours_above_([a-z0-9_]+)_h", name)
+    if m:
+        return series_criterion_description(m.group(1))
     m = re.fullmatch(r"ratio_([a-z0-9_]+)", name)
     if m:
         return (f"Ratio, {m.group(1).replace('_', ' ')}",

@@ -148,7 +148,8 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
     if "rank" in t:
         # only the worst rows are needed: rank a bounded head, not the whole table
         cols = [c for c in ("rank", "asset_id", "asset_kind", "chainage_m", "separation_m",
-                            "line_id", "fault_line_id", "hazard_class") if c in t.columns]
+                            "line_id", "fault_line_id", "hazard_class", "hours_above_limit_h")
+                if c in t.columns]
         head = min(len(t), max_rows * SEGMENTS_PER_ASSET * 50)
         order = np.argsort(t["rank"].to_numpy(), kind="stable")[:head]
         ranked = pd.DataFrame(t[cols].iloc[order])
@@ -159,12 +160,14 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
         top = pd.concat([top, cells], axis=1)
         body.append(html_table(
             top, ["rank", "asset_id", "asset_kind", "chainage_m", "separation_m", "line_id",
-                  "fault_line_id", *cells.columns, "hazard_class"],
+                  "fault_line_id", *cells.columns, "hazard_class",
+                  *[c for c in ("hours_above_limit_h",) if c in top.columns]],
             f"{len(top)} of {len(t)} segments, worst first, at most {SEGMENTS_PER_ASSET} per"
             " asset", km=("chainage_m",),
             headers={"rank": "Rank", "asset_id": "Asset", "asset_kind": "Kind",
                      "line_id": "Nearest power line", "fault_line_id": "Faulted line"},
             raw=tuple(cells.columns), numeric=("Deciding value", "Limit", "Ratio to limit")))
+
     body.append("</section>")
 
     body.append('<section id="profiles"><h2>Profiles of assets over a limit</h2>')
@@ -200,6 +203,10 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
     from corridor.report.bands import bands_section  # [uncertainty] runs only (§16)
 
     body.append(bands_section(run, max_rows))
+
+    from corridor.report.series import series_section
+
+    body.append(series_section(run))  # with a load series only
     body.append(rejected_section(run))
     body.append(defaults_section(run))
     body.append(criteria_section(run, missing))

@@ -181,6 +181,8 @@ def ranked_assets_section(run, assets_df: pd.DataFrame | None, max_rows: int) ->
     cols = ["asset_rank", "asset_id", "asset_kind", "Deciding criterion", "Deciding value",
             "Limit", "Ratio to limit", "hazard_class", "worst_chainage_m",
             "length_over_limit_m", "length_m", "line_ids"]
+    if "hours_above_limit_h" in frame:  # with a load series (corridor.series)
+        cols.insert(cols.index("hazard_class") + 1, "hours_above_limit_h")
     parts.append(html_table(
         frame, cols, f"{len(head)} of {len(assets_df)} assets, worst first; the deciding value"
         " is the quantity compared with the limit at the asset's worst segment",

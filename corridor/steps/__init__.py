@@ -98,14 +98,16 @@ def id_order_key(ids) -> np.ndarray:
 
 def asset_stages() -> dict:
     """Per-asset stages after ``expose``: name -> function(run)."""
+    from corridor.series.stage import stage_series
     from corridor.steps.ground import stage_ground
 
     return {"couple": stage_couple, "respond": stage_respond, "assess": stage_assess,
-            "ground": stage_ground}
+            "series": stage_series, "ground": stage_ground}
 
 
 def run_stages() -> dict:
     """Run-wide stages on the merged per-asset results."""
+    from corridor.series.stage import stage_series_record
     from corridor.steps.report_tables import stage_tables
 
-    return {"rank": stage_rank, "tables": stage_tables}
+    return {"rank": stage_rank, "tables": stage_tables, "series": stage_series_record}

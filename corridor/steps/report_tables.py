@@ -17,6 +17,8 @@ HAZARD_COLUMNS = (
     "v_fault_v", "v_touch_fault_v", "v_coating_stress_v", "ac_density_a_per_m2",
     "v_capacitive_open_v", "i_capacitive_short_ma", "i_capacitive_body_ma", "i_normal_body_ma",
     "earth_potential_fault_v", "emf_section_fault_v", "clearing_time_s",
+    # with a load series (corridor.series): hours above a steady-state limit
+    "hours_above_limit_h", "fraction_above_limit", "iso18086_mean_ratio",
 )
 
 
@@ -94,6 +96,9 @@ def assets_layer(run) -> gpd.GeoDataFrame:
         "worst_i_capacitive_short_ma": pick("i_capacitive_short_ma", np.nan).astype(float),
         "line_ids": responsible_lines(t, a_idx, n),
     })
+    from corridor.series.stage import asset_series_columns
+
+    asset_series_columns(out, t)  # with a load series only
     out = gpd.GeoDataFrame(out, geometry=assets.geometry.to_numpy(), crs=assets.crs)
     order = np.lexsort((out["asset_id"].to_numpy(dtype=str),
                         -out["worst_utilization"].to_numpy(float)))

@@ -244,6 +244,9 @@ class ResponseModel:
     #: Normal-load components of unknown relative angle (one column each, after the
     #: normal and capacitive columns): the worst voltage is the sum of their magnitudes.
     n_normal_slots: int = 0
+    #: EMF factor of each segment's asset kind (telecom sheath screening factor; 1 else),
+    #: for callers that build their own right-hand sides (the load series, docs/methods.md §15).
+    emf_scale: np.ndarray | None = None
 
     def subset(self, assets: np.ndarray | None):
         """Global segment and node indices of the chains of ``assets`` (None: all)."""
@@ -298,7 +301,7 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
                          coup.fault_section_case[order], coup.fault_section_position_m[order],
                          coup.fault_section_emf_v_per_a[order] * scale[sec_seg],
                          coup.fault_case_asset, pos.position_m, pos.current_start_a,
-                         pos.current_end_a, n_slot)
+                         pos.current_end_a, n_slot, scale)
 
 
 def respond(cfg, inputs, geo, coup, extra_node_shunt_s=None) -> Response:
