@@ -13,6 +13,7 @@ import dataclasses
 import math
 import stat
 import tomllib
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -43,7 +44,7 @@ LINE_DEFAULT_KEYS = {
 }
 
 LAYER_KEYS = {"path", "layer", "fields", "kind", "crs", "format", "osm"}
-TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits"}
+TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits", "readings", "calibration"}
 LAYER_ROLES = {"power_lines", "assets", "soil", "grounds", "towers"}
 
 
@@ -133,6 +134,9 @@ class Config:
     arrangements_path: Path
     limit_overrides: FrozenMap
     resolved: FrozenMap = field(repr=False)
+    #: ``[readings]`` and ``[calibration]`` checked (corridor/reconcile/settings.py), or None.
+    readings: Mapping[str, Any] | None = None
+    calibration: Mapping[str, Any] | None = None
 
     @property
     def output_dir(self) -> Path:
@@ -581,6 +585,11 @@ def load_config(path: str | Path) -> Config:
         problems.append(f"{name}: limits: expected a table of overrides")
         limit_overrides = {}
 
+    from corridor.reconcile.settings import parse_calibration, parse_readings
+
+    readings = parse_readings(raw.get("readings"), name, base, problems)
+    calibration = parse_calibration(raw.get("calibration"), name, base, problems)
+
     if problems:
         raise ConfigError(problems)
     assert power_lines is not None  # a missing or bad power-line layer is a problem above
@@ -596,6 +605,8 @@ def load_config(path: str | Path) -> Config:
         },
         "limits": limit_overrides,
         "arrangements_file": str(arr_path),
+        **({"readings": readings} if readings is not None else {}),
+        **({"calibration": calibration} if calibration is not None else {}),
     }
     return Config(
         path=path,
@@ -611,6 +622,8 @@ def load_config(path: str | Path) -> Config:
         arrangements_path=arr_path,
         limit_overrides=FrozenMap(limit_overrides),
         resolved=FrozenMap(resolved),
+        readings=readings,
+        calibration=calibration,
     )
 
 
