@@ -63,8 +63,9 @@ def build() -> gpd.GeoDataFrame:
             s = int(np.searchsorted(start, ch, side="right") - 1)
             volts = (v_b if (aid, ch) == BRIDGED else v)[s]
             currents = ""
-            if aid == "MBL-12" and n in (1, 2):  # the utility's current at that instant
-                amps = 900.0 * (0.8 if n == 1 else 1.15)
+            if aid == "MBL-12" and n in (3, 6):  # the utility's current at that instant
+                assert mine["line_id"].iloc[s] == "VPC-345-A"  # the line governing there
+                amps = 900.0 * (0.8 if n == 3 else 1.15)
                 currents = f"VPC-345-A={amps:g}"
                 volts *= amps / 900.0
             geom = mine.geometry.iloc[s]

@@ -109,14 +109,14 @@ def fit_asset(cfg, inputs, asset_index: int, readings: pd.DataFrame, settings: d
         a, b = sens["coating"], sens["soil"]
         cos = abs(float(a @ b)) / max(float(np.linalg.norm(a) * np.linalg.norm(b)), 1e-300)
         if places < 2 or cos > _ALIKE_COS:
-            keep = max(free, key=lambda f: float(np.linalg.norm(sens[f])))
-            other = "soil" if keep == "coating" else "coating"
+            chosen = max(free, key=lambda f: float(np.linalg.norm(sens[f])))
+            other = "soil" if chosen == "coating" else "coating"
             why = ("one reading place" if places < 2 else
                    f"readings that move alike with both factors (|cos| = {cos:.3f})")
-            notes.append(f"{why}: fitted the {keep} factor only, the one the readings feel"
+            notes.append(f"{why}: fitted the {chosen} factor only, the one the readings feel"
                          f" most; the {other} factor held at 1 (two factors need readings at"
                          " two or more places that tell them apart)")
-            free = [keep]
+            free = [chosen]
     entry: dict = {"asset_id": str(assets["asset_id"].iloc[asset_index]),
                    "asset_kind": str(assets["asset_kind"].iloc[asset_index]),
                    "readings": m, "reading_places": places, "fitted": free,
@@ -141,7 +141,7 @@ def fit_asset(cfg, inputs, asset_index: int, readings: pd.DataFrame, settings: d
         def fun(x):
             return (model.log_v(*full(x)) - meas)[rows]
         return least_squares(fun, np.zeros(len(free)), bounds=(lo, hi), loss="huber",
-                             f_scale=sigma, diff_step=1e-4, x_scale=1.0, max_nfev=60)
+                             f_scale=sigma, diff_step=np.full(len(free), 1e-4), x_scale=1.0, max_nfev=60)
 
     keep = np.ones(m, bool)
     res = solve(keep)

@@ -151,4 +151,5 @@ def asset_voltages(cfg, inputs, asset_index: int, factors: Mapping[str, float],
     st["couple"] = CalibratedStage(stages["couple"], {aid: dict(factors)})
     run = compute(cfg, sub, st, logging.DEBUG)
     t = run.segment_table
+    assert t is not None  # compute() always makes the segment table
     return t.sort_values("segment_index")["v_normal_v"].to_numpy(float)

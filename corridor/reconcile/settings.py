@@ -186,3 +186,27 @@ def read_factors(path: Path) -> dict[str, dict[str, float]]:
 
 #: The ``format`` entry of a calibration file.
 CALIBRATION_FORMAT = "corridor-calibration-1"
+
+
+def calibration_cause(asset_id: str, before: dict, after: dict) -> str:
+    """changes.csv's cause when a calibration changed an asset's factors ('' if not).
+
+    ``before`` and ``after`` are the resolved configs of the previous and this run.
+    """
+    def factors(cfg: dict) -> tuple[dict, str]:
+        cal = cfg.get("calibration") if isinstance(cfg, dict) else None
+        if not isinstance(cal, dict):
+            return {}, ""
+        return (cal.get("factors", {}) or {}).get(asset_id, {}), str(cal.get("path", ""))
+
+    old, _ = factors(before)
+    new, path = factors(after)
+    parts = []
+    for key, what in (("coating_factor", "coating"), ("soil_factor", "soil")):
+        a, b = float(old.get(key, 1.0)), float(new.get(key, 1.0))
+        if a != b:
+            parts.append(f"{what} x{a:.3g} -> x{b:.3g}")
+    if not parts:
+        return ""
+    where = f" ({Path(path).name})" if path else " (calibration removed)"
+    return f"calibration{where}: " + ", ".join(parts)
