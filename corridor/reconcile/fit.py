@@ -2,7 +2,7 @@
 
 For each asset with compared readings the factors θ = (ln c_coat, ln c_soil)
 minimise the robust (Huber) sum of the log-residuals
-r_k(θ) = ln V_k(θ) − ln V_meas,k, within bounds, with
+r_k(θ) = ln V_meas,k − ln V_k(θ), within bounds, with
 :func:`scipy.optimize.least_squares` (docs/methods.md §17):
 
 1. Identifiability: the sensitivity of ln V to each factor at θ = 0 (finite
@@ -124,7 +124,7 @@ def fit_asset(cfg, inputs, asset_index: int, readings: pd.DataFrame, settings: d
                    "coating_factor_sigma_log": None, "soil_factor_sigma_log": None,
                    "at_bound": [], "set_aside": 0}
     out = readings.copy()
-    out["log_residual_after"] = base - meas
+    out["log_residual_after"] = meas - base
     out["kept_in_fit"] = True
     if not free:
         notes.append("nothing fitted")
@@ -139,18 +139,18 @@ def fit_asset(cfg, inputs, asset_index: int, readings: pd.DataFrame, settings: d
 
     def solve(rows):
         def fun(x):
-            return (model.log_v(*full(x)) - meas)[rows]
+            return (meas - model.log_v(*full(x)))[rows]
         return least_squares(fun, np.zeros(len(free)), bounds=(lo, hi), loss="huber",
-                             f_scale=sigma, diff_step=np.full(len(free), 1e-4), x_scale=1.0, max_nfev=60)
+                             f_scale=sigma, diff_step=np.full(len(free), 1e-4), max_nfev=60)
 
     keep = np.ones(m, bool)
     res = solve(keep)
-    after = model.log_v(*full(res.x)) - meas
+    after = meas - model.log_v(*full(res.x))
     outliers = np.abs(after) > thr
     if outliers.any() and (~outliers).sum() >= len(free):
         keep = ~outliers
         res = solve(keep)
-        after = model.log_v(*full(res.x)) - meas
+        after = meas - model.log_v(*full(res.x))
         notes.append(f"{int(outliers.sum())} reading(s) beyond the anomaly threshold after a"
                      " first fit set aside and the factors fitted again without them")
     elif outliers.any():

@@ -50,9 +50,18 @@ def read_table(settings: dict, crs) -> gpd.GeoDataFrame:
     from corridor.io.layers import read_raw
     from corridor.settings import FrozenMap
 
-    src = LayerSource("readings", Path(settings["path"]), settings.get("layer"),
-                      FrozenMap(settings.get("fields", {})), crs=settings.get("crs"))
-    raw = read_raw(src)
+    path = Path(settings["path"])
+    if path.suffix.lower() == ".csv":  # a plain table: locations by asset and chainage, or x/y
+        try:
+            raw = pd.read_csv(path, dtype=str, keep_default_na=False, encoding="utf-8")
+        except (OSError, ValueError, UnicodeDecodeError) as exc:
+            raise InputError(f"layer {label(settings)}: cannot be read as CSV (UTF-8, a"
+                             f" header row): {exc}") from None
+        raw = raw.replace("", None)
+    else:
+        raw = read_raw(LayerSource("readings", path, settings.get("layer"),
+                                   FrozenMap(settings.get("fields", {})),
+                                   crs=settings.get("crs")))
     if not isinstance(raw, gpd.GeoDataFrame) or raw.geometry.name not in raw:
         raw = gpd.GeoDataFrame(pd.DataFrame(raw), geometry=[None] * len(raw), crs=crs)
     if raw.crs is None:
@@ -157,7 +166,8 @@ def place(table: gpd.GeoDataFrame, segments: gpd.GeoDataFrame, settings: dict) -
                 parse_currents(row["line_currents_a"])
             except ValueError as exc:
                 problems.append(f"{where} 'line_currents_a': {exc}")
-        row["measured_v"], row["measured_ac_density_a_per_m2"] = v, dens
+        row["measured_v"] = v if np.isfinite(v) else float("nan")
+        row["measured_ac_density_a_per_m2"] = dens if np.isfinite(dens) else float("nan")
         aid = _text(r["asset_id"])
         ch = _number(r["chainage_m"])
         x, y = _number(r["x_m"]), _number(r["y_m"])
