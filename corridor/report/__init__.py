@@ -233,6 +233,9 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
                         f" (cap of {max_profiles}); see the assets layer.</p>")
     body.append("</section>")
 
+    from corridor.report.readings import readings_section
+
+    body.append(readings_section(run))  # [readings]: measured against predicted
     body.append(rejected_section(run))
     body.append(defaults_section(run))
 
