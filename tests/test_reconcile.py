@@ -321,7 +321,7 @@ def test_calibrated_run_names_the_calibration_in_changes(tmp_path):
     assert "Readings against the model" in html and "MBL-12-TP06" in html
 
 
-def test_demo_readings_config_runs_and_demo_is_unchanged():
+def test_demo_readings_config_loads_and_demo_names_no_readings():
     # demo.toml names no readings: its run has no readings outputs (README)
     assert load_config(ROOT / "config" / "demo.toml").readings is None
     cfg = load_config(DEMO_READINGS)
