@@ -327,3 +327,21 @@ def test_demo_readings_config_loads_and_demo_names_no_readings():
     cfg = load_config(DEMO_READINGS)
     assert cfg.readings is not None and cfg.calibration is None
     assert pd.notna(cfg.readings["calibration_path"])
+
+
+def test_new_readings_reuse_the_cache_but_never_stale_outputs(tmp_path):
+    # readings change no asset's results: the second run takes every asset from the
+    # cache, yet its readings outputs are those of the new readings (README, cache)
+    table = gpd.read_file(ROOT / "sample_layers" / "brackenford_readings.gpkg",
+                          layer="readings")
+    table.to_file(tmp_path / "r.gpkg", layer="readings", driver="GPKG")
+    cfg_path = _config(tmp_path, tmp_path / "r.gpkg")
+    assert main(["run", str(cfg_path), "-q"]) == 0
+    table.iloc[:-1].to_file(tmp_path / "r.gpkg", layer="readings", driver="GPKG", mode="w")
+    assert main(["run", str(cfg_path), "-q"]) == 0
+    record = json.loads((tmp_path / "out" / "run.json").read_text())
+    assert record["counts"]["assets_from_cache"] == record["counts"]["assets"]
+    assert len(read_csv(tmp_path / "out" / "reconciliation.csv")) == len(table) - 1
+    assert len(gpd.read_file(tmp_path / "out" / "screening.gpkg", layer="readings")) == \
+        len(table) - 1
+    assert any(d["path"] == str(tmp_path / "r.gpkg") for d in record["inputs"])
