@@ -54,6 +54,10 @@ def attach(run) -> None:
     settings = getattr(cfg, "readings", None)
     if not settings:
         return
+    if run.segment_table is None or "v_normal_v" not in run.segment_table:
+        log.warning("readings: this run computed no normal-load voltages (no response"
+                    " step); the readings are not compared")
+        return
     table = rd.read_table(settings, run.inputs.crs)
     placed = rd.place(table, run.segment_table, settings)
     compared = cmp.compare(placed, run.segment_table, run.inputs.lines)
