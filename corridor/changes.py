@@ -163,7 +163,15 @@ def causes(asset_id: str, i: int, state: dict, prev_state: dict | None, keys,
     pc, cc = prev_state.get("config_parts", {}), state["config_parts"]
     if pc.get("config") != cc.get("config"):
         diff = _config_diff(prev_state.get("relevant_config", {}), state["relevant_config"])
-        found.append("config changed" + (f": {', '.join(diff[:8])}" if diff else ""))
+        from corridor.reconcile.settings import calibration_cause
+
+        cal = calibration_cause(asset_id, prev_state.get("relevant_config", {}),
+                                state["relevant_config"])
+        if cal:  # the calibration's factors of this asset changed (docs/methods.md §17)
+            found.append(cal)
+        diff = [d for d in diff if d.split(".")[0] not in ("calibration", "readings")]
+        if diff or not cal:
+            found.append("config changed" + (f": {', '.join(diff[:8])}" if diff else ""))
     if pc.get("arrangements") != cc.get("arrangements"):
         found.append("arrangements changed")
     if pc.get("limit_set") != cc.get("limit_set"):

@@ -101,7 +101,12 @@ def _parser() -> argparse.ArgumentParser:
     qp.add_argument("--zip", required=True, type=Path, help="zip file to write")
     qp.add_argument("--python", default=None,
                     help="Python the plugin runs corridor with (default: this one)")
-    for q in (r, c, ls, st, u, qp):
+    cal = sub.add_parser("calibrate", help="fit coating and soil factors to the [readings] and"
+                                           " write the calibration file")
+    cal.add_argument("config", type=Path, help="run configuration (TOML) with [readings]")
+    cal.add_argument("--out", type=Path, default=None,
+                     help="calibration file (default [readings] calibration_path)")
+    for q in (r, c, ls, st, u, qp, cal):
         q.add_argument("-q", "--quiet", action="store_true", help="warnings and errors only")
         q.add_argument("-v", "--verbose", action="store_true", help="debug messages")
     return p
@@ -345,6 +350,11 @@ def main(argv: list[str] | None = None) -> int:
             return _flushed(check(cfg))
         if args.command == "unlock":
             return _flushed(unlock(cfg, args.out, args.force))
+        if args.command == "calibrate":
+            from corridor.reconcile.run import calibrate
+
+            calibrate(cfg, args.out)
+            return EXIT_OK
         from corridor.runner import publish
         from corridor.steps import asset_stages, run_stages
 

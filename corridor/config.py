@@ -13,6 +13,7 @@ import dataclasses
 import math
 import stat
 import tomllib
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -43,7 +44,8 @@ LINE_DEFAULT_KEYS = {
 }
 
 LAYER_KEYS = {"path", "layer", "fields", "kind", "crs", "format", "osm"}
-TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits", "uncertainty", "load_series"}
+TOP_KEYS = {"run", "line_defaults", "defaults", "layers", "limits", "uncertainty", "load_series",
+            "readings", "calibration"}
 LAYER_ROLES = {"power_lines", "assets", "soil", "grounds", "towers", "substations"}
 
 
@@ -138,6 +140,9 @@ class Config:
     uncertainty: Any = None
     #: Optional load time series (``[load_series]``, :mod:`corridor.series`).
     load_series: Any = None
+    #: ``[readings]`` and ``[calibration]`` checked (corridor/reconcile/settings.py), or None.
+    readings: Mapping[str, Any] | None = None
+    calibration: Mapping[str, Any] | None = None
 
     @property
     def output_dir(self) -> Path:
@@ -599,6 +604,11 @@ def load_config(path: str | Path) -> Config:
 
     load_series = parse_load_series(raw.get("load_series"), name, base, problems)
 
+    from corridor.reconcile.settings import parse_calibration, parse_readings
+
+    readings = parse_readings(raw.get("readings"), name, base, problems)
+    calibration = parse_calibration(raw.get("calibration"), name, base, problems)
+
     if problems:
         raise ConfigError(problems)
     assert power_lines is not None  # a missing or bad power-line layer is a problem above
@@ -614,6 +624,8 @@ def load_config(path: str | Path) -> Config:
         },
         "limits": limit_overrides,
         "arrangements_file": str(arr_path),
+        **({"readings": readings} if readings is not None else {}),
+        **({"calibration": calibration} if calibration is not None else {}),
     }
     if bands is not None:
         resolved["uncertainty"] = bands.as_dict()
@@ -636,6 +648,8 @@ def load_config(path: str | Path) -> Config:
         resolved=FrozenMap(resolved),
         uncertainty=bands,
         load_series=load_series,
+        readings=readings,
+        calibration=calibration,
     )
 
 

@@ -111,6 +111,7 @@ def relevant_config(cfg: Config) -> dict:
     for k in ("output_dir", "cache_dir", "change_threshold"):
         run.pop(k, None)
     res.pop("arrangements_file", None)
+    res.pop("readings", None)  # readings change no asset's results (docs/methods.md §17)
     layers = res.get("layers", {})
     for v in layers.values():
         for entry in (v if isinstance(v, list) else [v]):

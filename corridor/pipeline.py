@@ -66,12 +66,17 @@ log = logging.getLogger(__name__)
 def run_screening(cfg: Config, stages: dict | None = None,
                   final_stages: dict | None = None) -> Run:
     """Read, compute every asset, finalize (no writing)."""
+    from corridor.reconcile.model import calibrated_stages
+    from corridor.reconcile.run import attach as attach_readings
+
     t0 = time.perf_counter()
     inputs = read_inputs(cfg)
     read_s = round(time.perf_counter() - t0, 4)
-    run = compute(cfg, inputs, stages)
+    run = compute(cfg, inputs, calibrated_stages(cfg, stages))
     run.timings_s = {"read": read_s, **run.timings_s}
-    return finalize(run, final_stages)
+    finalize(run, final_stages)
+    attach_readings(run)  # [readings]: readings layer, reconciliation.csv (docs/methods.md §17)
+    return run
 
 
 # -- the one sequence: read -> plan partitions -> compute -> merge -> finalize -> compare
@@ -148,7 +153,10 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     from corridor import changes as changes_mod
     from corridor import keys as keys_mod
     from corridor.io.layers import read_inputs
+    from corridor.reconcile.model import calibrated_stages
+    from corridor.reconcile.run import attach as attach_readings
 
+    stages = calibrated_stages(cfg, stages)  # [calibration]: factors applied (docs/methods.md §17)
     compute_fn = backends.compute_function(cfg, out_dir.parent)
     total = 5
     progress.stage("read", 1, total)
@@ -179,6 +187,7 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     run.counts.update(rejected["counts"])
     progress.stage("finalize", 3, total)
     finalize(run, final_stages)
+    attach_readings(run)  # [readings]: readings layer, reconciliation.csv
     run.counts["assets_recomputed"] = int(run.counts.get("assets_recomputed", 0))
     progress.stage("compare", 4, total)
     state = changes_mod.inputs_state(run, keys)

@@ -23,6 +23,8 @@ def input_files(cfg: Config) -> list[Path]:
     paths = [cfg.path, cfg.arrangements_path, cfg.power_lines.path]
     paths += [a.path for a in cfg.assets]
     paths += [s.path for s in (cfg.soil, cfg.grounds, cfg.towers) if s is not None]
+    # the readings and the calibration file (docs/methods.md §17)
+    paths += [Path(x["path"]) for x in (cfg.readings, cfg.calibration) if x]
     seen: list[Path] = []
     for p in paths:
         if p not in seen:

@@ -207,6 +207,10 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
     from corridor.report.series import series_section
 
     body.append(series_section(run))  # with a load series only
+
+    from corridor.report.readings import readings_section
+
+    body.append(readings_section(run))  # [readings]: measured against predicted
     body.append(rejected_section(run))
     body.append(defaults_section(run))
     body.append(criteria_section(run, missing))

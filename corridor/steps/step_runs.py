@@ -70,7 +70,9 @@ def _compute_through(ctx: StepContext, last: str | None, before_finalize=None):
 
         stages[name] = wrapped
     _check(ctx, 1 / n, "expose")
-    run = compute(ctx.config, inputs, stages)
+    from corridor.reconcile.model import calibrated_stages
+
+    run = compute(ctx.config, inputs, calibrated_stages(ctx.config, stages))  # [calibration]
     if before_finalize is not None:
         before_finalize(run)
     return finalize(run, {})  # segment ids in run order, no run-wide stages
