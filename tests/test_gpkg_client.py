@@ -260,3 +260,23 @@ def test_unknown_format_is_a_config_error(tmp_path):
 
     with pytest.raises(ConfigError, match="shapefile"):
         write_extra_formats({}, tmp_path, ["fgb", "shapefile"])
+
+
+def test_qml_styles_carry_aliases_and_labels(gpkg):
+    # QGIS project-file format: <aliases><alias field= name=/> and the root's
+    # labelsEnabled with a simple <labeling> naming the field; QGIS 3.22 takes field
+    # aliases from the style only (tests/test_qgis_outputs.py loads them in QGIS)
+    from corridor.io.glossary import alias_for
+    from corridor.io.styles import LABEL_FIELDS
+
+    styles = pyogrio.read_dataframe(gpkg, layer="layer_styles")
+    for rec in styles.itertuples():
+        root = ET.fromstring(rec.styleQML.encode("utf-8"))
+        fields = ["fid", *pyogrio.read_info(gpkg, layer=rec.f_table_name)["fields"]]
+        aliases = {a.get("field"): a.get("name") for a in root.iter("alias")}
+        assert aliases == {f: alias_for(f) for f in fields}, rec.f_table_name
+        label = LABEL_FIELDS.get(rec.f_table_name)
+        assert root.get("labelsEnabled") == ("1" if label else "0")
+        if label:
+            style = root.find("labeling/settings/text-style")
+            assert style is not None and style.get("fieldName") == label
