@@ -351,7 +351,7 @@ def compute(cfg: Config, inputs: Inputs, stages: dict | None = None,
     if getattr(cfg, "uncertainty", None) is not None and run.assessment is not None:
         from corridor.uncertainty.ensemble import stage_bands  # [uncertainty] (§16)
 
-        with _Timer(run, "bands", step_log_level):
+        with _Timer(run.timings_s, "bands", step_log_level):
             stage_bands(run)
     run.limits_table = limits_frame(run)
     run.counts["segments"] = len(geometry.segments)
