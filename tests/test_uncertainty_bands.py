@@ -360,7 +360,7 @@ def test_polygon_ranges_need_a_soil_layer_and_a_known_polygon(exposure, cli, cap
                                      f'"{polygon_id}" = {{ low = 10.0, high = 100.0 }}\n')
 
     with pytest.raises(ConfigError, match="need a soil layer"):
-        load_config(with_section("#0"))
+        load_config(with_section("fid:1"))
     # with a soil layer, an id that names none of its polygons
     soil = gpd.GeoDataFrame({"RHO": [100.0]}, geometry=[LineString(
         [(X0 - 100, Y0 - 500), (X0 + 6000, Y0 - 500), (X0 + 6000, Y0 + 500)]).convex_hull],
@@ -368,10 +368,11 @@ def test_polygon_ranges_need_a_soil_layer_and_a_known_polygon(exposure, cli, cap
     path = scenario.write_layer(soil, "soil")
     cfg["layers"]["soil"] = {"path": path.name, "layer": "soil",
                              "fields": {"soil_resistivity_ohm_m": "RHO"}}
-    config_path = with_section("#7")
+    config_path = with_section("fid:7")
     assert cli(["run", str(config_path), "--out", str(scenario.root / "o")]) == 2
     err = capsys.readouterr().err
-    assert "uncertainty.soil_resistivity_ohm_m.'#7'" in err and "#0" in err
+    # the message lists the polygons by their GeoPackage FIDs (from 1)
+    assert "uncertainty.soil_resistivity_ohm_m.'fid:7'" in err and "fid:1" in err
 
 
 def test_run_without_section_has_no_band_columns(exposure):

@@ -15,7 +15,7 @@ range here (docs/methods.md §16)::
     fault_current_factor = { low = 0.9, high = 1.1 }
 
     [uncertainty.soil_resistivity_ohm_m]   # per soil polygon, by its feature id
-    "#2" = { low = 400.0, high = 2500.0, distribution = "log-uniform" }
+    "fid:3" = { low = 400.0, high = 2500.0, distribution = "log-uniform" }
 
 Every range is optional. This module imports nothing from corridor, so
 :mod:`corridor.config` may import it.
