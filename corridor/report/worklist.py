@@ -55,7 +55,7 @@ def site_positions(run, sites: pd.DataFrame) -> np.ndarray:
     return out
 
 
-def _after_values(run, pos: np.ndarray, d: pd.DataFrame, labels) -> np.ndarray:
+def _after_values(run, pos: np.ndarray, labels) -> np.ndarray:
     """The deciding quantity with every proposed ground in place, NaN where not kept."""
     after = getattr(run, "segment_table_after_grounding", None)
     out = np.full(len(pos), np.nan)
@@ -68,11 +68,14 @@ def _after_values(run, pos: np.ndarray, d: pd.DataFrame, labels) -> np.ndarray:
     want = pd.MultiIndex.from_arrays([t["asset_id"].astype(str).to_numpy()[np.maximum(pos, 0)],
                                       t["segment_index"].to_numpy(np.int64)[np.maximum(pos, 0)]])
     where = np.where(ok, key.get_indexer(want), -1)
+    columns: dict[str, np.ndarray] = {}
     for i, label in enumerate(labels):
         c = criterion_of(run, label)
         if c is None or where[i] < 0 or c.quantity not in after:
             continue
-        out[i] = abs(float(after[c.quantity].to_numpy(float)[where[i]]))
+        if c.quantity not in columns:
+            columns[c.quantity] = after[c.quantity].to_numpy(float)
+        out[i] = abs(float(columns[c.quantity][where[i]]))
     return out
 
 
@@ -104,7 +107,7 @@ def worklist_section(run) -> str:
     labels = sites["governing"].astype(str).to_numpy()
     before = deciding_rows(run, np.maximum(pos, 0), labels=labels)
     before.loc[pos < 0, ["value", "limit", "ratio"]] = np.nan
-    after_v = _after_values(run, pos, before, labels)
+    after_v = _after_values(run, pos, labels)
     limit = before["limit"].to_numpy(float)
     with np.errstate(divide="ignore", invalid="ignore"):
         after_r = np.where(np.isfinite(limit) & (limit > 0), after_v / limit, np.nan)
