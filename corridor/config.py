@@ -10,24 +10,30 @@ the file and key. A :class:`Config` is frozen and pickles as it is.
 from __future__ import annotations
 
 import dataclasses
-import math
 import stat
-import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from corridor.arrangements import (
+    CIRCUIT_KEYS,
+    EARTH_WIRE_KEYS,
+    PACKAGED_ARRANGEMENTS,
+    Arrangement,
+    Conductor,
+    load_arrangements,
+)
 from corridor.errors import ConfigError
 from corridor.registry import load_plugins, registry
 from corridor.schema import GROUND_FIELDS, LINE_FIELDS, SOIL_FIELDS, SUBSTATION_FIELDS
 from corridor.settings import RUN_SETTINGS, FrozenMap, RunSettings
+from corridor.toml_read import read_toml, section_table, short_repr
 
 __all__ = ["RUN_SETTINGS", "RunSettings", "Config", "LayerSource", "Arrangement", "Conductor",
-           "load_config", "load_arrangements", "read_toml"]
+           "load_config", "load_arrangements", "read_toml", "PACKAGED_ARRANGEMENTS",
+           "CIRCUIT_KEYS", "EARTH_WIRE_KEYS"]
 
-#: The example tower arrangements shipped with corridor (package data).
-PACKAGED_ARRANGEMENTS = Path(__file__).resolve().parent / "data" / "arrangements.toml"
 
 LINE_DEFAULT_KEYS = {
     "load_current_a": 400.0,
@@ -89,33 +95,6 @@ class LayerSource:
     def label(self) -> str:
         """Name used in messages: ``file:layer``."""
         return f"{self.path.name}:{self.layer}" if self.layer else self.path.name
-
-
-@dataclass(frozen=True)
-class Conductor:
-    """One conductor of a tower arrangement, positions relative to the centreline."""
-
-    x_m: float
-    height_m: float
-    radius_m: float
-    gmr_m: float
-    resistance_ohm_per_km: float
-    circuit: int  # -1 for an earth wire
-    phase: str  # 'A', 'B', 'C'; '' for an earth wire
-    material: str = "acsr"
-
-
-@dataclass(frozen=True)
-class Arrangement:
-    """A named tower and conductor arrangement."""
-
-    name: str
-    description: str
-    conductors: tuple[Conductor, ...]
-
-    @property
-    def n_circuits(self) -> int:
-        return 1 + max(c.circuit for c in self.conductors)
 
 
 @dataclass(frozen=True)
@@ -208,59 +187,6 @@ def dataset_path_problem(path: Path) -> str | None:
             " reads only files and folders")
 
 
-def read_toml(path: Path, what: str, name: str | None = None) -> dict:
-    """Read a TOML file; every failure is a :class:`ConfigError` naming the file.
-
-    Parameters
-    ----------
-    path : Path
-        The file.
-    what : str
-        What the file is, for messages (``"config file"``).
-    name : str, optional
-        How messages name the file (default: the full path).
-    """
-    name = str(path) if name is None else name
-    try:
-        mode = path.stat().st_mode
-    except FileNotFoundError:
-        raise ConfigError(f"{path}: {what} not found") from None
-    except (OSError, ValueError) as exc:
-        raise ConfigError(f"{path}: {what} cannot be read: {exc}") from None
-    if stat.S_ISDIR(mode):
-        raise ConfigError(f"{path}: is a folder, expected a TOML file")
-    if not stat.S_ISREG(mode):
-        raise ConfigError(f"{path}: {what} is not a regular file (a FIFO, device or socket?)")
-    try:
-        with open(path, "rb") as fh:
-            return tomllib.load(fh)
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{name}: not valid TOML: {exc}") from None
-    except UnicodeDecodeError as exc:
-        raise ConfigError(f"{name}: not UTF-8 text ({exc}); TOML files are UTF-8: save it"
-                          " as UTF-8") from None
-    except RecursionError:
-        raise ConfigError(f"{name}: not valid TOML for corridor: arrays or tables nested too"
-                          " deeply") from None
-    except OSError as exc:
-        raise ConfigError(f"{path}: {what} cannot be read: {exc}") from None
-
-
-def _table(raw: dict, key: str, where: str, problems: list[str]) -> dict:
-    """``raw[key]`` when it is a table (or absent: an empty one); else a problem."""
-    value = raw.get(key, {})
-    if isinstance(value, dict):
-        return value
-    problems.append(f"{where}: expected a table, got {_short(value)}")
-    return {}
-
-
-def _short(value: Any, limit: int = 60) -> str:
-    """``repr(value)``, cut to ``limit`` characters for a message."""
-    text = repr(value)
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
 def _layer(raw: Any, role: str, where: str, base: Path, problems: list[str],
            allowed_fields: set[str]) -> LayerSource | None:
     if not isinstance(raw, dict):
@@ -340,113 +266,6 @@ def _layer_format(raw: dict, role: str, where: str, full: Path, problems: list[s
     return fmt, (FrozenMap(table) if not found and table else None)
 
 
-def _conductor(raw: dict, where: str, problems: list[str], circuit: int, phase: str,
-               index: int) -> Conductor | None:
-    def pick(key, default=None, *, plural=None):
-        value = raw.get(key, default)
-        if isinstance(value, list):
-            if index >= len(value):
-                problems.append(f"{where}.{key}: list is too short")
-                return math.nan
-            value = value[index]
-        if value is None or isinstance(value, bool) or not isinstance(value, int | float):
-            problems.append(f"{where}.{key}: expected a number")
-            return math.nan
-        if not math.isfinite(value):
-            problems.append(f"{where}.{key}: expected a finite number, got {value!r}")
-            return math.nan
-        return float(value)
-
-    x = pick("x_m")
-    h = pick("height_m")
-    r = pick("radius_m")
-    # a solid round conductor's GMR is r e^(-1/4) = 0.7788 r (textbook closed form)
-    gmr = pick("gmr_m") if "gmr_m" in raw else r * 0.7788
-    res = pick("resistance_ohm_per_km")
-    for name, value in (("height_m", h), ("radius_m", r), ("gmr_m", gmr),
-                        ("resistance_ohm_per_km", res)):
-        if not math.isnan(value) and value <= 0:
-            problems.append(f"{where}.{name}: must be positive, got {value}")
-    return Conductor(x, h, r, gmr, res, circuit, phase, str(raw.get("material", "acsr")))
-
-
-CIRCUIT_KEYS = {"phasing", "x_m", "height_m", "radius_m", "gmr_m", "resistance_ohm_per_km",
-                "material"}
-EARTH_WIRE_KEYS = {"x_m", "height_m", "radius_m", "gmr_m", "resistance_ohm_per_km", "material"}
-
-
-def load_arrangements(path: Path) -> dict[str, Arrangement]:
-    """Load and validate a tower-arrangement file.
-
-    Each entry ``[arrangements.NAME]`` has a ``description``, one or more
-    ``[[arrangements.NAME.circuits]]`` (``phasing`` such as ``"ABC"``, and
-    three-element lists ``x_m``, ``height_m`` plus conductor data) and zero or
-    more ``[[arrangements.NAME.earth_wires]]``.
-    """
-    problems: list[str] = []
-    raw = read_toml(path, "arrangements file")
-    out: dict[str, Arrangement] = {}
-    for key in raw:
-        if key != "arrangements":
-            problems.append(f"{path.name}: {key}: unknown key (expected [arrangements.NAME])")
-    for name, entry in _table(raw, "arrangements", f"{path.name}: arrangements",
-                              problems).items():
-        where = f"{path.name}: arrangements.{name}"
-        if not isinstance(entry, dict):
-            problems.append(f"{where}: expected a table")
-            continue
-        for key in entry:
-            if key not in {"description", "circuits", "earth_wires"}:
-                problems.append(f"{where}.{key}: unknown key")
-        conductors: list[Conductor] = []
-        circuits = entry.get("circuits", [])
-        if not isinstance(circuits, list):
-            problems.append(f"{where}.circuits: expected [[...circuits]] tables")
-            circuits = []
-        elif not circuits:
-            problems.append(f"{where}.circuits: at least one circuit is required")
-        wires = entry.get("earth_wires", [])
-        if not isinstance(wires, list):
-            problems.append(f"{where}.earth_wires: expected [[...earth_wires]] tables")
-            wires = []
-        for ci, circ in enumerate(circuits):
-            cw = f"{where}.circuits[{ci}]"
-            if not isinstance(circ, dict):
-                problems.append(f"{cw}: expected a table")
-                continue
-            for key in circ:
-                if key not in CIRCUIT_KEYS:
-                    problems.append(f"{cw}.{key}: unknown key")
-            phasing = circ.get("phasing", "ABC")
-            if not isinstance(phasing, str) or sorted(phasing) != ["A", "B", "C"]:
-                problems.append(f"{cw}.phasing: expected a permutation of 'ABC', got {phasing!r}")
-                phasing = "ABC"
-            for k in ("x_m", "height_m"):
-                if not (isinstance(circ.get(k), list) and len(circ[k]) == 3):
-                    problems.append(f"{cw}.{k}: expected a list of three numbers")
-            if any(p.startswith(cw) for p in problems):
-                continue
-            for j in range(3):
-                c = _conductor(circ, cw, problems, ci, phasing[j], j)
-                if c is not None:
-                    conductors.append(c)
-        for wi, wire in enumerate(wires):
-            ww = f"{where}.earth_wires[{wi}]"
-            if not isinstance(wire, dict):
-                problems.append(f"{ww}: expected a table")
-                continue
-            for key in wire:
-                if key not in EARTH_WIRE_KEYS:
-                    problems.append(f"{ww}.{key}: unknown key")
-            c = _conductor(wire, ww, problems, -1, "", 0)
-            if c is not None:
-                conductors.append(c)
-        out[name] = Arrangement(name, str(entry.get("description", "")), tuple(conductors))
-    if problems:
-        raise ConfigError(problems)
-    return out
-
-
 def load_config(path: str | Path) -> Config:
     """Load, validate and freeze a run configuration.
 
@@ -478,7 +297,7 @@ def load_config(path: str | Path) -> Config:
             problems.append(f"{name}: {key}: unknown section (allowed: {allowed})")
 
     run: dict[str, Any] = {}
-    raw_run = _table(raw, "run", f"{name}: run", problems)
+    raw_run = section_table(raw, "run", f"{name}: run", problems)
     for key in raw_run:
         if key not in RUN_SETTINGS:
             problems.append(f"{name}: run.{key}: unknown setting")
@@ -504,7 +323,8 @@ def load_config(path: str | Path) -> Config:
 
     line_defaults: dict[str, Any] = dict(LINE_DEFAULT_KEYS)
     specs = {s.name: s for s in LINE_FIELDS}
-    for key, value in _table(raw, "line_defaults", f"{name}: line_defaults", problems).items():
+    raw_defaults = section_table(raw, "line_defaults", f"{name}: line_defaults", problems)
+    for key, value in raw_defaults.items():
         if key not in LINE_DEFAULT_KEYS:
             problems.append(f"{name}: line_defaults.{key}: unknown key")
             continue
@@ -514,7 +334,7 @@ def load_config(path: str | Path) -> Config:
         line_defaults[key] = checked if err is None else value
 
     kind_defaults: dict[str, FrozenMap] = {}
-    raw_defaults = _table(raw, "defaults", f"{name}: defaults", problems)
+    raw_defaults = section_table(raw, "defaults", f"{name}: defaults", problems)
     kinds = registry.kind_names()
     for kind in raw_defaults:
         if kind not in kinds:
@@ -523,7 +343,7 @@ def load_config(path: str | Path) -> Config:
     for kind in kinds:
         merged = dict(registry.kind(kind).defaults)
         kspecs = {s.name: s for s in registry.asset_fields(kind)}
-        for key, value in _table(raw_defaults, kind, f"{name}: defaults.{kind}",
+        for key, value in section_table(raw_defaults, kind, f"{name}: defaults.{kind}",
                                  problems).items():
             if key not in kspecs or key == "asset_id":
                 problems.append(f"{name}: defaults.{kind}.{key}: unknown field for a {kind}")
@@ -534,7 +354,7 @@ def load_config(path: str | Path) -> Config:
             merged[key] = checked if err is None else value
         kind_defaults[kind] = FrozenMap(merged)
 
-    layers = _table(raw, "layers", f"{name}: layers", problems)
+    layers = section_table(raw, "layers", f"{name}: layers", problems)
     for key in layers:
         if key not in LAYER_ROLES:
             problems.append(f"{name}: layers.{key}: unknown layer role"
@@ -553,7 +373,7 @@ def load_config(path: str | Path) -> Config:
         raw_assets = [raw_assets]
     if not isinstance(raw_assets, list):
         problems.append(f"{name}: layers.assets: expected [[layers.assets]] tables, got"
-                        f" {_short(raw_assets)}")
+                        f" {short_repr(raw_assets)}")
         raw_assets = []
     elif not raw_assets:
         problems.append(f"{name}: layers.assets: at least one asset layer is required")
