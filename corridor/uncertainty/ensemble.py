@@ -50,6 +50,11 @@ FAULT_COLUMNS = ("v_fault_v", "i_fault_a", "emf_fault_v", "emf_fault_v_per_km",
 #: Columns the assessment reads besides the quantities.
 ASSESS_COLUMNS = ("asset_kind", "soil_resistivity_ohm_m", "clearing_time_s",
                   "high_reliability", "dc_current_density_a_per_m2")
+#: Asset attribute each physics factor multiplies (the ground factor also multiplies the
+#: grounds layer's ``resistance_ohm``).
+ASSET_FACTOR_COLUMNS = {"coating_resistance_factor": "coating_resistance_ohm_m2",
+                        "post_resistance_factor": "post_resistance_ohm",
+                        "ground_resistance_factor": "termination_resistance_ohm"}
 
 
 @dataclass(frozen=True)
@@ -173,15 +178,11 @@ def perturbed(run, bands: Bands, physics: dict[str, float], poly_of_seg: np.ndar
             geo, soil_resistivity_ohm_m=times(geo.soil_resistivity_ohm_m),
             soil_bottom_resistivity_ohm_m=times(geo.soil_bottom_resistivity_ohm_m),
             soil_local_resistivity_ohm_m=times(geo.soil_local_resistivity_ohm_m))
-    factors = {"coating_resistance_factor": ("assets", ("coating_resistance_ohm_m2",)),
-               "post_resistance_factor": ("assets", ("post_resistance_ohm",)),
-               "ground_resistance_factor": ("assets", ("termination_resistance_ohm",))}
     changed = {}
-    for name, (_where, columns) in factors.items():
+    for name, col in ASSET_FACTOR_COLUMNS.items():
         f = physics.get(name, 1.0)
-        for col in columns:
-            if f != 1.0 and col in inputs.assets:
-                changed[col] = pd.to_numeric(inputs.assets[col], errors="coerce") * f
+        if f != 1.0 and col in inputs.assets:
+            changed[col] = pd.to_numeric(inputs.assets[col], errors="coerce") * f
     f_ground = physics.get("ground_resistance_factor", 1.0)
     if changed or (f_ground != 1.0 and inputs.grounds is not None):
         inputs = copy.copy(inputs)
