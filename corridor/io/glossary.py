@@ -151,6 +151,31 @@ GLOSSARY: dict[str, tuple[str, str]] = {
                                  " ';'-separated [deg]."),
     "utilization_after": ("Utilization after", "Worst utilization of the asset after the site"
                           " is added [-]."),
+    # uncertainty bands ([uncertainty], docs/methods.md §16)
+    "utilization_p05": ("Utilization, 5th percentile", "5th percentile of the ensemble"
+                        " members' utilization [-]."),
+    "utilization_p50": ("Utilization, median", "Median of the ensemble members' utilization"
+                        " [-]."),
+    "utilization_p95": ("Utilization, 95th percentile", "95th percentile of the ensemble"
+                        " members' utilization [-]."),
+    "worst_utilization_p05": ("Worst utilization, 5th percentile", "5th percentile of the"
+                              " members' worst utilization along the asset [-]."),
+    "worst_utilization_p50": ("Worst utilization, median", "Median of the members' worst"
+                              " utilization along the asset [-]."),
+    "worst_utilization_p95": ("Worst utilization, 95th percentile", "95th percentile of the"
+                              " members' worst utilization along the asset [-]."),
+    "share_exceeding": ("Share of members exceeding", "Share of the ensemble members with a"
+                        " utilization of 1 or more [-]."),
+    "verdict_robust": ("Verdict robust", "The verdict (exceeds or clear) is the same across"
+                       " the 5th-95th percentile band [true/false]."),
+    "band_verdict": ("Band verdict", "exceeds, clear, uncertain (the band straddles the"
+                     " limit) or not assessed."),
+    "band_driver": ("Deciding uncertain input", "Input the utilization is most sensitive to,"
+                    " by Spearman rank correlation over the members."),
+    "band_driver_rho": ("Rank correlation of the deciding input", "Spearman rank correlation"
+                        " of the deciding input with the worst utilization [-]."),
+    "band_advice": ("What would settle it", "The survey or measurement that would settle an"
+                    " uncertain verdict."),
 }
 
 _UNIT_SUFFIX = (
