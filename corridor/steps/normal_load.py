@@ -195,7 +195,8 @@ def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: L
     # scenario of each section: the governing outage where it concerns the section's line
     gov_line = np.where(worst.governing_entry >= 0,
                         sec_line[np.maximum(worst.governing_entry, 0)] if n_sec else -1, -1)
-    gov_route = np.where(gov_line >= 0, route[np.maximum(gov_line, 0)], -1)
+    gov_route = (np.where(gov_line >= 0, route[np.maximum(gov_line, 0)], -1) if len(route)
+                 else np.full(len(gov_line), -1, np.int64))
     scen = np.where(gov_route[sec_seg] == sec_route, worst.governing_scenario[sec_seg], 0)
     rows = np.arange(n_sec)
     bal = bal_sec[rows, scen] if n_sec else np.zeros(0, complex)
