@@ -194,6 +194,11 @@ def _kill(p) -> None:
     p.stderr.close()
 
 
+#: What corridor itself keeps beside the user's files: the outputs, the cache, and the
+#: two lock files (flock files; a killed run leaves them, the next run takes them over).
+KILLED_RUN_FILES = ("out", "out.cache", "out.lock", "out.cache.lock")
+
+
 @pytest.mark.slow
 def test_sigkill_at_random_points_keeps_outputs_whole_and_user_files_untouched(tmp_path):
     root = tmp_path / "u"
@@ -203,7 +208,7 @@ def test_sigkill_at_random_points_keeps_outputs_whole_and_user_files_untouched(t
     run_s = time.monotonic() - t0
     assert rc == 0, err
     out = root / "out"
-    user = tree(root, skip=("out", "out.cache", "out.lock"))
+    user = tree(root, skip=KILLED_RUN_FILES)
     # a kill between two file moves, deterministic (the journal is written by then)
     marker = tmp_path / "paused"
     before = hashes(out)
@@ -232,11 +237,11 @@ def test_sigkill_at_random_points_keeps_outputs_whole_and_user_files_untouched(t
             # changed only past the commit point: journal written, or the publish over
             # (its staging folder gone) when the kill came
             assert journal or p.returncode == 0 or not staged
-        assert tree(root, skip=("out", "out.cache", "out.lock")) == user
+        assert tree(root, skip=KILLED_RUN_FILES) == user
     rc, _, err = cli_run(cfg)
     assert rc == 0, err
     assert_complete(out)
-    assert tree(root, skip=("out", "out.cache", "out.lock")) == user
+    assert tree(root, skip=KILLED_RUN_FILES) == user
 
 
 def test_steps_folder_of_corridor_step_does_not_block_a_run(tmp_path, cli):
