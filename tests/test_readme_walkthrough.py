@@ -149,6 +149,13 @@ def _sites(demo, asset):
     return s[s["asset_id"] == asset].sort_values("chainage_m")
 
 
+def _site_at(demo, asset, chainage_m: float):
+    """The asset's work-list site at ``chainage_m`` (exactly one)."""
+    s = _sites(demo, asset)
+    (row,) = [r for _, r in s.iterrows() if r["chainage_m"] == chainage_m]
+    return row
+
+
 def _about(value: float, claimed: float, rel: float = 0.1) -> bool:
     """'about X': within 10 % (the walkthrough rounds to one or two digits)."""
     return abs(value - claimed) <= rel * abs(claimed)
@@ -212,12 +219,16 @@ CLAIMS = {
     "it still reaches about\n  25 V, 1.7 times the 15 V limit":
         lambda d: _about(_seg(d, "FN-HOLLOW-1")["v_normal_v"].max(), 25)
         and round(_seg(d, "FN-HOLLOW-1")["ratio_steady_state_voltage"].max(), 1) == 1.7,
-    "Its site at chainage 0 stands in a faulted tower's zone\n  of influence":
-        lambda d: bool(_sites(d, "FN-HOLLOW-1").iloc[0]["in_tower_zone"])
-        and _sites(d, "FN-HOLLOW-1").iloc[0]["chainage_m"] == 0.0,
+    "A ground at chainage 5500 m brings that down to\n  about 12 V":
+        lambda d: _site_at(d, "FN-HOLLOW-1", 5500.0)["remedy"] == ground.REMEDY_GROUND
+        and _about(_site_at(d, "FN-HOLLOW-1", 5500.0)["v_before_v"], 25)
+        and _about(_site_at(d, "FN-HOLLOW-1", 5500.0)["v_after_v"], 12),
+    "Its other site, at chainage 950 m, stands in a faulted tower's zone\n  of influence":
+        lambda d: len(_sites(d, "FN-HOLLOW-1")) == 2
+        and bool(_site_at(d, "FN-HOLLOW-1", 950.0)["in_tower_zone"]),
     "the remedy is to keep clear of the tower\n  footing, and the site is unresolved":
-        lambda d: _sites(d, "FN-HOLLOW-1").iloc[0]["remedy"] == ground.REMEDY_TOWER
-        and bool(_sites(d, "FN-HOLLOW-1").iloc[0]["unresolved"]),
+        lambda d: _site_at(d, "FN-HOLLOW-1", 950.0)["remedy"] == ground.REMEDY_TOWER
+        and bool(_site_at(d, "FN-HOLLOW-1", 950.0)["unresolved"]),
 }
 
 
