@@ -5,7 +5,8 @@
     read_inputs   io/layers.py: every layer, checked; rejected features listed
     asset_keys    keys.py: what each asset's results depend on, hashed
     plan          cache.py (unchanged assets from the cache) and partitions.py
-                  (spatial partitions of whole assets, for the backend)
+                  (partitions of whole assets: consecutive assets locally,
+                  Hilbert order on dask)
     compute       backends/ run compute.compute() on each partition: segment
                   geometry, then the per-asset steps (couple, respond,
                   assess, ground in steps/)
