@@ -43,7 +43,8 @@ import numpy as np
 
 from corridor.limits.ac_corrosion import iso18086_utilization
 from corridor.limits.criteria import ac_current_density_a_per_m2
-from corridor.limits.limit_sets import COMPUTED_QUANTITIES, evaluate
+from corridor.limits.evaluate import evaluate
+from corridor.limits.limit_sets import COMPUTED_QUANTITIES
 from corridor.steps.columns import kinds_with
 
 #: Quantities derived here from the segment table (the rest of

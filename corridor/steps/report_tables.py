@@ -112,9 +112,9 @@ def not_assessed_criteria(run) -> list[dict]:
 
     Read from the finished segment table (its ``ratio_<criterion>`` columns), so a
     run merged from partitions or the cache gives the same list as a full run.
-    See :func:`corridor.limits.limit_sets.not_assessed` for the rows.
+    See :func:`corridor.limits.evaluate.not_assessed` for the rows.
     """
-    from corridor.limits.limit_sets import not_assessed
+    from corridor.limits.evaluate import not_assessed
 
     ls = run.limit_set
     t = run.segment_table

@@ -10,11 +10,11 @@ from types import MappingProxyType
 import numpy as np
 import pytest
 
+from corridor.limits.evaluate import evaluate
 from corridor.limits.limit_sets import (
     DEFAULT_SEARCH_DIR,
     LimitSetError,
     available_limit_sets,
-    evaluate,
     load_limit_set,
 )
 

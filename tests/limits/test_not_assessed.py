@@ -13,12 +13,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from corridor.limits.evaluate import evaluate, not_assessed
 from corridor.limits.limit_sets import (
     COMPUTED_QUANTITIES,
     LimitSetError,
-    evaluate,
     load_limit_set,
-    not_assessed,
 )
 from corridor.steps.assess import DERIVED, QUANTITIES
 
