@@ -175,10 +175,10 @@ def _member_utilization(cfg, inputs, bands):
 
 def test_soil_polygon_value_equals_full_solve(demo):
     cfg, inputs = demo
-    run = _ensemble(cfg, inputs, _bands(_fixed("soil:#1", 400.0)))
+    run = _ensemble(cfg, inputs, _bands(_fixed("soil:fid:2", 400.0)))
     ref_inputs = _copy_inputs(inputs)
     col = ref_inputs.soil["soil_resistivity_ohm_m"].to_numpy(float).copy()
-    col[1] = 400.0
+    col[1] = 400.0  # the second polygon: GeoPackage FID 2
     ref_inputs.soil["soil_resistivity_ohm_m"] = col
     ref = _utilization(cfg, ref_inputs)
     np.testing.assert_allclose(_band(run, "p50"), ref, rtol=RTOL, atol=1e-12)
@@ -411,7 +411,7 @@ def test_demo_bands_outputs(demo_bands_out):
     for col in ("worst_utilization_p95", "band_driver", "band_verdict"):
         assert col in assets
     record = json.loads((out / "run.json").read_text(encoding="utf-8"))["uncertainty"]
-    assert record["members"] == 32 and "soil:#2" in record["ranges"]
+    assert record["members"] == 32 and "soil:fid:3" in record["ranges"]
     report = (out / "report.html").read_text(encoding="utf-8")
     assert 'id="bands"' in report and "would settle" in report
     # the uncertain segments name what decides them
