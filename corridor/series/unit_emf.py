@@ -65,20 +65,14 @@ def unit_emf(cfg, inputs, geo) -> UnitEmf:
     (same soils, mutual impedances and earth-wire reduction) with a unit
     phasor on each circuit.
     """
-    from corridor.steps.couple import _arrangement_arrays
+    from corridor.steps.couple import arrangement_arrays, section_soil
 
     f = cfg.run.frequency_hz
     pairs, sec, lines = geo.pairs, geo.sections, inputs.lines
     sec_seg = pairs.segment[sec.pair]
     sec_line = pairs.line[sec.pair]
     sec_asset = geo.segments.feature[sec_seg]
-    rho = geo.soil_resistivity_ohm_m[sec_seg]
-    rho2_seg = getattr(geo, "soil_bottom_resistivity_ohm_m", None)
-    t_seg = getattr(geo, "soil_top_thickness_m", None)
-    layered = (rho2_seg is not None and t_seg is not None
-               and bool(np.any(np.isfinite(rho2_seg) & np.isfinite(t_seg))))
-    rho2 = np.asarray(rho2_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
-    t_top = np.asarray(t_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
+    rho, rho2, t_top, layered = section_soil(geo, sec_seg)
     asset_h = inputs.assets["height_m"].to_numpy(float)[sec_asset]
     resid = lines["residual_current_pct"].to_numpy(float)
     arr_names = lines["arrangement"].to_numpy(dtype=object)
@@ -86,7 +80,7 @@ def unit_emf(cfg, inputs, geo) -> UnitEmf:
     segs, circs, parts, vals = [], [], [], []
     for name in sorted(set(arr_names)):
         arr = cfg.arrangements[name]
-        x, h, _r, gmr, res, p_idx, s_idx, phasing = _arrangement_arrays(arr)
+        x, h, _r, gmr, res, p_idx, s_idx, phasing = arrangement_arrays(arr)
         line_rows = np.flatnonzero(arr_names == name)
         idx = np.flatnonzero(np.isin(sec_line, line_rows))
         if not idx.size:

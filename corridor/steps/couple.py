@@ -107,7 +107,7 @@ def _complex_bincount(index, values, n):
             + 1j * np.bincount(index, weights=values.imag, minlength=n))
 
 
-def _arrangement_arrays(arr):
+def arrangement_arrays(arr):
     cond = arr.conductors
     x = np.array([c.x_m for c in cond])
     h = np.array([c.height_m for c in cond])
@@ -141,14 +141,7 @@ def couple(cfg, inputs, geo) -> Coupling:
     sec_seg = pairs.segment[sec.pair]
     sec_line = pairs.line[sec.pair]
     sec_asset = seg.feature[sec_seg]
-    rho = geo.soil_resistivity_ohm_m[sec_seg]
-    # two-layer soil (bottom resistivity, top thickness) per segment, NaN: homogeneous
-    rho2_seg = getattr(geo, "soil_bottom_resistivity_ohm_m", None)
-    t_seg = getattr(geo, "soil_top_thickness_m", None)
-    layered = (rho2_seg is not None and t_seg is not None
-               and bool(np.any(np.isfinite(rho2_seg) & np.isfinite(t_seg))))
-    rho2 = np.asarray(rho2_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
-    t_top = np.asarray(t_seg, float)[sec_seg] if layered else np.full(len(sec), np.nan)
+    rho, rho2, t_top, layered = section_soil(geo, sec_seg)
     asset_h = assets["height_m"].to_numpy(float)[sec_asset]
     # electrical lines, their fault sources, and each section's place along its line
     line_len = geo.edges.line_length_m
@@ -184,7 +177,7 @@ def couple(cfg, inputs, geo) -> Coupling:
 
     for name in sorted(set(arr_names)):
         arr = cfg.arrangements[name]
-        x, h, r, gmr, res, p_idx, s_idx, phasing = _arrangement_arrays(arr)
+        x, h, r, gmr, res, p_idx, s_idx, phasing = arrangement_arrays(arr)
         conductor_phase = [c.phase if c.circuit >= 0 else "" for c in arr.conductors]
         line_rows = np.flatnonzero(arr_names == name)
         cols = label_cols[name]
@@ -332,6 +325,24 @@ def couple(cfg, inputs, geo) -> Coupling:
         fault_positions=positions,
         substation_clearing_s=np.where(sub_governs, sub.clearing_time_s, np.nan),
     )
+
+
+def section_soil(geo, sec_seg: np.ndarray):
+    """The soil under each section: ``(rho, rho2, t_top, layered)``.
+
+    ``rho`` is the (top-layer) resistivity [Ω·m]; ``rho2`` and ``t_top`` the bottom-layer
+    resistivity [Ω·m] and top-layer thickness [m] of a two-layer soil, NaN where the soil
+    is homogeneous (all NaN, ``layered`` False, when no segment has two layers).
+    """
+    rho = geo.soil_resistivity_ohm_m[sec_seg]
+    rho2_seg = getattr(geo, "soil_bottom_resistivity_ohm_m", None)
+    t_seg = getattr(geo, "soil_top_thickness_m", None)
+    layered = (rho2_seg is not None and t_seg is not None
+               and bool(np.any(np.isfinite(rho2_seg) & np.isfinite(t_seg))))
+    n = len(sec_seg)
+    rho2 = np.asarray(rho2_seg, float)[sec_seg] if layered else np.full(n, np.nan)
+    t_top = np.asarray(t_seg, float)[sec_seg] if layered else np.full(n, np.nan)
+    return rho, rho2, t_top, layered
 
 
 def section_share(pairs, sec) -> np.ndarray:
