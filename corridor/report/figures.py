@@ -305,6 +305,23 @@ def _governing_values(run, crit, idx: np.ndarray):
     return q, permitted
 
 
+def _after_rows(run, after: pd.DataFrame) -> dict:
+    """Row positions of each asset in the table after grounding, computed once per table.
+
+    Kept on the run with the table it came from, so that each profile reads
+    its asset's rows without a comparison over the whole table.
+    """
+    cached = getattr(run, "_report_after_rows", None)
+    if cached is not None and cached[0] is after:
+        return cached[1]
+    rows = after.groupby("asset_id", sort=False).indices
+    try:
+        run._report_after_rows = (after, rows)
+    except AttributeError:  # a run that takes no new attributes: compute again next time
+        pass
+    return rows
+
+
 def _after_grounding(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | None):
     """|V| normal and fault on segments ``idx`` with the proposed grounds, or None."""
     after = getattr(run, "segment_table_after_grounding", None)
@@ -313,9 +330,10 @@ def _after_grounding(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame
         return None
     if "ground_resistance_ohm" in sites and not sites["ground_resistance_ohm"].notna().any():
         return None  # no ground proposed here: the response is unchanged
-    a = after[after["asset_id"] == asset["asset_id"]].drop_duplicates("segment_index")
-    if not len(a):
+    rows = _after_rows(run, after).get(asset["asset_id"])
+    if rows is None or not len(rows):
         return None
+    a = after.iloc[rows].drop_duplicates("segment_index")
     a = a.set_index("segment_index")
     keys = run.segment_table["segment_index"].to_numpy()[idx]
     return (a["v_normal_v"].reindex(keys).to_numpy(float),
