@@ -156,8 +156,9 @@ def scan_fault_positions(system, section_segment, section_case, section_position
     n_max = i_a.shape[1]
     ok = np.arange(n_max)[None, :] < n_pos[:, None]
     pad = np.zeros((len(n_pos), 1), complex)  # the last band column: no position
-    sum_ab = np.hstack([np.where(ok, i_a + i_b, 0.0), pad])
-    i_b = np.hstack([np.where(ok, i_b, 0.0), pad])
+    # laid out column first, once (not per block: the cases grow with the network)
+    sum_ab_t = np.ascontiguousarray(np.hstack([np.where(ok, i_a + i_b, 0.0), pad]).T)
+    i_b_t = np.ascontiguousarray(np.hstack([np.where(ok, i_b, 0.0), pad]).T)
     # scan units: one copy of a chain per case with sections on it
     seg_chain = batch.segment_chain
     unit_key = seg_chain[sec_seg] * (len(n_pos) + 1) + sec_case
@@ -186,7 +187,7 @@ def scan_fault_positions(system, section_segment, section_case, section_position
         local_seg = seg_first[local_unit] + (
             sec_seg[sel] - batch.chain_start[unit_chain[block]][local_unit])
         _scan_block(sub, local_seg, band[sel], emf[sel], width, unit_case[block],
-                    sum_ab[:, :width], i_b[:, :width], n_pos, out, peak,
+                    sum_ab_t[:width], i_b_t[:width], n_pos, out, peak,
                     (seg_idx, node_idx, unit_chain[block]), work)
     return out
 
@@ -271,18 +272,17 @@ def _first_argmax_rows(a, best):
     return out
 
 
-def _scan_block(system, sec_seg, band, emf, n_col, unit_case, sum_ab, i_b, n_pos, out, peak,
-                where, work):
+def _scan_block(system, sec_seg, band, emf, n_col, unit_case, sum_ab_t, i_b_t, n_pos, out,
+                peak, where, work):
     """Scan one block of chain copies (one case each); merge into ``out`` (worst wins).
 
     Arrays are laid out band/position first, (n_col, n_rows), so that the sums over
-    bands and the maxima over positions run along contiguous rows.
+    bands and the maxima over positions run along contiguous rows; ``sum_ab_t`` and
+    ``i_b_t`` are the end currents so laid out, (n_col, n_case).
     """
     seg_idx, node_idx, chains = where
     batch = system.batch
     n_unit, n_nodes = batch.n_chains, batch.n_nodes
-    sum_ab_t = np.ascontiguousarray(sum_ab.T)  # (n_col, n_case)
-    i_b_t = np.ascontiguousarray(i_b.T)
     # unit EMFs of the bands at each segment's start node (a chain's last node: 0)
     first = batch.segment_start_node
     unit_emf = work.get("unit", (n_col, n_nodes + 1), complex, zero=True)

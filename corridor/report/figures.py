@@ -104,24 +104,26 @@ def _line_coords(geoms, tolerance_m: float = 0.0):
     return lines, owner[cidx[starts]]
 
 
-def _band_runs(seg, util, edges, tolerance_m: float):
+def _band_runs(seg, util, edges, tolerance_m: float, xy: np.ndarray | None = None):
     """Polylines of consecutive segments of one asset part in one utilization band.
 
     Drawing runs instead of single segments keeps the map's path count near
     the number of assets (a whole network has millions of segments). Vertices
     closer than ``tolerance_m`` along a run are thinned; each run keeps its
-    ends. Returns the vertex arrays and each run's highest utilization.
+    ends. ``xy``: the segments' coordinates when already read. Returns the
+    vertex arrays and each run's highest utilization.
     """
     n = len(seg)
     if n == 0:
         return [], np.zeros(0)
-    xy = shapely.get_coordinates(seg.geometry.to_numpy())
+    if xy is None:
+        xy = shapely.get_coordinates(seg.geometry.to_numpy())
     if len(xy) != 2 * n:  # not all simple two-point segments: draw them one by one
         lines, owner = _line_coords(seg.geometry.to_numpy(), tolerance_m)
         return lines, util[owner]
     xy = xy.reshape(n, 2, 2)
     band = np.digitize(np.nan_to_num(util, nan=0.0), np.asarray(edges[1:-1], float))
-    asset = pd.factorize(seg["asset_id"].to_numpy(dtype=object))[0]
+    asset = pd.factorize(seg["asset_id"])[0]  # only equality of neighbours is used
     part = seg["part"].to_numpy() if "part" in seg else np.zeros(n, int)
     joined = np.all(xy[1:, 0] == xy[:-1, 1], axis=1)
     new = np.r_[True, (asset[1:] != asset[:-1]) | (part[1:] != part[:-1])
@@ -178,10 +180,16 @@ def overview_map(run, review_threshold: float) -> str:
     lines = run.inputs.lines
     seg = run.segment_table
     sites = run.sites
-    geoms = [g for g in (lines.geometry, seg.geometry) if len(g)]
-    if not geoms:
+    if not len(lines.geometry) and not len(seg.geometry):
         return "<p>No geometry to draw.</p>"
-    b = np.array([g.total_bounds for g in geoms])
+    # the segments' bounds from their coordinates, which the map reads anyway
+    seg_xy = shapely.get_coordinates(seg.geometry.to_numpy())
+    bounds = [lines.geometry.total_bounds] if len(lines.geometry) else []
+    if len(seg.geometry):
+        bounds.append(seg_xy.min(axis=0).tolist() + seg_xy.max(axis=0).tolist()
+                      if len(seg_xy) and np.isfinite(seg_xy).all()
+                      else seg.geometry.total_bounds)
+    b = np.array(bounds)
     xmin, ymin = b[:, 0].min(), b[:, 1].min()
     xmax, ymax = b[:, 2].max(), b[:, 3].max()
     span = max(xmax - xmin, ymax - ymin, 1.0)
@@ -210,7 +218,7 @@ def overview_map(run, review_threshold: float) -> str:
             handles.append(Line2D([], [], color=_voltage_colour(v), lw=1.0 + v / 200.0,
                                   ls=(0, (6, 2)), label=f"power line {v:g} kV"))
         # thin runs to about half a pixel of the ~900 px wide map
-        scoords, svalue = _band_runs(seg, util, edges, span / 1800.0)
+        scoords, svalue = _band_runs(seg, util, edges, span / 1800.0, seg_xy)
         if len(scoords):
             n_vertices = sum(len(c) for c in scoords)
             coll = LineCollection(scoords, cmap=cmap, norm=norm, linewidths=2.6, zorder=3,
@@ -305,6 +313,23 @@ def _governing_values(run, crit, idx: np.ndarray):
     return q, permitted
 
 
+def _after_rows(run, after: pd.DataFrame) -> dict:
+    """Row positions of each asset in the table after grounding, computed once per table.
+
+    Kept on the run with the table it came from, so that each profile reads
+    its asset's rows without a comparison over the whole table.
+    """
+    cached = getattr(run, "_report_after_rows", None)
+    if cached is not None and cached[0] is after:
+        return cached[1]
+    rows = after.groupby("asset_id", sort=False).indices
+    try:
+        run._report_after_rows = (after, rows)
+    except AttributeError:  # a run that takes no new attributes: compute again next time
+        pass
+    return rows
+
+
 def _after_grounding(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame | None):
     """|V| normal and fault on segments ``idx`` with the proposed grounds, or None."""
     after = getattr(run, "segment_table_after_grounding", None)
@@ -313,9 +338,10 @@ def _after_grounding(run, asset: pd.Series, idx: np.ndarray, sites: pd.DataFrame
         return None
     if "ground_resistance_ohm" in sites and not sites["ground_resistance_ohm"].notna().any():
         return None  # no ground proposed here: the response is unchanged
-    a = after[after["asset_id"] == asset["asset_id"]].drop_duplicates("segment_index")
-    if not len(a):
+    rows = _after_rows(run, after).get(asset["asset_id"])
+    if rows is None or not len(rows):
         return None
+    a = after.iloc[rows].drop_duplicates("segment_index")
     a = a.set_index("segment_index")
     keys = run.segment_table["segment_index"].to_numpy()[idx]
     return (a["v_normal_v"].reindex(keys).to_numpy(float),

@@ -38,6 +38,7 @@ def site_positions(run, sites: pd.DataFrame) -> np.ndarray:
     start = t["chainage_m"].to_numpy(float)
     end = start + t["length_m"].to_numpy(float)
     out = np.full(len(sites), -1, np.intp)
+    ratios: dict[str, np.ndarray | None] = {}  # column arrays, read once per criterion
     for i, (aid, ch, gov) in enumerate(zip(sites["asset_id"].astype(str),
                                            sites["chainage_m"].to_numpy(float),
                                            sites["governing"].astype(str), strict=True)):
@@ -46,11 +47,14 @@ def site_positions(run, sites: pd.DataFrame) -> np.ndarray:
             continue
         gap = np.maximum(np.maximum(start[idx] - ch, ch - end[idx]), 0.0)
         near = idx[gap <= gap.min() + 1e-6]
-        c = criterion_of(run, gov)
-        col = f"ratio_{c.name}" if c is not None else "utilization"
-        if col in t and len(near) > 1:
-            r = np.nan_to_num(t[col].to_numpy(float)[near], nan=-np.inf)
-            near = near[np.argmax(r):]
+        if len(near) > 1:
+            if gov not in ratios:
+                c = criterion_of(run, gov)
+                col = f"ratio_{c.name}" if c is not None else "utilization"
+                ratios[gov] = t[col].to_numpy(float) if col in t else None
+            values = ratios[gov]
+            if values is not None:
+                near = near[np.argmax(np.nan_to_num(values[near], nan=-np.inf)):]
         out[i] = near[0]
     return out
 
@@ -79,17 +83,17 @@ def _after_values(run, pos: np.ndarray, labels) -> np.ndarray:
     return out
 
 
-def _coords(site: pd.Series) -> str:
+def _coords_text(x, y, lat, lon) -> str:
     """Easting, northing and latitude, longitude of a site (HTML), "–" where missing."""
-    def num(key, fmt):
+    def num(v, fmt):
         try:
-            v = float(site.get(key, np.nan))
+            v = float(v)
         except (TypeError, ValueError):
             return "–"
         return format(v, fmt) if np.isfinite(v) else "–"
 
-    return (f"{num('x', '.1f')} E<br>{num('y', '.1f')} N<br><span class='small'>"
-            f"{num('lat', '.5f')}°, {num('lon', '.5f')}°</span>")
+    return (f"{num(x, '.1f')} E<br>{num(y, '.1f')} N<br><span class='small'>"
+            f"{num(lat, '.5f')}°, {num(lon, '.5f')}°</span>")
 
 
 def worklist_section(run) -> str:
@@ -115,31 +119,44 @@ def worklist_section(run) -> str:
                         -np.nan_to_num(before["ratio"].to_numpy(float), nan=-np.inf)))
     crs = run.inputs.crs
     unit = "m" if not crs.is_geographic else "°"
+    # columns read once (not a pandas row per site: the list has every proposed site)
+    n = len(sites)
+
+    def col(name, default=None) -> list:
+        return sites[name].tolist() if name in sites else [default] * n
+
+    site_id, asset_id, kind = col("site_id"), col("asset_id"), col("asset_kind")
+    chainage, remedy = col("chainage_m"), col("remedy")
+    unresolved, tower = col("unresolved", False), col("in_tower_zone", False)
+    util_after, r_ohm = col("utilization_after"), col("ground_resistance_ohm")
+    length, line_ids = col("electrode_length_m"), col("line_ids", "")
+    xs, ys, lats, lons = col("x", np.nan), col("y", np.nan), col("lat", np.nan), col("lon", np.nan)
+    units = before["unit"].tolist()
+    crit_name, value = before["criterion"].tolist(), before["value"].tolist()
+    ratio = before["ratio"].tolist()
     rows = []
     for i in order:
-        s = sites.iloc[i]
-        u = before.at[i, "unit"]
+        u = units[i]
         flags = []
-        if bool(s.get("unresolved", False)):
+        if bool(unresolved[i]):
             flags.append('<span class="flag">UNRESOLVED</span>: the asset still exceeds a'
-                         f" limit (worst ratio {fmt_num(s.get('utilization_after'))})")
-        if bool(s.get("in_tower_zone", False)):
+                         f" limit (worst ratio {fmt_num(util_after[i])})")
+        if bool(tower[i]):
             flags.append("in a faulted tower's zone")
-        r_ohm = s.get("ground_resistance_ohm")
         rows.append({
-            "site": f"<b>{esc(s['site_id'])}</b>",
-            "asset": f"{esc(s['asset_id'])}<br><span class='small'>{esc(s['asset_kind'])}</span>",
-            "chainage": fmt_num(float(s["chainage_m"]) / 1000.0, 4),
-            "coords": _coords(s),
-            "remedy": esc(s["remedy"]),
-            "criterion": esc(before.at[i, "criterion"]),
-            "before": fmt_value(before.at[i, "value"], u),
+            "site": f"<b>{esc(site_id[i])}</b>",
+            "asset": f"{esc(asset_id[i])}<br><span class='small'>{esc(kind[i])}</span>",
+            "chainage": fmt_num(float(chainage[i]) / 1000.0, 4),
+            "coords": _coords_text(xs[i], ys[i], lats[i], lons[i]),
+            "remedy": esc(remedy[i]),
+            "criterion": esc(crit_name[i]),
+            "before": fmt_value(value[i], u),
             "after": fmt_value(after_v[i], u),
             "limit": fmt_value(limit[i], u),
-            "ratio": f"{fmt_num(before.at[i, 'ratio'])} →<br>{fmt_num(after_r[i])}",
-            "r": fmt_num(r_ohm),
-            "length": fmt_num(s.get("electrode_length_m")),
-            "line_ids": s.get("line_ids", ""),
+            "ratio": f"{fmt_num(ratio[i])} →<br>{fmt_num(after_r[i])}",
+            "r": fmt_num(r_ohm[i]),
+            "length": fmt_num(length[i]),
+            "line_ids": line_ids[i],
             "flags": "<br>".join(flags) if flags else "–",
         })
     frame = pd.DataFrame(rows)
