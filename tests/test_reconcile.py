@@ -269,7 +269,7 @@ def test_two_assets_equally_near_are_ambiguous():
         geometry=[shapely.LineString([(0, 0), (100, 0)]),
                   shapely.LineString([(0, 10), (100, 10)])])
     table = gpd.GeoDataFrame(
-        {"feature_id": ["#0", "#1"], "reading_id": ["mid", "named"], "asset_id": ["", "B"],
+        {"feature_id": ["fid:1", "fid:2"], "reading_id": ["mid", "named"], "asset_id": ["", "B"],
          "chainage_m": [None, None], "x_m": [None, None], "y_m": [None, None],
          "measured_at": ["", ""], "voltage_v": [1.0, 1.0], "ac_density_a_per_m2": [None, None],
          "line_currents_a": ["", ""]},

@@ -70,7 +70,10 @@ def read_table(settings: dict, crs) -> gpd.GeoDataFrame:
     elif crs is not None and raw.geometry.notna().any() and not raw.crs.equals(crs):
         raw = raw.to_crs(crs)
     mapping = dict(settings.get("fields", {}))
-    out = gpd.GeoDataFrame({"feature_id": [f"#{i}" for i in range(len(raw))]},
+    from corridor.io.fields import feature_labels
+
+    # a reading without a name is named by its layer FID (fid:N), or its row of a CSV (row:N)
+    out = gpd.GeoDataFrame({"feature_id": feature_labels(raw.index)},
                            geometry=raw.geometry.to_numpy(), crs=raw.crs)
     for spec in READING_FIELDS:
         source = mapping.get(spec.name, spec.name)
