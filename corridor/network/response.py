@@ -258,6 +258,12 @@ class ChainSystem:
         self._off = off
         self._factors: tuple[np.ndarray, ...] | None = None
 
+    @property
+    def tridiagonal(self) -> tuple[np.ndarray, np.ndarray]:
+        """The nodal matrix: its diagonal (n_nodes + 1, the last a decoupled dummy node)
+        and its symmetric off-diagonal (n_nodes; 0 between chains and at breaks)."""
+        return self._diag, self._off
+
     def _factorise(self):
         if self._factors is None:
             dl, d, du, du2, ipiv, info = lapack.zgttrf(self._off, self._diag, self._off)

@@ -97,13 +97,12 @@ def test_fault_at_the_line_start_gives_the_one_direction_end_voltage():
     assert scan.segment_voltage_v.max() == pytest.approx(want, rel=1e-6)
 
 
-@pytest.mark.parametrize("block_entries", [1_000_000, 50])
-def test_scan_equals_direct_solves_for_several_assets_and_lines(monkeypatch, block_entries):
+@pytest.mark.parametrize("shuffled", [False, True])
+def test_scan_equals_direct_solves_for_several_assets_and_lines(shuffled):
     # Reference computation: for each segment's governing case and position, the EMF of that
-    # fault written out explicitly and solved directly (no superposition). Two chains of
-    # one asset group with two lines (cases 0, 1) and a second asset (case 2) share the
-    # solve columns; with a tiny block budget every chain is scanned in its own block.
-    monkeypatch.setattr(fault_scan, "_SCAN_BLOCK_ENTRIES", block_entries)
+    # fault written out explicitly and solved directly with LAPACK's pivoting tridiagonal
+    # solver (no superposition). Two chains of one asset group with two lines (cases 0, 1)
+    # and a second asset (case 2); the sections may come in any order.
     rng = np.random.default_rng(3)
     seg_len = np.full(65, 80.0)
     y = np.r_[np.full(25, _pipe_admittance(2e4)), np.full(20, _pipe_admittance(3e3)),
@@ -129,8 +128,10 @@ def test_scan_equals_direct_solves_for_several_assets_and_lines(monkeypatch, blo
     positions[2, :6] = [0, 500, 800, 900, 1250, 2000]
     cur_a = rng.normal(size=(3, 6)) * 1e3 + 1j * rng.normal(size=(3, 6)) * 1e3
     cur_b = rng.normal(size=(3, 6)) * 1e3 + 1j * rng.normal(size=(3, 6)) * 1e3
-    scan = fault_scan.scan_fault_positions(system, sec_seg, sec_case, sec_pos, sec_emf,
-                                         positions, cur_a, cur_b)
+    given = np.random.default_rng(11).permutation(69) if shuffled else np.arange(69)
+    scan = fault_scan.scan_fault_positions(system, sec_seg[given], sec_case[given],
+                                           sec_pos[given], sec_emf[given], positions, cur_a,
+                                           cur_b)
     chain_of_seg = np.repeat([0, 1, 2, 3], [25, 20, 15, 5])
     group_of_chain = np.array([0, 0, 1, -1])
     case_group = np.array([0, 0, 1])

@@ -1,0 +1,194 @@
+"""Compiled inner loop of the fault-position scan (:mod:`corridor.network.fault_scan`).
+
+One pass per chain copy (a chain and one fault case) does what the array version
+did in a dozen passes over (nodes × positions) temporaries: the band right-hand
+sides, the tridiagonal solve of every band column, the cumulative sum over bands,
+the voltage for every fault position and its maximum, the segment currents and
+the merge into the run's arrays (the worst copy wins). The work stays in the
+processor's cache and runs without the GIL, so the partitions of a run use both
+cores.
+
+The nodal matrix of a chain is complex symmetric with off-diagonal −Y_series.
+It is factorised without pivoting: the pivots are the Schur complements
+S_n = Y_nn − Y_{n−1,n}²/S_{n−1}, the input admittance to earth at node n of the
+chain up to n, which a passive lossy chain keeps away from zero; the callers
+check every pivot is finite and non-zero (an isolated part with no path to earth
+is refused before, by :class:`corridor.network.response.ChainSystem`).
+
+References
+----------
+.. [1] G. H. Golub and C. F. Van Loan, Matrix Computations, 4th ed., Johns Hopkins,
+   2013, §4.3 (tridiagonal LU without pivoting).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+
+@njit(cache=True, nogil=True)
+def chain_pivots(diag, off):  # pragma: no cover - compiled (its results are tested)
+    """Pivots of the tridiagonal LU without pivoting, chains stacked (off = 0 between)."""
+    n = diag.shape[0]
+    piv = np.empty(n, np.complex128)
+    if n == 0:
+        return piv
+    piv[0] = diag[0]
+    for i in range(1, n):
+        o = off[i - 1]
+        if o == 0:
+            piv[i] = diag[i]
+        else:
+            piv[i] = diag[i] - o * o / piv[i - 1]
+    return piv
+
+
+@njit(cache=True, nogil=True)
+def _mag2(v):  # pragma: no cover - compiled
+    return v.real * v.real + v.imag * v.imag
+
+
+@njit(cache=True, nogil=True)
+def scan_units(piv, off, inj, y_series, y_half, chain_first_node, chain_start, chain_nodes,
+               unit_chain, unit_case, unit_ptr, sec_seg, sec_band, sec_emf, n_pos, w_ab, w_b,
+               seg_v, seg_i, seg_case, seg_pos, seg_worst_emf, node_worst, chain_case,
+               chain_pos, chain_node_v, seg_emf, chain_emf, peak):  # pragma: no cover
+    """Scan every chain copy (``unit``) and merge it into the output arrays in place.
+
+    Sections are sorted by unit, then by segment; ``unit_ptr`` holds each unit's first
+    section (length n_units + 1). ``w_ab[q, k]`` and ``w_b[q, k]`` are I_A + I_B and
+    I_B of case q for a fault at its position k, 0 from k = n_pos[q] on. A copy
+    replaces earlier results only where it is strictly worse.
+    """
+    n_unit = unit_chain.shape[0]
+    size = 1
+    m_max = 1
+    w_max = 1
+    for u in range(n_unit):
+        m = chain_nodes[unit_chain[u]]
+        w = n_pos[unit_case[u]] + 1
+        size = max(size, m * w)
+        m_max = max(m_max, m)
+        w_max = max(w_max, w)
+    buf = np.empty(size, np.complex128)
+    worst = np.empty(m_max, np.float64)
+    col = np.empty(m_max, np.int64)
+    band_sum = np.empty(w_max, np.complex128)
+    for u in range(n_unit):
+        c = unit_chain[u]
+        q = unit_case[u]
+        n0 = chain_first_node[c]
+        s0 = chain_start[c]
+        m = chain_nodes[c]
+        w = n_pos[q] + 1
+        x = buf[:m * w].reshape((m, w))
+        x[:, :] = 0
+        band_sum[:w] = 0
+        p0 = unit_ptr[u]
+        p1 = unit_ptr[u + 1]
+        # right-hand sides: a unit EMF in each band is a Norton current out of its
+        # segment's start node into its end node
+        for p in range(p0, p1):
+            s = sec_seg[p]
+            b = sec_band[p]
+            e = sec_emf[p]
+            j = inj[s] * e
+            x[s - s0, b] -= j
+            x[s - s0 + 1, b] += j
+            band_sum[b] += e
+        # forward elimination, then back substitution, every band column at once
+        for n in range(1, m):
+            o = off[n0 + n - 1]
+            if o != 0:
+                f = o / piv[n0 + n - 1]
+                for k in range(w):
+                    x[n, k] -= f * x[n - 1, k]
+        d = 1.0 / piv[n0 + m - 1]
+        for k in range(w):
+            x[m - 1, k] *= d
+        for n in range(m - 2, -1, -1):
+            o = off[n0 + n]
+            d = 1.0 / piv[n0 + n]
+            for k in range(w):
+                x[n, k] = (x[n, k] - o * x[n + 1, k]) * d
+        # cumulative sum over bands, then the voltage for a fault at each position:
+        # V(k) = (I_A + I_B)(k)·Σ_{b ≤ k} V_b − I_B(k)·Σ_b V_b
+        u_best = -1.0
+        u_node = 0
+        for n in range(m):
+            acc = 0j
+            for k in range(w):
+                acc += x[n, k]
+                x[n, k] = acc
+            best = -1.0
+            bk = 0
+            for k in range(w):
+                a = _mag2(w_ab[q, k] * x[n, k] - w_b[q, k] * acc)
+                if a > best:
+                    best = a
+                    bk = k
+            mag = abs(w_ab[q, bk] * x[n, bk] - w_b[q, bk] * acc)
+            worst[n] = mag
+            col[n] = bk
+            if mag > u_best:
+                u_best = mag
+                u_node = n
+            if mag > node_worst[n0 + n]:
+                node_worst[n0 + n] = mag
+        # segments: the worse of their two nodes, in that node's governing position
+        p = p0
+        for ls in range(m - 1):
+            s = s0 + ls
+            if worst[ls + 1] > worst[ls]:
+                kc = col[ls + 1]
+                sw = worst[ls + 1]
+            else:
+                kc = col[ls]
+                sw = worst[ls]
+            e_cum = 0j
+            e_tot = 0j
+            while p < p1 and sec_seg[p] == s:
+                e_tot += sec_emf[p]
+                if sec_band[p] <= kc:
+                    e_cum += sec_emf[p]
+                p += 1
+            if sw > seg_v[s]:
+                e_best = w_ab[q, kc] * e_cum - w_b[q, kc] * e_tot
+                v1 = w_ab[q, kc] * x[ls, kc] - w_b[q, kc] * x[ls, w - 1]
+                v2 = w_ab[q, kc] * x[ls + 1, kc] - w_b[q, kc] * x[ls + 1, w - 1]
+                through = (v1 - v2) * y_series[s] + e_best * inj[s]
+                seg_v[s] = sw
+                seg_i[s] = max(abs(y_half[s] * v1 + through), abs(through - y_half[s] * v2))
+                seg_case[s] = q
+                seg_pos[s] = kc
+                seg_worst_emf[s] = e_best
+        # the copy's longitudinal EMF between the chain's ends, worst over positions
+        tot = 0j
+        for k in range(w):
+            tot += band_sum[k]
+        acc = 0j
+        for k in range(w):
+            acc += band_sum[k]
+            a = abs(w_ab[q, k] * acc - w_b[q, k] * tot)
+            if a > chain_emf[c]:
+                chain_emf[c] = a
+        # the chain's governing copy and position: its profile and segment EMFs
+        if u_best > peak[c]:
+            peak[c] = u_best
+            kc = col[u_node]
+            chain_case[c] = q
+            chain_pos[c] = kc
+            for n in range(m):
+                chain_node_v[n0 + n] = w_ab[q, kc] * x[n, kc] - w_b[q, kc] * x[n, w - 1]
+            p = p0
+            for ls in range(m - 1):
+                s = s0 + ls
+                e_cum = 0j
+                e_tot = 0j
+                while p < p1 and sec_seg[p] == s:
+                    e_tot += sec_emf[p]
+                    if sec_band[p] <= kc:
+                        e_cum += sec_emf[p]
+                    p += 1
+                seg_emf[s] = w_ab[q, kc] * e_cum - w_b[q, kc] * e_tot
