@@ -317,8 +317,7 @@ class ChainSystem:
         current_cases : sequence of int, optional
             Cases whose segment currents are wanted (default all); the others
             get NaN currents, which saves most of the post-processing time
-            when there are many cases (:meth:`currents_at` gives any of them
-            later).
+            when there are many cases.
 
         Returns
         -------
@@ -374,27 +373,6 @@ class ChainSystem:
         if single:
             v, i_start, i_end, seg_v, seg_i = (a[:, 0] for a in (v, i_start, i_end, seg_v, seg_i))
         return ChainSolution(v, i_start, i_end, seg_v, seg_i)
-
-    def currents_at(self, node_voltage_v, segment_emf_v, case_of_segment) -> np.ndarray:
-        """max(|I_start|, |I_end|) of each segment in one chosen case per segment [A].
-
-        Parameters
-        ----------
-        node_voltage_v : ndarray of complex, shape (n_nodes, n_cases)
-        segment_emf_v : ndarray of complex, shape (n_segments, n_cases) or (n_segments,)
-            Segment EMFs of every case, or of each segment's chosen case only.
-        case_of_segment : ndarray of int, shape (n_segments,)
-        """
-        first = self._first
-        seg = np.arange(self.batch.n_segments)
-        c = np.asarray(case_of_segment, int)
-        v1 = node_voltage_v[first, c]
-        v2 = node_voltage_v[first + 1, c]
-        emf = np.asarray(segment_emf_v)
-        emf = emf[seg, c] if emf.ndim == 2 else emf
-        through = (v1 - v2) * self.y_series_s + emf * self.injection_s
-        return np.maximum(np.abs(self.y_half_s * v1 + through),
-                          np.abs(through - self.y_half_s * v2))
 
     def thevenin_impedance(self, node_index) -> np.ndarray:
         """Impedance between nodes and remote earth with every EMF shorted.
