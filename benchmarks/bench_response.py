@@ -5,11 +5,11 @@ line constants of pipelines, rails and fences mixed, a few breaks and
 grounds), and prints nodes per second, median of several repeats:
 
 - ``full``: ``ChainSystem(ChainBatch.from_arrays(...)).solve`` as production
-  calls it — validation, assembly of the exact pi, LU factors (zgttrf), one
-  solve (zgttrs), currents and per-segment maxima;
+  calls it — validation, assembly of the exact pi, LU pivots, one solve,
+  currents and per-segment maxima;
 - ``assemble``: ``ChainSystem(batch)`` — the exact pi and the matrix only;
-- ``factorise``: LU factors kept for reuse (zgttrf);
-- ``extra case``: one more EMF case on a factorised system (zgttrs + outputs);
+- ``factorise``: LU pivots kept for reuse;
+- ``extra case``: one more EMF case on a factorised system (solve + outputs);
 - ``thevenin``: Z_th at one node of every chain (one extra solve).
 
 Run: ``python benchmarks/bench_response.py [--chains N] [--segments M] [--repeats R]``.
@@ -99,8 +99,8 @@ def main(argv=None) -> None:
     system = ChainSystem(batch)
 
     def factorise():
-        system._factors = None
-        system._factorise()
+        system._pivots = None
+        return system.pivots
 
     t_factor = _median_time(factorise, args.repeats)
     t_case = _median_time(lambda: system.solve(emf), args.repeats)

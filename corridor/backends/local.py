@@ -4,7 +4,7 @@ A small run is :func:`corridor.pipeline.compute` itself. A large one (or one
 with ``run.threads`` above 1) is cut into partitions of consecutive whole
 assets (:func:`corridor.partitions.input_order_partitions`) of at most about
 :data:`LOCAL_SEGMENTS_PER_PARTITION` segments, computed on a pool of
-``run.threads`` threads — GEOS, numpy and LAPACK release the GIL for most of
+``run.threads`` threads — GEOS, numpy and the compiled chain loops release the GIL for most of
 the work — and merged as the cache merges cached and fresh rows, so the rows
 equal a single-partition run's. Only the partitions in flight hold their
 working arrays (coupling, the response system, the grounding loop's state):

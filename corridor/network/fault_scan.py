@@ -15,8 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from corridor.errors import InputError
-from corridor.network import _scan_kernel
+from corridor.network import _kernels
 
 
 @dataclass(frozen=True)
@@ -127,7 +126,7 @@ def scan_fault_positions(system, section_segment, section_case, section_position
     per case), and the worst over the copies is kept.
 
     Each copy is solved and scanned in one compiled pass
-    (:func:`corridor.network._scan_kernel.scan_units`): no (nodes × positions)
+    (:func:`corridor.network._kernels.scan_units`): no (nodes × positions)
     temporaries beyond the copy's own, and no GIL held.
 
     References
@@ -165,16 +164,10 @@ def scan_fault_positions(system, section_segment, section_case, section_position
     order = np.lexsort((sec_seg, unit_key))
     key_sorted = unit_key[order]
     units, unit_first = np.unique(key_sorted, return_index=True)
-    diag, off = system.tridiagonal
-    piv = _scan_kernel.chain_pivots(diag[:n_nodes], off)
-    bad = ~(np.isfinite(piv) & (piv != 0))
-    if bad.any():
-        node = int(np.flatnonzero(bad)[0])
-        raise InputError(f"nodal system is singular at node {node}: a part of chain"
-                         f" {int(batch.node_chain[node])} has no usable path to earth")
+    _diag, off = system.tridiagonal
     peak = np.full(n_chain, -1.0)  # the governing copy's peak so far
-    _scan_kernel.scan_units(
-        piv, off, system.injection_s, system.y_series_s, system.y_half_s,
+    _kernels.scan_units(
+        system.pivots, off, system.injection_s, system.y_series_s, system.y_half_s,
         batch.chain_first_node, batch.chain_start,
         np.diff(np.r_[batch.chain_first_node, n_nodes]), units // (n_case + 1),
         units % (n_case + 1), np.r_[unit_first, len(order)], sec_seg[order], band[order],

@@ -10,10 +10,12 @@ Sunde, Earth Conduction Effects in Transmission Systems, 1968)::
 Each segment is replaced by its *exact* equivalent pi and its distributed EMF
 by the exact nodal (Norton) injections, so node voltages are exact for a
 piecewise-uniform EMF whatever the segment length. All chains of a run are
-stacked into one tridiagonal nodal-admittance system and solved at once with
-LAPACK's tridiagonal LU with partial pivoting (``zgttrf`` once, then
-``zgttrs`` for every EMF case and the Thevenin impedances); no dense matrix,
-no general sparse LU, no Python loop per node or per asset.
+stacked into one tridiagonal nodal-admittance system, factorised once (LU
+without pivoting: the pivots are the input admittances to earth of each chain
+up to a node, which a passive lossy chain keeps away from zero; a zero or
+non-finite pivot is refused) and solved for every EMF case and the Thevenin
+impedances by a compiled loop (:mod:`corridor.network._kernels`); no dense
+matrix, no general sparse LU, no Python loop per node or per asset.
 
 No path to earth
 ----------------
@@ -46,9 +48,9 @@ import logging
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.linalg import lapack
 
 from corridor.errors import InputError
+from corridor.network import _kernels
 from corridor.network.chain_batch import (
     ChainBatch,
     _ids,
@@ -199,13 +201,14 @@ class ChainSystem:
     stable) and with expm1 elsewhere.
 
     The matrix is assembled on construction and LU-factorised on first use
-    (kept for further EMF cases and Thevenin impedances).
+    (:attr:`pivots`, kept for further EMF cases and Thevenin impedances).
 
     References
     ----------
     .. [1] E. D. Sunde, Earth Conduction Effects in Transmission Systems,
        Dover, 1968.
-    .. [2] LAPACK Users' Guide, 3rd ed., SIAM, 1999 (xGTTRF / xGTTRS).
+    .. [2] G. H. Golub and C. F. Van Loan, Matrix Computations, 4th ed., Johns
+       Hopkins, 2013, §4.3 (tridiagonal LU without pivoting).
     """
 
     def __init__(self, batch: ChainBatch):
@@ -239,15 +242,12 @@ class ChainSystem:
             shunt[batch.chain_first_node] += batch.start_termination_admittance_s
             shunt[batch.chain_last_node] += batch.end_termination_admittance_s
             self._check_paths_to_earth(shunt, first, brk)
-        # One decoupled dummy node (Y = 1 S) closes the system: scipy's zgttrf
-        # wrapper rejects n = 2, and a single-segment chain alone has 2 nodes.
         # Each segment's admittances are scattered to its start node, then
         # shifted by one onto its end node (a chain's last node starts no
         # segment, so nothing leaks across chains).
-        both = np.zeros(n_node + 1, dtype=complex)
+        both = np.zeros(n_node, dtype=complex)
         both[first] = y_half + y_series
-        diag = np.ones(n_node + 1, dtype=complex)
-        diag[:n_node] = batch.node_shunt_admittance_s
+        diag = np.array(batch.node_shunt_admittance_s, dtype=complex)
         diag += both
         diag[1:] += both[:-1]
         diag[batch.chain_first_node] += batch.start_termination_admittance_s
@@ -256,23 +256,35 @@ class ChainSystem:
         off[first] = -y_series
         self._diag = diag
         self._off = off
-        self._factors: tuple[np.ndarray, ...] | None = None
+        self._pivots: np.ndarray | None = None
 
     @property
     def tridiagonal(self) -> tuple[np.ndarray, np.ndarray]:
-        """The nodal matrix: its diagonal (n_nodes + 1, the last a decoupled dummy node)
-        and its symmetric off-diagonal (n_nodes; 0 between chains and at breaks)."""
+        """The nodal matrix: its diagonal and its symmetric off-diagonal (n_nodes each;
+        the off-diagonal couples node n to n + 1 and is 0 between chains and at breaks)."""
         return self._diag, self._off
 
-    def _factorise(self):
-        if self._factors is None:
-            dl, d, du, du2, ipiv, info = lapack.zgttrf(self._off, self._diag, self._off)
-            if info != 0:
+    @property
+    def pivots(self) -> np.ndarray:
+        """Pivots of the LU factors without pivoting (computed once, then kept).
+
+        Raises
+        ------
+        corridor.errors.InputError
+            If a pivot is zero or not finite: a part of a chain has no usable
+            path to earth.
+        """
+        if self._pivots is None:
+            piv = _kernels.chain_pivots(self._diag, self._off)
+            bad = ~(np.isfinite(piv) & (piv != 0))
+            if bad.any():
+                node = int(np.flatnonzero(bad)[0])
                 raise InputError(
-                    f"nodal system is singular at node {info - 1}: a part of a chain has no"
-                    " usable path to earth")
-            self._factors = (dl, d, du, du2, ipiv)
-        return self._factors
+                    f"nodal system is singular at node {node} (chain"
+                    f" {int(self.batch.node_chain[node])}): a part of a chain has no usable"
+                    " path to earth")
+            self._pivots = piv
+        return self._pivots
 
     def _check_paths_to_earth(self, shunt_diag, first, brk):
         batch = self.batch
@@ -291,19 +303,6 @@ class ChainSystem:
                 " conductor's capacitance to earth as y = jωC")
 
     # ---- solving ----------------------------------------------------------
-    def _new_rhs(self, n_col):
-        return np.zeros((self.batch.n_nodes + 1, n_col), dtype=complex, order="F")
-
-    def _solve_rhs(self, rhs):
-        x, info = lapack.zgttrs(*self._factorise(), rhs, overwrite_b=1)
-        if info > 0:
-            raise InputError(
-                f"nodal system is singular at node {info - 1}: a part of a chain has no"
-                " usable path to earth")
-        if info < 0:  # pragma: no cover - argument errors only
-            raise RuntimeError(f"LAPACK tridiagonal solver failed with info={info}")
-        return x[:-1]
-
     def solve(self, segment_emf_v, node_current_a=None, current_cases=None) -> ChainSolution:
         """Solve for one or more EMF cases.
 
@@ -332,44 +331,25 @@ class ChainSystem:
                 f"segment_emf_v: expected shape ({batch.n_segments},) or"
                 f" ({batch.n_segments}, n_cases), got {emf.shape}")
         n_case = emf2.shape[1]
-        # Case-major work arrays (n_case, n_nodes + 1), C order: the transpose
-        # is the Fortran-order (n_nodes + 1, n_case) right-hand side LAPACK wants.
-        j = emf2.T * self.injection_s
-        first = self._first
-        push = np.zeros((n_case, batch.n_nodes + 1), dtype=complex)
-        push[:, first] = j  # out of each start node ...
-        rhs_t = np.negative(push)
-        rhs_t[:, 1:] += push[:, :-1]  # ... into the next node (chain ends start nothing)
-        del push
-        if node_current_a is not None:
-            rhs_t[:, :-1] += np.asarray(node_current_a, dtype=complex).reshape(
-                batch.n_nodes, -1).T
-        v_t = self._solve_rhs(rhs_t.T).T
-        v_abs = np.abs(v_t)
-        seg_v = np.maximum(np.take(v_abs, first, axis=1), np.take(v_abs, first + 1, axis=1))
-        if current_cases is None:
-            v_sel, j_sel = v_t, j
+        if node_current_a is None:
+            node_current = np.zeros((0, n_case), complex)
         else:
-            cases = np.asarray(current_cases, int)
-            v_sel, j_sel = v_t[cases], j[cases]
-        v1 = np.take(v_sel, first, axis=1)
-        v2 = np.take(v_sel, first + 1, axis=1)
-        through = v1 - v2
-        through *= self.y_series_s
-        through += j_sel
-        v1 *= self.y_half_s
-        v1 += through  # current at the segment's start
-        v2 *= self.y_half_s
-        np.subtract(through, v2, out=v2)  # current at its end
-        if current_cases is None:
-            i_start, i_end = v1, v2
-        else:  # the cases not asked for get NaN currents
-            i_start = np.full((n_case, batch.n_segments), np.nan + 0j)
-            i_end = np.full((n_case, batch.n_segments), np.nan + 0j)
-            i_start[cases] = v1
-            i_end[cases] = v2
+            node_current = np.ascontiguousarray(
+                np.broadcast_to(np.asarray(node_current_a, dtype=complex).reshape(
+                    batch.n_nodes, -1), (batch.n_nodes, n_case)))
+        want = np.ones(n_case, bool)
+        if current_cases is not None:
+            want[:] = False
+            want[np.asarray(current_cases, int)] = True
+        v = np.empty((batch.n_nodes, n_case), complex)
+        i_start = np.empty((batch.n_segments, n_case), complex)
+        i_end = np.empty((batch.n_segments, n_case), complex)
+        _kernels.solve_cases(self.pivots, self._off, self.injection_s, self.y_series_s,
+                             self.y_half_s, self._first, np.ascontiguousarray(emf2),
+                             node_current, want, v, i_start, i_end)
+        v_abs = np.abs(v)
+        seg_v = np.maximum(v_abs[self._first], v_abs[self._first + 1])
         seg_i = np.maximum(np.abs(i_start), np.abs(i_end))
-        v, i_start, i_end, seg_v, seg_i = (a.T for a in (v_t, i_start, i_end, seg_v, seg_i))
         if single:
             v, i_start, i_end, seg_v, seg_i = (a[:, 0] for a in (v, i_start, i_end, seg_v, seg_i))
         return ChainSolution(v, i_start, i_end, seg_v, seg_i)
@@ -409,9 +389,9 @@ class ChainSystem:
         group_first = np.searchsorted(sorted_chain, sorted_chain, side="left")
         rank = np.empty(flat.size, dtype=np.int64)
         rank[order] = np.arange(flat.size) - group_first
-        rhs = self._new_rhs(int(rank.max()) + 1)
-        rhs[flat, rank] = 1.0
-        v = self._solve_rhs(rhs)
+        v = np.zeros((self.batch.n_nodes, int(rank.max()) + 1), dtype=complex)
+        v[flat, rank] = 1.0
+        _kernels.tridiagonal_solve(self.pivots, self._off, v)
         return v[flat, rank].reshape(nodes.shape)
 
     def peak_node(self, node_voltage_v) -> np.ndarray:

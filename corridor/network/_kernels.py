@@ -1,6 +1,7 @@
-"""Compiled inner loop of the fault-position scan (:mod:`corridor.network.fault_scan`).
+"""Compiled inner loops of the chain solves (:mod:`corridor.network.response`) and of
+the fault-position scan (:mod:`corridor.network.fault_scan`).
 
-One pass per chain copy (a chain and one fault case) does what the array version
+The scan: one pass per chain copy (a chain and one fault case) does what the array version
 did in a dozen passes over (nodes × positions) temporaries: the band right-hand
 sides, the tridiagonal solve of every band column, the cumulative sum over bands,
 the voltage for every fault position and its maximum, the segment currents and
@@ -45,6 +46,63 @@ def chain_pivots(diag, off):  # pragma: no cover - compiled (its results are tes
 
 
 @njit(cache=True, nogil=True)
+def tridiagonal_solve(piv, off, x):  # pragma: no cover - compiled (its results are tested)
+    """Solve the stacked chains in place for every column of ``x`` (n_nodes, n_cols)."""
+    n, n_col = x.shape
+    for i in range(1, n):
+        o = off[i - 1]
+        if o != 0:
+            f = o / piv[i - 1]
+            for k in range(n_col):
+                x[i, k] -= f * x[i - 1, k]
+    for i in range(n - 1, -1, -1):
+        d = 1.0 / piv[i]
+        if i == n - 1:
+            for k in range(n_col):
+                x[i, k] *= d
+        else:
+            o = off[i]
+            for k in range(n_col):
+                x[i, k] = (x[i, k] - o * x[i + 1, k]) * d
+
+
+@njit(cache=True, nogil=True)
+def solve_cases(piv, off, inj, y_series, y_half, first, emf, node_current, want_current,
+                v, i_start, i_end):  # pragma: no cover - compiled (its results are tested)
+    """Node voltages ``v`` (n_nodes, n_cases) and segment end currents of every case.
+
+    ``emf`` (n_segments, n_cases) is each segment's EMF; ``node_current`` is
+    (n_nodes, n_cases) or has no rows. Cases with ``want_current`` False get NaN
+    currents.
+    """
+    n_seg, n_case = emf.shape
+    if node_current.shape[0] > 0:
+        v[:, :] = node_current
+    else:
+        v[:, :] = 0
+    for s in range(n_seg):
+        a = first[s]
+        for k in range(n_case):
+            j = emf[s, k] * inj[s]
+            v[a, k] -= j  # a Norton current out of the segment's start node ...
+            v[a + 1, k] += j  # ... into its end node
+    tridiagonal_solve(piv, off, v)
+    nan = complex(np.nan, np.nan)
+    for s in range(n_seg):
+        a = first[s]
+        for k in range(n_case):
+            if want_current[k]:
+                v1 = v[a, k]
+                v2 = v[a + 1, k]
+                through = (v1 - v2) * y_series[s] + emf[s, k] * inj[s]
+                i_start[s, k] = y_half[s] * v1 + through
+                i_end[s, k] = through - y_half[s] * v2
+            else:
+                i_start[s, k] = nan
+                i_end[s, k] = nan
+
+
+@njit(cache=True, nogil=True)
 def _mag2(v):  # pragma: no cover - compiled
     return v.real * v.real + v.imag * v.imag
 
@@ -75,6 +133,7 @@ def scan_units(piv, off, inj, y_series, y_half, chain_first_node, chain_start, c
     worst = np.empty(m_max, np.float64)
     col = np.empty(m_max, np.int64)
     band_sum = np.empty(w_max, np.complex128)
+    raw = np.zeros(w_max, np.complex128)
     for u in range(n_unit):
         c = unit_chain[u]
         q = unit_case[u]
@@ -104,23 +163,28 @@ def scan_units(piv, off, inj, y_series, y_half, chain_first_node, chain_start, c
                 f = o / piv[n0 + n - 1]
                 for k in range(w):
                     x[n, k] -= f * x[n - 1, k]
-        d = 1.0 / piv[n0 + m - 1]
-        for k in range(w):
-            x[m - 1, k] *= d
-        for n in range(m - 2, -1, -1):
-            o = off[n0 + n]
-            d = 1.0 / piv[n0 + n]
-            for k in range(w):
-                x[n, k] = (x[n, k] - o * x[n + 1, k]) * d
-        # cumulative sum over bands, then the voltage for a fault at each position:
+        # back substitution, node by node from the chain's end; each node's row is then
+        # summed over bands and evaluated while it is in cache:
         # V(k) = (I_A + I_B)(k)·Σ_{b ≤ k} V_b − I_B(k)·Σ_b V_b
         u_best = -1.0
         u_node = 0
-        for n in range(m):
+        for n in range(m - 1, -1, -1):
+            d = 1.0 / piv[n0 + n]
             acc = 0j
-            for k in range(w):
-                acc += x[n, k]
-                x[n, k] = acc
+            # ``raw`` holds the solved row of node n + 1 before its sums over bands
+            if n == m - 1:
+                for k in range(w):
+                    v = x[n, k] * d
+                    raw[k] = v
+                    acc += v
+                    x[n, k] = acc
+            else:
+                o = off[n0 + n]
+                for k in range(w):
+                    v = (x[n, k] - o * raw[k]) * d
+                    raw[k] = v
+                    acc += v
+                    x[n, k] = acc
             best = -1.0
             bk = 0
             for k in range(w):
@@ -131,7 +195,7 @@ def scan_units(piv, off, inj, y_series, y_half, chain_first_node, chain_start, c
             mag = abs(w_ab[q, bk] * x[n, bk] - w_b[q, bk] * acc)
             worst[n] = mag
             col[n] = bk
-            if mag > u_best:
+            if mag >= u_best:  # nodes go backwards: ties keep the first node
                 u_best = mag
                 u_node = n
             if mag > node_worst[n0 + n]:
