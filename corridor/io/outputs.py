@@ -30,15 +30,86 @@ def sha256_file(path: Path) -> str:
     return h.hexdigest()
 
 
+#: Rows converted to Arrow at a time when a layer is written: the writer holds one
+#: chunk's copy, not the whole table's (about 1 GB for the 2.5 M-segment benchmark).
+WRITE_CHUNK_ROWS = 200_000
+
+_MULTI = {"Point": "MultiPoint", "LineString": "MultiLineString", "Polygon": "MultiPolygon"}
+
+
+def _layer_geometry_type(geometry: gpd.GeoSeries) -> tuple[str, bool]:
+    """The GeoPackage geometry type of a column, and whether single parts are promoted.
+
+    As pyogrio's ``write_dataframe`` decides it: one type, or a single type with its
+    multi type (then every single part is written as a multi part); anything else is
+    ``Unknown``; `` Z`` when any non-empty geometry has Z.
+    """
+    kinds = pd.Series(geometry.geom_type.unique()).dropna().tolist()
+    promote = False
+    if len(kinds) == 1:
+        name = kinds[0]
+    elif len(kinds) == 2 and any(_MULTI.get(k) in kinds for k in kinds):
+        name = next(_MULTI[k] for k in kinds if k in _MULTI)
+        promote = True
+    else:
+        name = "Unknown"
+    present = geometry[geometry.notna() & ~geometry.is_empty]
+    if name != "Unknown" and len(present) and bool(present.has_z.any()):
+        name += " Z"
+    return name, promote
+
+
 def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
-    """Write one layer to a GeoPackage (bulk Arrow write, spatial index on)."""
+    """Write one layer to a GeoPackage (bulk Arrow write, spatial index on).
+
+    The rows go to GDAL as a stream of Arrow batches of :data:`WRITE_CHUNK_ROWS`
+    rows, in one layer creation (GDAL builds the spatial index once, at the end),
+    so the memory held for the conversion is one chunk's.
+    """
+    import pyarrow as pa
+    import shapely
+
     geom = frame.geometry.name
     text = [c for c in frame.columns if c != geom and frame[c].dtype == object]
     if text:  # convert only the object columns; the rest are shared, not copied
         frame = gpd.GeoDataFrame({c: (frame[c].astype("string") if c in text else frame[c])
                                   for c in frame.columns}, geometry=geom, crs=frame.crs)
-    pyogrio.write_dataframe(frame, path, layer=layer, driver="GPKG", use_arrow=True,
-                            layer_options={"SPATIAL_INDEX": "YES"})
+    if len(frame) == 0:
+        pyogrio.write_dataframe(frame, path, layer=layer, driver="GPKG", use_arrow=True,
+                                layer_options={"SPATIAL_INDEX": "YES"})
+        return
+    geometry_type, promote = _layer_geometry_type(frame.geometry)
+    crs = None
+    if frame.crs is not None:
+        epsg = frame.crs.to_epsg()
+        crs = f"EPSG:{epsg}" if epsg else frame.crs.to_wkt("WKT1_GDAL")
+    attributes = pd.DataFrame({c: frame[c] for c in frame.columns if c != geom}, copy=False)
+
+    def batch(lo: int, hi: int) -> pa.RecordBatch:
+        g = frame.geometry.array[lo:hi]
+        parts = np.asarray(g, dtype=object)
+        if promote:
+            kinds = shapely.get_type_id(parts)
+            for single, multi in ((0, shapely.multipoints), (1, shapely.multilinestrings),
+                                  (3, shapely.multipolygons)):
+                at = np.flatnonzero(kinds == single)
+                if len(at):
+                    parts[at] = [multi([p]) for p in parts[at]]
+        chunk = attributes.iloc[lo:hi].copy(deep=False)
+        chunk[geom] = shapely.to_wkb(parts)
+        return pa.RecordBatch.from_pandas(chunk, schema=schema, preserve_index=False)
+
+    schema = pa.Schema.from_pandas(attributes.iloc[:0], preserve_index=False)
+    for i, field in enumerate(schema):
+        if pa.types.is_null(field.type):  # GDAL has no null type: text
+            schema = schema.set(i, field.with_type(pa.string()))
+    schema = schema.append(pa.field(geom, pa.binary()))
+    reader = pa.RecordBatchReader.from_batches(
+        schema, (batch(lo, min(lo + WRITE_CHUNK_ROWS, len(frame)))
+                 for lo in range(0, len(frame), WRITE_CHUNK_ROWS)))
+    pyogrio.write_arrow(reader, path, layer=layer, driver="GPKG", geometry_name=geom,
+                        geometry_type=geometry_type, crs=crs,
+                        layer_options={"SPATIAL_INDEX": "YES"})
 
 
 #: Name of the last column of every CSV corridor writes: the safety caution, on every row.
