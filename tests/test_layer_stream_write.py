@@ -10,6 +10,8 @@ import sqlite3
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
+import pyarrow as pa
 import pyogrio
 import pytest
 import shapely
@@ -26,7 +28,12 @@ def _frame(n, mixed_parts):
                                                                        (i + 1.0, 3.0)]])
     geoms[7] = None
     text = np.array(["pipe", None, "=SUM(A1)"], dtype=object)[np.arange(n) % 3]
+    # a column as a cache read gives it back from Parquet: Arrow-backed, in two chunks
+    half = n // 2
+    cached = pd.Series(pd.arrays.ArrowExtensionArray(pa.chunked_array(
+        [[f"A{i}" for i in range(half)], [f"A{i}" for i in range(half, n)]])))
     return gpd.GeoDataFrame({
+        "asset_id": cached,
         "utilization": rng.normal(size=n), "governing": text,
         "exceeds": rng.integers(0, 2, n).astype(bool), "segment_index": np.arange(n),
         "empty_value": np.full(n, np.nan), "no_text": np.full(n, None, dtype=object),

@@ -85,7 +85,7 @@ def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
         crs = f"EPSG:{epsg}" if epsg else frame.crs.to_wkt("WKT1_GDAL")
     attributes = pd.DataFrame({c: frame[c] for c in frame.columns if c != geom}, copy=False)
 
-    def batch(lo: int, hi: int) -> pa.RecordBatch:
+    def batches(lo: int, hi: int) -> list[pa.RecordBatch]:
         g = frame.geometry.array[lo:hi]
         parts = np.asarray(g, dtype=object)
         if promote:
@@ -97,7 +97,8 @@ def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
                     parts[at] = [multi([p]) for p in parts[at]]
         chunk = attributes.iloc[lo:hi].copy(deep=False)
         chunk[geom] = shapely.to_wkb(parts)
-        return pa.RecordBatch.from_pandas(chunk, schema=schema, preserve_index=False)
+        # a table, not a batch: columns read back from Parquet are chunked Arrow arrays
+        return pa.Table.from_pandas(chunk, schema=schema, preserve_index=False).to_batches()
 
     schema = pa.Schema.from_pandas(attributes.iloc[:0], preserve_index=False)
     for i, field in enumerate(schema):
@@ -105,8 +106,8 @@ def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
             schema = schema.set(i, field.with_type(pa.string()))
     schema = schema.append(pa.field(geom, pa.binary()))
     reader = pa.RecordBatchReader.from_batches(
-        schema, (batch(lo, min(lo + WRITE_CHUNK_ROWS, len(frame)))
-                 for lo in range(0, len(frame), WRITE_CHUNK_ROWS)))
+        schema, (b for lo in range(0, len(frame), WRITE_CHUNK_ROWS)
+                 for b in batches(lo, min(lo + WRITE_CHUNK_ROWS, len(frame)))))
     pyogrio.write_arrow(reader, path, layer=layer, driver="GPKG", geometry_name=geom,
                         geometry_type=geometry_type, crs=crs,
                         layer_options={"SPATIAL_INDEX": "YES"})
