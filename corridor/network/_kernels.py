@@ -108,6 +108,20 @@ def _mag2(v):  # pragma: no cover - compiled
 
 
 @njit(cache=True, nogil=True)
+def _segment_emf(sec_seg, sec_band, sec_emf, p, p1, s, kc):  # pragma: no cover - compiled
+    """Segment ``s``'s EMF over its sections from ``p`` on (sorted by segment): the part in
+    bands up to ``kc``, the total, and the first section after the segment's."""
+    e_cum = 0j
+    e_tot = 0j
+    while p < p1 and sec_seg[p] == s:
+        e_tot += sec_emf[p]
+        if sec_band[p] <= kc:
+            e_cum += sec_emf[p]
+        p += 1
+    return e_cum, e_tot, p
+
+
+@njit(cache=True, nogil=True)
 def scan_units(piv, off, inj, y_series, y_half, chain_first_node, chain_start, chain_nodes,
                unit_chain, unit_case, unit_ptr, sec_seg, sec_band, sec_emf, n_pos, w_ab, w_b,
                seg_v, seg_i, seg_case, seg_pos, seg_worst_emf, node_worst, chain_case,
@@ -210,13 +224,7 @@ def scan_units(piv, off, inj, y_series, y_half, chain_first_node, chain_start, c
             else:
                 kc = col[ls]
                 sw = worst[ls]
-            e_cum = 0j
-            e_tot = 0j
-            while p < p1 and sec_seg[p] == s:
-                e_tot += sec_emf[p]
-                if sec_band[p] <= kc:
-                    e_cum += sec_emf[p]
-                p += 1
+            e_cum, e_tot, p = _segment_emf(sec_seg, sec_band, sec_emf, p, p1, s, kc)
             if sw > seg_v[s]:
                 e_best = w_ab[q, kc] * e_cum - w_b[q, kc] * e_tot
                 v1 = w_ab[q, kc] * x[ls, kc] - w_b[q, kc] * x[ls, w - 1]
@@ -248,11 +256,5 @@ def scan_units(piv, off, inj, y_series, y_half, chain_first_node, chain_start, c
             p = p0
             for ls in range(m - 1):
                 s = s0 + ls
-                e_cum = 0j
-                e_tot = 0j
-                while p < p1 and sec_seg[p] == s:
-                    e_tot += sec_emf[p]
-                    if sec_band[p] <= kc:
-                        e_cum += sec_emf[p]
-                    p += 1
+                e_cum, e_tot, p = _segment_emf(sec_seg, sec_band, sec_emf, p, p1, s, kc)
                 seg_emf[s] = w_ab[q, kc] * e_cum - w_b[q, kc] * e_tot
