@@ -28,7 +28,17 @@ import numpy as np
 from numba import njit
 
 
-@njit(cache=True, nogil=True)
+def _compiled(fn):
+    """``fn`` compiled without the GIL, its machine code cached on disk where numba finds
+    a writable place (beside the package, else the user's cache folder); with none (a
+    read-only install run by a user without a home), compiled afresh in each process."""
+    try:
+        return njit(cache=True, nogil=True)(fn)
+    except RuntimeError:  # numba: "cannot cache function ...: no locator available"
+        return njit(nogil=True)(fn)
+
+
+@_compiled
 def chain_pivots(diag, off):  # pragma: no cover - compiled (its results are tested)
     """Pivots of the tridiagonal LU without pivoting, chains stacked (off = 0 between)."""
     n = diag.shape[0]
@@ -45,7 +55,7 @@ def chain_pivots(diag, off):  # pragma: no cover - compiled (its results are tes
     return piv
 
 
-@njit(cache=True, nogil=True)
+@_compiled
 def tridiagonal_solve(piv, off, x):  # pragma: no cover - compiled (its results are tested)
     """Solve the stacked chains in place for every column of ``x`` (n_nodes, n_cols)."""
     n, n_col = x.shape
@@ -66,7 +76,7 @@ def tridiagonal_solve(piv, off, x):  # pragma: no cover - compiled (its results 
                 x[i, k] = (x[i, k] - o * x[i + 1, k]) * d
 
 
-@njit(cache=True, nogil=True)
+@_compiled
 def solve_cases(piv, off, inj, y_series, y_half, first, emf, node_current, want_current,
                 v, i_start, i_end):  # pragma: no cover - compiled (its results are tested)
     """Node voltages ``v`` (n_nodes, n_cases) and segment end currents of every case.
@@ -102,12 +112,12 @@ def solve_cases(piv, off, inj, y_series, y_half, first, emf, node_current, want_
                 i_end[s, k] = nan
 
 
-@njit(cache=True, nogil=True)
+@_compiled
 def _mag2(v):  # pragma: no cover - compiled
     return v.real * v.real + v.imag * v.imag
 
 
-@njit(cache=True, nogil=True)
+@_compiled
 def _segment_emf(sec_seg, sec_band, sec_emf, p, p1, s, kc):  # pragma: no cover - compiled
     """Segment ``s``'s EMF over its sections from ``p`` on (sorted by segment): the part in
     bands up to ``kc``, the total, and the first section after the segment's."""
@@ -121,7 +131,7 @@ def _segment_emf(sec_seg, sec_band, sec_emf, p, p1, s, kc):  # pragma: no cover 
     return e_cum, e_tot, p
 
 
-@njit(cache=True, nogil=True)
+@_compiled
 def scan_units(piv, off, inj, y_series, y_half, chain_first_node, chain_start, chain_nodes,
                unit_chain, unit_case, unit_ptr, sec_seg, sec_band, sec_emf, n_pos, w_ab, w_b,
                seg_v, seg_i, seg_case, seg_pos, seg_worst_emf, node_worst, chain_case,
