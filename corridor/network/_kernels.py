@@ -77,39 +77,83 @@ def tridiagonal_solve(piv, off, x):  # pragma: no cover - compiled (its results 
 
 
 @_compiled
-def solve_cases(piv, off, inj, y_series, y_half, first, emf, node_current, want_current,
-                v, i_start, i_end):  # pragma: no cover - compiled (its results are tested)
-    """Node voltages ``v`` (n_nodes, n_cases) and segment end currents of every case.
+def solve_summed(piv, off, inj, y_series, y_half, chain_first_node, chain_start, chain_nodes,
+                 emf, node_current, n_kept, v, i_start, i_end, v_sum, i_start_sum,
+                 i_end_sum):  # pragma: no cover - compiled (its results are tested)
+    """Node voltages ``v`` and segment end currents of the first ``n_kept`` cases; of the
+    others only Σ_case |V| per node and Σ_case |I_start|, Σ_case |I_end| per segment.
 
     ``emf`` (n_segments, n_cases) is each segment's EMF; ``node_current`` is
-    (n_nodes, n_cases) or has no rows. Cases with ``want_current`` False get NaN
-    currents.
+    (n_nodes, n_cases) or has no rows.
+
+    Chain by chain, on a scratch of the chain's nodes × (kept cases + the summed cases
+    with any source on the chain): a summed case with no EMF and no node current on a
+    chain contributes nothing there and is not solved.
     """
-    n_seg, n_case = emf.shape
-    if node_current.shape[0] > 0:
-        v[:, :] = node_current
-    else:
-        v[:, :] = 0
-    for s in range(n_seg):
-        a = first[s]
+    n_case = emf.shape[1]
+    has_current = node_current.shape[0] > 0
+    m_max = 1
+    for c in range(chain_first_node.shape[0]):
+        m_max = max(m_max, chain_nodes[c])
+    x = np.empty((m_max, n_case), np.complex128)
+    cols = np.empty(n_case, np.int64)
+    for c in range(chain_first_node.shape[0]):
+        n0 = chain_first_node[c]
+        s0 = chain_start[c]
+        m = chain_nodes[c]
+        # the cases solved on this chain: the kept ones, and the summed ones with a source
+        w = 0
         for k in range(n_case):
-            j = emf[s, k] * inj[s]
-            v[a, k] -= j  # a Norton current out of the segment's start node ...
-            v[a + 1, k] += j  # ... into its end node
-    tridiagonal_solve(piv, off, v)
-    nan = complex(np.nan, np.nan)
-    for s in range(n_seg):
-        a = first[s]
-        for k in range(n_case):
-            if want_current[k]:
-                v1 = v[a, k]
-                v2 = v[a + 1, k]
-                through = (v1 - v2) * y_series[s] + emf[s, k] * inj[s]
-                i_start[s, k] = y_half[s] * v1 + through
-                i_end[s, k] = through - y_half[s] * v2
-            else:
-                i_start[s, k] = nan
-                i_end[s, k] = nan
+            active = k < n_kept
+            if not active:
+                for s in range(s0, s0 + m - 1):
+                    if emf[s, k] != 0:
+                        active = True
+                        break
+            if not active and has_current:
+                for n in range(n0, n0 + m):
+                    if node_current[n, k] != 0:
+                        active = True
+                        break
+            if active:
+                cols[w] = k
+                w += 1
+        for n in range(m):
+            for j in range(w):
+                x[n, j] = node_current[n0 + n, cols[j]] if has_current else 0j
+        for ls in range(m - 1):
+            s = s0 + ls
+            for j in range(w):
+                e = emf[s, cols[j]] * inj[s]
+                x[ls, j] -= e  # a Norton current out of the segment's start node ...
+                x[ls + 1, j] += e  # ... into its end node
+        tridiagonal_solve(piv[n0:n0 + m], off[n0:n0 + m], x[:m, :w])
+        for n in range(m):
+            acc = 0.0
+            for j in range(w):
+                if cols[j] < n_kept:
+                    v[n0 + n, cols[j]] = x[n, j]
+                else:
+                    acc += abs(x[n, j])
+            v_sum[n0 + n] = acc
+        for ls in range(m - 1):
+            s = s0 + ls
+            acc_s = 0.0
+            acc_e = 0.0
+            for j in range(w):
+                v1 = x[ls, j]
+                v2 = x[ls + 1, j]
+                through = (v1 - v2) * y_series[s] + emf[s, cols[j]] * inj[s]
+                a = y_half[s] * v1 + through
+                b = through - y_half[s] * v2
+                if cols[j] < n_kept:
+                    i_start[s, cols[j]] = a
+                    i_end[s, cols[j]] = b
+                else:
+                    acc_s += abs(a)
+                    acc_e += abs(b)
+            i_start_sum[s] = acc_s
+            i_end_sum[s] = acc_e
 
 
 @_compiled

@@ -64,6 +64,7 @@ __all__ = [
     "ChainBatch",
     "ChainSolution",
     "ChainSystem",
+    "SummedMagnitudes",
     "matched_termination_admittance",
     "propagation_constant",
 ]
@@ -129,6 +130,23 @@ def _one_minus_sech_over_w2(w):
 # --------------------------------------------------------------------------
 # Solution
 # --------------------------------------------------------------------------
+@dataclass
+class SummedMagnitudes:
+    """Sums of magnitudes over the summed cases of :meth:`ChainSystem.solve` (``sum_from``).
+
+    Attributes
+    ----------
+    node_voltage_v : ndarray of float, shape (n_nodes,)
+        Σ |V| of each node [V].
+    segment_current_start_a, segment_current_end_a : ndarray of float, shape (n_segments,)
+        Σ |I| at the start / end of each segment [A].
+    """
+
+    node_voltage_v: np.ndarray
+    segment_current_start_a: np.ndarray
+    segment_current_end_a: np.ndarray
+
+
 @dataclass(frozen=True)
 class ChainSolution:
     """Node voltages and segment currents of a batched solve.
@@ -150,6 +168,8 @@ class ChainSolution:
         max(|I_start|, |I_end|) of each segment [A] (the magnitude of the
         current along a uniform segment peaks at an end unless the current
         reverses inside it, which at 50 m segments changes the peak little).
+    summed : SummedMagnitudes or None
+        With ``sum_from``: the sums of magnitudes over the summed cases.
     """
 
     node_voltage_v: np.ndarray
@@ -157,6 +177,7 @@ class ChainSolution:
     segment_current_end_a: np.ndarray
     segment_voltage_v: np.ndarray
     segment_current_a: np.ndarray
+    summed: SummedMagnitudes | None = None
 
 
 class ChainSystem:
@@ -303,7 +324,8 @@ class ChainSystem:
                 " conductor's capacitance to earth as y = jωC")
 
     # ---- solving ----------------------------------------------------------
-    def solve(self, segment_emf_v, node_current_a=None, current_cases=None) -> ChainSolution:
+    def solve(self, segment_emf_v, node_current_a=None, current_cases=None,
+              sum_from=None) -> ChainSolution:
         """Solve for one or more EMF cases.
 
         Parameters
@@ -315,12 +337,17 @@ class ChainSystem:
             Extra current injected into each node from remote earth [A].
         current_cases : sequence of int, optional
             Cases whose segment currents are wanted (default all); the others
-            get NaN currents, which saves most of the post-processing time
-            when there are many cases.
+            get NaN currents.
+        sum_from : int, optional
+            Cases from this one on are not returned one by one: only the sums of
+            their magnitudes, ``ChainSolution.summed`` (the worst case over cases
+            of unknown relative phase, docs/methods.md §8). A summed case is solved
+            on a chain only where it has a source there. Needs a case axis.
 
         Returns
         -------
         ChainSolution
+            The cases before ``sum_from`` (all cases by default).
         """
         batch = self.batch
         emf = np.asarray(segment_emf_v, dtype=complex)
@@ -331,28 +358,40 @@ class ChainSystem:
                 f"segment_emf_v: expected shape ({batch.n_segments},) or"
                 f" ({batch.n_segments}, n_cases), got {emf.shape}")
         n_case = emf2.shape[1]
+        n_kept = n_case if sum_from is None else int(sum_from)
+        if not 0 <= n_kept <= n_case or (single and sum_from is not None):
+            raise InputError(f"sum_from: expected 0 .. {n_case} with a case axis, got"
+                             f" {sum_from}")
         if node_current_a is None:
             node_current = np.zeros((0, n_case), complex)
         else:
             node_current = np.ascontiguousarray(
                 np.broadcast_to(np.asarray(node_current_a, dtype=complex).reshape(
                     batch.n_nodes, -1), (batch.n_nodes, n_case)))
-        want = np.ones(n_case, bool)
-        if current_cases is not None:
-            want[:] = False
-            want[np.asarray(current_cases, int)] = True
-        v = np.empty((batch.n_nodes, n_case), complex)
-        i_start = np.empty((batch.n_segments, n_case), complex)
-        i_end = np.empty((batch.n_segments, n_case), complex)
-        _kernels.solve_cases(self.pivots, self._off, self.injection_s, self.y_series_s,
-                             self.y_half_s, self._first, np.ascontiguousarray(emf2),
-                             node_current, want, v, i_start, i_end)
+        v = np.zeros((batch.n_nodes, n_kept), complex)
+        i_start = np.zeros((batch.n_segments, n_kept), complex)
+        i_end = np.zeros((batch.n_segments, n_kept), complex)
+        summed = SummedMagnitudes(np.zeros(batch.n_nodes), np.zeros(batch.n_segments),
+                                  np.zeros(batch.n_segments))
+        _kernels.solve_summed(
+            self.pivots, self._off, self.injection_s, self.y_series_s, self.y_half_s,
+            batch.chain_first_node, batch.chain_start,
+            np.diff(np.r_[batch.chain_first_node, batch.n_nodes]),
+            np.ascontiguousarray(emf2), node_current, n_kept, v, i_start, i_end,
+            summed.node_voltage_v, summed.segment_current_start_a,
+            summed.segment_current_end_a)
+        if current_cases is not None:  # the cases not asked for get NaN currents
+            unwanted = np.ones(n_kept, bool)
+            unwanted[[c for c in np.asarray(current_cases, int).tolist() if c < n_kept]] = False
+            i_start[:, unwanted] = np.nan
+            i_end[:, unwanted] = np.nan
         v_abs = np.abs(v)
         seg_v = np.maximum(v_abs[self._first], v_abs[self._first + 1])
         seg_i = np.maximum(np.abs(i_start), np.abs(i_end))
         if single:
             v, i_start, i_end, seg_v, seg_i = (a[:, 0] for a in (v, i_start, i_end, seg_v, seg_i))
-        return ChainSolution(v, i_start, i_end, seg_v, seg_i)
+        return ChainSolution(v, i_start, i_end, seg_v, seg_i,
+                             None if sum_from is None else summed)
 
     def thevenin_impedance(self, node_index) -> np.ndarray:
         """Impedance between nodes and remote earth with every EMF shorted.

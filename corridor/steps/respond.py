@@ -352,8 +352,10 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
     system = ChainSystem(batch)
     rhs = part(model.rhs_v, seg_idx)
     slots = 2 + np.arange(model.n_normal_slots)
-    sol = system.solve(rhs, node_current_a=part(model.injection_a, node_idx),
-                       current_cases=[0, *slots.tolist()])
+    # normal (as given) and capacitive in full; the normal components as Σ |.|
+    sol = system.solve(rhs, part(model.injection_a, node_idx), sum_from=2)
+    summed = sol.summed
+    assert summed is not None  # asked for with sum_from
 
     v_n = sol.segment_voltage_v[:, 0]
     i_n = sol.segment_current_a[:, 0]
@@ -361,11 +363,10 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
     if len(slots):
         # worst case over the components' unknown relative angles: Σ |V_j| per node
         # (docs/methods.md §8); currents likewise at each segment end
-        normal_node_v = np.abs(sol.node_voltage_v[:, slots]).sum(axis=1)
+        normal_node_v = summed.node_voltage_v
         first = np.arange(n_seg) + chain_of_seg
         v_n = np.maximum(normal_node_v[first], normal_node_v[first + 1])
-        i_n = np.maximum(np.abs(sol.segment_current_start_a[:, slots]).sum(axis=1),
-                         np.abs(sol.segment_current_end_a[:, slots]).sum(axis=1))
+        i_n = np.maximum(summed.segment_current_start_a, summed.segment_current_end_a)
     v_cap = sol.segment_voltage_v[:, 1]
     # earth faults: every case over its fault positions (docs/methods.md §8.2)
     sec = model.fault_section_segment
