@@ -33,6 +33,7 @@ import numpy as np
 
 from corridor.kinds import DEFAULT_RADIUS_M
 from corridor.physics import capacitive, induction
+from corridor.physics._arrays import complex_bincount
 from corridor.registry import registry
 from corridor.steps import fault_cases, faultscan, substations
 from corridor.steps.normal_load import (  # noqa: F401  (public names of this stage)
@@ -100,11 +101,6 @@ class Coupling:
     #: Per segment: clearing time of the substation whose earth potential governs
     #: earth_potential_fault_v (NaN: a tower's, or none; docs/methods.md §18.4).
     substation_clearing_s: np.ndarray | None = None
-
-
-def _complex_bincount(index, values, n):
-    return (np.bincount(index, weights=values.real, minlength=n)
-            + 1j * np.bincount(index, weights=values.imag, minlength=n))
 
 
 def arrangement_arrays(arr):
@@ -241,7 +237,7 @@ def couple(cfg, inputs, geo) -> Coupling:
                 seg_len = seg.length_m[sec_seg[sel]]
                 cap_sec[sel] = cc.short_circuit_current_a_per_m * seg_len * share[sel]
 
-    segment_emf_normal = _complex_bincount(sec_seg, emf_normal_sec, n_seg)
+    segment_emf_normal = complex_bincount(sec_seg, emf_normal_sec, n_seg)
     normal = worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading, n_seg,
                                lines["line_id"].to_numpy(dtype=object), sources.route)
     # the EMF columns carry the worst case over the unknowns, with the phase of the loading
@@ -249,7 +245,7 @@ def couple(cfg, inputs, geo) -> Coupling:
     as_given = np.abs(segment_emf_normal)
     segment_emf_normal = np.where(as_given > 0, segment_emf_normal / np.where(
         as_given > 0, as_given, 1.0), 1.0) * normal.emf_v
-    cap_seg = _complex_bincount(sec_seg, cap_sec, n_seg)
+    cap_seg = complex_bincount(sec_seg, cap_sec, n_seg)
 
     # fault cases: one per (asset, electrical line, faulted phase) with any exposure; the
     # scan keeps the worst over positions and phases (docs/methods.md §18.3)
@@ -281,7 +277,7 @@ def couple(cfg, inputs, geo) -> Coupling:
     entry_seg = sec_seg[entry_sec]
     entry_key = entry_case.astype(np.int64) * n_seg + entry_seg
     entries, entry_of = np.unique(entry_key, return_inverse=True)
-    fault_emf = _complex_bincount(entry_of.ravel(), entry_emf * case_current[entry_case],
+    fault_emf = complex_bincount(entry_of.ravel(), entry_emf * case_current[entry_case],
                                   len(entries))
     clearing = lines["clearing_time_s"].to_numpy(float)
     hirel = lines["high_reliability"].to_numpy(bool)

@@ -15,12 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from corridor.physics import induction
+from corridor.physics._arrays import complex_bincount
 from corridor.steps import normal_signs
-
-
-def _complex_bincount(index, values, n):
-    return (np.bincount(index, weights=values.real, minlength=n)
-            + 1j * np.bincount(index, weights=values.imag, minlength=n))
 
 
 @dataclass
@@ -216,7 +212,7 @@ def worst_case_normal(sec_seg, sec_line, sec_asset, bal_sec, res_sec, loading: L
     comp_of = comp_of.ravel()
     entry_key = comp_of.astype(np.int64) * max(n_seg, 1) + segs
     entries, entry_of = np.unique(entry_key, return_inverse=True)
-    emf = _complex_bincount(entry_of.ravel(), values, len(entries))
+    emf = complex_bincount(entry_of.ravel(), values, len(entries))
     entry_comp = entries // max(n_seg, 1)
     entry_seg = entries % max(n_seg, 1)
     comp_asset = comps // (2 * n_lines + 2)
@@ -243,10 +239,10 @@ def _exact_over_signs(emf_v, sec_seg, sec_line, sec_route, bal, loading: LineLoa
     assert loading.sign_only is not None  # the caller checks
     sign = loading.sign_only[sec_line]
     g0 = loading.group[sec_line] == 0
-    fixed = _complex_bincount(sec_seg[g0], bal[g0], n_seg)
+    fixed = complex_bincount(sec_seg[g0], bal[g0], n_seg)
     key = sec_seg[sign].astype(np.int64) * (int(sec_route.max()) + 1) + sec_route[sign]
     keys, inv = np.unique(key, return_inverse=True)
-    e_k = _complex_bincount(inv.ravel(), bal[sign], len(keys))
+    e_k = complex_bincount(inv.ravel(), bal[sign], len(keys))
     k_seg = keys // (int(sec_route.max()) + 1)
     exact = normal_signs.worst_over_signs(fixed, k_seg, e_k, n_seg)
     bound = np.abs(fixed) + np.bincount(k_seg, weights=np.abs(e_k), minlength=n_seg)

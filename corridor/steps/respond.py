@@ -38,6 +38,7 @@ from corridor.kinds import KindSegments, asset_column
 from corridor.network import asset_models
 from corridor.network.fault_scan import scan_fault_positions
 from corridor.network.response import ChainBatch, ChainSystem
+from corridor.physics._arrays import complex_bincount
 from corridor.registry import registry
 
 log = logging.getLogger(__name__)
@@ -288,11 +289,13 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
     rhs[:, 0] = coup.segment_emf_normal_v * scale
     if n_slot and slot is not None:  # (n_slot > 0 only with a slot array)
         comp_seg = coup.normal_component_segment
-        np.add.at(rhs, (comp_seg, 2 + slot), coup.normal_component_emf_v * scale[comp_seg])
+        flat = comp_seg * rhs.shape[1] + 2 + slot  # (segment, slot) pairs, summed if repeated
+        rhs += complex_bincount(flat, coup.normal_component_emf_v * scale[comp_seg],
+                                rhs.size).reshape(rhs.shape)
     inj = np.zeros((n_seg + n_chain, 2 + n_slot), complex)
     half = 0.5 * coup.capacitive_current_a
-    np.add.at(inj[:, 1], start_node, half)
-    np.add.at(inj[:, 1], start_node + 1, half)
+    inj[start_node, 1] += half  # one segment starts at a node ...
+    inj[start_node + 1, 1] += half  # ... and one ends at it: no index repeats
     order = np.argsort(coup.fault_section_segment, kind="stable")
     sec_seg = coup.fault_section_segment[order]
     pos = coup.fault_positions
