@@ -150,7 +150,18 @@ def scan_fault_positions(system, section_segment, section_case, section_position
                     np.zeros(n_chain))
     if sec_seg.size == 0:
         return out
-    band, n_pos = _section_bands(sec_case, section_position_m, case_positions_m)
+    # only the cases these sections belong to (a re-solve of a few assets gets the
+    # whole run's case table), and only up to their last position
+    present = np.zeros(len(case_positions_m), bool)
+    present[sec_case] = True
+    cases = np.flatnonzero(present)
+    sec_case = (np.cumsum(present) - 1)[sec_case]
+    positions = np.asarray(case_positions_m, float)[cases]
+    width = max(int(np.isfinite(positions).sum(axis=1).max()), 1)
+    positions = positions[:, :width]
+    i_a = i_a[cases, :width]
+    i_b = i_b[cases, :width]
+    band, n_pos = _section_bands(sec_case, section_position_m, positions)
     # currents per case and position; 0 from the case's last band on (no position there)
     n_case, n_max = i_a.shape
     ok = np.arange(n_max)[None, :] < n_pos[:, None]
@@ -175,4 +186,7 @@ def scan_fault_positions(system, section_segment, section_case, section_position
         out.segment_case, out.segment_position, out.segment_worst_emf_v,
         out.node_voltage_worst_v, out.chain_case, out.chain_position,
         out.chain_node_voltage_v, out.segment_emf_v, out.chain_emf_v, peak)
+    for governing in (out.segment_case, out.chain_case):  # back to the callers' cases
+        hit = governing >= 0
+        governing[hit] = cases[governing[hit]]
     return out

@@ -231,7 +231,7 @@ class ResponseModel:
     y_end_s: np.ndarray
     node_shunt_s: np.ndarray  # per node: existing grounds
     rhs_v: np.ndarray  # (n_segments, 2 + n_normal_slots) segment EMF: normal, capacitive
-    injection_a: np.ndarray  # (n_nodes, 2 + n_normal_slots) node currents
+    injection_a: np.ndarray  # (n_nodes,) node currents of the capacitive case (column 1)
     rejected: list
     # fault scan (docs/methods.md §8.2): sections, sorted by segment, and cases
     fault_section_segment: np.ndarray
@@ -292,10 +292,10 @@ def build_model(cfg, inputs, geo, coup) -> ResponseModel:
         flat = comp_seg * rhs.shape[1] + 2 + slot  # (segment, slot) pairs, summed if repeated
         rhs += complex_bincount(flat, coup.normal_component_emf_v * scale[comp_seg],
                                 rhs.size).reshape(rhs.shape)
-    inj = np.zeros((n_seg + n_chain, 2 + n_slot), complex)
+    inj = np.zeros(n_seg + n_chain, complex)
     half = 0.5 * coup.capacitive_current_a
-    inj[start_node, 1] += half  # one segment starts at a node ...
-    inj[start_node + 1, 1] += half  # ... and one ends at it: no index repeats
+    inj[start_node] += half  # one segment starts at a node ...
+    inj[start_node + 1] += half  # ... and one ends at it: no index repeats
     order = np.argsort(coup.fault_section_segment, kind="stable")
     sec_seg = coup.fault_section_segment[order]
     pos = coup.fault_positions
@@ -356,7 +356,9 @@ def solve_model(model: ResponseModel, assets=None, extra_node_shunt_s=None) -> R
     rhs = part(model.rhs_v, seg_idx)
     slots = 2 + np.arange(model.n_normal_slots)
     # normal (as given) and capacitive in full; the normal components as Σ |.|
-    sol = system.solve(rhs, part(model.injection_a, node_idx), sum_from=2)
+    node_current = np.zeros((len(node_idx), rhs.shape[1]), complex)
+    node_current[:, 1] = part(model.injection_a, node_idx)
+    sol = system.solve(rhs, node_current, sum_from=2)
     summed = sol.summed
     assert summed is not None  # asked for with sum_from
 
