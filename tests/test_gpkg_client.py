@@ -280,3 +280,53 @@ def test_qml_styles_carry_aliases_and_labels(gpkg):
         if label:
             style = root.find("labeling/settings/text-style")
             assert style is not None and style.get("fieldName") == label
+
+
+def test_hazards_layer_is_the_segments_at_or_above_review(gpkg):
+    # README, "hazards": the segments at or above the limit set's review threshold
+    # (hazard_class `review` and `exceeds`), with the deciding columns; in the
+    # GeoPackage a view on `segments`, so a feature keeps its id. Both layers as GDAL
+    # reads them back.
+    seg = pyogrio.read_dataframe(gpkg, layer="segments", fid_as_index=True)
+    haz = pyogrio.read_dataframe(gpkg, layer="hazards", fid_as_index=True)
+    want = seg[seg["hazard_class"].isin(["review", "exceeds"])]
+    assert len(want) > 0  # the demo has hazards (README walkthrough)
+    assert list(haz.index) == list(want.index)
+    for col in haz.columns:
+        if col == "geometry":
+            assert haz.geometry.geom_equals_exact(want.geometry, 0).all()
+        else:
+            assert haz[col].equals(want[col]), col
+    # worst first by rank, once sorted on it
+    assert list(haz.sort_values("rank")["rank"]) == sorted(want["rank"])
+
+
+@needs_ogrinfo
+def test_hazards_view_reads_and_filters_in_debian_gdal(gpkg):
+    # GeoPackage standard (OGC 12-128, Contents): a gpkg_contents row may name a view.
+    # Debian's GDAL 3.6 lists it, counts it and applies a spatial filter through the
+    # segments layer's R-tree; the filtered features are exactly those whose extent
+    # meets the rectangle (GDAL's spatial filter semantics: envelope test).
+    import sqlite3
+
+    con = sqlite3.connect(gpkg)
+    try:
+        kind = con.execute("SELECT type FROM sqlite_master WHERE name = 'hazards'").fetchone()
+    finally:
+        con.close()
+    assert kind == ("view",)
+    haz = pyogrio.read_dataframe(gpkg, layer="hazards", fid_as_index=True)
+    out = ogrinfo("-so", str(gpkg), "hazards")
+    assert f"Feature Count: {len(haz)}" in out
+    xmin, ymin, xmax, ymax = haz.total_bounds
+    box = (xmin, ymin, (xmin + xmax) / 2, (ymin + ymax) / 2)
+    b = haz.geometry.bounds
+    inside = haz.index[(b.minx <= box[2]) & (b.maxx >= box[0]) & (b.miny <= box[3])
+                       & (b.maxy >= box[1])]
+    assert 0 < len(inside) < len(haz)
+    listed = ogrinfo("-q", "-spat", *(repr(float(v)) for v in box), "-geom=NO", str(gpkg),
+                     "hazards")
+    fids = sorted(int(f) for f in re.findall(r"^OGRFeature\(hazards\):(\d+)", listed, re.M))
+    assert fids == sorted(int(i) for i in inside)
+    info = pyogrio.read_info(gpkg, layer="hazards")
+    assert info["capabilities"]["fast_spatial_filter"]

@@ -113,6 +113,68 @@ def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
                         layer_options={"SPATIAL_INDEX": "YES"})
 
 
+def _quoted(name: str) -> str:
+    """An SQLite identifier in double quotes (a quote inside doubled)."""
+    return '"' + str(name).replace('"', '""') + '"'
+
+
+def write_view(path: Path, name: str, base: str, columns: list[str], where: str,
+               bounds: tuple[float, float, float, float] | None) -> None:
+    """Add a layer to a GeoPackage as a view on a layer already written (no row copied).
+
+    The view selects ``columns`` of ``base`` (whose ``fid`` it keeps as its own, so
+    a feature has the same id in both layers) where ``where`` holds, in ``base``'s
+    row order, and is registered as a features layer with ``base``'s geometry
+    column, type and CRS. The GeoPackage Encoding Standard (OGC 12-128, Contents)
+    lets a ``gpkg_contents`` row name a table or a view, and features be stored
+    in either (as OGC's GeoPackage 1.2 conformance tests state it). GDAL reads
+    the view, uses ``base``'s spatial index for its spatial filters and reports
+    ``HasSpatialIndex`` = 1 for it (checked with GDAL 3.6 and 3.12 and QGIS 3.22;
+    tests/test_gpkg_client.py). The layer is read-only.
+
+    Parameters
+    ----------
+    path : Path
+        A GeoPackage written by GDAL and closed.
+    name, base : str
+        The new layer's name; the layer it is a view of.
+    columns : list of str
+        Attribute columns of ``base`` (the geometry column is added).
+    where : str
+        SQL condition on ``base``'s columns (trusted text: built by corridor, never
+        from input).
+    bounds : tuple of float or None
+        The view's extent (min x, min y, max x, max y) for ``gpkg_contents``; None
+        when it has no rows.
+    """
+    import sqlite3
+
+    con = sqlite3.connect(str(path))
+    try:
+        row = con.execute("SELECT column_name FROM gpkg_geometry_columns WHERE table_name = ?",
+                          (base,)).fetchone()
+        if row is None:
+            raise ValueError(f"{path}: layer {base} has no geometry column")
+        geom = row[0]
+        select = ", ".join(["fid AS fid", *(_quoted(c) for c in columns), _quoted(geom)])
+        with con:
+            con.execute(f"CREATE VIEW {_quoted(name)} AS SELECT {select} FROM {_quoted(base)}"
+                        f" WHERE {where}")
+            extent = tuple(float(v) for v in bounds) if bounds is not None else (None,) * 4
+            con.execute(
+                "INSERT INTO gpkg_contents (table_name, data_type, identifier, description,"
+                " last_change, min_x, min_y, max_x, max_y, srs_id)"
+                " SELECT ?, 'features', ?, '', strftime('%Y-%m-%dT%H:%M:%fZ', 'now'),"
+                " ?, ?, ?, ?, srs_id FROM gpkg_contents WHERE table_name = ?",
+                (name, name, *extent, base))
+            con.execute(
+                "INSERT INTO gpkg_geometry_columns (table_name, column_name, geometry_type_name,"
+                " srs_id, z, m) SELECT ?, column_name, geometry_type_name, srs_id, z, m"
+                " FROM gpkg_geometry_columns WHERE table_name = ?", (name, base))
+    finally:
+        con.close()
+
+
 #: Name of the last column of every CSV corridor writes: the safety caution, on every row.
 CAUTION_COLUMN = "caution"
 

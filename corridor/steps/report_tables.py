@@ -22,11 +22,21 @@ HAZARD_COLUMNS = (
 )
 
 
-def hazards_layer(t: gpd.GeoDataFrame, review_threshold: float = 0.5) -> gpd.GeoDataFrame:
-    """Segments at or above the review threshold, worst first, with the deciding columns."""
+def hazard_rows(t: pd.DataFrame, review_threshold: float = 0.5) -> np.ndarray:
+    """Positions of the segments at or above the review threshold, worst first (by ``rank``).
+
+    A segment whose utilization is missing (not assessed) is not among them: the
+    hazards layer lists what was judged at or above the threshold; criteria not
+    assessed are reported on their own (:func:`not_assessed_criteria`).
+    """
     util = t["utilization"].to_numpy(float)
     sel = np.flatnonzero(util >= review_threshold)
-    sel = sel[np.argsort(t["rank"].to_numpy()[sel], kind="stable")]
+    return sel[np.argsort(t["rank"].to_numpy()[sel], kind="stable")]
+
+
+def hazards_layer(t: gpd.GeoDataFrame, review_threshold: float = 0.5) -> gpd.GeoDataFrame:
+    """Segments at or above the review threshold, worst first, with the deciding columns."""
+    sel = hazard_rows(t, review_threshold)
     cols = [c for c in HAZARD_COLUMNS if c in t.columns]
     out = t.iloc[sel][cols + [t.geometry.name]].reset_index(drop=True)
     return gpd.GeoDataFrame(out, geometry=t.geometry.name, crs=t.crs)
