@@ -36,6 +36,11 @@ WRITE_CHUNK_ROWS = 200_000
 
 _MULTI = {"Point": "MultiPoint", "LineString": "MultiLineString", "Polygon": "MultiPolygon"}
 
+#: Geometry type names by shapely type id (``shapely.get_type_id``), as ``geom_type``
+#: names them.
+_TYPE_NAMES = {0: "Point", 1: "LineString", 2: "LinearRing", 3: "Polygon", 4: "MultiPoint",
+               5: "MultiLineString", 6: "MultiPolygon", 7: "GeometryCollection"}
+
 
 def _layer_geometry_type(geometry: gpd.GeoSeries) -> tuple[str, bool]:
     """The GeoPackage geometry type of a column, and whether single parts are promoted.
@@ -44,7 +49,11 @@ def _layer_geometry_type(geometry: gpd.GeoSeries) -> tuple[str, bool]:
     multi type (then every single part is written as a multi part); anything else is
     ``Unknown``; `` Z`` when any non-empty geometry has Z.
     """
-    kinds = pd.Series(geometry.geom_type.unique()).dropna().tolist()
+    import shapely
+
+    parts = np.asarray(geometry.array, dtype=object)
+    type_ids = shapely.get_type_id(parts)  # -1 for a missing geometry
+    kinds = [_TYPE_NAMES[int(i)] for i in np.unique(type_ids[type_ids >= 0])]
     promote = False
     if len(kinds) == 1:
         name = kinds[0]
@@ -53,9 +62,8 @@ def _layer_geometry_type(geometry: gpd.GeoSeries) -> tuple[str, bool]:
         promote = True
     else:
         name = "Unknown"
-    present = geometry[geometry.notna() & ~geometry.is_empty]
-    if name != "Unknown" and len(present) and bool(present.has_z.any()):
-        name += " Z"
+    if name != "Unknown" and bool(np.any(shapely.has_z(parts[type_ids >= 0]))):
+        name += " Z"  # shapely.has_z is False for an empty geometry
     return name, promote
 
 

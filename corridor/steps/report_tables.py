@@ -38,7 +38,7 @@ def hazards_layer(t: gpd.GeoDataFrame, review_threshold: float = 0.5) -> gpd.Geo
     """Segments at or above the review threshold, worst first, with the deciding columns."""
     sel = hazard_rows(t, review_threshold)
     cols = [c for c in HAZARD_COLUMNS if c in t.columns]
-    out = t.iloc[sel][cols + [t.geometry.name]].reset_index(drop=True)
+    out = t[cols + [t.geometry.name]].iloc[sel].reset_index(drop=True)
     return gpd.GeoDataFrame(out, geometry=t.geometry.name, crs=t.crs)
 
 
