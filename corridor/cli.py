@@ -154,6 +154,9 @@ def check(cfg) -> int:
         problems.extend(getattr(exc, "problems", [str(exc)]))
     empty: list[str] = []
     if inputs is not None:
+        from corridor.pipeline import side_input_problems
+
+        problems.extend(side_input_problems(cfg, inputs))  # [load_series], [readings]
         for row in inputs.rejected.rows:
             log.warning("would reject layer %s feature %s field %s: %s", row["layer"],
                         row["feature_id"], row["field"], row["reason"])

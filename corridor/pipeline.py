@@ -146,6 +146,42 @@ def defaults_used_record(inputs) -> dict:
     return out
 
 
+def side_input_problems(cfg: Config, inputs) -> list[str]:
+    """Problems of the inputs read after the layers: ``[load_series]`` and ``[readings]``.
+
+    Both are used late in a run (the load series by the per-asset series step,
+    the readings after the run-wide steps), so a bad file would fail a large run
+    only after its computation, and ``corridor check`` would not see it. Checked
+    here with the readers the run uses, right after the layers: each problem
+    names the file (and layer) and the field. The load series is kept in the
+    process's cache of read series, so it is not read twice.
+
+    Returns
+    -------
+    list of str
+        Every problem found; empty when both are usable or not configured.
+    """
+    from corridor.errors import CorridorError
+
+    problems: list[str] = []
+    if getattr(cfg, "load_series", None) is not None:
+        from corridor.series.stage import load_series_of
+
+        try:
+            load_series_of(cfg, inputs.lines)
+        except CorridorError as exc:
+            problems.extend(getattr(exc, "problems", [str(exc)]))
+    settings = getattr(cfg, "readings", None)
+    if settings:
+        from corridor.reconcile import readings as rd
+
+        try:
+            rd.read_table(settings, inputs.crs)
+        except CorridorError as exc:
+            problems.extend(getattr(exc, "problems", [str(exc)]))
+    return problems
+
+
 def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
            final_stages: dict | None = None) -> Run:
     """Read, compute (incrementally when a cache is configured), finalize, compare."""
@@ -165,6 +201,11 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     inputs = read_inputs(cfg)
     read_s = round(time.perf_counter() - t0, 4)
     rejected = rejected_summary(cfg, inputs)
+    side = side_input_problems(cfg, inputs)  # before the computation, not after it
+    if side:
+        from corridor.errors import InputError
+
+        raise InputError(side)
     if len(inputs.assets) == 0:
         from corridor.errors import InputError
 

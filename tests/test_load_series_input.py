@@ -157,3 +157,25 @@ def test_cli_exits_2_on_a_series_without_its_columns(tmp_path):
                           capture_output=True, text=True, cwd=ROOT, timeout=300)
     assert done.returncode == 2
     assert "bad.csv: missing column(s) timestamp, line_id, current_a" in done.stderr
+
+
+def test_check_and_run_refuse_a_series_without_its_columns_before_computing(
+        tmp_path, monkeypatch, capsys):
+    # `corridor check` reads the load series as the run does (common practice: a check
+    # that passes what the run refuses is a false all-clear); the run refuses it before
+    # computing anything, not after the per-asset work.
+    import corridor.backends as backends
+    from corridor.cli import main
+
+    bad = tmp_path / "bad.csv"
+    bad.write_text("time,line,amps\n2026-01-01T00:00:00Z,VPC-138-B,1\n", encoding="utf-8")
+    path = _config_with(tmp_path, f'path = "{bad}"\n')
+    assert main(["check", str(path)]) == 2
+    assert "bad.csv: missing column(s) timestamp, line_id, current_a" in capsys.readouterr().err
+
+    def no_compute(*args, **kwargs):
+        raise AssertionError("computed before the load series was checked")
+
+    monkeypatch.setattr(backends, "compute_function", lambda *a, **k: no_compute)
+    assert main(["run", str(path), "-q"]) == 2
+    assert "bad.csv: missing column(s)" in capsys.readouterr().err

@@ -345,3 +345,25 @@ def test_new_readings_reuse_the_cache_but_never_stale_outputs(tmp_path):
     assert len(gpd.read_file(tmp_path / "out" / "screening.gpkg", layer="readings")) == \
         len(table) - 1
     assert any(d["path"] == str(tmp_path / "r.gpkg") for d in record["inputs"])
+
+
+def test_unusable_readings_fail_check_and_run_before_computing(tmp_path, monkeypatch, capsys):
+    # A readings layer without its voltage field: `corridor check` must not say the
+    # config is usable (common practice: a check that passes what the run refuses is a
+    # false all-clear), and the run must refuse it before computing anything.
+    import corridor.backends as backends
+
+    path = _config(tmp_path, ROOT / "sample_layers" / "brackenford_readings.gpkg",
+                   fields='fields = { reading_id = "POST", asset_id = "ASSET",'
+                          ' measured_at = "TIME", voltage_v = "NO_SUCH_FIELD" }')
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "brackenford_readings.gpkg:readings" in err and "voltage_v" in err
+    assert "NO_SUCH_FIELD" in err
+
+    def no_compute(*args, **kwargs):
+        raise AssertionError("computed before the readings were checked")
+
+    monkeypatch.setattr(backends, "compute_function", lambda *a, **k: no_compute)
+    assert main(["run", str(path), "-q"]) == 2
+    assert "NO_SUCH_FIELD" in capsys.readouterr().err
