@@ -147,14 +147,16 @@ def defaults_used_record(inputs) -> dict:
 
 
 def side_input_problems(cfg: Config, inputs) -> list[str]:
-    """Problems of the inputs read after the layers: ``[load_series]`` and ``[readings]``.
+    """Problems of the inputs used late in a run: ``[load_series]``, ``[readings]`` and
+    the soil polygons ``[uncertainty]`` names.
 
-    Both are used late in a run (the load series by the per-asset series step,
-    the readings after the run-wide steps), so a bad file would fail a large run
-    only after its computation, and ``corridor check`` would not see it. Checked
-    here with the readers the run uses, right after the layers: each problem
-    names the file (and layer) and the field. The load series is kept in the
-    process's cache of read series, so it is not read twice.
+    The load series is used by the per-asset series step, the readings after the
+    run-wide steps and the polygon ids by the ensemble step, so a bad file or id
+    would fail a large run only during or after its computation, and ``corridor
+    check`` would not see it. Checked here with the code the run uses, right after
+    the layers: each problem names the file (and layer) and the field or key. The
+    load series is kept in the process's cache of read series, so it is not read
+    twice.
 
     Returns
     -------
@@ -179,6 +181,11 @@ def side_input_problems(cfg: Config, inputs) -> list[str]:
             rd.read_table(settings, inputs.crs)
         except CorridorError as exc:
             problems.extend(getattr(exc, "problems", [str(exc)]))
+    bands = getattr(cfg, "uncertainty", None)
+    if bands is not None and bands.soil_polygons:
+        from corridor.uncertainty.ensemble import polygon_rows
+
+        problems.extend(polygon_rows(cfg, inputs.soil, bands)[1])
     return problems
 
 

@@ -373,6 +373,11 @@ def test_polygon_ranges_need_a_soil_layer_and_a_known_polygon(exposure, cli, cap
     err = capsys.readouterr().err
     # the message lists the polygons by their GeoPackage FIDs (from 1)
     assert "uncertainty.soil_resistivity_ohm_m.'fid:7'" in err and "fid:1" in err
+    # `corridor check` finds it too, without computing (it used to say "usable")
+    assert cli(["check", str(config_path)]) == 2
+    out, err = capsys.readouterr()
+    assert "uncertainty.soil_resistivity_ohm_m.'fid:7'" in err
+    assert "config and layers are usable" not in out
 
 
 def test_run_without_section_has_no_band_columns(exposure):

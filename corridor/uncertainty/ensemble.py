@@ -126,9 +126,12 @@ def soil_polygon_of_segment(run) -> np.ndarray:
                               np.arange(len(soil), dtype=float), -1.0).astype(np.int64)
 
 
-def _polygon_rows(run, bands: Bands) -> dict[str, int]:
-    """Soil row of each per-polygon range; a range naming no polygon is a config error."""
-    soil = run.inputs.soil
+def polygon_rows(cfg, soil, bands: Bands) -> tuple[dict[str, int], list[str]]:
+    """Soil row of each per-polygon range, and a problem for each range naming no polygon.
+
+    Called by the ensemble and, before any computation, by the run's and
+    ``corridor check``'s input checks (:func:`corridor.pipeline.side_input_problems`).
+    """
     ids = ([] if soil is None or "feature_id" not in soil
            else [str(v) for v in soil["feature_id"].to_numpy(dtype=object)])
     out, problems = {}, []
@@ -137,10 +140,16 @@ def _polygon_rows(run, bands: Bands) -> dict[str, int]:
         if pid in ids:
             out[r.name] = ids.index(pid)
         else:
-            problems.append(f"{run.config.path.name}: uncertainty.soil_resistivity_ohm_m."
+            problems.append(f"{cfg.path.name}: uncertainty.soil_resistivity_ohm_m."
                             f"{pid!r}: no soil polygon has this feature id (the soil layer's"
                             f" polygons: {', '.join(ids) or 'none'}; a rejected polygon is"
                             " listed in rejected.csv)")
+    return out, problems
+
+
+def _polygon_rows(run, bands: Bands) -> dict[str, int]:
+    """Soil row of each per-polygon range; a range naming no polygon is a config error."""
+    out, problems = polygon_rows(run.config, run.inputs.soil, bands)
     if problems:
         raise ConfigError(problems)
     return out
