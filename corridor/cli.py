@@ -156,7 +156,7 @@ def check(cfg) -> int:
     if inputs is not None:
         from corridor.pipeline import side_input_problems
 
-        problems.extend(side_input_problems(cfg, inputs))  # [load_series], [readings]
+        problems.extend(side_input_problems(cfg, inputs))  # series, readings, polygon ids
         for row in inputs.rejected.rows:
             log.warning("would reject layer %s feature %s field %s: %s", row["layer"],
                         row["feature_id"], row["field"], row["reason"])

@@ -161,7 +161,7 @@ def side_input_problems(cfg: Config, inputs) -> list[str]:
     Returns
     -------
     list of str
-        Every problem found; empty when both are usable or not configured.
+        Every problem found; empty when each is usable or not configured.
     """
     from corridor.errors import CorridorError
 
