@@ -107,10 +107,12 @@ GLOSSARY: dict[str, tuple[str, str]] = {
     "ac_density_a_per_m2": ("AC current density", "AC current density at a 1 cm² coating"
                             " holiday (pipelines) [A/m²]."),
     "utilization": ("Utilization", "Largest ratio of a judged quantity to its permitted value;"
-                    " 1 or more exceeds a limit [-]."),
+                    " 1 or more exceeds a limit; empty where no criterion judged the"
+                    " segment [-]."),
     "governing": ("Governing criterion", "'<criterion>:<case>' giving the utilization."),
     "hazard_class": ("Hazard class", "clear (below the review threshold), review (threshold up"
-                     " to 1) or exceeds (utilization 1 or more)."),
+                     " to 1), exceeds (utilization 1 or more), or not assessed (no criterion"
+                     " of the limit set judged it: not checked, not clear)."),
     # assets layer
     "worst_utilization": ("Worst utilization", "Highest utilization along the asset [-]."),
     "length_over_limit_m": ("Length over limit", "Asset length with utilization 1 or more [m]."),

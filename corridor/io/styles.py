@@ -68,7 +68,10 @@ log = logging.getLogger(__name__)
 # --------------------------------------------------------------------------
 
 #: Hazard class -> RGB hex.
-HAZARD_COLOURS = {"clear": "#4f9a6b", "review": "#e2a72e", "exceeds": "#b8322f"}
+#: "not assessed" is a violet no ramp uses: a segment nothing checked must not read as
+#: clear, nor be mistaken for a graded result.
+HAZARD_COLOURS = {"clear": "#4f9a6b", "review": "#e2a72e", "exceeds": "#b8322f",
+                  "not assessed": "#8e44ad"}
 #: Utilization ramp stops: (upper bound exclusive, RGB hex); the review
 #: threshold and 1.0 are inserted as band edges.
 _RAMP_CLEAR = ("#9fd0a8", "#4f9a6b")
@@ -260,7 +263,9 @@ _SCHEMA_DEFINITION = "http://www.geopackage.org/spec/#extension_schema"
 _CONSTRAINTS = {
     "hazard_class": [("enum", k, None, None, None, None,
                       {"clear": "below the review threshold", "review": "review threshold to 1",
-                       "exceeds": "utilization 1 or more"}[k]) for k in HAZARD_CLASSES],
+                       "exceeds": "utilization 1 or more",
+                       "not assessed": "no criterion of the limit set judged it: not checked,"
+                                       " not clear"}[k]) for k in HAZARD_CLASSES],
 }
 _COLUMN_CONSTRAINT = {"hazard_class": "hazard_class"}
 

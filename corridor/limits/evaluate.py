@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from corridor.limits.limit_sets import HAZARD_CLASSES, LimitSet
+from corridor.limits.limit_sets import HAZARD_CLASSES, NOT_ASSESSED, LimitSet
 from corridor.limits.methods import Context
 
 __all__ = ["evaluate", "not_assessed"]
@@ -59,12 +59,14 @@ def evaluate(limit_set: LimitSet, asset_kind, quantities: Mapping[str, Any], cle
         clearing time)};
         ``permitted``: {criterion name: ndarray (n,) of permitted values in
         the quantity's unit, NaN where the criterion does not apply};
-        ``utilization``: ndarray (n,), the largest ratio, 0 where none
-        applies; ``governing``: ndarray (n,) of str (object dtype), ``"<name>:<case>"`` of
-        the criterion giving the utilization, ``""`` where none applies;
-        ``hazard_class``: ndarray (n,) of str (object dtype), ``"clear"`` (u < review
-        threshold, including "nothing assessed"), ``"review"``
-        (threshold <= u < 1) or ``"exceeds"`` (u >= 1).
+        ``utilization``: ndarray (n,), the largest ratio, NaN where no criterion
+        judged the segment; ``governing``: ndarray (n,) of str (object dtype),
+        ``"<name>:<case>"`` of the criterion giving the utilization, ``""`` where none
+        judged it; ``hazard_class``: ndarray (n,) of str (object dtype), ``"clear"``
+        (u < review threshold), ``"review"`` (threshold <= u < 1), ``"exceeds"``
+        (u >= 1), or ``"not assessed"`` where no criterion judged the segment (no
+        criterion applies to its kind, or every applicable one lacked its quantity or
+        permitted value): a segment nothing checked is never classed clear.
 
     Notes
     -----
@@ -110,13 +112,13 @@ def evaluate(limit_set: LimitSet, asset_kind, quantities: Mapping[str, Any], cle
         ratios[c.name] = ratio
 
     assessed = best_idx < len(limit_set.criteria)
-    utilization = np.where(assessed, best, 0.0)
+    utilization = np.where(assessed, best, np.nan)
     # Object arrays of str: indexing them is ~10x faster than building
     # fixed-width unicode arrays, and they go straight into a table column.
     labels = np.array([c.label for c in limit_set.criteria] + [""], dtype=object)
     governing = labels[best_idx]
-    level = ((utilization >= limit_set.review_threshold).astype(np.intp)
-             + (utilization >= 1.0).astype(np.intp))
+    level = np.where(assessed, (utilization >= limit_set.review_threshold).astype(np.intp)
+                     + (utilization >= 1.0).astype(np.intp), HAZARD_CLASSES.index(NOT_ASSESSED))
     hazard = np.array(HAZARD_CLASSES, dtype=object)[level]
     return {"ratios": ratios, "permitted": permitted_out, "utilization": utilization,
             "governing": governing, "hazard_class": hazard}
@@ -179,3 +181,43 @@ def not_assessed(limit_set: LimitSet, asset_kind, ratios: Mapping[str, Any]) -> 
         out.append({"criterion": c.name, "label": c.label, "quantity": c.quantity,
                     "segments": n, "reason": reason})
     return out
+
+
+def unjudged_segments(limit_set: LimitSet, asset_kind, asset_id, utilization) -> dict | None:
+    """The segments that no criterion of the limit set judged, as one record; None if none.
+
+    Parameters
+    ----------
+    limit_set : LimitSet
+    asset_kind, asset_id : array_like of str, shape (n,)
+        Kind and id of the asset of every segment.
+    utilization : array_like, shape (n,)
+        The segments' utilization (NaN: no criterion judged it; :func:`evaluate`).
+
+    Returns
+    -------
+    dict or None
+        ``segments`` (count), ``kinds`` and ``assets`` (sorted; at most 50 ids, with
+        ``assets_total``), ``kinds_without_criteria`` (kinds no criterion of the set
+        applies to) and ``reason``. These segments were not checked: they are
+        classed ``not assessed``, never clear.
+    """
+    util = np.asarray(utilization, dtype=float).ravel()
+    miss = np.isnan(util)
+    if not miss.any():
+        return None
+    kind = np.asarray(asset_kind).astype(str).ravel()[miss]
+    ids = sorted({str(a) for a in np.asarray(asset_id, dtype=object).ravel()[miss]})
+    kinds = sorted(set(kind))
+    covered = {k for c in limit_set.criteria for k in c.applies_to}
+    bare = [k for k in kinds if k not in covered]
+    parts = []
+    if bare:
+        parts.append(f"limit set {limit_set.name} has no criterion for {', '.join(bare)}")
+    if len(bare) < len(kinds):
+        parts.append("every criterion that applies lacked its quantity or permitted value"
+                     " (a missing input, or a NaN clearing time or soil resistivity)")
+    return {"segments": int(miss.sum()), "kinds": kinds, "assets": ids[:50],
+            "assets_total": len(ids), "kinds_without_criteria": bare,
+            "reason": "; ".join(parts) + ": these segments were NOT checked and are not"
+                      " clear"}

@@ -60,6 +60,7 @@ from corridor.settings import Spec
 
 __all__ = ["BUILTIN_ASSET_KINDS", "CASES", "COMPUTED_QUANTITIES", "Context", "Criterion",
            "DEFAULT_REVIEW_THRESHOLD", "DEFAULT_SEARCH_DIR", "HAZARD_CLASSES", "LimitSet",
+           "NOT_ASSESSED",
            "QUANTITY_TITLES",
            "LimitSetError", "METHODS", "MethodSpec", "available_limit_sets", "load_limit_set"]
 
@@ -68,8 +69,10 @@ logger = logging.getLogger(__name__)
 #: Asset kinds a criterion may apply to when the caller names none (the
 #: built-in kinds; a run passes the registered kinds, plugins' included).
 BUILTIN_ASSET_KINDS = ("pipeline", "fence", "rail", "telecom")
-#: Hazard classes, from least to most severe.
-HAZARD_CLASSES = ("clear", "review", "exceeds")
+#: Hazard classes: by utilization from least to most severe, then the class of a
+#: segment that no criterion of the limit set judged (never read as clear).
+NOT_ASSESSED = "not assessed"
+HAZARD_CLASSES = ("clear", "review", "exceeds", NOT_ASSESSED)
 #: Default review threshold (common practice: look again at anything above
 #: half its limit, since screening inputs are uncertain).
 DEFAULT_REVIEW_THRESHOLD = 0.5

@@ -50,6 +50,7 @@ from corridor.report.sections import (
     rejected_lines_banner,
     rejected_section,
     summary_section,
+    unjudged_banner,
     worst_exposures,
 )
 from corridor.report.style import CSS
@@ -107,6 +108,7 @@ def write_report(run, out_dir: Path, previous: dict | None = None,
             "</p></header>",
             rejected_lines_banner(run),
             not_assessed_banner(missing, run),
+            unjudged_banner(run),
             f'<div class="caution" role="alert"><strong>Caution</strong>{esc(SAFETY_CAUTION)}'
             "</div>",
             worklist_section(run),

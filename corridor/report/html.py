@@ -74,7 +74,7 @@ def _header(column: str) -> str:
 def class_badge(value) -> str:
     v = str(value)
     if v in HAZARD_CLASSES:
-        return f'<span class="badge {v}">{esc(v)}</span>'
+        return f'<span class="badge {v.replace(" ", "-")}">{esc(v)}</span>'
     return esc(v)
 
 

@@ -113,6 +113,23 @@ def not_assessed_banner(rows: list[dict], run=None) -> str:
             f"<ul>{items}</ul></div>")
 
 
+def unjudged_banner(run) -> str:
+    """The banner of the segments no criterion judged (``run.json``: segments_not_assessed)."""
+    extra = getattr(run, "record", None)
+    row = extra.get("segments_not_assessed") if isinstance(extra, dict) else None
+    if not row:
+        return ""
+    more = int(row.get("assets_total", 0)) - len(row.get("assets", []))
+    assets = ", ".join(str(a) for a in row.get("assets", [])) + (
+        f" and {more} more" if more > 0 else "")
+    return ('<div class="alert" id="segments-not-assessed" role="alert"><strong>Segments not'
+            f" assessed</strong>{fmt_num(row['segments'])} segment(s) of"
+            f" {esc(', '.join(row.get('kinds', [])))} asset(s) were judged by no criterion:"
+            f" {esc(str(row.get('reason', '')))}. They are classed <b>not assessed</b>, never"
+            f" clear. Assets: {esc(assets)}. Check these assets by other means or use a limit"
+            " set that covers them.</div>")
+
+
 def rejected_section(run) -> str:
     """Tables of rejected assets and other rejected input features."""
     parts = ['<section id="rejected"><h2>Rejected input features</h2>']

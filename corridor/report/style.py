@@ -44,7 +44,7 @@ td .small,.small{color:var(--muted);font-size:11.5px}
 .badge{display:inline-block;padding:0 7px;border-radius:9px;font-size:12px;color:#fff;
  white-space:nowrap}
 .badge.clear{background:#4f9a6b}.badge.review{background:#e2a72e;color:#1f1f1f}
-.badge.exceeds{background:#b8322f}
+.badge.exceeds{background:#b8322f}.badge.not-assessed{background:#8e44ad}
 figure{margin:10px 0 20px}figure svg{max-width:100%;height:auto;display:block}
 figcaption{color:var(--muted);font-size:12.5px;margin-top:4px}
 code{font-size:12px;background:var(--soft);padding:0 3px;border-radius:3px}

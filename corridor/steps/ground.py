@@ -291,7 +291,7 @@ def _lines_per_asset(t, feat, n_assets) -> list[str]:
 
 def _max_per_asset(values, feat, n_assets):
     out = np.full(n_assets, -np.inf)
-    np.maximum.at(out, feat, values)
+    np.fmax.at(out, feat, values)  # a segment no criterion judged (NaN) is skipped
     return out
 
 

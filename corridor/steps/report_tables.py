@@ -8,6 +8,8 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 
+from corridor.limits.limit_sets import NOT_ASSESSED
+
 log = logging.getLogger(__name__)
 
 #: Columns of the ``hazards`` layer (the segments at or above the review threshold).
@@ -106,6 +108,12 @@ def assets_layer(run) -> gpd.GeoDataFrame:
         "worst_i_capacitive_short_ma": pick("i_capacitive_short_ma", np.nan).astype(float),
         "line_ids": responsible_lines(t, a_idx, n),
     })
+    # an asset with a segment that no criterion judged is "not assessed" unless another
+    # of its segments exceeds a limit: never clear, never review, on what was not checked
+    judged_not = a_idx[np.isnan(util) & (a_idx >= 0)]
+    partly_unjudged = np.bincount(judged_not, minlength=n) > 0
+    cls = out["hazard_class"].to_numpy(dtype=object)
+    out["hazard_class"] = np.where(partly_unjudged & (cls != "exceeds"), NOT_ASSESSED, cls)
     from corridor.series.stage import asset_series_columns
 
     asset_series_columns(out, t)  # with a load series only
@@ -135,6 +143,21 @@ def not_assessed_criteria(run) -> list[dict]:
     return not_assessed(ls, t["asset_kind"].to_numpy(dtype=object), ratios)
 
 
+def unjudged_segments(run) -> dict | None:
+    """The segments no criterion of the run's limit set judged, as one record (or None).
+
+    See :func:`corridor.limits.evaluate.unjudged_segments`.
+    """
+    from corridor.limits.evaluate import unjudged_segments as unjudged
+
+    ls, t = run.limit_set, run.segment_table
+    if (ls is None or not hasattr(ls, "criteria") or t is None
+            or not {"asset_kind", "asset_id", "utilization"} <= set(t.columns)):
+        return None
+    return unjudged(ls, t["asset_kind"].to_numpy(dtype=object),
+                    t["asset_id"].to_numpy(dtype=object), t["utilization"].to_numpy(float))
+
+
 def stage_tables(run) -> None:
     """Run-wide tables: ``hazards`` and ``assets`` layers; criteria not assessed.
 
@@ -147,6 +170,15 @@ def stage_tables(run) -> None:
     run.assets = assets_layer(run)
     missing = not_assessed_criteria(run)
     run.record["not_assessed"] = missing
+    unjudged = unjudged_segments(run)
+    run.record["segments_not_assessed"] = unjudged
+    run.counts["segments_not_assessed"] = 0 if unjudged is None else unjudged["segments"]
+    if unjudged is not None:
+        more = unjudged["assets_total"] - len(unjudged["assets"])
+        log.warning("%d segment(s) NOT ASSESSED (no criterion judged them; class 'not"
+                    " assessed', never clear) on asset(s) %s%s: %s", unjudged["segments"],
+                    ", ".join(unjudged["assets"]), f" and {more} more" if more > 0 else "",
+                    unjudged["reason"])
     # the normal-load worst case over unknown directions and angles (docs/methods.md §8)
     from corridor.steps.couple import normal_load_assumption
 
