@@ -245,12 +245,14 @@ def test_not_applicable_or_missing_is_nan_and_nothing_is_clear(tmp_path):
     assert r[0] == pytest.approx(0.5, rel=1e-12)
     assert np.isnan(r[1]) and np.isnan(r[2])
     assert np.isnan(out["permitted"]["c"][1])
-    np.testing.assert_allclose(out["utilization"], [0.5, 0.0, 0.0], rtol=1e-12)
+    # what no criterion judged is not assessed: no utilization, never "clear"
+    np.testing.assert_allclose(out["utilization"], [0.5, np.nan, np.nan], rtol=1e-12)
     assert list(out["governing"]) == ["c:normal", "", ""]
-    assert list(out["hazard_class"]) == ["review", "clear", "clear"]
+    assert list(out["hazard_class"]) == ["review", "not assessed", "not assessed"]
     # A quantity nobody computed: nothing assessed.
     out = _eval(ls, ["pipeline"], {})
-    assert np.isnan(out["ratios"]["c"][0]) and out["utilization"][0] == 0.0
+    assert np.isnan(out["ratios"]["c"][0]) and np.isnan(out["utilization"][0])
+    assert out["hazard_class"][0] == "not assessed"
 
 
 def test_hazard_class_boundaries(tmp_path):
