@@ -71,3 +71,39 @@ def test_run_reports_the_unjudged_cable_loudly(tmp_path, caplog):
                for r in caplog.records)
     html = (out / "report.html").read_text(encoding="utf-8")
     assert 'id="segments-not-assessed"' in html
+    _qgis_draws_every_segment(out / "screening.gpkg", set(tel["segment_id"]))
+
+
+QGIS_CHECK = """
+import sys
+from qgis.core import QgsApplication, QgsVectorLayer, QgsRenderContext
+app = QgsApplication([], False); app.initQgis()
+lyr = QgsVectorLayer(sys.argv[1] + "|layername=segments", "segments", "ogr")
+renderer = lyr.renderer().clone()  # the default style stored in the GeoPackage
+ctx = QgsRenderContext()
+renderer.startRender(ctx, lyr.fields())
+drawn = {int(f["segment_id"]) for f in lyr.getFeatures() if renderer.willRenderFeature(f, ctx)}
+renderer.stopRender(ctx)
+print(renderer.type(), lyr.featureCount(), " ".join(map(str, sorted(drawn))))
+"""
+
+
+def _qgis_draws_every_segment(gpkg: Path, unjudged: set) -> None:
+    # QGIS itself (Debian python3-qgis), with the default style corridor stored in the
+    # GeoPackage: every segment is drawn, those without a utilization included.
+    import subprocess
+
+    import pytest
+
+    from tests.test_qgis import QGIS_PYTHON, _qgis_env, _qgis_missing
+
+    missing = _qgis_missing()
+    if missing:
+        pytest.skip(missing)
+    proc = subprocess.run([QGIS_PYTHON, "-c", QGIS_CHECK, str(gpkg)], capture_output=True,
+                          text=True, env=_qgis_env(), timeout=300, check=False)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    kind, count, *drawn = proc.stdout.split("\n")[-2].split(" ")
+    assert kind == "RuleRenderer"
+    assert len(drawn) == int(count)  # every feature drawn
+    assert unjudged <= {int(d) for d in drawn}

@@ -40,8 +40,10 @@ REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "config" / "demo.toml"
 
 #: Renderer of each layer's default style (corridor.io.styles.layer_style_specs).
-DEFAULT_RENDERER = {"exposures": "graduatedSymbol", "segments": "graduatedSymbol",
-                    "hazards": "graduatedSymbol", "assets": "categorizedSymbol",
+#: The utilization ramps are rules, so that a segment no criterion judged (empty
+#: utilization) is drawn by an ELSE rule in the "not assessed" colour.
+DEFAULT_RENDERER = {"exposures": "graduatedSymbol", "segments": "RuleRenderer",
+                    "hazards": "RuleRenderer", "assets": "categorizedSymbol",
                     "power_lines": "graduatedSymbol", "sites": "RuleRenderer"}
 
 

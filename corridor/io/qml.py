@@ -59,10 +59,19 @@ def _symbol(name: str, geometry: str, rule: dict) -> str:
 
 
 def expression(rule: dict) -> str:
-    """The QGIS filter expression of a rule with ``conditions`` or ``else``."""
+    """The QGIS filter expression of a rule: ``conditions``, ``else``, a range or a category."""
     if rule.get("else"):
         return "ELSE"
     parts = []
+    if "conditions" not in rule:  # a class of a ramp or a category, as a rule
+        quoted = '"' + rule["field"].replace('"', '""') + '"'
+        if "equals" in rule:
+            return f"{quoted} = '" + str(rule["equals"]).replace("'", "''") + "'"
+        if rule.get("lower") is not None:
+            parts.append(f"{quoted} >= {rule['lower']!r}")
+        if rule.get("upper") is not None:
+            parts.append(f"{quoted} < {rule['upper']!r}")
+        return " AND ".join(parts)
     for field, value in rule["conditions"]:
         quoted = '"' + field.replace('"', '""') + '"'
         if isinstance(value, bool):

@@ -55,7 +55,7 @@ from pathlib import Path
 from corridor.io.glossary import GLOSSARY, alias_for, describe_column
 from corridor.io.qml import qml_document
 from corridor.io.sld import sld_document
-from corridor.limits.limit_sets import DEFAULT_REVIEW_THRESHOLD, HAZARD_CLASSES
+from corridor.limits.limit_sets import DEFAULT_REVIEW_THRESHOLD, HAZARD_CLASSES, NOT_ASSESSED
 
 __all__ = ["GLOSSARY", "HAZARD_COLOURS", "LABEL_FIELDS", "REMEDY_SYMBOLS", "SITE_COLOUR",
            "SITE_OUTLINE", "UNRESOLVED_COLOUR", "VOLTAGE_BANDS", "alias_for", "apply_styles",
@@ -121,9 +121,15 @@ def utilization_bands(review_threshold: float = DEFAULT_REVIEW_THRESHOLD
 
 
 def _ramp_rules(field: str, review_threshold: float) -> list[dict]:
-    return [{"field": field, "lower": lo, "upper": hi, "colour": c, "label": label,
-             "width": 3.0, "width_mm": 0.9}
-            for lo, hi, c, label in utilization_bands(review_threshold)]
+    rules = [{"field": field, "lower": lo, "upper": hi, "colour": c, "label": label,
+              "width": 3.0, "width_mm": 0.9}
+             for lo, hi, c, label in utilization_bands(review_threshold)]
+    # an empty utilization (no criterion judged the segment) is drawn, in the colour of
+    # "not assessed", not left off the map
+    rules.append({"else": True, "colour": HAZARD_COLOURS[NOT_ASSESSED],
+                  "label": "not assessed (no criterion judged it)", "width": 3.0,
+                  "width_mm": 0.9})
+    return rules
 
 
 def _class_rules() -> list[dict]:
