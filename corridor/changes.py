@@ -9,8 +9,10 @@ run under ``inputs_state``).
 Rows of ``changes.csv``: ``new exceedance`` (worst utilization reached 1),
 ``resolved exceedance`` (fell below 1), ``line rejected`` (fell below 1 while a
 power line that acted on the asset in the previous run was rejected in this
-one: the exceedance was not resolved, it is no longer assessed), ``utilization
-moved`` (changed by more than ``run.change_threshold`` without crossing 1),
+one: the exceedance was not resolved, it is no longer assessed), ``no longer
+assessed`` (the asset now has a segment no criterion judged, and what was judged
+stays below 1: nothing was resolved), ``utilization moved`` (changed by more than
+``run.change_threshold`` without crossing 1),
 ``new asset`` and ``removed asset``. The ``cause`` names the input change found
 for the asset: ``line rejected: <id> (<field>: <reason>)`` first when a line of
 the asset's previous ``line_ids`` was rejected in this run,
@@ -75,6 +77,9 @@ def worst_by_asset(segments: pd.DataFrame) -> pd.DataFrame:
     out = segments.loc[idx.to_numpy(), ["asset_id", "utilization"]].copy()
     out["governing"] = (segments.loc[idx.to_numpy(), "governing"].astype(object).to_numpy()
                         if "governing" in segments else "")
+    # a segment no criterion judged (empty utilization): the asset is partly not assessed
+    out["unjudged"] = (u.isna().groupby(segments["asset_id"], sort=False).any()
+                       .reindex(out["asset_id"]).to_numpy(bool))
     return out.reset_index(drop=True)
 
 
@@ -92,8 +97,13 @@ def read_previous(out_dir: Path) -> tuple[pd.DataFrame, dict] | None:
             prev = pyogrio.read_dataframe(gpkg, layer="assets", read_geometry=False,
                                           columns=["asset_id", "asset_kind",
                                                    "worst_utilization", "governing"]
-                                          + (["line_ids"] if "line_ids" in names else []))
+                                          + (["line_ids"] if "line_ids" in names else [])
+                                          + (["hazard_class"] if "hazard_class" in names
+                                             else []))
             prev = prev.rename(columns={"worst_utilization": "utilization"})
+            prev["unjudged"] = (prev["hazard_class"].astype(object) == "not assessed"
+                                if "hazard_class" in prev else False)
+            prev = prev.drop(columns=["hazard_class"], errors="ignore")
         else:
             seg = pyogrio.read_dataframe(gpkg, layer="segments", read_geometry=False,
                                          columns=["asset_id", "asset_kind", "utilization",
@@ -251,8 +261,13 @@ def compare(run, keys, state: dict, previous, threshold: float) -> tuple[pd.Data
         else:
             b, a = (0.0 if np.isnan(ub) else ub), (0.0 if np.isnan(ua) else ua)
             lost = _rejected_cause(getattr(r, "line_ids", ""), rejected)
+            unjudged_now = bool(r.unjudged_after) if pd.notna(r.unjudged_after) else False
+            unjudged_before = (bool(r.unjudged_before) if pd.notna(r.unjudged_before)
+                               else False)
             if b < 1.0 <= a:
                 change = "new exceedance"
+            elif unjudged_now and a < 1.0 and (b >= 1.0 or not unjudged_before):
+                change = "no longer assessed"  # what was not checked is not resolved
             elif a < 1.0 <= b:
                 change = "line rejected" if lost else "resolved exceedance"
             elif abs(a - b) > threshold:
@@ -267,14 +282,15 @@ def compare(run, keys, state: dict, previous, threshold: float) -> tuple[pd.Data
                      "governing_before": gb, "governing_after": ga, "cause": cause})
     frame = pd.DataFrame(rows, columns=COLUMNS)
     if len(frame):
-        order = {"new exceedance": 0, "line rejected": 1, "resolved exceedance": 2,
-                 "utilization moved": 3, "new asset": 4, "removed asset": 5}
+        order = {"new exceedance": 0, "line rejected": 1, "no longer assessed": 2,
+                 "resolved exceedance": 3, "utilization moved": 4, "new asset": 5,
+                 "removed asset": 6}
         frame = frame.iloc[np.lexsort((frame["asset_id"].to_numpy(dtype=str),
                                        frame["change"].map(order).to_numpy()))]
         frame = frame.reset_index(drop=True)
     counts = {k: int((frame["change"] == k).sum()) for k in
-              ("new exceedance", "line rejected", "resolved exceedance", "utilization moved",
-               "new asset", "removed asset")}
+              ("new exceedance", "line rejected", "no longer assessed", "resolved exceedance",
+               "utilization moved", "new asset", "removed asset")}
     summary = {"previous_run": record.get("finished_utc"), "threshold": threshold,
                "counts": counts,
                "rows": json.loads(frame.head(1000).to_json(orient="records"))}

@@ -107,3 +107,30 @@ def _qgis_draws_every_segment(gpkg: Path, unjudged: set) -> None:
     assert kind == "RuleRenderer"
     assert len(drawn) == int(count)  # every feature drawn
     assert unjudged <= {int(d) for d in drawn}
+
+
+def test_exceedance_that_is_no_longer_judged_is_not_resolved(tmp_path):
+    # The same output folder, first with the shipped limit set (the telecom cable is
+    # judged), then with one that has no telecom criterion: changes.csv must not call the
+    # cable's result resolved or lower; it is no longer assessed (common practice: what
+    # was not checked is not passed).
+    limits = _without_telecom(tmp_path)
+    base = (ROOT / "config" / "demo.toml").read_text(encoding="utf-8").replace(
+        '"../', f'"{ROOT}/')
+    out = tmp_path / "out"
+    first, second = tmp_path / "a.toml", tmp_path / "b.toml"
+    first.write_text(base, encoding="utf-8")
+    second.write_text(base.replace('limit_set = "ieee_na"', f'limit_set = "{limits}"'),
+                      encoding="utf-8")
+    main(["run", str(first), "--out", str(out), "-q"])
+    main(["run", str(second), "--out", str(out), "-q"])
+    import pandas as pd
+
+    changes = pd.read_csv(out / "changes.csv")
+    cable = changes[changes["asset_kind"] == "telecom"]
+    assert list(cable["change"]) == ["no longer assessed"]
+    assert "resolved exceedance" not in set(cable["change"])
+    # run again unchanged: still not assessed, no new change row for it
+    main(["run", str(second), "--out", str(out), "-q"])
+    again = pd.read_csv(out / "changes.csv")
+    assert "no longer assessed" not in set(again.get("change", pd.Series(dtype=str)))
