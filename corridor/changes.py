@@ -71,7 +71,7 @@ def _plain(v):
 def worst_by_asset(segments: pd.DataFrame) -> pd.DataFrame:
     """Worst utilization and its governing criterion per asset."""
     if segments is None or len(segments) == 0 or "utilization" not in segments:
-        return pd.DataFrame(columns=["asset_id", "utilization", "governing"])
+        return pd.DataFrame(columns=["asset_id", "utilization", "governing", "unjudged"])
     u = segments["utilization"].astype(float)
     idx = u.fillna(-np.inf).groupby(segments["asset_id"], sort=False).idxmax()
     out = segments.loc[idx.to_numpy(), ["asset_id", "utilization"]].copy()
@@ -261,9 +261,9 @@ def compare(run, keys, state: dict, previous, threshold: float) -> tuple[pd.Data
         else:
             b, a = (0.0 if np.isnan(ub) else ub), (0.0 if np.isnan(ua) else ua)
             lost = _rejected_cause(getattr(r, "line_ids", ""), rejected)
-            unjudged_now = bool(r.unjudged_after) if pd.notna(r.unjudged_after) else False
-            unjudged_before = (bool(r.unjudged_before) if pd.notna(r.unjudged_before)
-                               else False)
+            now, before = getattr(r, "unjudged_after", False), getattr(r, "unjudged_before", False)
+            unjudged_now = bool(now) if pd.notna(now) else False
+            unjudged_before = bool(before) if pd.notna(before) else False
             if b < 1.0 <= a:
                 change = "new exceedance"
             elif unjudged_now and a < 1.0 and (b >= 1.0 or not unjudged_before):
