@@ -381,11 +381,13 @@ def limits_frame(run: Run) -> pd.DataFrame | None:
 def finalize(run: Run, stages: dict | None = None) -> Run:
     """Run-wide steps on the per-asset results: ids, ranks, summary layers."""
     inputs, t = run.inputs, run.segment_table
+    from corridor.partitions import in_asset_order
+
     ids = pd.Index(inputs.assets["asset_id"].astype(str))
-    key = np.lexsort((t["segment_index"].to_numpy(), ids.get_indexer(t["asset_id"])))
-    if np.array_equal(key, np.arange(len(t))):  # merged runs arrive in order: no copy
-        t = t.reset_index(drop=True)
+    if in_asset_order(t["asset_id"], ids, within=t["segment_index"].to_numpy()):
+        t = t.reset_index(drop=True)  # merged runs arrive in order: no copy
     else:
+        key = np.lexsort((t["segment_index"].to_numpy(), ids.get_indexer(t["asset_id"])))
         t = t.iloc[key].reset_index(drop=True)
     t.insert(0, "segment_id", np.arange(len(t), dtype=np.int64))
     run.segment_table = t

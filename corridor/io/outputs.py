@@ -67,6 +67,44 @@ def _layer_geometry_type(geometry: gpd.GeoSeries) -> tuple[str, bool]:
     return name, promote
 
 
+def _linestring_wkb(parts: np.ndarray):
+    """Little-endian 2D WKB of line strings that all have the same number of points, as
+    an Arrow binary array built from one numpy buffer; None for anything else (then
+    ``shapely.to_wkb`` writes them).
+
+    Asset segments are such lines (two points each): this skips one Python bytes
+    object per row. The bytes are the OGC Simple Features WKB of a LineString
+    (byte order 1, type 2, point count, then x y of each point), which GDAL reads
+    as it reads shapely's.
+    """
+    import pyarrow as pa
+    import shapely
+
+    n = len(parts)
+    if n == 0:
+        return None
+    types = shapely.get_type_id(parts)
+    if not bool(np.all(types == 1)) or bool(np.any(shapely.has_z(parts))):
+        return None
+    counts = shapely.get_num_coordinates(parts)
+    k = int(counts[0])
+    if k < 2 or not bool(np.all(counts == k)):
+        return None
+    xy = shapely.get_coordinates(parts).reshape(n, k, 2)
+    record = np.dtype([("order", "u1"), ("type", "<u4"), ("points", "<u4"),
+                       ("xy", "<f8", (k, 2))])  # packed: 9 + 16 k bytes
+    out = np.empty(n, record)
+    out["order"] = 1
+    out["type"] = 2
+    out["points"] = k
+    out["xy"] = xy
+    offsets = np.arange(n + 1, dtype=np.int64) * record.itemsize
+    if offsets[-1] >= 2 ** 31:
+        return None
+    return pa.Array.from_buffers(pa.binary(), n, [None, pa.py_buffer(offsets.astype(np.int32)),
+                                                  pa.py_buffer(out.view(np.uint8))])
+
+
 def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
     """Write one layer to a GeoPackage (bulk Arrow write, spatial index on).
 
@@ -96,6 +134,13 @@ def write_layer(frame: gpd.GeoDataFrame, path: Path, layer: str) -> None:
     def batches(lo: int, hi: int) -> list[pa.RecordBatch]:
         g = frame.geometry.array[lo:hi]
         parts = np.asarray(g, dtype=object)
+        if not promote and geometry_type == "LineString":
+            wkb = _linestring_wkb(parts)
+            if wkb is not None:  # no Python bytes object per row
+                chunk = attributes.iloc[lo:hi]
+                table = pa.Table.from_pandas(chunk, schema=schema.remove(len(schema) - 1),
+                                             preserve_index=False)
+                return table.append_column(schema.field(len(schema) - 1), wkb).to_batches()
         if promote:
             kinds = shapely.get_type_id(parts)
             for single, multi in ((0, shapely.multipoints), (1, shapely.multilinestrings),

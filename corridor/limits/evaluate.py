@@ -12,6 +12,7 @@ from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from corridor.limits.limit_sets import HAZARD_CLASSES, NOT_ASSESSED, LimitSet
 from corridor.limits.methods import Context
@@ -157,10 +158,15 @@ def not_assessed(limit_set: LimitSet, asset_kind, ratios: Mapping[str, Any]) -> 
         missing inputs). Such a criterion was not checked: it must never be
         read as passing.
     """
-    kind = np.asarray(asset_kind).astype(str).ravel()
+    # the kinds as integer codes: one hash pass, not a string comparison per criterion
+    codes, uniques = pd.factorize(pd.Series(np.asarray(asset_kind, dtype=object).ravel()
+                                            if not isinstance(asset_kind, pd.Series)
+                                            else asset_kind.reset_index(drop=True)))
+    names = [str(u) for u in uniques]
     out = []
     for c in limit_set.criteria:
-        applies = np.isin(kind, c.applies_to)
+        wanted = [i for i, name in enumerate(names) if name in set(c.applies_to)]
+        applies = np.isin(codes, wanted)
         n = int(applies.sum())
         if n == 0:
             continue
@@ -169,7 +175,7 @@ def not_assessed(limit_set: LimitSet, asset_kind, ratios: Mapping[str, Any]) -> 
             r = np.asarray(r, dtype=float).ravel()
             if np.isfinite(r[applies]).any():
                 continue
-        kinds = ", ".join(sorted(set(kind[applies])))
+        kinds = ", ".join(sorted({names[i] for i in wanted}))
         needs = ", ".join(c.needs)
         if not c.computed:
             reason = (f"no stage computes {c.quantity}: it needs {needs}, which the input"

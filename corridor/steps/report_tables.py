@@ -45,8 +45,45 @@ def hazards_layer(t: gpd.GeoDataFrame, review_threshold: float = 0.5) -> gpd.Geo
 
 
 def _asset_index(t, assets) -> np.ndarray:
+    """Position of each segment's asset among ``assets`` (-1: none), looked up once per
+    run of equal consecutive ids (a segment table holds each asset's rows together)."""
+    from corridor.partitions import run_starts
+
     pos = pd.Index(assets["asset_id"].astype(str))
-    return pos.get_indexer(t["asset_id"])
+    ids = t["asset_id"]
+    starts = run_starts(ids)
+    if len(starts) == 0:
+        return np.zeros(0, np.int64)
+    heads = pos.get_indexer(ids.iloc[starts])
+    return np.repeat(heads, np.diff(np.r_[starts, len(ids)])).astype(np.int64)
+
+
+def worst_rows(a_idx: np.ndarray, util: np.ndarray, chainage: np.ndarray,
+               n: int) -> np.ndarray:
+    """Row of each asset's worst segment: highest utilization (a missing one lowest),
+    then lowest chainage, then first; -1 for an asset without segments.
+
+    When each asset's rows are one run (as in a segment table), from a maximum per
+    run and a sort of the rows that reach it; otherwise from a sort of every row.
+    """
+    worst = np.full(n, -1, np.int64)
+    if len(a_idx) == 0:
+        return worst
+    starts = np.flatnonzero(np.r_[True, a_idx[1:] != a_idx[:-1]])
+    heads = a_idx[starts]
+    if (heads >= 0).all() and len(np.unique(heads)) == len(heads):
+        key = np.where(np.isnan(util), -np.inf, util)
+        top = np.maximum.reduceat(key, starts)
+        run = np.repeat(np.arange(len(starts)), np.diff(np.r_[starts, len(a_idx)]))
+        cand = np.flatnonzero(key == top[run])
+        order = cand[np.lexsort((chainage[cand], run[cand]))]
+        first = np.r_[True, run[order][1:] != run[order][:-1]]
+        worst[heads[run[order][first]]] = order[first]
+        return worst
+    order = np.lexsort((chainage, -util, a_idx))
+    first = np.r_[True, a_idx[order][1:] != a_idx[order][:-1]]
+    worst[a_idx[order][first]] = order[first]
+    return worst
 
 
 def responsible_lines(t, a_idx: np.ndarray, n_assets: int) -> list[str]:
@@ -82,10 +119,7 @@ def assets_layer(run) -> gpd.GeoDataFrame:
     total = np.bincount(a_idx, weights=length, minlength=n)
     over = np.bincount(a_idx, weights=np.where(util >= 1.0, length, 0.0), minlength=n)
     # worst segment per asset: highest utilization, then lowest chainage (deterministic)
-    order = np.lexsort((t["chainage_m"].to_numpy(float), -util, a_idx))
-    first = np.r_[True, a_idx[order][1:] != a_idx[order][:-1]]
-    worst = np.full(n, -1, np.int64)
-    worst[a_idx[order][first]] = order[first]
+    worst = worst_rows(a_idx, util, t["chainage_m"].to_numpy(float), n)
     has = worst >= 0
     w = np.where(has, worst, 0)
 
@@ -140,7 +174,7 @@ def not_assessed_criteria(run) -> list[dict]:
         return []
     ratios = {c.name: t[f"ratio_{c.name}"].to_numpy(float) for c in ls.criteria
               if f"ratio_{c.name}" in t.columns}
-    return not_assessed(ls, t["asset_kind"].to_numpy(dtype=object), ratios)
+    return not_assessed(ls, t["asset_kind"], ratios)
 
 
 def unjudged_segments(run) -> dict | None:
@@ -154,8 +188,11 @@ def unjudged_segments(run) -> dict | None:
     if (ls is None or not hasattr(ls, "criteria") or t is None
             or not {"asset_kind", "asset_id", "utilization"} <= set(t.columns)):
         return None
+    util = t["utilization"].to_numpy(float)
+    if not np.isnan(util).any():  # the usual case: no text columns converted
+        return None
     return unjudged(ls, t["asset_kind"].to_numpy(dtype=object),
-                    t["asset_id"].to_numpy(dtype=object), t["utilization"].to_numpy(float))
+                    t["asset_id"].to_numpy(dtype=object), util)
 
 
 def stage_tables(run) -> None:
