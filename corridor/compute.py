@@ -381,7 +381,7 @@ def limits_frame(run: Run) -> pd.DataFrame | None:
 def finalize(run: Run, stages: dict | None = None) -> Run:
     """Run-wide steps on the per-asset results: ids, ranks, summary layers."""
     inputs, t = run.inputs, run.segment_table
-    from corridor.partitions import in_asset_order
+    from corridor.ordering import in_asset_order
 
     ids = pd.Index(inputs.assets["asset_id"].astype(str))
     if in_asset_order(t["asset_id"], ids, within=t["segment_index"].to_numpy()):

@@ -47,7 +47,7 @@ def hazards_layer(t: gpd.GeoDataFrame, review_threshold: float = 0.5) -> gpd.Geo
 def _asset_index(t, assets) -> np.ndarray:
     """Position of each segment's asset among ``assets`` (-1: none), looked up once per
     run of equal consecutive ids (a segment table holds each asset's rows together)."""
-    from corridor.partitions import run_starts
+    from corridor.ordering import run_starts
 
     pos = pd.Index(assets["asset_id"].astype(str))
     ids = t["asset_id"]
