@@ -378,8 +378,16 @@ def limits_frame(run: Run) -> pd.DataFrame | None:
     return frame
 
 
-def finalize(run: Run, stages: dict | None = None) -> Run:
-    """Run-wide steps on the per-asset results: ids, ranks, summary layers."""
+def finalize(run: Run, stages: dict | None = None, ranked=None) -> Run:
+    """Run-wide steps on the per-asset results: ids, ranks, summary layers.
+
+    Parameters
+    ----------
+    ranked : callable, optional
+        ``ranked(run, later)``, called right after the stage named ``rank`` with the
+        stages still to run (name -> function): the runner starts writing the
+        segment layer there (:class:`corridor.io.write.EarlyLayers`).
+    """
     inputs, t = run.inputs, run.segment_table
     from corridor.ordering import in_asset_order
 
@@ -391,9 +399,12 @@ def finalize(run: Run, stages: dict | None = None) -> Run:
         t = t.iloc[key].reset_index(drop=True)
     t.insert(0, "segment_id", np.arange(len(t), dtype=np.int64))
     run.segment_table = t
-    for name, fn in (stages or {}).items():
+    items = list((stages or {}).items())
+    for i, (name, fn) in enumerate(items):
         with _Timer(run.timings_s, name):
             fn(run)
+        if name == "rank" and ranked is not None:
+            ranked(run, dict(items[i + 1:]))
     if "bands" in run.extra_tables:
         from corridor.uncertainty.tables import add_band_columns  # [uncertainty] (§16)
 

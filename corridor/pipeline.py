@@ -190,8 +190,11 @@ def side_input_problems(cfg: Config, inputs) -> list[str]:
 
 
 def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
-           final_stages: dict | None = None) -> Run:
-    """Read, compute (incrementally when a cache is configured), finalize, compare."""
+           final_stages: dict | None = None, ranked=None) -> Run:
+    """Read, compute (incrementally when a cache is configured), finalize, compare.
+
+    ``ranked`` is passed to :func:`corridor.compute.finalize`.
+    """
     from corridor import backends, progress
     from corridor import cache as cache_mod
     from corridor import changes as changes_mod
@@ -235,7 +238,7 @@ def screen(cfg: Config, out_dir: Path, stages: dict | None = None,
     run.timings_s = {"read": read_s, "hash": hash_s, **run.timings_s}
     run.counts.update(rejected["counts"])
     progress.stage("finalize", 3, total)
-    finalize(run, final_stages)
+    finalize(run, final_stages, ranked=ranked)
     attach_readings(run)  # [readings]: readings layer, reconciliation.csv
     run.counts["assets_recomputed"] = int(run.counts.get("assets_recomputed", 0))
     progress.stage("compare", 4, total)

@@ -31,7 +31,7 @@ from corridor.compute import Run
 from corridor.config import Config
 from corridor.errors import CorridorError, StorageError, attach_log, storage_problem
 from corridor.io.provenance import input_fingerprint, inputs_unchanged
-from corridor.io.write import write_outputs
+from corridor.io.write import EarlyLayers, write_outputs
 from corridor.lock import LockError, OutputLock
 from corridor.pipeline import screen
 
@@ -164,11 +164,14 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
     if root.level == logging.NOTSET or root.level > logging.DEBUG:
         root.setLevel(logging.DEBUG)
     published = False
+    early = None
     try:
         log.info("corridor run of %s into %s (PID %d)", cfg.path, out_dir, os.getpid())
         previous = _previous_record(out_dir) if "run.json" in owned_before else None
         fingerprint = input_fingerprint(cfg)
-        run = screen(cfg, out_dir, stages, final_stages)
+        early = _early_layers(staging, previous, fingerprint, final_stages)
+        run = screen(cfg, out_dir, stages, final_stages,
+                     ranked=None if early is None else early_start(early))
         extra = run.record
         extra["input_fingerprint"] = fingerprint
         unchanged = bool(previous and previous.get("input_fingerprint") == fingerprint
@@ -176,7 +179,7 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
         if unchanged:  # every asset came from the cache and no input changed
             extra["changes"] = {**extra.get("changes", {}), "unchanged_inputs": True}
         write_outputs(run, staging, previous, reuse_from=out_dir if unchanged else None,
-                      reuse_names=set(owned_before))
+                      reuse_names=set(owned_before), early=early)
         log.info("assets recomputed: %d, from cache: %d; outputs complete, publishing",
                  run.counts.get("assets_recomputed", 0),
                  run.counts.get("assets_from_cache", 0))
@@ -226,6 +229,8 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
             raise err from exc
         raise
     finally:
+        if early is not None:
+            early.cancel()  # an error before the outputs: the segments writer stops too
         for h in renamed:
             h.removeFilter(renamer)
         if handler is not None:
@@ -239,6 +244,42 @@ def _publish_locked(cfg: Config, out_dir: Path, lock: OutputLock, stages, final_
                     out_dir.rmdir()  # made by this run and still empty: leave no trace
                 except OSError:
                     pass
+
+
+def _early_layers(staging: Path, previous: dict | None, fingerprint: str,
+                  final_stages: dict | None) -> EarlyLayers | None:
+    """The early writer of the segments layer, when this run can use it.
+
+    Not when the previous run had the same inputs (its files are likely copied, not
+    written), nor when the stages after ``rank`` are not the standard ones (a stage of
+    the caller's may change the segment table; the digest check would then discard
+    the early file, after its CPU was spent).
+    """
+    from corridor.steps import run_stages
+
+    if previous is not None and previous.get("input_fingerprint") == fingerprint:
+        return None
+    stages = dict(final_stages or {})
+    if "rank" not in stages:
+        return None
+    standard = run_stages()
+    later = list(stages)[list(stages).index("rank") + 1:]
+    if any(name not in standard or getattr(stages[name], "__code__", None)
+           is not getattr(standard[name], "__code__", object()) for name in later):
+        return None
+    return EarlyLayers(staging / "screening.gpkg")
+
+
+def early_start(early: EarlyLayers):
+    """The ``ranked`` hook of :func:`corridor.compute.finalize` that starts ``early``:
+    only when nothing after the ranking would change the segment table (no
+    uncertainty bands, which add their columns after the stages)."""
+
+    def ranked(run: Run, later: dict) -> None:
+        if "bands" not in run.extra_tables:
+            early.start(run)
+
+    return ranked
 
 
 def _previous_record(out_dir: Path) -> dict | None:

@@ -112,3 +112,120 @@ def test_demo_geopackage_forked_equals_inline(tmp_path, monkeypatch):
             return sorted(con.execute("SELECT f_table_name, styleName FROM layer_styles"))
 
     assert styles(a) == styles(b) and styles(b)
+
+
+def _demo(tmp_path):
+    work = tmp_path / "w"
+    shutil.copytree(ROOT / "config", work / "config")
+    shutil.copytree(ROOT / "sample_layers", work / "sample_layers")
+    return work / "config" / "demo.toml"
+
+
+def _segments(path):
+    return pd.DataFrame(pyogrio.read_dataframe(path, layer="segments").drop(columns="geometry"))
+
+
+@needs_fork
+def test_segments_written_early_equal_a_whole_write(tmp_path, monkeypatch):
+    """The segments layer started right after the ranking (beside the tables, CSV files
+    and report) gives the file a whole write gives: same layers in the same order, same
+    values, same styles. Source: the output contract (README, Outputs)."""
+    cfg = _demo(tmp_path)
+    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 10**12)
+    assert _run(cfg, tmp_path / "inline") == 0
+    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 0)
+    assert _run(cfg, tmp_path / "early") == 0
+    rec = json.loads((tmp_path / "early" / "run.json").read_text())
+    assert rec["counts"]["gpkg_segments_early"] == 1
+    a, b = tmp_path / "inline" / "screening.gpkg", tmp_path / "early" / "screening.gpkg"
+    assert [str(n) for n in pyogrio.list_layers(a)[:, 0]] == [
+        str(n) for n in pyogrio.list_layers(b)[:, 0]]
+    pd.testing.assert_frame_equal(_segments(a), _segments(b))
+    import sqlite3
+
+    with sqlite3.connect(b) as con:  # the hazards view is on the early segments layer
+        kinds = dict(con.execute("SELECT name, type FROM sqlite_master WHERE name IN"
+                                 " ('segments', 'hazards')"))
+    assert kinds == {"segments": "table", "hazards": "view"}
+
+
+@needs_fork
+def test_a_change_to_the_segments_after_ranking_is_written_not_the_early_copy(
+        tmp_path, monkeypatch):
+    """A run-wide step that changes the segment table after the ranking: the early
+    writer's copy is discarded (its digest no longer matches) and the layer holds the
+    changed values. Source: the output contract (README, Outputs: the layers hold the
+    run's values)."""
+    from corridor.steps import report_tables
+
+    cfg = _demo(tmp_path)
+    original = report_tables.stage_tables
+
+    def changing(run):
+        run.segment_table.loc[0, "v_normal_v"] = 12345.0
+        original(run)
+
+    monkeypatch.setattr(report_tables, "stage_tables", changing)
+    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 0)
+    started = []
+    real_start = write_mod.EarlyLayers.start
+
+    def spy(self, run):
+        real_start(self, run)
+        started.append(self.started)
+
+    monkeypatch.setattr(write_mod.EarlyLayers, "start", spy)
+    assert _run(cfg, tmp_path / "out") in (0, 1)
+    assert started == [True]  # the early writer ran ...
+    rec = json.loads((tmp_path / "out" / "run.json").read_text())
+    assert rec["counts"]["gpkg_segments_early"] == 0  # ... and its file was not used
+    seg = _segments(tmp_path / "out" / "screening.gpkg")
+    assert seg.loc[seg["segment_id"] == 0, "v_normal_v"].item() == 12345.0
+
+
+@needs_fork
+def test_a_caller_stage_after_ranking_gets_no_early_writer(tmp_path, monkeypatch):
+    """Stages of the caller's own after ``rank``: the segments are written whole, after
+    every stage. Source: the output contract (README, Outputs)."""
+    from corridor.config import load_config
+    from corridor.runner import publish
+    from corridor.steps import asset_stages, run_stages
+
+    cfg = load_config(_demo(tmp_path))
+    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 0)
+
+    def mark(run):
+        run.segment_table["v_normal_v"] = run.segment_table["v_normal_v"] + 0.0
+
+    stages = {**run_stages(), "mark": mark}
+    run = publish(cfg, tmp_path / "out", asset_stages(), stages)
+    for h in list(logging.getLogger("corridor").handlers):
+        logging.getLogger("corridor").removeHandler(h)
+    assert run.counts["gpkg_segments_early"] == 0
+    assert len(_segments(tmp_path / "out" / "screening.gpkg")) == len(run.segment_table)
+
+
+@needs_fork
+def test_an_early_write_that_fails_fails_the_write(tmp_path, monkeypatch):
+    """A full disk in the early writer is raised when its layers are awaited, errno kept
+    (POSIX errno semantics, common practice)."""
+    import geopandas as gpd
+    import shapely
+
+    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 0)
+    monkeypatch.setattr(write_mod, "_write_first_layers", lambda layers, path: _fail_disk_full(
+        path))
+    table = gpd.GeoDataFrame({"v": [1.0]}, geometry=[shapely.LineString([(0, 0), (1, 1)])],
+                             crs=3035)
+
+    class FakeRun:
+        pass
+
+    early = write_mod.EarlyLayers(tmp_path / "x.gpkg")
+    monkeypatch.setattr(write_mod, "result_of", lambda run: write_mod.Result(
+        segments=table, exposures=table, rejected=pd.DataFrame(), power_lines=table))
+    early.start(FakeRun())
+    assert early.started
+    with pytest.raises(OSError) as info:
+        early.wait()
+    assert info.value.errno == errno.ENOSPC

@@ -56,22 +56,168 @@ def write_caution(path: Path) -> None:
         " report.html and run.json carry it as well.\n", encoding="utf-8")
 
 
-def write_gpkg(result: Result, path: Path, review_threshold: float = 0.5) -> None:
+def write_gpkg(result: Result, path: Path, review_threshold: float = 0.5,
+               written: tuple[str, ...] = (), view: dict | None | bool = True) -> None:
     """Every layer of ``screening.gpkg``, then its styles and field descriptions.
 
     Runs in a forked process for large runs (:func:`write_outputs`): it changes
     nothing but the file.
+
+    Parameters
+    ----------
+    written : tuple of str
+        The first layers, already in the file (:class:`EarlyLayers`): not written again.
+    view : dict, None or True
+        The ``hazards`` view (:func:`hazards_view`) when already decided; True: decide here.
     """
     from corridor.io.styles import apply_styles
 
     layers = result.layers()
-    view = hazards_view(layers.get("hazards"), layers.get("segments"), review_threshold)
+    if view is True:
+        view = hazards_view(layers.get("hazards"), layers.get("segments"), review_threshold)
     for name, table in layers.items():
-        if name == "hazards" and view is not None:
+        if name in written:
+            continue
+        if name == "hazards" and isinstance(view, dict):
             write_view(path, name, "segments", **view)
         else:
             write_layer(table, path, name)
     apply_styles(path, list(layers), review_threshold=review_threshold)
+
+
+def _write_first_layers(layers: dict, path: Path) -> None:
+    for name, table in layers.items():
+        write_layer(table, path, name)
+
+
+def frame_digest(frame) -> bytes:
+    """SHA-256 of what a layer writes from a table: columns, types, CRS and every value.
+
+    Numeric and boolean columns are hashed from their memory, Arrow-backed text from
+    its Arrow buffers, other object columns from their pickled values; a geometry
+    column from the addresses of its geometry objects (shapely geometries are
+    immutable: the same objects are the same geometries). Used only to compare a
+    table with itself later in one process while the geometry objects are held
+    (:class:`EarlyLayers`), so two digests are equal only if nothing was changed.
+    """
+    import ctypes
+    import hashlib
+    import pickle
+
+    import numpy as np
+    from geopandas.array import GeometryDtype
+
+    h = hashlib.sha256()
+    geometry = getattr(frame, "_geometry_column_name", None)
+    h.update(repr((list(map(str, frame.columns)), [str(d) for d in frame.dtypes], len(frame),
+                   str(getattr(frame, "crs", None)) if geometry is not None else None,
+                   geometry)).encode())
+    for c in frame.columns:
+        column = frame[c]
+        array = column.array
+        if isinstance(column.dtype, GeometryDtype):
+            objects = np.asarray(array, dtype=object)
+            if len(objects):  # the object pointers, read without touching the objects
+                raw = (ctypes.c_char * objects.nbytes).from_address(objects.ctypes.data)
+                h.update(bytes(raw) if not objects.flags.c_contiguous else memoryview(raw))
+        elif isinstance(column.dtype, np.dtype) and column.dtype != object:
+            h.update(np.ascontiguousarray(column.to_numpy()).view(np.uint8).data)
+        elif hasattr(array, "_pa_array"):  # Arrow-backed (text): its buffers
+            for chunk in array._pa_array.chunks:
+                h.update(f"{chunk.offset},{len(chunk)};".encode())
+                for buffer in chunk.buffers():
+                    if buffer is not None:
+                        h.update(memoryview(buffer))
+        else:
+            h.update(pickle.dumps(column.to_numpy(dtype=object).tolist(), protocol=5))
+    return h.digest()
+
+
+class EarlyLayers:
+    """The first layers of ``screening.gpkg`` (``exposures``, ``segments``), written by a
+    forked process as soon as the segments are ranked.
+
+    The segments layer is most of the GeoPackage's write (about 12 s of GDAL work on
+    the 2.5 M-segment benchmark). Started right after the ``rank`` stage, it runs
+    beside the rest of the run-wide stages, the CSV files and the report instead of
+    after them. The child writes the tables as they are at the fork; this process
+    keeps a digest of them (:func:`frame_digest`, computed after the fork, beside the
+    child) and :meth:`adopt` compares it with the finished run's tables: the file
+    is used only when they are unchanged, otherwise the child is stopped, its file
+    removed and the GeoPackage written whole as before. Started only for runs of
+    :data:`GPKG_PROCESS_ABOVE_ROWS` segments or more, where a process can be forked,
+    and when the stages after ``rank`` are the standard ones (the runner decides).
+    """
+
+    FIRST = ("exposures", "segments")
+
+    def __init__(self, path: Path):
+        self.path = Path(path)
+        self._handle: background.BackgroundWrite | None = None
+        self._digests: dict[str, bytes] = {}
+        self._held: list = []
+
+    @property
+    def started(self) -> bool:
+        return self._handle is not None
+
+    def start(self, run) -> None:
+        """Fork the writer of the first layers of ``run`` (nothing for a small run)."""
+        import numpy as np
+
+        result = result_of(run)
+        layers = result.layers()
+        first = {name: layers.get(name) for name in self.FIRST}
+        segments = first["segments"]
+        if (segments is None or len(segments) < GPKG_PROCESS_ABOVE_ROWS
+                or list(layers)[:len(self.FIRST)] != list(self.FIRST)
+                or not all(hasattr(t, "geometry") for t in first.values())
+                or not background.forking_available()):
+            return
+        self.path.unlink(missing_ok=True)
+        self._handle = background.start(_write_first_layers, first, self.path, fork=True)
+        # the geometry objects stay alive, so their addresses mean the same objects later
+        self._held = [np.array(t.geometry.array, dtype=object, copy=True)
+                      for t in first.values() if t is not None]
+        self._digests = {name: frame_digest(t) for name, t in first.items()}
+        log.debug("the layers %s are being written by a forked process",
+                  ", ".join(self.FIRST))
+
+    def adopt(self, result: Result) -> tuple[str, ...]:
+        """The layers already being written, when the run's tables are still the ones the
+        child writes; otherwise () after stopping the child and removing its file."""
+        if self._handle is None:
+            return ()
+        layers = result.layers()
+        same = (list(layers)[:len(self.FIRST)] == list(self.FIRST)
+                and all(layers[name] is not None and frame_digest(layers[name]) == digest
+                        for name, digest in self._digests.items()))
+        if same:
+            return self.FIRST
+        log.info("a run-wide step changed the segment or exposure table after ranking: the"
+                 " GeoPackage is written whole")
+        self.cancel()
+        return ()
+
+    def wait(self) -> float:
+        """Wait for the child; its write time [s]. Raises what the write raised."""
+        if self._handle is None:
+            return 0.0
+        handle = self._handle
+        try:
+            handle.wait()
+        finally:
+            self._handle = None
+            self._held = []
+        return handle.seconds
+
+    def cancel(self) -> None:
+        """Stop the child (if running) and remove its file."""
+        if self._handle is not None:
+            self._handle.cancel()
+            self._handle = None
+            self._held = []
+            self.path.unlink(missing_ok=True)
 
 
 def hazards_view(hazards, segments, review_threshold: float) -> dict | None:
@@ -125,7 +271,8 @@ def hazards_view(hazards, segments, review_threshold: float) -> dict | None:
 
 def write_outputs(run, out_dir: Path, previous: dict | None = None,
                   reuse_from: Path | None = None,
-                  reuse_names: set[str] | None = None) -> dict[str, Path]:
+                  reuse_names: set[str] | None = None,
+                  early: EarlyLayers | None = None) -> dict[str, Path]:
     """Write every output of a finished run into ``out_dir``.
 
     The GeoPackage, the other formats, the CSV files and the report, then
@@ -154,6 +301,10 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
     reuse_names : set of str, optional
         The files of ``reuse_from`` that corridor wrote (its manifest); only
         these are copied. None: every file of the names corridor writes.
+    early : EarlyLayers, optional
+        The first layers of ``screening.gpkg``, started after the ranking: used when
+        the run's tables are unchanged since (:meth:`EarlyLayers.adopt`); the other
+        layers are then added on this thread once it is done.
     """
     from corridor.compute import versions
     from corridor.io.formats import write_extra_formats
@@ -172,6 +323,11 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
     reused = reuse_from is not None and all((reuse_from / n).exists() and ours(n)
                                             for n in REUSABLE_OUTPUTS)
     gpkg_write = None
+    first: tuple[str, ...] = ()
+    if early is not None and (reused or early.path != paths["gpkg"]):
+        early.cancel()
+    elif early is not None:
+        first = early.adopt(result)
     if reused and reuse_from is not None:
         for name in REUSABLE_OUTPUTS:
             shutil.copy2(reuse_from / name, out_dir / name)
@@ -179,7 +335,7 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
             if fmt_file.suffix in (".fgb", ".parquet") and ours(fmt_file.name):
                 shutil.copy2(fmt_file, out_dir / fmt_file.name)
         log.info("inputs unchanged since the previous run: its layers are reused")
-    else:
+    elif not first:
         # a large GeoPackage is written by a forked process while this one writes
         # the rest and renders the report (corridor.io.background)
         rows = len(result.segments) if result.segments is not None else 0
@@ -202,9 +358,22 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
         run.timings_s["report"] = round(time.perf_counter() - t1, 4)
         if gpkg_write is not None:
             gpkg_write.wait()
+        if first and early is not None:
+            # the rest of the GeoPackage once the child's layers are in: the hazards
+            # view is decided before the wait, the small layers written after it
+            threshold = getattr(run.limit_set, "review_threshold", 0.5)
+            layers = result.layers()
+            view = hazards_view(layers.get("hazards"), layers.get("segments"), threshold)
+            child_s = early.wait()
+            t2 = time.perf_counter()
+            write_gpkg(result, paths["gpkg"], threshold, written=first, view=view)
+            run.timings_s["write_gpkg"] = round(child_s + time.perf_counter() - t2, 4)
+            run.counts["gpkg_written_in_process"] = 1
     finally:
         if gpkg_write is not None:
             gpkg_write.cancel()  # an error or an interrupt above: the writer stops too
+        if early is not None:
+            early.cancel()
     # the data files' wall time, the report (rendered alongside a forked GeoPackage
     # write, or on this thread before the wait) excluded
     run.timings_s["write"] = round(time.perf_counter() - t0 - run.timings_s["report"], 4)
@@ -212,6 +381,7 @@ def write_outputs(run, out_dir: Path, previous: dict | None = None,
         run.timings_s["write_gpkg"] = round(gpkg_write.seconds, 4)
         run.counts["gpkg_written_in_process"] = int(gpkg_write.forked)
     run.counts["outputs_reused"] = int(reused)
+    run.counts["gpkg_segments_early"] = int(bool(first))
     record = {
         "caution": SAFETY_CAUTION,
         "finished_utc": datetime.now(UTC).isoformat(timespec="seconds"),

@@ -296,13 +296,12 @@ def _governing_values(run, crit, idx: np.ndarray):
     """
     if crit is None:
         return None, None
-    t = run.segment_table
-    sub = t.iloc[idx]
+    t = run.segment_table  # two columns at the rows, not every column (iloc of the table)
     ratio_col = f"ratio_{crit.name}"
-    r = sub[ratio_col].to_numpy(float) if ratio_col in t else None
+    r = t[ratio_col].to_numpy(float)[idx] if ratio_col in t else None
     permitted = permitted_at(run, crit, idx)
     if crit.quantity in t:
-        q = np.abs(sub[crit.quantity].to_numpy(float))
+        q = np.abs(t[crit.quantity].to_numpy(float)[idx])
     elif r is not None:  # a quantity derived in the assess step: ratio times permitted
         q = r * permitted
     else:
