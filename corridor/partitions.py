@@ -35,6 +35,9 @@ log = logging.getLogger(__name__)
 
 #: Estimated segments per partition of the dask backend when ``run.partitions = 0``.
 SEGMENTS_PER_PARTITION = 500_000
+#: A per-asset table of at least this many values (rows x columns) over its pieces is
+#: concatenated on a second thread beside the others (:func:`merge_tables`).
+MERGE_THREAD_ABOVE_VALUES = 5_000_000
 #: Hilbert curve level: 2**16 cells a side.
 HILBERT_LEVEL = 16
 
@@ -532,14 +535,36 @@ def merge_tables(inputs: Inputs, pieces: dict[str, list]) -> dict[str, pd.DataFr
         run-wide ids renumbered (:func:`order_rows`), dtypes kept
         (:func:`concat_tables`).
     """
+    from concurrent.futures import ThreadPoolExecutor
+
     crs = inputs.crs
     asset_pos = {a: i for i, a in enumerate(inputs.assets["asset_id"])}
-    merged = {}
-    for name in list(pieces):
-        frames = pieces.pop(name)
+    names = list(pieces)
+
+    def one(frames: list) -> pd.DataFrame:
         table = concat_tables(frames, crs=crs)  # empty/untyped parts: types kept
-        del frames  # before the reorder copies the table
-        table = order_rows(table, name, asset_pos)
+        frames.clear()  # before the reorder copies the table
+        return table
+
+    def size(name: str) -> int:
+        return sum(len(f) * max(f.shape[1], 1) for f in pieces[name] if f is not None)
+
+    # the largest table (the segments) is concatenated on a second thread while this
+    # one does the others: numpy copies without the GIL, and a concatenation is
+    # mostly the copy into fresh memory (its page faults included)
+    largest = max(names, key=size) if names else None
+    tables: dict[str, pd.DataFrame | None] = {}
+    with ThreadPoolExecutor(1) as pool:
+        future = (pool.submit(one, pieces.pop(largest))
+                  if largest is not None and size(largest) >= MERGE_THREAD_ABOVE_VALUES else None)
+        for name in names:
+            if future is None or name != largest:
+                tables[name] = one(pieces.pop(name))
+        if future is not None and largest is not None:
+            tables[largest] = future.result()
+    merged = {}
+    for name in names:
+        table = order_rows(tables.pop(name), name, asset_pos)
         if isinstance(table, gpd.GeoDataFrame) and table.crs is None:
             table = table.set_crs(crs)
         merged[name] = table
