@@ -36,7 +36,7 @@ def run_starts(values) -> np.ndarray:
 
 def in_asset_order(asset_ids, ids: pd.Index, within=None) -> bool:
     """True when rows are already grouped by asset in the order of ``ids`` (each asset
-    in one run of rows, no unknown id), and, with ``within``, increasing in it inside
+    in one run of rows, no unknown id), and, with ``within``, not decreasing in it inside
     each run: then a stable sort by (asset position, ``within``) keeps every row where
     it is.
 
@@ -54,4 +54,4 @@ def in_asset_order(asset_ids, ids: pd.Index, within=None) -> bool:
         return True
     step = np.diff(np.asarray(within))
     step[starts[1:] - 1] = 1  # a new run may start anywhere
-    return bool(np.all(step > 0))
+    return bool(np.all(step >= 0))  # equal keys keep their order in a stable sort
