@@ -30,7 +30,10 @@ def run_starts(values) -> np.ndarray:
         change = np.asarray(differ.to_numpy(zero_copy_only=False), bool)
     else:
         flat = np.asarray(array, dtype=object)
-        change = np.asarray(flat[1:] != flat[:-1], bool) | pd.isna(flat[1:]) | pd.isna(flat[:-1])
+        missing = np.asarray(pd.isna(flat), bool)
+        both = ~(missing[1:] | missing[:-1])  # compare only where neither is missing
+        change = np.ones(n - 1, bool)
+        change[both] = np.asarray(flat[1:][both] != flat[:-1][both], dtype=bool)
     return np.concatenate([[0], np.flatnonzero(change) + 1]).astype(np.int64)
 
 
@@ -52,6 +55,7 @@ def in_asset_order(asset_ids, ids: pd.Index, within=None) -> bool:
         return False
     if within is None:
         return True
-    step = np.diff(np.asarray(within))
-    step[starts[1:] - 1] = 1  # a new run may start anywhere
-    return bool(np.all(step >= 0))  # equal keys keep their order in a stable sort
+    w = np.asarray(within)
+    keeps = w[1:] >= w[:-1]  # equal keys keep their order in a stable sort; NaN: False
+    keeps[starts[1:] - 1] = True  # a new run may start anywhere
+    return bool(np.all(keeps))

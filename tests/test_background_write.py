@@ -13,6 +13,7 @@ import os
 import shutil
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pyogrio
 import pytest
@@ -138,10 +139,24 @@ def test_segments_written_early_equal_a_whole_write(tmp_path, monkeypatch):
     rec = json.loads((tmp_path / "early" / "run.json").read_text())
     assert rec["counts"]["gpkg_segments_early"] == 1
     a, b = tmp_path / "inline" / "screening.gpkg", tmp_path / "early" / "screening.gpkg"
-    assert [str(n) for n in pyogrio.list_layers(a)[:, 0]] == [
-        str(n) for n in pyogrio.list_layers(b)[:, 0]]
-    pd.testing.assert_frame_equal(_segments(a), _segments(b))
+    names = [str(n) for n in pyogrio.list_layers(a)[:, 0]]
+    assert names == [str(n) for n in pyogrio.list_layers(b)[:, 0]]
+    for layer in names:
+        fa = pyogrio.read_dataframe(a, layer=layer)
+        fb = pyogrio.read_dataframe(b, layer=layer)
+        drop = ["geometry", "update_time"]  # (style rows are stamped with their time)
+        pd.testing.assert_frame_equal(pd.DataFrame(fa.drop(columns=drop, errors="ignore")),
+                                      pd.DataFrame(fb.drop(columns=drop, errors="ignore")))
+        if "geometry" in fa.columns:
+            assert fa.geometry.geom_equals_exact(fb.geometry, 0.0).all()
     import sqlite3
+
+    def styles(path):
+        with sqlite3.connect(path) as con:
+            return sorted(con.execute("SELECT f_table_name, styleName, styleQML"
+                                      " FROM layer_styles"))
+
+    assert styles(a) == styles(b) and styles(b)
 
     with sqlite3.connect(b) as con:  # the hazards view is on the early segments layer
         kinds = dict(con.execute("SELECT name, type FROM sqlite_master WHERE name IN"
@@ -197,10 +212,14 @@ def test_a_caller_stage_after_ranking_gets_no_early_writer(tmp_path, monkeypatch
     def mark(run):
         run.segment_table["v_normal_v"] = run.segment_table["v_normal_v"] + 0.0
 
+    started = []
+    monkeypatch.setattr(write_mod.EarlyLayers, "start",
+                        lambda self, run: started.append(run))
     stages = {**run_stages(), "mark": mark}
     run = publish(cfg, tmp_path / "out", asset_stages(), stages)
     for h in list(logging.getLogger("corridor").handlers):
         logging.getLogger("corridor").removeHandler(h)
+    assert started == []  # never forked, not forked and discarded
     assert run.counts["gpkg_segments_early"] == 0
     assert len(_segments(tmp_path / "out" / "screening.gpkg")) == len(run.segment_table)
 
@@ -229,3 +248,34 @@ def test_an_early_write_that_fails_fails_the_write(tmp_path, monkeypatch):
     with pytest.raises(OSError) as info:
         early.wait()
     assert info.value.errno == errno.ENOSPC
+
+
+def test_digest_sees_every_change_to_a_table():
+    """The early writer's check: a table's digest changes with any value, type, column,
+    order or CRS, and stays for an untouched copy (the definition of 'unchanged' it
+    relies on; common practice)."""
+    import geopandas as gpd
+    import pyarrow as pa
+    import shapely
+
+    lines = shapely.linestrings(np.arange(48.0).reshape(12, 2, 2))
+    kinds = pd.array(pa.array(["pipe", "cable"] * 6).dictionary_encode(),
+                     dtype=pd.ArrowDtype(pa.dictionary(pa.int32(), pa.string())))
+    base = gpd.GeoDataFrame({"v": np.arange(12.0), "s": pd.array(list("abcdefghijkl"),
+                                                                   dtype="str"),
+                             "k": kinds, "o": [1, "x"] * 6}, geometry=lines, crs=3035)
+    digest = write_mod.frame_digest
+    d = digest(base)
+    assert digest(base.copy(deep=False)) == d and digest(base.copy()) == d
+    other_kinds = pd.array(pa.array(["fence", "rail"] * 6).dictionary_encode(),
+                           dtype=kinds.dtype)  # same indices, other dictionary
+    changed = [base.assign(v=base["v"].where(base.index != 3, 99.0)),
+               base.assign(s=base["s"].str.upper()), base.assign(k=other_kinds),
+               base.assign(o=[1, "y"] * 6), base[["s", "v", "k", "o", "geometry"]],
+               base.iloc[::-1], base.set_crs(4326, allow_override=True), base.assign(w=1)]
+    for frame in changed:
+        assert digest(frame) != d
+    strided = base.iloc[::2].copy(deep=False)
+    before = digest(strided)
+    strided.geometry.array[5] = shapely.LineString([(0, 0), (9, 9)])  # the last row
+    assert digest(strided) != before

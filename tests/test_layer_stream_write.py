@@ -81,3 +81,43 @@ def test_empty_layer_is_written_with_its_fields(tmp_path):
     info = pyogrio.read_info(path)
     assert info["features"] == 0
     assert list(info["fields"]) == list(frame.columns.drop("geometry"))
+
+
+def test_segment_wkb_equals_shapely_wkb_and_leaves_other_geometries_to_it():
+    """Uniform 2D line strings get WKB built from one buffer, byte for byte shapely's
+    (OGC Simple Features WKB as GEOS writes it); anything else (Z, M, empty, missing,
+    mixed point counts, other types) is left to shapely (None)."""
+    rng = np.random.default_rng(3)
+    for k in (2, 3, 5):
+        lines = shapely.linestrings(rng.normal(size=(50, k, 2)) * 1e5)
+        built = outputs._linestring_wkb(lines)
+        assert built.to_pylist() == list(shapely.to_wkb(lines))
+    line = shapely.LineString([(0, 0), (1, 1)])
+    for other in ([shapely.LineString([(0, 0, 1), (1, 1, 1)])],
+                  [shapely.from_wkt("LINESTRING M (0 0 5, 1 1 6)")],
+                  [shapely.LineString()], [None, line],
+                  [line, shapely.LineString([(0, 0), (1, 1), (2, 2)])],
+                  [shapely.Point(0, 0)], [shapely.MultiLineString([[(0, 0), (1, 1)]])]):
+        assert outputs._linestring_wkb(np.array(other, dtype=object)) is None
+
+
+def test_two_point_segments_stored_as_pyogrio_stores_them(tmp_path):
+    """A layer of two-point segments (the buffer-built WKB path) holds the same
+    GeoPackage geometry blobs, values and R-tree as pyogrio's own write of the table."""
+    n = 700
+    xy = np.random.default_rng(9).uniform(0, 5e4, size=(n, 2, 2))
+    frame = gpd.GeoDataFrame({"v": np.arange(n, dtype=float)},
+                             geometry=shapely.linestrings(xy), crs="EPSG:3035")
+    ours, theirs = tmp_path / "ours.gpkg", tmp_path / "theirs.gpkg"
+    outputs.write_layer(frame, ours, "segments")
+    pyogrio.write_dataframe(frame, theirs, layer="segments", driver="GPKG", use_arrow=True,
+                            layer_options={"SPATIAL_INDEX": "YES"})
+
+    def rows(path, sql):
+        with sqlite3.connect(path) as db:
+            return db.execute(sql).fetchall()
+
+    assert rows(ours, "SELECT fid, geom, v FROM segments ORDER BY fid") == rows(
+        theirs, "SELECT fid, geom, v FROM segments ORDER BY fid")
+    assert rows(ours, "SELECT * FROM rtree_segments_geom ORDER BY id") == rows(
+        theirs, "SELECT * FROM rtree_segments_geom ORDER BY id")

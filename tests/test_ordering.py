@@ -42,6 +42,21 @@ def test_in_asset_order_matches_the_sort_definition(dtype):
             ids, order_of, list(within))
 
 
+@pytest.mark.parametrize("missing", [None, pd.NA, np.nan])
+def test_missing_ids_are_runs_of_their_own_and_never_in_order(missing):
+    s = pd.Series(["a", missing, missing, "b"], dtype=object)
+    assert run_starts(s).tolist() == [0, 1, 2, 3]
+    assert not in_asset_order(s, pd.Index(["a", "b"]))
+
+
+def test_unsigned_and_missing_keys_within_an_asset():
+    ids = pd.Series(["a", "a", "a"], dtype="str")
+    # a decrease in an unsigned key is a decrease (a difference would wrap around)
+    assert not in_asset_order(ids, pd.Index(["a"]), within=np.array([0, 2, 1], np.uint32))
+    assert in_asset_order(ids, pd.Index(["a"]), within=np.array([0, 1, 1], np.uint32))
+    assert not in_asset_order(ids, pd.Index(["a"]), within=np.array([0.0, np.nan, 1.0]))
+
+
 def test_run_starts_of_text_with_missing_values():
     s = pd.Series(["x", "x", None, None, "y", "y", "x"], dtype="str")
     # a missing value starts a run of its own (it equals nothing, itself included)
@@ -56,8 +71,10 @@ def _worst_by_definition(a_idx, util, chainage, n):
         rows = [i for i in range(len(a_idx)) if a_idx[i] == asset]
         if not rows:
             continue
-        key = [(-(util[i]) if not np.isnan(util[i]) else np.inf, chainage[i], i) for i in rows]
-        out[asset] = min(key)[2]
+        # a missing utilization after every real one (-inf included)
+        key = [(np.isnan(util[i]), -util[i] if not np.isnan(util[i]) else 0.0, chainage[i], i)
+               for i in rows]
+        out[asset] = min(key)[3]
     return out
 
 
@@ -69,7 +86,7 @@ def test_worst_rows_matches_the_definition_with_ties_missing_and_infinite_values
         a_idx = np.repeat(rng.permutation(n), lengths[:n]).astype(np.int64)
         if trial % 3 == 0:  # not grouped by asset: the general path
             a_idx = rng.permutation(a_idx)
-        util = rng.choice([0.0, 0.3, 0.3, 1.2, np.nan, np.inf], len(a_idx))
+        util = rng.choice([0.0, 0.3, 0.3, 1.2, np.nan, np.inf, -np.inf], len(a_idx))
         chainage = rng.choice([0.0, 10.0, 10.0, 25.0], len(a_idx))
         assert worst_rows(a_idx, util, chainage, n).tolist() == _worst_by_definition(
             a_idx, util, chainage, n).tolist()

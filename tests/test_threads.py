@@ -73,6 +73,22 @@ def test_partitions_equal_one_piece(source, threads, partitions, tmp_path):
         assert one.counts[key] == two.counts[key], key
 
 
+def test_threaded_merge_equals_one_piece(tmp_path, monkeypatch):
+    """The largest table concatenated on a second thread beside the others (as on large
+    runs) gives the rows of a run in one piece."""
+    from corridor import partitions
+
+    monkeypatch.setattr(partitions, "MERGE_THREAD_ABOVE_VALUES", 0)
+    cfg = load_config(network.write(tmp_path, 200.0, 1000.0, seed=3))
+    inputs = read_inputs(cfg)
+    one = finalize(compute(cfg, inputs, asset_stages()), run_stages())
+    cfg2 = override_run(cfg, threads=2, partitions=5)
+    two = finalize(compute_local(cfg2, read_inputs(cfg2), asset_stages()), run_stages())
+    assert two.counts["partitions"] == 5
+    for name in TABLES:
+        _same(_table(one, name), _table(two, name), name)
+
+
 def test_auto_plan_bounds_partition_size(tmp_path, monkeypatch):
     """Large runs are cut into pieces of at most about LOCAL_SEGMENTS_PER_PARTITION
     segments whatever the thread count, so peak memory follows the partition size."""

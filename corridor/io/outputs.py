@@ -84,8 +84,9 @@ def _linestring_wkb(parts: np.ndarray):
     if n == 0:
         return None
     types = shapely.get_type_id(parts)
-    if not bool(np.all(types == 1)) or bool(np.any(shapely.has_z(parts))):
-        return None
+    if not bool(np.all(types == 1)) or not bool(
+            np.all(shapely.get_coordinate_dimension(parts) == 2)):
+        return None  # (a Z or M value: shapely writes those)
     counts = shapely.get_num_coordinates(parts)
     k = int(counts[0])
     if k < 2 or not bool(np.all(counts == k)):

@@ -116,18 +116,21 @@ def frame_digest(frame) -> bytes:
         column = frame[c]
         array = column.array
         if isinstance(column.dtype, GeometryDtype):
-            objects = np.asarray(array, dtype=object)
+            objects = np.ascontiguousarray(np.asarray(array, dtype=object))
             if len(objects):  # the object pointers, read without touching the objects
                 raw = (ctypes.c_char * objects.nbytes).from_address(objects.ctypes.data)
-                h.update(bytes(raw) if not objects.flags.c_contiguous else memoryview(raw))
+                h.update(memoryview(raw))
         elif isinstance(column.dtype, np.dtype) and column.dtype != object:
             h.update(np.ascontiguousarray(column.to_numpy()).view(np.uint8).data)
-        elif hasattr(array, "_pa_array"):  # Arrow-backed (text): its buffers
-            for chunk in array._pa_array.chunks:
-                h.update(f"{chunk.offset},{len(chunk)};".encode())
-                for buffer in chunk.buffers():
-                    if buffer is not None:
-                        h.update(memoryview(buffer))
+        elif hasattr(array, "_pa_array"):  # Arrow-backed (text): as an Arrow stream
+            import pyarrow as pa
+
+            values = array._pa_array
+            sink = pa.BufferOutputStream()  # the sliced ranges and any dictionary
+            with pa.ipc.new_stream(sink, pa.schema([("v", values.type)])) as stream:
+                for chunk in values.chunks:
+                    stream.write_batch(pa.record_batch([chunk], names=["v"]))
+            h.update(memoryview(sink.getvalue()))
         else:
             h.update(pickle.dumps(column.to_numpy(dtype=object).tolist(), protocol=5))
     return h.digest()
@@ -174,12 +177,17 @@ class EarlyLayers:
                 or not all(hasattr(t, "geometry") for t in first.values())
                 or not background.forking_available()):
             return
-        self.path.unlink(missing_ok=True)
-        self._handle = background.start(_write_first_layers, first, self.path, fork=True)
-        # the geometry objects stay alive, so their addresses mean the same objects later
-        self._held = [np.array(t.geometry.array, dtype=object, copy=True)
-                      for t in first.values() if t is not None]
-        self._digests = {name: frame_digest(t) for name, t in first.items()}
+        try:
+            self._remove_file()
+            self._handle = background.start(_write_first_layers, first, self.path, fork=True)
+            # the geometry objects stay alive, so their addresses mean the same objects
+            self._held = [np.array(t.geometry.array, dtype=object, copy=True)
+                          for t in first.values() if t is not None]
+            self._digests = {name: frame_digest(t) for name, t in first.items()}
+        except Exception:  # a speed-up only: the file is then written whole, as before
+            log.debug("no early GeoPackage writer", exc_info=True)
+            self.cancel()
+            return
         log.debug("the layers %s are being written by a forked process",
                   ", ".join(self.FIRST))
 
@@ -189,9 +197,13 @@ class EarlyLayers:
         if self._handle is None:
             return ()
         layers = result.layers()
-        same = (list(layers)[:len(self.FIRST)] == list(self.FIRST)
-                and all(layers[name] is not None and frame_digest(layers[name]) == digest
-                        for name, digest in self._digests.items()))
+        try:
+            same = (list(layers)[:len(self.FIRST)] == list(self.FIRST)
+                    and all(layers[name] is not None and frame_digest(layers[name]) == digest
+                            for name, digest in self._digests.items()))
+        except Exception:  # cannot tell: written whole
+            log.debug("the early GeoPackage layers could not be compared", exc_info=True)
+            same = False
         if same:
             return self.FIRST
         log.info("a run-wide step changed the segment or exposure table after ranking: the"
@@ -217,7 +229,12 @@ class EarlyLayers:
             self._handle.cancel()
             self._handle = None
             self._held = []
-            self.path.unlink(missing_ok=True)
+            self._remove_file()
+
+    def _remove_file(self) -> None:
+        """The file and any SQLite journal a stopped writer left beside it."""
+        for suffix in ("", "-journal", "-wal", "-shm"):
+            Path(f"{self.path}{suffix}").unlink(missing_ok=True)
 
 
 def hazards_view(hazards, segments, review_threshold: float) -> dict | None:

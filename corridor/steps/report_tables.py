@@ -76,7 +76,8 @@ def worst_rows(a_idx: np.ndarray, util: np.ndarray, chainage: np.ndarray,
         top = np.maximum.reduceat(key, starts)
         run = np.repeat(np.arange(len(starts)), np.diff(np.r_[starts, len(a_idx)]))
         cand = np.flatnonzero(key == top[run])
-        order = cand[np.lexsort((chainage[cand], run[cand]))]
+        # (a missing utilization after a real -inf, as a sort on -utilization puts it)
+        order = cand[np.lexsort((chainage[cand], np.isnan(util[cand]), run[cand]))]
         first = np.r_[True, run[order][1:] != run[order][:-1]]
         worst[heads[run[order][first]]] = order[first]
         return worst
