@@ -93,8 +93,9 @@ def _write_first_layers(layers: dict, path: Path) -> None:
 def frame_digest(frame) -> bytes:
     """SHA-256 of what a layer writes from a table: columns, types, CRS and every value.
 
-    Numeric and boolean columns are hashed from their memory, Arrow-backed text from
-    its Arrow buffers, other object columns from their pickled values; a geometry
+    Numeric and boolean columns are hashed from their memory, Arrow-backed columns as
+    an Arrow IPC stream (their sliced values and any dictionary), other object columns
+    from their pickled values; a geometry
     column from the addresses of its geometry objects (shapely geometries are
     immutable: the same objects are the same geometries). Used only to compare a
     table with itself later in one process while the geometry objects are held
