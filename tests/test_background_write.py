@@ -93,24 +93,30 @@ def test_demo_geopackage_forked_equals_inline(tmp_path, monkeypatch):
     rec = json.loads((tmp_path / "forked" / "run.json").read_text())
     assert rec["counts"]["gpkg_written_in_process"] == 1
     assert rec["timings_s"]["write_gpkg"] > 0
-    a, b = tmp_path / "inline" / "screening.gpkg", tmp_path / "forked" / "screening.gpkg"
-    names_a = [str(n) for n in pyogrio.list_layers(a)[:, 0]]
-    assert names_a == [str(n) for n in pyogrio.list_layers(b)[:, 0]]
-    for layer in names_a:
+    _assert_same_geopackage(tmp_path / "inline" / "screening.gpkg",
+                            tmp_path / "forked" / "screening.gpkg")
+
+
+def _assert_same_geopackage(a, b):
+    """Same layers in the same order, values, geometries, and the styles and field
+    descriptions added after the layers."""
+    import sqlite3
+
+    names = [str(n) for n in pyogrio.list_layers(a)[:, 0]]
+    assert names == [str(n) for n in pyogrio.list_layers(b)[:, 0]]
+    for layer in names:
         fa = pyogrio.read_dataframe(a, layer=layer)
         fb = pyogrio.read_dataframe(b, layer=layer)
-        # (the style table stamps each row with the time it was written)
-        drop = ["geometry", "update_time"]
+        drop = ["geometry", "update_time"]  # (style rows are stamped with their time)
         pd.testing.assert_frame_equal(pd.DataFrame(fa.drop(columns=drop, errors="ignore")),
                                       pd.DataFrame(fb.drop(columns=drop, errors="ignore")))
         if "geometry" in fa.columns:
             assert fa.geometry.geom_equals_exact(fb.geometry, 0.0).all()
-    # the styles and field descriptions the child adds after the layers
-    import sqlite3
 
     def styles(path):
         with sqlite3.connect(path) as con:
-            return sorted(con.execute("SELECT f_table_name, styleName FROM layer_styles"))
+            return sorted(con.execute("SELECT f_table_name, styleName, styleQML"
+                                      " FROM layer_styles"))
 
     assert styles(a) == styles(b) and styles(b)
 
@@ -139,24 +145,8 @@ def test_segments_written_early_equal_a_whole_write(tmp_path, monkeypatch):
     rec = json.loads((tmp_path / "early" / "run.json").read_text())
     assert rec["counts"]["gpkg_segments_early"] == 1
     a, b = tmp_path / "inline" / "screening.gpkg", tmp_path / "early" / "screening.gpkg"
-    names = [str(n) for n in pyogrio.list_layers(a)[:, 0]]
-    assert names == [str(n) for n in pyogrio.list_layers(b)[:, 0]]
-    for layer in names:
-        fa = pyogrio.read_dataframe(a, layer=layer)
-        fb = pyogrio.read_dataframe(b, layer=layer)
-        drop = ["geometry", "update_time"]  # (style rows are stamped with their time)
-        pd.testing.assert_frame_equal(pd.DataFrame(fa.drop(columns=drop, errors="ignore")),
-                                      pd.DataFrame(fb.drop(columns=drop, errors="ignore")))
-        if "geometry" in fa.columns:
-            assert fa.geometry.geom_equals_exact(fb.geometry, 0.0).all()
+    _assert_same_geopackage(a, b)
     import sqlite3
-
-    def styles(path):
-        with sqlite3.connect(path) as con:
-            return sorted(con.execute("SELECT f_table_name, styleName, styleQML"
-                                      " FROM layer_styles"))
-
-    assert styles(a) == styles(b) and styles(b)
 
     with sqlite3.connect(b) as con:  # the hazards view is on the early segments layer
         kinds = dict(con.execute("SELECT name, type FROM sqlite_master WHERE name IN"
