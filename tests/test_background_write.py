@@ -81,20 +81,33 @@ def _run(cfg, out):
 
 
 @needs_fork
-def test_demo_geopackage_forked_equals_inline(tmp_path, monkeypatch):
-    work = tmp_path / "w"
-    shutil.copytree(ROOT / "config", work / "config")
-    shutil.copytree(ROOT / "sample_layers", work / "sample_layers")
-    cfg = work / "config" / "demo.toml"
+@pytest.mark.parametrize("early", [False, True])
+def test_demo_geopackage_forked_equals_inline(tmp_path, monkeypatch, early):
+    """The GeoPackage written by a forked process, whole at the end (``early`` False) or
+    its segments layer from right after the ranking, beside the tables, CSV files and
+    report (``early`` True), is the file written on the run's own thread: same layers in
+    the same order, values and styles. Source: the output contract (README, Outputs)."""
+    from corridor import runner
+
+    cfg = _demo(tmp_path)
     monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 10**12)
     assert _run(cfg, tmp_path / "inline") == 0
     monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 0)
+    if not early:
+        monkeypatch.setattr(runner, "_early_layers", lambda *args: None)
     assert _run(cfg, tmp_path / "forked") == 0
     rec = json.loads((tmp_path / "forked" / "run.json").read_text())
     assert rec["counts"]["gpkg_written_in_process"] == 1
+    assert rec["counts"]["gpkg_segments_early"] == int(early)
     assert rec["timings_s"]["write_gpkg"] > 0
-    _assert_same_geopackage(tmp_path / "inline" / "screening.gpkg",
-                            tmp_path / "forked" / "screening.gpkg")
+    b = tmp_path / "forked" / "screening.gpkg"
+    _assert_same_geopackage(tmp_path / "inline" / "screening.gpkg", b)
+    import sqlite3
+
+    with sqlite3.connect(b) as con:  # the hazards view stands on the segments layer
+        kinds = dict(con.execute("SELECT name, type FROM sqlite_master WHERE name IN"
+                                 " ('segments', 'hazards')"))
+    assert kinds == {"segments": "table", "hazards": "view"}
 
 
 def _assert_same_geopackage(a, b):
@@ -130,28 +143,6 @@ def _demo(tmp_path):
 
 def _segments(path):
     return pd.DataFrame(pyogrio.read_dataframe(path, layer="segments").drop(columns="geometry"))
-
-
-@needs_fork
-def test_segments_written_early_equal_a_whole_write(tmp_path, monkeypatch):
-    """The segments layer started right after the ranking (beside the tables, CSV files
-    and report) gives the file a whole write gives: same layers in the same order, same
-    values, same styles. Source: the output contract (README, Outputs)."""
-    cfg = _demo(tmp_path)
-    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 10**12)
-    assert _run(cfg, tmp_path / "inline") == 0
-    monkeypatch.setattr(write_mod, "GPKG_PROCESS_ABOVE_ROWS", 0)
-    assert _run(cfg, tmp_path / "early") == 0
-    rec = json.loads((tmp_path / "early" / "run.json").read_text())
-    assert rec["counts"]["gpkg_segments_early"] == 1
-    a, b = tmp_path / "inline" / "screening.gpkg", tmp_path / "early" / "screening.gpkg"
-    _assert_same_geopackage(a, b)
-    import sqlite3
-
-    with sqlite3.connect(b) as con:  # the hazards view is on the early segments layer
-        kinds = dict(con.execute("SELECT name, type FROM sqlite_master WHERE name IN"
-                                 " ('segments', 'hazards')"))
-    assert kinds == {"segments": "table", "hazards": "view"}
 
 
 @needs_fork
